@@ -1,0 +1,33 @@
+# Two commands do all the set-up on a fresh machine (Python, pip, gcc, make):
+#   make demo   create .venv, generate the sample scenario, run the whole pipeline into demo/store
+#   make test   create .venv and run the test suite (ruff + pytest)
+PYTHON ?= python3
+VENV   ?= .venv
+PY     := $(VENV)/bin/python
+STAMP  := $(VENV)/.installed
+
+.PHONY: demo test lint bench clean
+
+$(STAMP): pyproject.toml
+	test -x $(PY) || $(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet -e ".[test]"
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(VENV)/bin/lakefeed demo demo
+
+test: $(STAMP)
+	$(VENV)/bin/ruff check src tests flows benchmarks
+	$(PY) -m pytest -q
+
+lint: $(STAMP)
+	$(VENV)/bin/ruff check src tests flows benchmarks
+	$(VENV)/bin/ruff format --check src tests flows benchmarks
+
+bench: $(STAMP)
+	$(PY) -m pip install --quiet -e ".[test,bench]"
+	$(PY) benchmarks/zonal.py
+
+clean:
+	rm -rf demo .pytest_cache

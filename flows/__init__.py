@@ -1,0 +1,1 @@
+"""Prefect flows: thin orchestration over lakefeed.stages (installed as lakefeed.flows)."""

@@ -1,0 +1,1 @@
+"""`lakefeed check` (not yet implemented)."""

@@ -1,0 +1,1 @@
+"""`lakefeed demo` (not yet implemented)."""

@@ -1,0 +1,1 @@
+"""`lakefeed features` (not yet implemented)."""

@@ -1,0 +1,1 @@
+"""`lakefeed forecast` (not yet implemented)."""

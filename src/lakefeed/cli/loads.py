@@ -1,0 +1,1 @@
+"""`lakefeed loads` (not yet implemented)."""

@@ -1,0 +1,1 @@
+"""`lakefeed onboard` (not yet implemented)."""

@@ -1,0 +1,1 @@
+"""`lakefeed query` (not yet implemented)."""

@@ -1,0 +1,1 @@
+"""`lakefeed report` (not yet implemented)."""

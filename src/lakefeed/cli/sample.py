@@ -1,0 +1,1 @@
+"""`lakefeed sample` (not yet implemented)."""

@@ -1,0 +1,1 @@
+"""`lakefeed scenes` (not yet implemented)."""

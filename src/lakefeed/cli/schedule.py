@@ -1,0 +1,1 @@
+"""`lakefeed schedule` (not yet implemented)."""

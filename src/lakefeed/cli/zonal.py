@@ -1,0 +1,1 @@
+"""`lakefeed zonal` (not yet implemented)."""

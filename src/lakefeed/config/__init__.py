@@ -1,0 +1,51 @@
+"""Configuration: YAML in, frozen validated pydantic models out.
+
+Takes YAML files; returns :class:`Project` objects (a lake with its sources). Only
+:mod:`lakefeed.config._load` touches files. The core never sees raw dicts or paths.
+"""
+
+from lakefeed.config._load import Project, load_lake, load_project, load_projects, load_sources
+from lakefeed.config.lake import (
+    AoiLayer,
+    FeatureOptions,
+    LakeConfig,
+    SensorConfig,
+    SubbasinLayer,
+    TargetOptions,
+    Threshold,
+    ZoneOptions,
+)
+from lakefeed.config.sources import (
+    WEATHER_ROLES,
+    Accumulation,
+    ForecastSource,
+    HydrologySource,
+    SampleStation,
+    SceneSource,
+    SourcesConfig,
+    WeatherSource,
+)
+
+__all__ = [
+    "WEATHER_ROLES",
+    "Accumulation",
+    "AoiLayer",
+    "FeatureOptions",
+    "ForecastSource",
+    "HydrologySource",
+    "LakeConfig",
+    "Project",
+    "SampleStation",
+    "SceneSource",
+    "SensorConfig",
+    "SourcesConfig",
+    "SubbasinLayer",
+    "TargetOptions",
+    "Threshold",
+    "WeatherSource",
+    "ZoneOptions",
+    "load_lake",
+    "load_project",
+    "load_projects",
+    "load_sources",
+]

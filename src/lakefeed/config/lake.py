@@ -1,0 +1,198 @@
+"""Configuration model of one lake: geometry, areas of interest, sensors, targets, features."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+from typing import Literal
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from pydantic import Field, field_validator, model_validator
+
+from lakefeed.config._base import LayerRef, StrictModel
+
+SLUG = re.compile(r"^[a-z0-9][a-z0-9_-]{0,62}$")
+
+
+class AoiLayer(LayerRef):
+    """Areas of interest: polygons inside the lake, each with a unique id in ``id_field``."""
+
+    id_field: str = "aoi_id"
+
+
+class SubbasinLayer(LayerRef):
+    """Sub-basin network: one polygon per sub-basin with its id and its downstream id.
+
+    ``lake_id``: the id used in ``downstream_field`` for "drains into the lake" (if any).
+    ``direct_inflows``: ids listed by hand as draining directly into the lake (optional).
+    ``outlet_field``: optional field with outlet point WKT; else outlets are not used.
+    """
+
+    id_field: str = "subbasin_id"
+    downstream_field: str = "downstream_id"
+    lake_id: str | None = None
+    direct_inflows: list[str] | None = None
+
+
+class ZoneOptions(StrictModel):
+    """Which zones get weather drivers and how partial grid coverage is treated."""
+
+    lake_surface: bool = True
+    aois: bool = True
+    catchment: bool = True
+    subbasins: bool = False
+    allow_partial_coverage: bool = False
+
+
+class SensorConfig(StrictModel):
+    """One satellite sensor (a user-defined label) and how its scenes are screened.
+
+    Units: ``shore_buffer_m`` metres; ``pixel_size_m`` metres; ``uncertainty`` is the relative
+    (fraction) 1-sigma uncertainty of a single AOI value when the scene has no uncertainty band.
+    """
+
+    pixel_size_m: float = Field(gt=0)
+    shore_buffer_m: float | None = Field(default=None, ge=0)
+    uncertainty: float = Field(default=0.3, gt=0)
+    reference: bool = False
+    bad_quality_bits: list[int] = Field(default_factory=list)
+    bad_quality_values: list[int] = Field(default_factory=list)
+
+    @property
+    def effective_shore_buffer_m(self) -> float:
+        """Inward shoreline buffer in metres: configured, else one pixel of the sensor."""
+        return self.pixel_size_m if self.shore_buffer_m is None else self.shore_buffer_m
+
+
+class TargetOptions(StrictModel):
+    """Acceptance and screening of chlorophyll-a scene statistics (units: mg m-3 for values)."""
+
+    min_valid_fraction: float = Field(default=0.5, ge=0, le=1)
+    min_valid_pixels: int = Field(default=5, ge=1)
+    max_cv: float = Field(default=1.0, gt=0)
+    valid_range: tuple[float, float] = (0.01, 1000.0)
+    outlier_window_days: int = Field(default=31, ge=3)
+    outlier_threshold: float = Field(default=3.5, gt=0)
+    matchup_window_days: int = Field(default=0, ge=0)
+    min_matchups: int = Field(default=10, ge=3)
+    bias_model: Literal["linear", "ratio"] = "ratio"
+
+
+class Threshold(StrictModel):
+    """A named chlorophyll-a level (mg m-3) whose exceedance is flagged in ``target_daily``.
+
+    Such flags inform; decisions on bathing and drinking water follow local regulations and
+    the responsible authority.
+    """
+
+    name: str
+    value: float = Field(gt=0)
+    description: str = ""
+
+    @field_validator("name")
+    @classmethod
+    def _slug(cls, v: str) -> str:
+        if not re.fullmatch(r"[a-z0-9_]+", v):
+            raise ValueError(f"threshold name {v!r} must be lower-case letters, digits, '_'")
+        return v
+
+
+Statistic = Literal["mean", "sum", "min", "max"]
+
+
+class FeatureOptions(StrictModel):
+    """Antecedent windows, leads, folds. Window lengths and embargo are in days."""
+
+    windows: list[int] = Field(default_factory=lambda: [1, 3, 5, 7, 10, 15, 30])
+    include_target_day: bool = False
+    max_missing_fraction: float = Field(default=0.2, ge=0, le=1)
+    drivers: dict[str, list[Statistic]] | None = None
+    leads: list[int] = Field(default_factory=lambda: [0])
+    forecast_leads: list[int] = Field(default_factory=lambda: [1, 3, 5, 10])
+    driver_zone: str = "lake"
+    folds: int = Field(default=5, ge=2)
+    fold_kind: Literal["blocked", "random"] = "blocked"
+    embargo_days: int = Field(default=0, ge=0)
+    min_observations: int = Field(default=140, ge=1)
+
+    @field_validator("windows")
+    @classmethod
+    def _positive_windows(cls, v: list[int]) -> list[int]:
+        bad = [w for w in v if w <= 0]
+        if bad:
+            raise ValueError(f"window lengths must be positive whole days; got {bad}")
+        if not v:
+            raise ValueError("at least one window length is needed")
+        return sorted(set(v))
+
+    @field_validator("leads", "forecast_leads")
+    @classmethod
+    def _non_negative(cls, v: list[int]) -> list[int]:
+        bad = [h for h in v if h < 0]
+        if bad:
+            raise ValueError(f"lead times must be >= 0 days; got {bad}")
+        return sorted(set(v))
+
+
+class LakeConfig(StrictModel):
+    """One lake or reservoir. Loaded from ``config/lake-<id>.yaml``."""
+
+    id: str
+    name: str
+    timezone: str
+    sources: Path
+    lake: LayerRef
+    aois: AoiLayer
+    subbasins: SubbasinLayer
+    zones: ZoneOptions = Field(default_factory=ZoneOptions)
+    sensors: dict[str, SensorConfig] = Field(default_factory=dict)
+    target: TargetOptions = Field(default_factory=TargetOptions)
+    thresholds: list[Threshold] = Field(default_factory=list)
+    features: FeatureOptions = Field(default_factory=FeatureOptions)
+
+    @field_validator("id")
+    @classmethod
+    def _slug(cls, v: str) -> str:
+        if not SLUG.fullmatch(v):
+            raise ValueError(
+                f"lake id {v!r} must be a plain slug: lower-case letters, digits, '-' or '_' "
+                "(no slashes, dots or spaces), starting with a letter or digit"
+            )
+        return v
+
+    @field_validator("timezone")
+    @classmethod
+    def _tz(cls, v: str) -> str:
+        try:
+            ZoneInfo(v)
+        except (ZoneInfoNotFoundError, ValueError) as err:
+            raise ValueError(
+                f"unknown time zone {v!r}; use an IANA name such as 'Europe/Berlin' or 'UTC'"
+            ) from err
+        return v
+
+    @model_validator(mode="after")
+    def _one_reference(self) -> LakeConfig:
+        refs = [k for k, s in self.sensors.items() if s.reference]
+        if len(refs) > 1:
+            raise ValueError(f"only one sensor may be the reference; got {refs}")
+        return self
+
+    @property
+    def reference_sensor(self) -> str | None:
+        """Label of the reference sensor, or None."""
+        refs = [k for k, s in self.sensors.items() if s.reference]
+        return refs[0] if refs else None
+
+
+__all__ = [
+    "AoiLayer",
+    "FeatureOptions",
+    "LakeConfig",
+    "SensorConfig",
+    "SubbasinLayer",
+    "TargetOptions",
+    "Threshold",
+    "ZoneOptions",
+]
+_ = Path

@@ -1,0 +1,173 @@
+"""Configuration model of the data sources (shared by the lakes that name this file).
+
+Paths may be globs; relative paths are relative to the YAML file; environment variables are
+expanded by the loader. Variables are found by CF ``standard_name`` first; ``variables``
+maps a canonical role to the file's variable name where the file has no standard_name.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Literal
+
+from pydantic import Field, model_validator
+
+from lakefeed.config._base import StrictModel
+
+#: Roles of the weather grid and the CF standard names that identify them, in order of preference.
+WEATHER_ROLES: dict[str, tuple[str, ...]] = {
+    "air_temperature": ("air_temperature",),
+    "dewpoint_temperature": ("dew_point_temperature",),
+    "eastward_wind": ("eastward_wind",),
+    "northward_wind": ("northward_wind",),
+    "shortwave_radiation": (
+        "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air",
+        "surface_downwelling_shortwave_flux_in_air",
+    ),
+    "precipitation": (
+        "lwe_thickness_of_precipitation_amount",
+        "precipitation_amount",
+        "precipitation_flux",
+    ),
+}
+
+
+class Accumulation(StrictModel):
+    """How a field is accumulated in the file.
+
+    - ``none``: instantaneous or mean over the step ending at the stamp;
+    - ``since_reset``: running total since ``reset_hour`` (UTC); the value stamped at the reset
+      hour is the total of the previous period;
+    - ``per_step``: total over the step ending at the stamp.
+    """
+
+    kind: Literal["none", "since_reset", "per_step"] = "none"
+    reset_hour: int = Field(default=0, ge=0, le=23)
+
+
+class WeatherSource(StrictModel):
+    """Hourly gridded reanalysis (CF NetCDF files, a glob of them, or a Zarr store)."""
+
+    paths: list[str]
+    variables: dict[str, str] = Field(default_factory=dict)
+    units: dict[str, str] = Field(default_factory=dict)
+    accumulation: dict[str, Accumulation] = Field(default_factory=dict)
+    time_zone: str = "UTC"
+
+
+class HydrologySource(StrictModel):
+    """Per-sub-basin daily model outputs.
+
+    ``format``: ``dsg`` (CF discrete-sampling-geometry timeSeries NetCDF), ``wide_csv``
+    (``date`` column plus one column per sub-basin; one file per variable, given in
+    ``files``) or ``long`` (columns date, subbasin, variable, value; CSV or Parquet).
+    ``variables`` maps roles (``discharge``, ``tn``, ``tp``, ...) to names in the file.
+    ``units`` declares units where the file carries none (required for CSV).
+    ``discharge_kind``: ``routed`` (outflow of the sub-basin including upstream) or
+    ``local`` (runoff generated in the sub-basin alone).
+    """
+
+    format: Literal["dsg", "wide_csv", "long"] = "dsg"
+    path: str | None = None
+    files: dict[str, str] = Field(default_factory=dict)
+    variables: dict[str, str] = Field(
+        default_factory=lambda: {"discharge": "discharge", "tn": "tn", "tp": "tp"}
+    )
+    units: dict[str, str] = Field(default_factory=dict)
+    discharge_kind: Literal["routed", "local"] = "routed"
+    nutrients: list[str] = Field(default_factory=lambda: ["tn", "tp"])
+
+    @model_validator(mode="after")
+    def _where(self) -> HydrologySource:
+        if self.format == "wide_csv" and not self.files:
+            raise ValueError("format 'wide_csv' needs 'files' (one CSV per variable role)")
+        if self.format != "wide_csv" and not self.path:
+            raise ValueError(f"format {self.format!r} needs 'path'")
+        return self
+
+
+class SampleStation(StrictModel):
+    """Sparse measured concentrations at a tributary station.
+
+    ``path``: CSV with ``date``, one column per nutrient (or ``concentration`` with
+    ``nutrient``) and optional ``censored``; ``subbasin``: the sub-basin whose model discharge
+    is the station's daily flow (or ``flow_path``: CSV with date, discharge in m3 s-1).
+    """
+
+    id: str
+    path: str
+    subbasin: str | None = None
+    flow_path: str | None = None
+    units: str = "mg L-1"
+    method: Literal["interpolation", "rating_curve", "beale", "fwmc"] = "rating_curve"
+    rating_correction: Literal["duan", "ferguson"] = "duan"
+    rating_seasonal: bool = False
+    rating_trend: bool = False
+    min_samples: dict[str, int] = Field(
+        default_factory=lambda: {"interpolation": 12, "rating_curve": 30, "beale": 20, "fwmc": 12}
+    )
+
+
+class SceneSource(StrictModel):
+    """Chlorophyll-a scenes: a STAC catalog/collection file, a folder of STAC Item JSON, or a
+    folder of GeoTIFFs named by ``filename_pattern`` (regex with named groups ``date`` and
+    ``sensor``, optionally ``time``).
+    """
+
+    catalog: str | None = None
+    folder: str | None = None
+    filename_pattern: str | None = None
+    asset: str | None = None
+    quality_asset: str | None = "quality"
+    uncertainty_asset: str | None = "uncertainty"
+    sensor_property: Literal["platform", "constellation", "instruments"] = "constellation"
+    sensor_map: dict[str, str] = Field(default_factory=dict)
+    units: str = "mg m-3"
+
+    @model_validator(mode="after")
+    def _one_kind(self) -> SceneSource:
+        if (self.catalog is None) == (self.folder is None):
+            raise ValueError("give exactly one of 'catalog' (STAC) or 'folder' (GeoTIFFs)")
+        if self.folder is not None and not self.filename_pattern:
+            raise ValueError("a GeoTIFF 'folder' needs 'filename_pattern' with groups date, sensor")
+        return self
+
+
+class ForecastSource(StrictModel):
+    """Archived weather forecasts: CF NetCDF with forecast_reference_time and forecast_period."""
+
+    paths: list[str]
+    variables: dict[str, str] = Field(default_factory=dict)
+    units: dict[str, str] = Field(default_factory=dict)
+    accumulation: dict[str, Accumulation] = Field(default_factory=dict)
+    min_overlap_days: int = Field(default=365, ge=30)
+    month_window: int = Field(default=1, ge=0, le=2)
+    wet_day_threshold_mm: float = Field(default=0.1, ge=0)
+    max_factor: float = Field(default=5.0, gt=1)
+    quantiles: int = Field(default=50, ge=5)
+    lead_groups: list[list[int]] | None = None
+
+
+class SourcesConfig(StrictModel):
+    """All data sources. Every section is optional: stages without a source are skipped."""
+
+    weather: WeatherSource | None = None
+    hydrology: HydrologySource | None = None
+    samples: list[SampleStation] = Field(default_factory=list)
+    scenes: SceneSource | None = None
+    forecast: ForecastSource | None = None
+    store: str | None = None
+    dask_address: str | None = None
+
+
+__all__ = [
+    "WEATHER_ROLES",
+    "Accumulation",
+    "ForecastSource",
+    "HydrologySource",
+    "SampleStation",
+    "SceneSource",
+    "SourcesConfig",
+    "WeatherSource",
+]
+_ = Path

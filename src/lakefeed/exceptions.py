@@ -1,0 +1,60 @@
+"""Errors and warnings raised by lakefeed.
+
+Every error is a :class:`LakefeedError`; each stage of the data flow has its own subclass.
+Messages say what failed, show the offending value, and say what to do about it, e.g.::
+
+    SourceError: weather grid 'era_2024-01.nc': no variable with standard_name
+    'air_temperature' and no mapping in sources.yaml weather.variables.air_temperature.
+    Add the file's variable name under that key.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "ConfigError",
+    "ExtractError",
+    "FeatureError",
+    "GeometryError",
+    "LakefeedError",
+    "LakefeedWarning",
+    "SourceError",
+    "StoreError",
+]
+
+
+class LakefeedError(Exception):
+    """Root of all lakefeed errors."""
+
+
+class ConfigError(LakefeedError):
+    """The configuration is invalid. ``problems`` lists every problem found, not only the first."""
+
+    def __init__(self, message: str, problems: list[str] | None = None) -> None:
+        self.problems = list(problems or [])
+        if self.problems:
+            message = message + "\n" + "\n".join(f"  - {p}" for p in self.problems)
+        super().__init__(message)
+
+
+class SourceError(LakefeedError):
+    """A raw input (grid, table, scene, layer) is missing, unreadable or inconsistent."""
+
+
+class GeometryError(LakefeedError):
+    """Lake, AOI, sub-basin network or zone geometry is invalid or inconsistent."""
+
+
+class ExtractError(LakefeedError):
+    """A computation on extracted data found the data contradicting what was declared."""
+
+
+class FeatureError(LakefeedError):
+    """Feature tables cannot be built as configured."""
+
+
+class StoreError(LakefeedError):
+    """The store cannot be read or written safely."""
+
+
+class LakefeedWarning(UserWarning):
+    """A result was produced, but something about it deserves the user's attention."""

@@ -1,0 +1,1 @@
+"""geometry stage (see DESIGN.md)."""

@@ -1,0 +1,1 @@
+"""Deterministic generator of the invented sample scenario."""
