@@ -23,9 +23,26 @@ def show_versions() -> str:
 
     lines = [f"lakefeed: {__version__}", f"python: {platform.python_version()}", f"platform: {platform.platform()}"]
     for name in (
-        "numpy", "pandas", "xarray", "dask", "distributed", "geopandas", "shapely", "pyproj",
-        "rasterio", "rioxarray", "netCDF4", "pyarrow", "duckdb", "prefect", "prefect-dask",
-        "pydantic", "pint", "cf-xarray", "networkx", "scipy",
+        "numpy",
+        "pandas",
+        "xarray",
+        "dask",
+        "distributed",
+        "geopandas",
+        "shapely",
+        "pyproj",
+        "rasterio",
+        "rioxarray",
+        "netCDF4",
+        "pyarrow",
+        "duckdb",
+        "prefect",
+        "prefect-dask",
+        "pydantic",
+        "pint",
+        "cf-xarray",
+        "networkx",
+        "scipy",
     ):
         try:
             lines.append(f"{name}: {version(name)}")

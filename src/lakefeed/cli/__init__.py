@@ -17,7 +17,20 @@ from lakefeed import __version__, show_versions
 from lakefeed.cli._app import app, err_console
 from lakefeed.exceptions import LakefeedError
 
-_COMMANDS = ("check", "sample", "demo", "zonal", "loads", "scenes", "features", "query", "forecast", "onboard", "schedule", "report")
+_COMMANDS = (
+    "check",
+    "sample",
+    "demo",
+    "zonal",
+    "loads",
+    "scenes",
+    "features",
+    "query",
+    "forecast",
+    "onboard",
+    "schedule",
+    "report",
+)
 for _name in _COMMANDS:
     importlib.import_module(f"lakefeed.cli.{_name}")
 

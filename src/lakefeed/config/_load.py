@@ -24,7 +24,9 @@ from lakefeed.exceptions import ConfigError
 
 __all__ = ["Project", "expand_env", "load_lake", "load_project", "load_projects", "load_sources"]
 
-_ENV = re.compile(r"\$(?:\{(?P<braced>[A-Za-z_][A-Za-z0-9_]*)(?::-(?P<default>[^}]*))?\}|(?P<bare>[A-Za-z_][A-Za-z0-9_]*))")
+_ENV = re.compile(
+    r"\$(?:\{(?P<braced>[A-Za-z_][A-Za-z0-9_]*)(?::-(?P<default>[^}]*))?\}|(?P<bare>[A-Za-z_][A-Za-z0-9_]*))"
+)
 
 
 @dataclass(frozen=True)
@@ -55,8 +57,7 @@ def expand_env(text: str, *, where: str = "") -> str:
         if m.group("default") is not None:
             return m.group("default")
         raise ConfigError(
-            f"{where}: environment variable {name!r} is not set; set it or write "
-            f"${{{name}:-default}} in the config"
+            f"{where}: environment variable {name!r} is not set; set it or write ${{{name}:-default}} in the config"
         )
 
     return _ENV.sub(repl, text)

@@ -166,9 +166,7 @@ class LakeConfig(StrictModel):
         try:
             ZoneInfo(v)
         except (ZoneInfoNotFoundError, ValueError) as err:
-            raise ValueError(
-                f"unknown time zone {v!r}; use an IANA name such as 'Europe/Berlin' or 'UTC'"
-            ) from err
+            raise ValueError(f"unknown time zone {v!r}; use an IANA name such as 'Europe/Berlin' or 'UTC'") from err
         return v
 
     @model_validator(mode="after")

@@ -70,9 +70,7 @@ class HydrologySource(StrictModel):
     format: Literal["dsg", "wide_csv", "long"] = "dsg"
     path: str | None = None
     files: dict[str, str] = Field(default_factory=dict)
-    variables: dict[str, str] = Field(
-        default_factory=lambda: {"discharge": "discharge", "tn": "tn", "tp": "tp"}
-    )
+    variables: dict[str, str] = Field(default_factory=lambda: {"discharge": "discharge", "tn": "tn", "tp": "tp"})
     units: dict[str, str] = Field(default_factory=dict)
     discharge_kind: Literal["routed", "local"] = "routed"
     nutrients: list[str] = Field(default_factory=lambda: ["tn", "tp"])

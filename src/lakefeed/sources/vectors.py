@@ -83,6 +83,9 @@ def read_layer(ref: LayerRef | str | Path, *, what: str, id_field: str | None = 
         )
         fixed = shapely.make_valid(gdf.geometry.values[invalid])
         # keep only the polygonal part of the repair
-        fixed = [shapely.union_all([p for p in shapely.get_parts(g) if p.geom_type in ("Polygon", "MultiPolygon")]) for g in fixed]
+        fixed = [
+            shapely.union_all([p for p in shapely.get_parts(g) if p.geom_type in ("Polygon", "MultiPolygon")])
+            for g in fixed
+        ]
         gdf.loc[invalid, gdf.geometry.name] = fixed
     return gdf

@@ -101,7 +101,9 @@ class Store:
         if lake is not None:
             path = Path(partition_path(self.root, table, lake)) / PART
             if not path.exists():
-                raise StoreError(f"table {table!r} has no partition for lake {lake!r} in {self.root}; run the stage first")
+                raise StoreError(
+                    f"table {table!r} has no partition for lake {lake!r} in {self.root}; run the stage first"
+                )
             t = pq.read_table(path)
             frame = t.to_pandas()
             frame.insert(0, "lake", lake)
