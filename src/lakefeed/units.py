@@ -96,16 +96,33 @@ def factor(from_unit: str, to_unit: str) -> float:
         raise SourceError(f"cannot convert {from_unit!r} to {to_unit!r}: {err}") from err
 
 
-def convert(values: Any, from_unit: str, to_unit: str, *, molar_mass_g_per_mol: float | None = None) -> Any:
+def convert(
+    values: Any,
+    from_unit: str,
+    to_unit: str,
+    *,
+    molar_mass_g_per_mol: float | None = None,
+    water_equivalent: bool = False,
+) -> Any:
     """Convert ``values`` (scalar, numpy, dask or xarray) from one unit to another.
 
     Offset units (K to degC) are handled. Lazy inputs stay lazy: the conversion is
     computed on a scalar and applied as ``a * x + b``. For molar concentrations
-    (``mmol m-3``) to mass concentrations give ``molar_mass_g_per_mol``.
+    (``mmol m-3``) to mass concentrations give ``molar_mass_g_per_mol``. With
+    ``water_equivalent=True`` a mass of water per area (``kg m-2``, or a flux
+    ``kg m-2 s-1``) converts to a depth (``mm``, ``mm d-1``) through the density of
+    liquid water, 1000 kg m-3 (common practice for precipitation).
     """
     src, dst = parse_unit(from_unit), parse_unit(to_unit)
     if src == dst:
         return values
+    if water_equivalent and src.dimensionality != dst.dimensionality:
+        density = ureg.Quantity(1000.0, "kg m-3")
+        try:
+            a = float((ureg.Quantity(1.0, src) / density).to(dst).magnitude)
+        except pint.DimensionalityError as err:
+            raise SourceError(f"cannot convert {from_unit!r} to {to_unit!r} as liquid water equivalent") from err
+        return values * a
     if molar_mass_g_per_mol is not None and src.dimensionality != dst.dimensionality:
         mm = ureg.Quantity(molar_mass_g_per_mol, "g/mol")
         q0 = (ureg.Quantity(0.0, src) * mm).to(dst).magnitude

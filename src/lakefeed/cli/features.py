@@ -1,1 +1,79 @@
-"""`lakefeed features` (not yet implemented)."""
+"""`lakefeed features CONFIG... [--store DIR]`: build feature tables and print the sampling diagnostics.
+
+Parses arguments, loads the lake configurations and calls :func:`lakefeed.stages.features.build_features`
+for each lake; prints the diagnostics as a rich table. Holds no science.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+import typer
+from rich.table import Table
+
+from lakefeed.cli._app import app, console
+from lakefeed.config import Project, load_projects
+from lakefeed.exceptions import ConfigError
+from lakefeed.stages.features import build_features
+from lakefeed.store import Store
+
+__all__ = ["diagnostics_table", "features", "store_for"]
+
+
+def store_for(project: Project, store: str | None) -> Store:
+    """The store given on the command line, else ``store:`` of the project's sources.yaml."""
+    root = store or project.sources.store
+    if not root:
+        raise ConfigError(
+            f"{project.sources_file}: no store given; pass --store DIR or set 'store:' in the sources configuration"
+        )
+    return Store(root)
+
+
+def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
+    """A rich table of sampling diagnostics (one row per lake and AOI)."""
+    t = Table(title=title, show_lines=False)
+    for col, just in (("lake", "left"), ("aoi", "left"), ("obs", "right"), ("DJF/MAM/JJA/SON", "right"),
+                      ("median gap d", "right"), ("longest gap d", "right"), ("months covered", "right"),
+                      ("warnings", "left")):  # fmt: skip
+        t.add_column(col, justify=just, overflow="fold")
+    for _, r in diag.iterrows():
+        seasons = "/".join(str(int(r[f"n_obs_{s}"])) for s in ("djf", "mam", "jja", "son"))
+        gap_max = "-" if pd.isna(r["gap_max_days"]) else f"{r['gap_max_days']:.0f}"
+        if pd.notna(r["longest_gap_start"]):
+            gap_max += f" ({pd.Timestamp(r['longest_gap_start']).date()}..{pd.Timestamp(r['longest_gap_end']).date()})"
+        t.add_row(
+            str(r.get("lake", "")),
+            str(r["aoi"]),
+            str(int(r["n_obs"])),
+            seasons,
+            "-" if pd.isna(r["gap_median_days"]) else f"{r['gap_median_days']:.0f}",
+            gap_max,
+            f"{r['coverage_fraction']:.0%}",
+            f"[yellow]{r['warnings']}[/]" if r["warnings"] else "ok",
+        )
+    return t
+
+
+@app.command("features")
+def features(
+    configs: list[Path] = typer.Argument(..., help="Lake configuration files or folders of them."),
+    store: str | None = typer.Option(None, "--store", help="Store folder or fsspec URL [default: sources.yaml store]."),
+) -> None:
+    """Build point-in-time feature tables, folds and sampling diagnostics; print the diagnostics."""
+    projects = load_projects(list(configs))
+    for project in projects:
+        st = store_for(project, store)
+        result = build_features(project, st)
+        if result.skipped:
+            console.print(f"[yellow]{project.id}: features skipped[/]: {result.reason}")
+            continue
+        console.print(
+            f"{project.id}: features {result.tables.get('features', 0)} rows, "
+            f"diagnostics {result.tables.get('diagnostics', 0)} rows -> {st.url}"
+        )
+        diag = st.read_table("diagnostics", project.id)
+        console.print(diagnostics_table(diag, title=f"Sampling diagnostics: {project.lake.name}"))
+        for w in result.warnings:
+            console.print(f"[yellow]warning:[/] {w}", highlight=False)

@@ -1,1 +1,126 @@
-"""`lakefeed loads` (not yet implemented)."""
+"""`lakefeed loads --samples S.csv --flow F.csv`: every load estimator side by side.
+
+Thin layer over :func:`lakefeed.sources.samples.read_samples` / :func:`read_flow` and
+:func:`lakefeed.extract.load_estimation.compare_methods`. Prints one row per method: total
+load over the flow record (kg), mean daily load (kg d-1), uncertainty, sample count, warnings.
+With ``--out`` writes the chosen method's daily loads (``date, load, lower, upper, method``;
+kg d-1) or, for period estimators (Beale, flow-weighted mean), one row per period
+(``start, end, [stratum,] days, n_samples, load_kg, mean_kg_d, se_kg, lower_kg, upper_kg, method``).
+CSV unless the file name ends in ``.parquet``.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from pathlib import Path
+
+import pandas as pd
+import typer
+from rich.markup import escape
+from rich.table import Table
+
+from lakefeed.cli._app import app, console, err_console
+from lakefeed.exceptions import ExtractError, LakefeedWarning, SourceError
+from lakefeed.extract.load_estimation import METHODS, LoadEstimate, compare_methods
+from lakefeed.sources.samples import read_flow, read_samples
+
+__all__ = ["loads", "to_output_frame"]
+
+
+def _fmt(x: float, digits: int = 4) -> str:
+    return "missing" if x is None or (isinstance(x, float) and math.isnan(x)) else f"{x:,.{digits}g}"
+
+
+def to_output_frame(est: LoadEstimate) -> pd.DataFrame:
+    """The rows ``--out`` writes: daily loads, or one row per period for period estimators."""
+    if est.kind == "period":
+        frame = est.periods.copy()
+        frame["start"] = frame["start"].dt.strftime("%Y-%m-%d")
+        frame["end"] = frame["end"].dt.strftime("%Y-%m-%d")
+    else:
+        frame = est.daily.rename_axis("date").reset_index()
+        frame["date"] = frame["date"].dt.strftime("%Y-%m-%d")
+    frame["method"] = est.method
+    return frame
+
+
+@app.command("loads")
+def loads(
+    samples: Path = typer.Option(..., "--samples", help="CSV: date, concentration (mg L-1), optional censored."),
+    flow: Path = typer.Option(..., "--flow", help="CSV: date, discharge (m3 s-1), daily."),
+    method: str = typer.Option("rating_curve", "--method", help=f"Method written by --out: {', '.join(METHODS)}."),
+    out: Path | None = typer.Option(None, "--out", help="Write the chosen method's loads (.csv or .parquet)."),
+    nutrient: str | None = typer.Option(None, "--nutrient", help="Which nutrient, when the samples hold several."),
+    period: str = typer.Option("year", "--period", help="Period rows of period estimators: year or record."),
+    seasonal: bool = typer.Option(False, "--seasonal", help="Rating curve: add seasonal sine/cosine terms."),
+    trend: bool = typer.Option(False, "--trend", help="Rating curve: add a linear trend term."),
+    units: str = typer.Option("mg L-1", "--units", help="Unit of the sample concentrations."),
+) -> None:
+    """Estimate a tributary's load from sparse samples and daily flow by every method, side by side.
+
+    Censored samples (below detection; the value is the detection limit) count as half the limit.
+    Duplicate sample dates are averaged (with a warning); samples outside the flow record are an error.
+    """
+    if method not in METHODS:
+        raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHODS)}")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", LakefeedWarning)
+        table = read_samples(samples, units=units)
+        q = read_flow(flow)
+    for w in caught:
+        err_console.print(f"[yellow]warning:[/] {escape(str(w.message))}", highlight=False)
+    names = sorted(table["nutrient"].unique())
+    if nutrient is None and len(names) > 1:
+        raise SourceError(f"samples {samples}: several nutrients {names}; choose one with --nutrient")
+    chosen = nutrient.lower() if nutrient else names[0]
+    part = table[table["nutrient"] == chosen]
+    if part.empty:
+        raise SourceError(f"samples {samples}: no samples of nutrient {chosen!r}; nutrients are {names}")
+    results = compare_methods(part, q, period=period, seasonal=seasonal, trend=trend)
+    title = (
+        f"Loads from {len(part)} samples and {len(q)} days of flow "
+        f"({q.index[0]:%Y-%m-%d}..{q.index[-1]:%Y-%m-%d})" + (f", {chosen}" if len(names) > 1 or nutrient else "")
+    )
+    done = [e for e in results.values() if isinstance(e, LoadEstimate)]
+    common = set.intersection(*(set(e.warnings) for e in done)) if done else set()
+    grid = Table(title=escape(title), show_lines=True)
+    for col, just in (
+        ("method", "left"),
+        ("total (kg)", "right"),
+        ("mean (kg d-1)", "right"),
+        ("SE (kg)", "right"),
+        ("95 % interval (kg)", "right"),
+        ("warnings", "left"),
+    ):
+        grid.add_column(col, justify=just)
+    for name, est in results.items():
+        label = f"[bold]{name}[/]" if name == method else name
+        if isinstance(est, ExtractError):
+            grid.add_row(label, "-", "-", "-", "-", f"[red]{escape(str(est))}[/]")
+            continue
+        own = [w for w in est.warnings if w not in common]
+        warn = "\n".join(f"- {escape(w)}" for w in own) or "[green]-[/]"
+        se = _fmt(est.se_kg, 4) + (" (boot)" if est.uncertainty.startswith("bootstrap") else "")
+        interval = "missing" if math.isnan(est.lower_kg) else f"{_fmt(est.lower_kg, 5)} - {_fmt(est.upper_kg, 5)}"
+        grid.add_row(label, _fmt(est.total_kg, 6), _fmt(est.mean_kg_d, 5), se, interval, warn)
+    console.print(grid)
+    for w in sorted(common):
+        console.print(f"[yellow]all methods:[/] {escape(w)}", highlight=False)
+    console.print(
+        "SE: standard error of the total (delta method for the rating curve, root MSE for Beale, bootstrap "
+        "standard deviation where marked); interval: +-1.96 SE, or bootstrap 2.5-97.5 percentiles. "
+        "Censored values counted as half the detection limit.",
+        highlight=False,
+    )
+    if out is not None:
+        est = results[method]
+        if isinstance(est, ExtractError):
+            raise est
+        frame = to_output_frame(est)
+        out.parent.mkdir(parents=True, exist_ok=True)
+        if out.suffix.lower() == ".parquet":
+            frame.to_parquet(out, index=False)
+        else:
+            frame.to_csv(out, index=False, float_format="%.6g")
+        console.print(f"wrote {len(frame)} row(s) of {est.method} to {escape(str(out))}", highlight=False)

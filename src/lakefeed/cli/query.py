@@ -1,1 +1,45 @@
-"""`lakefeed query` (not yet implemented)."""
+"""`lakefeed query "SQL" [--store DIR] [--csv]`: SQL over the store through DuckDB.
+
+Every store table is a view by its name (Hive-partitioned, so ``lake`` is a column), e.g.
+``lakefeed query "SELECT aoi, count(*) FROM features GROUP BY aoi" --store store``. Prints a rich
+table, or CSV with ``--csv``. Holds no science; never writes to the store.
+"""
+
+from __future__ import annotations
+
+import sys
+
+import typer
+from rich.table import Table
+
+from lakefeed.cli._app import app, console
+from lakefeed.exceptions import StoreError
+from lakefeed.store import Store, query
+
+__all__ = ["query_command"]
+
+
+@app.command("query")
+def query_command(
+    sql: str = typer.Argument(..., help="SQL; store tables are views by name (features, diagnostics, ...)."),
+    store: str = typer.Option("store", "--store", help="Store folder or fsspec URL."),
+    csv: bool = typer.Option(False, "--csv", help="Print CSV instead of a table."),
+    limit: int = typer.Option(200, "--max-rows", min=1, help="Rows shown in the table view (CSV prints all)."),
+) -> None:
+    """Run SQL over the store's tables through DuckDB."""
+    st = Store(store)
+    if not st.tables():
+        st.manifest()
+        raise StoreError(f"store {store!r} holds no tables; build some first (e.g. lakefeed demo DIR)")
+    frame = query(st, sql)
+    if csv:
+        frame.to_csv(sys.stdout, index=False)
+        return
+    table = Table(title=f"{len(frame)} row(s)")
+    for c in frame.columns:
+        table.add_column(str(c), justify="right" if frame[c].dtype.kind in "iuf" else "left")
+    for row in frame.head(limit).itertuples(index=False):
+        table.add_row(*("" if v is None else str(v) for v in row))
+    console.print(table)
+    if len(frame) > limit:
+        console.print(f"({len(frame) - limit} more rows; use --csv to see all)")

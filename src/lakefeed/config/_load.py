@@ -18,11 +18,12 @@ from typing import Any
 import yaml
 from pydantic import BaseModel, ValidationError
 
+from lakefeed.config._yaml import KeyLines, line_of, read_yaml
 from lakefeed.config.lake import LakeConfig
 from lakefeed.config.sources import SourcesConfig
 from lakefeed.exceptions import ConfigError
 
-__all__ = ["Project", "expand_env", "load_lake", "load_project", "load_projects", "load_sources"]
+__all__ = ["Project", "expand_env", "find_lake_files", "load_lake", "load_project", "load_projects", "load_sources"]
 
 _ENV = re.compile(
     r"\$(?:\{(?P<braced>[A-Za-z_][A-Za-z0-9_]*)(?::-(?P<default>[^}]*))?\}|(?P<bare>[A-Za-z_][A-Za-z0-9_]*))"
@@ -64,21 +65,8 @@ def expand_env(text: str, *, where: str = "") -> str:
 
 
 def _read_yaml(path: Path) -> dict[str, Any]:
-    if not path.exists():
-        raise ConfigError(f"config file not found: {path}; check the path (relative paths start at the current folder)")
-    try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except yaml.MarkedYAMLError as err:
-        mark = err.problem_mark
-        line = f" line {mark.line + 1}, column {mark.column + 1}" if mark else ""
-        raise ConfigError(f"{path}:{line}: YAML syntax error: {err.problem}; fix the YAML there") from err
-    except yaml.YAMLError as err:
-        raise ConfigError(f"{path}: YAML error: {err}") from err
-    if data is None:
-        raise ConfigError(f"{path}: the file is empty; see config/ for an example")
-    if not isinstance(data, dict):
-        raise ConfigError(f"{path}: the top level must be a mapping of keys, got {type(data).__name__}")
-    return data
+    """Parse a YAML mapping (see :func:`lakefeed.config._yaml.read_yaml`)."""
+    return read_yaml(path)[0]
 
 
 def _fields_at(model: type[BaseModel], loc: tuple[Any, ...]) -> list[str]:
@@ -91,7 +79,7 @@ def _fields_at(model: type[BaseModel], loc: tuple[Any, ...]) -> list[str]:
             return []
         field = current.model_fields.get(str(part))
         if field is None:
-            return []
+            continue  # a key of a dict of models (e.g. a sensor label): stay on the same model
         current = _inner_model(field.annotation)
         if current is None:
             return []
@@ -110,11 +98,14 @@ def _inner_model(annotation: Any) -> type[BaseModel] | None:
     return None
 
 
-def _problems(err: ValidationError, model: type[BaseModel], path: Path) -> list[str]:
+def _problems(err: ValidationError, model: type[BaseModel], path: Path, lines: KeyLines | None = None) -> list[str]:
     out = []
     for e in err.errors():
         loc = tuple(e["loc"])
         key = ".".join(str(p) for p in loc) or "(top level)"
+        line = line_of(lines or {}, loc)
+        if line is not None:
+            key = f"{key} (line {line})"
         if e["type"] == "extra_forbidden":
             allowed = _fields_at(model, loc)
             guess = difflib.get_close_matches(str(loc[-1]), allowed, n=1)
@@ -124,7 +115,9 @@ def _problems(err: ValidationError, model: type[BaseModel], path: Path) -> list[
             out.append(f"{path}: {key}: required key is missing")
         else:
             msg = e["msg"].removeprefix("Value error, ")
-            out.append(f"{path}: {key}: {msg} (got {e.get('input')!r})")
+            got = e.get("input")
+            shown = "" if isinstance(got, dict | list) else f" (got {got!r})"
+            out.append(f"{path}: {key}: {msg}{shown}")
     return out
 
 
@@ -143,7 +136,7 @@ def _resolve_paths(data: Any, base: Path, where: str, problems: list[str], key: 
         last = key.rsplit(".", 1)[-1].split("[")[0]
         if last in _PATH_KEYS and "://" not in value:
             p = Path(value).expanduser()
-            value = str(p if p.is_absolute() else (base / p))
+            value = os.path.normpath(p if p.is_absolute() else (base / p))
         return value
     return data
 
@@ -156,27 +149,29 @@ def _resolve_file_maps(data: dict[str, Any], base: Path) -> None:
     hyd = data.get("hydrology")
     if isinstance(hyd, dict) and isinstance(hyd.get("files"), dict):
         hyd["files"] = {
-            k: str(Path(v) if Path(v).is_absolute() else base / v) if isinstance(v, str) else v
+            k: os.path.normpath(Path(v) if Path(v).is_absolute() else base / v) if isinstance(v, str) else v
             for k, v in hyd["files"].items()
         }
 
 
-def _validate(model: type[BaseModel], data: dict[str, Any], path: Path, problems: list[str]) -> Any:
+def _validate(
+    model: type[BaseModel], data: dict[str, Any], path: Path, problems: list[str], lines: KeyLines | None = None
+) -> Any:
     try:
         return model.model_validate(data)
     except ValidationError as err:
-        problems.extend(_problems(err, model, path))
+        problems.extend(_problems(err, model, path, lines))
         return None
 
 
 def load_sources(path: str | Path) -> SourcesConfig:
     """Load and validate a sources YAML file. Raises :class:`ConfigError` listing all problems."""
     path = Path(path).resolve()
-    data = _read_yaml(path)
+    data, lines = read_yaml(path, what="sources config")
     problems: list[str] = []
     data = _resolve_paths(data, path.parent, str(path), problems)
     _resolve_file_maps(data, path.parent)
-    model = _validate(SourcesConfig, data, path, problems)
+    model = _validate(SourcesConfig, data, path, problems, lines)
     if problems:
         raise ConfigError(f"{path}: {len(problems)} problem(s) in the sources configuration", problems)
     return model
@@ -185,17 +180,38 @@ def load_sources(path: str | Path) -> SourcesConfig:
 def load_lake(path: str | Path) -> LakeConfig:
     """Load and validate a lake YAML file. Raises :class:`ConfigError` listing all problems."""
     path = Path(path).resolve()
-    data = _read_yaml(path)
+    data, lines = read_yaml(path, what="lake config")
     problems: list[str] = []
     data = _resolve_paths(data, path.parent, str(path), problems)
-    model = _validate(LakeConfig, data, path, problems)
+    model = _validate(LakeConfig, data, path, problems, lines)
     if problems:
         raise ConfigError(f"{path}: {len(problems)} problem(s) in the lake configuration", problems)
     return model
 
 
+def _sources_path_of(lake_path: Path) -> Path | None:
+    """The sources file a lake YAML names, read leniently (for reporting when the lake config is invalid)."""
+    try:
+        data, _ = read_yaml(lake_path)
+    except ConfigError:
+        return None
+    raw = data.get("sources")
+    if not isinstance(raw, str):
+        return None
+    try:
+        raw = expand_env(raw)
+    except ConfigError:
+        return None
+    p = Path(raw).expanduser()
+    return p if p.is_absolute() else lake_path.parent / p
+
+
 def load_project(lake_path: str | Path) -> Project:
-    """Load a lake config and the sources file it names (``sources:`` key)."""
+    """Load a lake config and the sources file it names (``sources:`` key).
+
+    Both files are validated even when the other one has problems, so that every problem
+    is reported at once. Raises :class:`ConfigError` listing them, each with file and key path.
+    """
     lake_path = Path(lake_path).resolve()
     problems: list[str] = []
     lake = sources = None
@@ -203,33 +219,54 @@ def load_project(lake_path: str | Path) -> Project:
         lake = load_lake(lake_path)
     except ConfigError as err:
         problems.extend(err.problems or [str(err)])
-    if lake is not None:
-        try:
-            sources = load_sources(lake.sources)
-        except ConfigError as err:
-            problems.extend(err.problems or [str(err)])
+    sources_path = Path(lake.sources) if lake is not None else _sources_path_of(lake_path)
+    if sources_path is not None:
+        if not sources_path.exists():
+            problems.append(
+                f"{lake_path}: sources: sources config not found: {sources_path}; "
+                "fix the 'sources' key (relative paths start at the lake config's folder)"
+            )
+        else:
+            try:
+                sources = load_sources(sources_path)
+            except ConfigError as err:
+                problems.extend(err.problems or [str(err)])
     if problems or lake is None or sources is None:
         raise ConfigError(f"{lake_path}: the configuration has {len(problems)} problem(s)", problems)
     return Project(lake=lake, sources=sources, lake_file=lake_path, sources_file=Path(lake.sources))
 
 
+def find_lake_files(paths: list[str | Path]) -> list[Path]:
+    """Lake config files among ``paths`` (files, or folders searched for ``*.yaml``/``*.yml``).
+
+    In a folder, a YAML file is taken as a lake config unless all its top-level keys are keys
+    of the sources config (so a misspelt lake file is still checked and its problems shown).
+    Files named directly are always taken, even if missing (the loader then reports that).
+    """
+    source_keys = set(SourcesConfig.model_fields)
+    files: list[Path] = []
+    for p in map(Path, paths):
+        if not p.is_dir():
+            files.append(p)
+            continue
+        for f in sorted([*p.glob("*.yaml"), *p.glob("*.yml")]):
+            try:
+                data = yaml.safe_load(f.read_text(encoding="utf-8"))
+            except (yaml.YAMLError, OSError, UnicodeDecodeError):
+                files.append(f)
+                continue
+            if isinstance(data, dict) and data and set(data) <= source_keys:
+                continue
+            files.append(f)
+    return files
+
+
 def load_projects(paths: list[str | Path]) -> list[Project]:
     """Load several lake configs (files or folders of ``*.yaml`` lake files); all problems at once.
 
-    In a folder, files whose top level has an ``id`` key are lake configs; others are skipped.
-    Duplicate lake ids are an error.
+    Folders are searched as :func:`find_lake_files` says. Duplicate lake ids are an error.
     """
-    files: list[Path] = []
-    for p in map(Path, paths):
-        if p.is_dir():
-            for f in sorted(p.glob("*.y*ml")):
-                try:
-                    if "id" in (yaml.safe_load(f.read_text(encoding="utf-8")) or {}):
-                        files.append(f)
-                except yaml.YAMLError:
-                    files.append(f)
-        else:
-            files.append(p)
+    files = find_lake_files(paths)
     problems: list[str] = []
     projects: list[Project] = []
     for f in files:

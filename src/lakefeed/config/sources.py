@@ -9,8 +9,9 @@ from __future__ import annotations
 
 from pathlib import Path
 from typing import Literal
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from pydantic import Field, model_validator
+from pydantic import Field, field_validator, model_validator
 
 from lakefeed.config._base import StrictModel
 
@@ -53,6 +54,15 @@ class WeatherSource(StrictModel):
     units: dict[str, str] = Field(default_factory=dict)
     accumulation: dict[str, Accumulation] = Field(default_factory=dict)
     time_zone: str = "UTC"
+
+    @field_validator("time_zone")
+    @classmethod
+    def _known_tz(cls, v: str) -> str:
+        try:
+            ZoneInfo(v)
+        except (ZoneInfoNotFoundError, ValueError) as err:
+            raise ValueError(f"unknown time zone {v!r}; use an IANA name such as 'UTC' or 'Europe/Berlin'") from err
+        return v
 
 
 class HydrologySource(StrictModel):

@@ -1,1 +1,44 @@
-"""features stage (see DESIGN.md)."""
+"""Features: antecedent windows on irregular target dates, lead-time-aware rows, persistence
+baseline, sampling diagnostics and cross-validation folds.
+
+Pure: takes pandas/numpy, returns pandas/numpy; no file I/O, no Prefect. The store stage
+(:mod:`lakefeed.stages.features`) reads and writes the tables.
+"""
+
+from lakefeed.features.diagnostics import sampling_diagnostics
+from lakefeed.features.folds import EMBARGOED, assign_folds, blocked_folds, random_folds
+from lakefeed.features.incremental import refresh_feature_rows, refresh_start
+from lakefeed.features.pit import FLAG_CODES, build_feature_rows, calendar_features, forecast_array, persistence
+from lakefeed.features.windows import (
+    STATISTICS,
+    WindowPlan,
+    default_statistics,
+    feature_name,
+    gather_windows,
+    reduce_windows,
+    to_daily,
+    window_features,
+)
+
+__all__ = [
+    "EMBARGOED",
+    "FLAG_CODES",
+    "STATISTICS",
+    "WindowPlan",
+    "assign_folds",
+    "blocked_folds",
+    "build_feature_rows",
+    "calendar_features",
+    "default_statistics",
+    "feature_name",
+    "forecast_array",
+    "gather_windows",
+    "persistence",
+    "random_folds",
+    "reduce_windows",
+    "refresh_feature_rows",
+    "refresh_start",
+    "sampling_diagnostics",
+    "to_daily",
+    "window_features",
+]

@@ -1,11 +1,28 @@
 """The Parquet store: tables with units and provenance; atomic, idempotent, incremental.
 
 Takes pandas DataFrames and writes ``<store>/<table>/lake=<id>/part-0.parquet`` (Hive
-partitioning; readable by pyarrow.dataset, pandas, DuckDB and Spark); reads them back with
-their units. Must not compute any science.
+partitioning; readable by pyarrow.dataset, pandas, DuckDB and Spark) on a local folder or any
+fsspec URL, with a manifest (``_manifest.json``: schema version, package version, config hash,
+input content hashes, time range per table) and a writer lock; reads them back with their
+units. Must not compute any science.
 """
 
-from lakefeed.store._parquet import Store, read_units
+from lakefeed.store._fs import file_digest
+from lakefeed.store._manifest import SCHEMA_VERSION
+from lakefeed.store._parquet import Store, read_descriptions, read_units
 from lakefeed.store.layout import TABLES, partition_path, table_path
+from lakefeed.store.query import connect, load_features, query
 
-__all__ = ["TABLES", "Store", "partition_path", "read_units", "table_path"]
+__all__ = [
+    "SCHEMA_VERSION",
+    "TABLES",
+    "Store",
+    "connect",
+    "file_digest",
+    "load_features",
+    "partition_path",
+    "query",
+    "read_descriptions",
+    "read_units",
+    "table_path",
+]

@@ -1,23 +1,42 @@
-"""Parquet I/O of store tables with per-column units in the Arrow schema metadata."""
+"""Parquet I/O of store tables with per-column units, a manifest, a writer lock and atomic replace.
+
+Takes pandas DataFrames; writes ``<store>/<table>/lake=<id>/part-0.parquet`` (Hive
+partitioning, readable unchanged by pyarrow.dataset, pandas, DuckDB and Spark) on a local
+folder or any fsspec URL; reads them back with their units in ``frame.attrs['units']``.
+Must not compute any science.
+
+Writes are atomic: the file is written aside (a dot-file, which pyarrow.dataset and the
+store's globs ignore) and moved into place (``os.replace`` locally; ``fs.mv`` elsewhere,
+atomic only where the filesystem's rename is). A crash leaves the previous version intact.
+Writes are idempotent: the same frame gives the same bytes. One writer at a time per store
+(:func:`lakefeed.store._lock.store_lock`).
+"""
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import uuid
-from collections.abc import Mapping
-from pathlib import Path
+from collections.abc import Iterator, Mapping, Sequence
+from contextlib import contextmanager
+from typing import Any
 
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
 from lakefeed.exceptions import StoreError
+from lakefeed.store._fs import file_digest, is_local, resolve
+from lakefeed.store._lock import store_lock
+from lakefeed.store._manifest import read_manifest, write_manifest
 from lakefeed.store.layout import partition_path, table_path
 
-__all__ = ["Store", "read_units"]
+__all__ = ["PART", "Store", "read_units"]
 
 PART = "part-0.parquet"
+#: Candidate time columns for a table's time range in the manifest, in order of preference.
+TIME_COLUMNS = ("target_date", "date", "time", "issue_date")
 
 
 def _schema_with_units(
@@ -33,8 +52,10 @@ def _schema_with_units(
         fields.append(f.with_metadata(md or None))
     meta = dict(table.schema.metadata or {})
     meta[b"lakefeed.units"] = json.dumps(dict(units), sort_keys=True).encode()
+    if descriptions:
+        meta[b"lakefeed.descriptions"] = json.dumps(dict(descriptions), sort_keys=True).encode()
     for k, v in extra.items():
-        meta[f"lakefeed.{k}".encode()] = v.encode()
+        meta[f"lakefeed.{k}".encode()] = str(v).encode()
     return pa.schema(fields, metadata=meta)
 
 
@@ -47,18 +68,87 @@ def read_units(schema: pa.Schema) -> dict[str, str]:
     return out
 
 
+def read_descriptions(schema: pa.Schema) -> dict[str, str]:
+    """Per-column descriptions stored in a schema (field metadata ``description``)."""
+    return {
+        f.name: f.metadata[b"description"].decode() for f in schema if f.metadata and b"description" in f.metadata
+    }
+
+
+def _time_range(frame: pd.DataFrame, time_column: str | None) -> tuple[str | None, list[str | None]]:
+    col = time_column or next((c for c in TIME_COLUMNS if c in frame.columns), None)
+    if col is None or col not in frame.columns or len(frame) == 0:
+        return col, [None, None]
+    t = pd.to_datetime(frame[col], errors="coerce")
+    if t.notna().sum() == 0:
+        return col, [None, None]
+    return col, [t.min().isoformat(), t.max().isoformat()]
+
+
 class Store:
-    """A lakefeed store rooted at a local folder.
+    """A lakefeed store rooted at a local folder or an fsspec URL (``s3://bucket/store``, ``memory://x``).
 
     Parameters
     ----------
     root
-        Folder of the store (created on first write).
+        Folder or URL of the store (created on first write).
+    lock_timeout
+        Seconds a writer waits for another writer on the same store before giving up.
+    storage_options
+        Passed to fsspec (credentials etc. for remote filesystems).
+
+    Examples
+    --------
+    >>> store = Store("/tmp/lakefeed-store")  # doctest: +SKIP
+    >>> store.write_table("features", "tallow", frame, units={"chla": "mg m-3"})  # doctest: +SKIP
     """
 
-    def __init__(self, root: str | os.PathLike[str]) -> None:
-        self.root = str(root)
+    def __init__(
+        self,
+        root: str | os.PathLike[str],
+        *,
+        lock_timeout: float = 300.0,
+        storage_options: dict[str, Any] | None = None,
+    ) -> None:
+        self.url = str(root)
+        self.fs, self.path = resolve(root, storage_options)
+        self.local = is_local(self.fs)
+        self.root = self.path if self.local else self.url.rstrip("/")
+        self.lock_timeout = lock_timeout
 
+    def __repr__(self) -> str:
+        return f"Store({self.url!r})"
+
+    # -- locking and manifest ---------------------------------------------------------------
+    def _ensure_root(self) -> None:
+        try:
+            if self.fs.exists(self.path) and not self.fs.isdir(self.path):
+                raise StoreError(f"store path {self.url!r} is a file, not a folder; choose a folder for the store")
+            self.fs.makedirs(self.path, exist_ok=True)
+            if self.local and not os.access(self.path, os.W_OK):
+                raise PermissionError(f"no write permission on {self.path}")
+        except (OSError, PermissionError) as err:
+            raise StoreError(
+                f"store path {self.url!r} is not writable ({err}); choose a folder you can write to "
+                "(--store DIR or 'store:' in sources.yaml) or fix its permissions"
+            ) from err
+
+    @contextmanager
+    def lock(self) -> Iterator[None]:
+        """Hold the store's writer lock (re-entrant); a second writer waits, then refuses."""
+        self._ensure_root()
+        with store_lock(self.fs, self.path, timeout=self.lock_timeout):
+            yield
+
+    def manifest(self) -> dict[str, Any]:
+        """The store's manifest (schema version, package version, per-table provenance)."""
+        return read_manifest(self.fs, self.path)
+
+    def entry(self, table: str, lake: str) -> dict[str, Any] | None:
+        """Manifest entry of one table partition, or None."""
+        return self.manifest().get("tables", {}).get(table, {}).get(lake)
+
+    # -- writing ----------------------------------------------------------------------------
     def write_table(
         self,
         table: str,
@@ -68,61 +158,142 @@ class Store:
         units: Mapping[str, str] | None = None,
         descriptions: Mapping[str, str] | None = None,
         metadata: Mapping[str, str] | None = None,
+        inputs: Mapping[str, str] | Sequence[str] | None = None,
+        config_hash: str | None = None,
+        time_column: str | None = None,
     ) -> str:
-        """Atomically replace the partition of ``lake`` in ``table`` with ``frame``.
+        """Atomically replace the partition of ``lake`` in ``table`` with ``frame``; record it in the manifest.
 
-        The file is written aside and moved into place with ``os.replace``; a reader never
-        sees half a table and a crash leaves the previous version intact. The ``lake``
-        column is not stored in the file (it is the Hive partition key). Returns the path.
+        Parameters
+        ----------
+        frame
+            The rows; a ``lake`` column is dropped (it is the Hive partition key).
+        units, descriptions
+            Per-column unit strings and descriptions, stored in the Arrow field metadata.
+        metadata
+            Extra table-level key/values (schema metadata ``lakefeed.<key>`` and the manifest).
+        inputs
+            Input files: either {path or URL: sha256} or a list of paths to hash.
+        config_hash
+            Hash of the configuration that produced the table.
+        time_column
+            Column giving the table's time range (default: the first of target_date, date, time).
+
+        Returns
+        -------
+        str
+            Path (or URL) of the written file.
         """
         frame = frame.drop(columns=["lake"], errors="ignore").reset_index(drop=True)
+        frame.attrs = {}
         arrow = pa.Table.from_pandas(frame, preserve_index=False)
         arrow = arrow.cast(_schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
-        part_dir = Path(partition_path(self.root, table, lake))
-        try:
-            part_dir.mkdir(parents=True, exist_ok=True)
-        except OSError as err:
-            raise StoreError(f"store {self.root!r} is not writable ({err}); choose a writable folder") from err
-        final = part_dir / PART
-        tmp = part_dir.parent / f".tmp-{lake}-{uuid.uuid4().hex}.parquet"
-        try:
-            pq.write_table(arrow, tmp)
-            os.replace(tmp, final)
-        except OSError as err:
-            tmp.unlink(missing_ok=True)
-            raise StoreError(f"could not write {final}: {err}") from err
-        return str(final)
+        part_dir = partition_path(self.path, table, lake)
+        final = f"{part_dir}/{PART}"
+        with self.lock():
+            manifest = self.manifest()
+            tmp = f"{table_path(self.path, table)}/.tmp-{lake}-{uuid.uuid4().hex}.parquet"
+            try:
+                self.fs.makedirs(part_dir, exist_ok=True)
+                with self.fs.open(tmp, "wb") as f:
+                    pq.write_table(arrow, f)
+                digest = self._digest(tmp)
+                if self.local:
+                    os.replace(tmp, final)
+                else:
+                    self.fs.mv(tmp, final)
+            except BaseException as err:
+                try:
+                    if self.fs.exists(tmp):
+                        self.fs.rm(tmp)
+                except OSError:
+                    pass
+                if isinstance(err, OSError):
+                    raise StoreError(f"could not write {final}: {err}; the previous version is unchanged") from err
+                raise
+            col, trange = _time_range(frame, time_column)
+            if isinstance(inputs, Mapping):
+                hashes = dict(inputs)
+            else:
+                hashes = {str(p): file_digest(p) for p in (inputs or [])}
+            manifest.setdefault("tables", {}).setdefault(table, {})[lake] = {
+                "rows": len(frame),
+                "columns": list(frame.columns),
+                "time_column": col,
+                "time_range": trange,
+                "config_hash": config_hash,
+                "inputs": dict(sorted(hashes.items())),
+                "content_hash": digest,
+                "metadata": dict(metadata or {}),
+            }
+            write_manifest(self.fs, self.path, manifest, local=self.local)
+        return final if self.local else self._url(final)
 
-    def read_table(self, table: str, lake: str | None = None) -> pd.DataFrame:
-        """Read a table (one lake, or all lakes with a ``lake`` column) as pandas.
+    def _digest(self, path: str) -> str:
+        h = hashlib.sha256()
+        with self.fs.open(path, "rb") as f:
+            while block := f.read(1 << 20):
+                h.update(block)
+        return h.hexdigest()
 
-        Units are in ``frame.attrs['units']``.
+    def _url(self, path: str) -> str:
+        return self.fs.unstrip_protocol(path)
+
+    # -- reading ----------------------------------------------------------------------------
+    def lakes(self, table: str) -> list[str]:
+        """Lake ids with a partition of ``table``."""
+        root = table_path(self.path, table)
+        if not self.fs.exists(root):
+            return []
+        out = []
+        for p in self.fs.ls(root, detail=False):
+            name = p.rstrip("/").rsplit("/", 1)[-1]
+            if name.startswith("lake=") and self.fs.exists(f"{p.rstrip('/')}/{PART}"):
+                out.append(name.split("=", 1)[1])
+        return sorted(out)
+
+    def tables(self) -> list[str]:
+        """Tables present in the store."""
+        if not self.fs.exists(self.path):
+            return []
+        names = [p.rstrip("/").rsplit("/", 1)[-1] for p in self.fs.ls(self.path, detail=False)]
+        return sorted(n for n in names if not n.startswith((".", "_")) and self.lakes(n))
+
+    def part_file(self, table: str, lake: str) -> str:
+        """Path of a partition's Parquet file (as the store's filesystem names it)."""
+        return f"{partition_path(self.path, table, lake)}/{PART}"
+
+    def read_arrow(self, table: str, lake: str, *, columns: Sequence[str] | None = None) -> pa.Table:
+        """One lake's partition as an Arrow table (schema metadata with units kept)."""
+        self.manifest()  # refuses newer schema versions
+        path = self.part_file(table, lake)
+        if not self.fs.exists(path):
+            raise StoreError(f"table {table!r} has no partition for lake {lake!r} in {self.url}; run the stage first")
+        with self.fs.open(path, "rb") as f:
+            return pq.read_table(f, columns=list(columns) if columns else None)
+
+    def read_table(self, table: str, lake: str | None = None, *, columns: Sequence[str] | None = None) -> pd.DataFrame:
+        """Read a table (one lake, or all lakes) as pandas with a ``lake`` column first.
+
+        Units are in ``frame.attrs['units']``, descriptions in ``frame.attrs['descriptions']``.
         """
-        if lake is not None:
-            path = Path(partition_path(self.root, table, lake)) / PART
-            if not path.exists():
-                raise StoreError(
-                    f"table {table!r} has no partition for lake {lake!r} in {self.root}; run the stage first"
-                )
-            t = pq.read_table(path)
-            frame = t.to_pandas()
-            frame.insert(0, "lake", lake)
-        else:
-            root = Path(table_path(self.root, table))
-            parts = sorted(root.glob("lake=*/" + PART))
-            if not parts:
-                raise StoreError(f"table {table!r} not found in {self.root}; run the stage first")
-            frames = []
-            t = None
-            for p in parts:
-                t = pq.read_table(p)
-                f = t.to_pandas()
-                f.insert(0, "lake", p.parent.name.split("=", 1)[1])
-                frames.append(f)
-            frame = pd.concat(frames, ignore_index=True)
-        frame.attrs["units"] = read_units(t.schema)
+        lakes = [lake] if lake is not None else self.lakes(table)
+        if not lakes:
+            self.manifest()
+            raise StoreError(f"table {table!r} not found in {self.url}; run the stage first")
+        frames, units, descr = [], {}, {}
+        for lk in lakes:
+            t = self.read_arrow(table, lk, columns=columns)
+            units.update(read_units(t.schema))
+            descr.update(read_descriptions(t.schema))
+            f = t.to_pandas()
+            f.insert(0, "lake", lk)
+            frames.append(f)
+        frame = frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)
+        frame.attrs["units"] = units
+        frame.attrs["descriptions"] = descr
         return frame
 
     def has_table(self, table: str, lake: str) -> bool:
         """True when ``table`` has a partition for ``lake``."""
-        return (Path(partition_path(self.root, table, lake)) / PART).exists()
+        return bool(self.fs.exists(self.part_file(table, lake)))

@@ -1,0 +1,124 @@
+"""Open sources cheaply for the checks: globbing, lazy xarray opening, coordinates, periods.
+
+Takes paths and patterns from the config; returns file lists, lazily opened datasets
+(metadata and coordinates only: data variables are never read) and small summaries. Must
+not load data variables or write anything.
+"""
+
+from __future__ import annotations
+
+import glob
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from lakefeed.exceptions import SourceError
+
+__all__ = ["Period", "expand", "find_coord", "lonlat_bounds", "open_lazy", "time_period"]
+
+
+@dataclass(frozen=True)
+class Period:
+    """A closed time interval (naive UTC timestamps)."""
+
+    start: pd.Timestamp
+    end: pd.Timestamp
+
+    def __str__(self) -> str:
+        return f"{self.start:%Y-%m-%d} .. {self.end:%Y-%m-%d}"
+
+
+def expand(patterns: Sequence[str], *, key: str) -> tuple[list[Path], list[str]]:
+    """Files matching each pattern (globs expanded, sorted); problems name ``key[i]`` for patterns matching nothing."""
+    files: list[Path] = []
+    problems: list[str] = []
+    for i, pat in enumerate(patterns):
+        hits = sorted(glob.glob(pat)) if glob.has_magic(pat) else ([pat] if Path(pat).exists() else [])
+        if not hits:
+            what = "no file matches" if glob.has_magic(pat) else "file not found:"
+            problems.append(f"{key}[{i}]: {what} {pat}")
+        files += [Path(h) for h in hits]
+    return files, problems
+
+
+@contextmanager
+def open_lazy(path: Path) -> Iterator[xr.Dataset]:
+    """Open a NetCDF file or Zarr store lazily (no data variable is read) and close it afterwards."""
+    try:
+        zarr = path.is_dir() and ((path / ".zgroup").exists() or (path / "zarr.json").exists())
+        if path.suffix == ".zarr" or zarr:
+            ds = xr.open_zarr(path, decode_timedelta=True)
+        else:
+            ds = xr.open_dataset(path, decode_timedelta=True, cache=False)
+    except Exception as err:
+        raise SourceError(f"cannot open {path}: {type(err).__name__}: {err}; is it CF NetCDF or Zarr?") from err
+    try:
+        yield ds
+    finally:
+        ds.close()
+
+
+_NAMES = {
+    "latitude": ("latitude", "lat", "nav_lat"),
+    "longitude": ("longitude", "lon", "nav_lon"),
+    "time": ("time", "valid_time"),
+    "forecast_reference_time": ("forecast_reference_time", "reference_time", "init_time", "issue_time"),
+    "forecast_period": ("forecast_period", "lead_time", "lead", "step", "leadtime"),
+}
+_UNITS = {"latitude": ("degrees_north", "degree_north", "degree_N"), "longitude": ("degrees_east", "degree_east")}
+
+
+def find_coord(ds: xr.Dataset, what: str) -> xr.DataArray | None:
+    """A variable/coordinate by CF standard_name, then by units (lat/lon), then by common name."""
+    cands = [*ds.coords.values(), *ds.data_vars.values()]
+    for v in cands:
+        if v.attrs.get("standard_name") == what:
+            return v
+    for v in cands:
+        if v.attrs.get("units") in _UNITS.get(what, ()):
+            return v
+    for name in _NAMES.get(what, (what,)):
+        if name in ds.variables:
+            return ds[name]
+    return None
+
+
+def lonlat_bounds(ds: xr.Dataset) -> tuple[float, float, float, float] | None:
+    """Grid extent (west, south, east, north) in degrees, cell edges included (half a step beyond centres)."""
+    lat, lon = find_coord(ds, "latitude"), find_coord(ds, "longitude")
+    if lat is None or lon is None:
+        return None
+    la, lo = np.asarray(lat.values, dtype=float), np.asarray(lon.values, dtype=float)
+
+    def edges(a: np.ndarray) -> tuple[float, float]:
+        if a.ndim == 1 and a.size > 1:
+            half = float(np.nanmax(np.abs(np.diff(a)))) / 2
+        else:
+            half = 0.0
+        return float(np.nanmin(a)) - half, float(np.nanmax(a)) + half
+
+    s, n = edges(la)
+    w, e = edges(lo)
+    return w, s, e, n
+
+
+def time_period(values: np.ndarray | xr.DataArray) -> Period | None:
+    """First and last time of a coordinate (None if empty or not time-like)."""
+    arr = np.asarray(values)
+    if arr.size == 0:
+        return None
+    try:
+        t = pd.DatetimeIndex(pd.to_datetime(arr.ravel()))
+    except (TypeError, ValueError):
+        return None
+    if t.tz is not None:
+        t = t.tz_convert("UTC").tz_localize(None)
+    t = t[~t.isna()]
+    if len(t) == 0:
+        return None
+    return Period(t.min(), t.max())

@@ -1,0 +1,123 @@
+"""Run every cheap check for one or more lake configs.
+
+Takes lake YAML files or folders; returns one :class:`LakeReport` per lake config with its
+:class:`CheckResult` lines, in the order the data flows (config, geometry, weather,
+hydrology, samples, scenes, forecast, time coverage). Sources that are not configured are
+reported as skipped. Opens sources for metadata only; never writes anything.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from lakefeed.checks._open import Period
+from lakefeed.checks._result import CheckResult, failed, guarded, passed, skipped
+from lakefeed.checks.coverage import check_coverage
+from lakefeed.checks.geometry import check_geometry
+from lakefeed.checks.grids import check_forecast, check_weather
+from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
+from lakefeed.config import Project, find_lake_files, load_project
+from lakefeed.exceptions import ConfigError
+
+__all__ = ["LakeReport", "check_paths", "check_project"]
+
+
+@dataclass
+class LakeReport:
+    """The check lines of one lake config file."""
+
+    lake_file: Path
+    lake_id: str | None = None
+    results: list[CheckResult] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        """True when no line is a problem."""
+        return all(r.ok for r in self.results)
+
+    def count(self, status: str) -> int:
+        """Number of lines with ``status``."""
+        return sum(r.status == status for r in self.results)
+
+
+def check_project(project: Project) -> list[CheckResult]:
+    """All source checks for a loaded project (the config itself already validated)."""
+    lake, src = project.lake, project.sources
+    results: list[CheckResult] = [
+        passed("config", f"{project.lake_file.name} and {project.sources_file.name} are valid"),
+        passed("lake id", f"{lake.id!r} is a plain slug"),
+        passed("time zone", f"{lake.timezone} is a known IANA time zone"),
+    ]
+    geo, layers = check_geometry(lake)
+    results += geo
+    zones = {"lake": layers.lake, "catchment": layers.catchment(lake.subbasins.id_field)}
+    periods: dict[str, Period | None] = {}
+
+    def run(name: str, key: str, fn) -> None:  # noqa: ANN001 - small local helper
+        holder: dict[str, Period | None] = {}
+
+        def body() -> list[CheckResult]:
+            res, holder["period"] = fn()
+            return res
+
+        results.extend(guarded(name, body))
+        periods[key] = holder.get("period")
+
+    run("weather", "weather", lambda: check_weather(src.weather, zones))
+    if layers.subbasins is not None:
+        ids = layers.subbasins[lake.subbasins.id_field].astype(str).tolist()
+        net = layers.network
+        required = net.catchment if net is not None and net.lake_known and net.catchment else ids
+        run("hydrology", "hydrology", lambda: check_hydrology(src.hydrology, required_ids=required))
+    elif src.hydrology is not None:
+        results.append(skipped("hydrology ids", "needs the sub-basin layer"))
+        ids = []
+        run("hydrology", "hydrology", lambda: check_hydrology(src.hydrology, required_ids=[]))
+    else:
+        ids = []
+        run("hydrology", "hydrology", lambda: check_hydrology(None, required_ids=[]))
+    run("samples", "samples", lambda: check_samples(src.samples, subbasin_ids=ids))
+    run("scenes", "scenes", lambda: check_scenes(src.scenes, lake))
+    run("forecast", "forecast issues", lambda: check_forecast(src.forecast, zones))
+    results += check_coverage(periods)
+    return results
+
+
+def _check_file(lake_file: Path) -> LakeReport:
+    report = LakeReport(lake_file=lake_file)
+    try:
+        project = load_project(lake_file)
+    except ConfigError as err:
+        problems = err.problems or [str(err)]
+        report.results = [failed("config", p, "fix it in the file named") for p in problems]
+        report.results.append(skipped("sources", "not opened: fix the configuration first"))
+        return report
+    report.lake_id = project.id
+    report.results = check_project(project)
+    return report
+
+
+def check_paths(paths: Sequence[str | Path]) -> list[LakeReport]:
+    """Check every lake config among ``paths`` (files, or folders holding lake YAML files).
+
+    Returns
+    -------
+    list of LakeReport
+        One per lake config file, in order; a lake id used twice is a problem of the second.
+    """
+    files = find_lake_files(list(paths))
+    if not files:
+        report = LakeReport(lake_file=Path(str(paths[0])) if paths else Path("."))
+        report.results = [failed("config", f"no lake configuration found in {[str(p) for p in paths]}", "")]
+        return [report]
+    reports = [_check_file(f.resolve()) for f in files]
+    seen: dict[str, Path] = {}
+    for r in reports:
+        if r.lake_id is None:
+            continue
+        if r.lake_id in seen:
+            r.results.insert(0, failed("lake id", f"lake id {r.lake_id!r} is also used by {seen[r.lake_id]}", ""))
+        seen.setdefault(r.lake_id, r.lake_file)
+    return reports

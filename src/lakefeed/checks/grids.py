@@ -1,0 +1,283 @@
+"""Cheap checks of the gridded weather reanalysis and the forecast archive.
+
+Takes the sources config sections and the lake/catchment layers; opens the files lazily
+with xarray (coordinates and attributes only) and returns :class:`CheckResult` lines: files
+present, variables found (by CF standard_name via :data:`WEATHER_ROLES`, else the config's
+``variables`` mapping) with units convertible to the expected ones (through
+:mod:`lakefeed.units`), lake and catchment inside the grid extent (compared in lon/lat;
+0..360 longitudes handled), forecast reference time and lead dimension. Also returns each
+source's period for the coverage check. Must not read data variables or write anything.
+"""
+
+from __future__ import annotations
+
+import difflib
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import geopandas as gpd
+import pandas as pd
+import xarray as xr
+
+from lakefeed.checks._open import Period, expand, find_coord, lonlat_bounds, open_lazy, time_period
+from lakefeed.checks._result import CheckResult, failed, passed, skipped, warned
+from lakefeed.config import WEATHER_ROLES, Accumulation, ForecastSource, WeatherSource
+from lakefeed.units import is_convertible
+
+__all__ = ["EXPECTED_UNITS", "check_forecast", "check_weather", "grid_extent_results", "weather_variables"]
+
+#: Unit each CF standard name must be convertible to (amounts stay amounts, fluxes stay fluxes).
+EXPECTED_UNITS: dict[str, str] = {
+    "air_temperature": "degC",
+    "dew_point_temperature": "degC",
+    "eastward_wind": "m s-1",
+    "northward_wind": "m s-1",
+    "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air": "J m-2",
+    "surface_downwelling_shortwave_flux_in_air": "W m-2",
+    "lwe_thickness_of_precipitation_amount": "mm",
+    "precipitation_amount": "kg m-2",
+    "precipitation_flux": "kg m-2 s-1",
+}
+_AMOUNTS = {"J m-2", "mm", "kg m-2"}
+
+
+def weather_variables(
+    ds: xr.Dataset,
+    *,
+    variables: Mapping[str, str],
+    units: Mapping[str, str],
+    accumulation: Mapping[str, Accumulation],
+    section: str,
+    file: Path,
+    required: bool = True,
+) -> list[CheckResult]:
+    """One line per weather role: found (how), units convertible, accumulation declared for amounts."""
+    name = f"{section} variables"
+    out: list[CheckResult] = []
+    found: list[str] = []
+    for key, mapping in (("variables", variables), ("units", units), ("accumulation", accumulation)):
+        for role in mapping:
+            if role not in WEATHER_ROLES and (key == "variables" or role not in ds.data_vars):
+                guess = difflib.get_close_matches(role, list(WEATHER_ROLES), n=1)
+                out.append(
+                    failed(
+                        name,
+                        f"{section}.{key}.{role}: unknown role"
+                        + (f"; did you mean {guess[0]!r}?" if guess else ""),
+                        f"keys are roles ({', '.join(WEATHER_ROLES)})"
+                        + ("" if key == "variables" else " or variable names of the file"),
+                    )
+                )
+    for role, std_names in WEATHER_ROLES.items():
+        var = next((v for v in ds.data_vars.values() if v.attrs.get("standard_name") in std_names), None)
+        how = "standard_name"
+        if var is None and role in variables:
+            how = f"{section}.variables.{role}"
+            if variables[role] not in ds.data_vars:
+                out.append(
+                    failed(
+                        name,
+                        f"{file.name}: variable {variables[role]!r} named by {how} is not in the file; "
+                        f"it has {sorted(map(str, ds.data_vars))}",
+                        f"fix {how}",
+                    )
+                )
+                continue
+            var = ds[variables[role]]
+        if var is None:
+            make = failed if required else warned
+            out.append(
+                make(
+                    name,
+                    f"{file.name}: no variable for {role!r}: none has standard_name {' or '.join(std_names)} "
+                    f"and {section}.variables.{role} is not set; variables are {sorted(map(str, ds.data_vars))}",
+                    f"add the file's variable name under {section}.variables.{role}",
+                )
+            )
+            continue
+        std = var.attrs.get("standard_name")
+        expected = [EXPECTED_UNITS[std]] if std in EXPECTED_UNITS else [EXPECTED_UNITS[s] for s in std_names]
+        ukey = role if role in units else str(var.name)
+        unit = units.get(ukey, var.attrs.get("units"))
+        unit_src = f"{section}.units.{ukey}" if ukey in units else f"attribute units of {var.name!r}"
+        if unit is None:
+            out.append(
+                failed(
+                    name,
+                    f"{file.name}: {role} ({var.name!r}) has no units",
+                    f"declare them under {section}.units.{role}",
+                )
+            )
+            continue
+        target = next((e for e in expected if is_convertible(unit, e)), None)
+        if target is None:
+            out.append(
+                failed(
+                    name,
+                    f"{file.name}: {role} ({var.name!r}) has units {unit!r} ({unit_src}), not convertible to "
+                    f"{' or '.join(map(repr, expected))}",
+                    f"fix the units attribute or declare the right unit under {section}.units.{role}",
+                )
+            )
+            continue
+        acc = accumulation.get(role, accumulation.get(str(var.name)))
+        if target in _AMOUNTS and (acc is None or acc.kind == "none"):
+            out.append(
+                failed(
+                    name,
+                    f"{file.name}: {role} ({var.name!r}) is an amount ({unit}) but "
+                    f"{section}.accumulation.{role}.kind is {'not set' if acc is None else 'none'}",
+                    f"set {section}.accumulation.{role}.kind to since_reset or per_step",
+                )
+            )
+            continue
+        found.append(f"{role} {var.name!r} ({unit}{'' if how == 'standard_name' else ', by ' + how})")
+    if found:
+        out.append(passed(name, f"{file.name}: {len(found)} of {len(WEATHER_ROLES)} roles: {'; '.join(found)}"))
+    return out
+
+
+def _inside(inner: tuple[float, float, float, float], outer: tuple[float, float, float, float]) -> bool:
+    return inner[0] >= outer[0] and inner[1] >= outer[1] and inner[2] <= outer[2] and inner[3] <= outer[3]
+
+
+def grid_extent_results(
+    ds: xr.Dataset,
+    zones: Mapping[str, gpd.GeoDataFrame | None],
+    *,
+    section: str,
+    file: Path,
+) -> list[CheckResult]:
+    """Each zone (lake, catchment) must lie inside the grid's extent (cell edges), compared in lon/lat."""
+    name = f"{section} grid extent"
+    grid = lonlat_bounds(ds)
+    if grid is None:
+        return [
+            failed(
+                name,
+                f"{file.name}: no latitude/longitude coordinates found (standard_name latitude/longitude)",
+                "give the grid CF latitude and longitude coordinates",
+            )
+        ]
+    out = []
+    for zone, gdf in zones.items():
+        if gdf is None or len(gdf) == 0:
+            out.append(skipped(name, f"{zone}: not available"))
+            continue
+        w, s, e, n = (float(v) for v in gdf.to_crs("EPSG:4326").total_bounds)
+        if grid[2] > 180.0:  # grid in 0..360 longitudes
+            w, e = w % 360.0, e % 360.0
+        box = (w, s, e, n)
+        shown = f"grid {grid[0]:.2f}..{grid[2]:.2f} E, {grid[1]:.2f}..{grid[3]:.2f} N"
+        if _inside(box, grid):
+            out.append(passed(name, f"{zone} inside the {section} grid ({shown})"))
+        else:
+            out.append(
+                failed(
+                    name,
+                    f"{zone} ({w:.3f}..{e:.3f} E, {s:.3f}..{n:.3f} N) is not inside the {section} grid of "
+                    f"{file.name} ({shown})",
+                    f"use a {section} grid covering the {zone}, or check the CRS of the geometry files",
+                )
+            )
+    return out
+
+
+def _scan_times(files: Sequence[Path], coord: str) -> Period | None:
+    """Period over all files from one coordinate (reads that coordinate only)."""
+    periods = []
+    for f in files:
+        with open_lazy(f) as ds:
+            c = find_coord(ds, coord)
+            if c is not None:
+                p = time_period(c.values)
+                if p is not None:
+                    periods.append(p)
+    if not periods:
+        return None
+    return Period(min(p.start for p in periods), max(p.end for p in periods))
+
+
+def check_weather(
+    src: WeatherSource | None, zones: Mapping[str, gpd.GeoDataFrame | None]
+) -> tuple[list[CheckResult], Period | None]:
+    """Weather grid: files, variables and units, extent, period (from the ``time`` coordinate)."""
+    if src is None:
+        return [skipped("weather", "no 'weather' section in the sources config")], None
+    files, problems = expand(src.paths, key="weather.paths")
+    out = [failed("weather files", p, "fix weather.paths in the sources config") for p in problems]
+    if not files:
+        return out, None
+    out.append(passed("weather files", f"{len(files)} file(s), first {files[0].name}, last {files[-1].name}"))
+    with open_lazy(files[0]) as ds:
+        out += weather_variables(
+            ds,
+            variables=src.variables,
+            units=src.units,
+            accumulation=src.accumulation,
+            section="weather",
+            file=files[0],
+        )
+        out += grid_extent_results(ds, zones, section="weather", file=files[0])
+    period = _scan_times(files, "time")
+    if period is None:
+        out.append(failed("weather period", "no readable time coordinate in the weather files", "add a CF time axis"))
+    return out, period
+
+
+def _lead(value: object) -> str:
+    try:
+        return str(pd.Timedelta(value))
+    except (TypeError, ValueError):
+        return str(value)
+
+
+def check_forecast(
+    src: ForecastSource | None, zones: Mapping[str, gpd.GeoDataFrame | None]
+) -> tuple[list[CheckResult], Period | None]:
+    """Forecast archive: files, forecast_reference_time, lead dimension, variables, extent, issue period."""
+    if src is None:
+        return [skipped("forecast", "no 'forecast' section in the sources config")], None
+    files, problems = expand(src.paths, key="forecast.paths")
+    out = [failed("forecast files", p, "fix forecast.paths in the sources config") for p in problems]
+    if not files:
+        return out, None
+    out.append(passed("forecast files", f"{len(files)} file(s), first {files[0].name}, last {files[-1].name}"))
+    with open_lazy(files[0]) as ds:
+        ref = find_coord(ds, "forecast_reference_time")
+        lead = find_coord(ds, "forecast_period")
+        if ref is None:
+            out.append(
+                failed(
+                    "forecast axes",
+                    f"{files[0].name}: no forecast_reference_time (by standard_name or name)",
+                    "the archive needs the issue time as forecast_reference_time",
+                )
+            )
+        if lead is None or not set(lead.dims) & set(ds.dims):
+            out.append(
+                failed(
+                    "forecast axes",
+                    f"{files[0].name}: no forecast_period/lead dimension; dims are {dict(ds.sizes)}",
+                    "the archive needs a lead-time dimension with standard_name forecast_period",
+                )
+            )
+        if ref is not None and lead is not None:
+            out.append(
+                passed(
+                    "forecast axes",
+                    f"issue time {ref.name!r}, lead {lead.name!r} with {lead.size} steps up to {_lead(lead.values.max())}",
+                )
+            )
+        out += weather_variables(
+            ds,
+            variables=src.variables,
+            units=src.units,
+            accumulation=src.accumulation,
+            section="forecast",
+            file=files[0],
+            required=False,
+        )
+        out += grid_extent_results(ds, zones, section="forecast", file=files[0])
+    period = _scan_times(files, "forecast_reference_time")
+    return out, period

@@ -1,0 +1,147 @@
+"""Acceptance of AOI scene statistics and outlier screening of each AOI's series (pure pandas/numpy).
+
+Takes the observation table (one row per AOI and scene, with the columns of
+:data:`lakefeed.extract.scene_stats.STAT_COLUMNS`, ``aoi``, ``sensor``, ``time`` and ``reason``) and
+returns the same rows with ``accepted``, ``reason`` and ``outlier``. Rejected rows are kept with the
+reason; outliers are flagged, never deleted. Must not open files.
+
+Acceptance (common match-up practice after Bailey & Werdell 2006, Remote Sens. Environ. 102): the valid
+fraction of the AOI reaches ``min_valid_fraction`` (default 0.5), at least ``min_valid_pixels`` are
+valid, and the coefficient of variation does not exceed ``max_cv``. A too-heterogeneous AOI (cv above
+the limit) is rejected with its reason, so it can be found and re-admitted by the user.
+
+Outliers: a Hampel filter on ln(median) over a centred time window: a value is an outlier when
+``|x - m| > threshold * 1.4826 * MAD``, ``m`` and ``MAD`` being the median and the median absolute
+deviation of the accepted values of the same AOI and sensor within ``window_days`` (the value itself
+included; at least ``min_points`` values in the window, else never flagged); the robust standard
+deviation ``1.4826 * MAD`` is floored at ``min_scale`` (0.1 in ln units by default, lakefeed's choice). Sensors are screened
+separately because their biases differ before harmonisation.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+
+__all__ = ["accept", "flag_outliers", "hampel"]
+
+#: Scale factor turning a MAD into a standard deviation for normal data (common practice).
+MAD_TO_SIGMA = 1.4826
+
+
+def accept(
+    obs: pd.DataFrame,
+    *,
+    min_valid_fraction: float = 0.5,
+    min_valid_pixels: int = 5,
+    max_cv: float | None = 1.0,
+) -> pd.DataFrame:
+    """Decide acceptance of each AOI-scene row; return a copy with ``accepted`` and ``reason``.
+
+    A non-empty ``reason`` already present (unreadable scene, AOI outside the scene) is kept and the
+    row is not accepted. Otherwise the reasons found are joined with "; ".
+    """
+    out = obs.copy()
+    prior = out["reason"].fillna("").astype(str) if "reason" in out else pd.Series("", index=out.index)
+    n = out["n_valid"].fillna(0).astype(int)
+    vf = out["valid_fraction"].astype(float)
+    cv = out["cv"].astype(float)
+    parts = [
+        np.where(n == 0, "no valid pixel (nodata, bad quality or out of range)", ""),
+        np.where((n > 0) & (vf < min_valid_fraction), "valid fraction " + vf.round(3).astype(str)
+                 + f" < {min_valid_fraction:g}", ""),
+        np.where((n > 0) & (n < min_valid_pixels), "valid pixels " + n.astype(str) + f" < {min_valid_pixels}", ""),
+    ]  # fmt: skip
+    if max_cv is not None:
+        parts.append(np.where(cv > max_cv, "heterogeneous AOI: cv " + cv.round(3).astype(str) + f" > {max_cv:g}", ""))
+    found = pd.Series(["; ".join(p for p in row if p) for row in zip(*parts, strict=True)], index=out.index)
+    out["reason"] = prior.where(prior != "", found)
+    out["accepted"] = out["reason"] == ""
+    return out
+
+
+def hampel(
+    days: np.ndarray,
+    values: np.ndarray,
+    *,
+    window_days: float,
+    threshold: float,
+    min_points: int = 5,
+    min_scale: float = 0.0,
+) -> np.ndarray:
+    """Hampel outlier flags of one irregular series (vectorised).
+
+    Parameters
+    ----------
+    days
+        Times as float days, sorted ascending.
+    values
+        Values (already transformed, e.g. logarithms); NaN never flagged and ignored in windows.
+    window_days
+        Full width of the centred window (days).
+    threshold
+        Multiple of the robust standard deviation (1.4826 MAD) beyond which a value is an outlier.
+    min_points
+        Minimum number of finite values in a window for a decision.
+    min_scale
+        Floor of the robust standard deviation (units of ``values``): small windows can give a tiny MAD
+        by chance, which would flag ordinary noise.
+    """
+    t = np.asarray(days, dtype=np.float64)
+    x = np.asarray(values, dtype=np.float64)
+    if t.size == 0:
+        return np.zeros(0, dtype=bool)
+    half = window_days / 2.0
+    lo = np.searchsorted(t, t - half, side="left")
+    hi = np.searchsorted(t, t + half, side="right")
+    width = int((hi - lo).max())
+    idx = lo[:, None] + np.arange(width)[None, :]
+    inside = idx < hi[:, None]
+    win = np.where(inside, x[np.minimum(idx, t.size - 1)], np.nan)
+    count = np.isfinite(win).sum(axis=1)
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN windows
+        med = np.nanmedian(win, axis=1)
+        mad = np.nanmedian(np.abs(win - med[:, None]), axis=1)
+        dev = np.abs(x - med)
+        scale = np.maximum(MAD_TO_SIGMA * mad, min_scale)
+        return (count >= min_points) & (scale > 0) & (dev > threshold * scale)
+
+
+def flag_outliers(
+    obs: pd.DataFrame,
+    *,
+    window_days: float = 31,
+    threshold: float = 3.5,
+    min_points: int = 5,
+    min_scale: float = 0.1,
+    value: str = "median",
+    by: tuple[str, ...] = ("aoi", "sensor"),
+) -> pd.Series:
+    """Outlier flags (bool Series aligned with ``obs``) for the accepted rows, per AOI and sensor.
+
+    The filter works on ln(``value``) (chlorophyll-a is roughly log-normal; common practice) over
+    ``time``; rows not accepted are never flagged. ``min_scale`` (default 0.1 in ln units, i.e. about
+    10 %) floors the robust standard deviation, lakefeed's choice. See :func:`hampel`.
+    """
+    flags = pd.Series(False, index=obs.index)
+    ok = obs["accepted"].astype(bool) & (obs[value] > 0)
+    sub = obs.loc[ok, [*by, "time", value]]
+    if sub.empty:
+        return flags
+    t = pd.to_datetime(sub["time"], utc=True)
+    sub = sub.assign(_days=(t - pd.Timestamp("1970-01-01", tz="UTC")) / pd.Timedelta(days=1))
+    for _, g in sub.groupby(list(by), sort=False):
+        g = g.sort_values("_days")
+        f = hampel(
+            g["_days"].to_numpy(),
+            np.log(g[value].to_numpy(dtype=np.float64)),
+            window_days=window_days,
+            threshold=threshold,
+            min_points=min_points,
+            min_scale=min_scale,
+        )
+        flags.loc[g.index] = f
+    return flags

@@ -1,0 +1,243 @@
+"""Point-in-time feature rows: target dates, lead times, issue dates and the persistence baseline.
+
+Takes the accepted chlorophyll-a observations (irregular dates, per AOI), the daily drivers
+(observed) and, optionally, forecast drivers; returns one row per target date and lead with
+its issue date, the antecedent-window features, the persistence baseline and calendar
+features. Must not open files.
+
+Point-in-time rule. For target date t and lead h (days) the issue date is d = t - h; the issue
+is made at the end of day d, so everything dated on or before d is known, nothing after it.
+
+- Driver days after d are unknown: when a window reaches past d (only possible for h > 0)
+  those days are taken from ``forecast_drivers`` issued on d if given, else they are missing
+  (and the window is missing when too many of its days are).
+- The persistence baseline is the last accepted observation dated on or before d and before t
+  (the target itself is never a feature, also for h = 0). ``persistence_age_days`` is its age
+  at the target date (t - its date); ``days_since_prev_obs`` is its age at the issue date
+  (d - its date); both are equal for h = 0.
+- ``doy_sin``/``doy_cos`` encode the target date's day of year (a calendar fact known ahead).
+
+Flags (column ``flags``, ';'-joined codes): ``outside_driver_record`` (the window ends before
+the first or after the last driver day), ``incomplete_window`` (a window had too many missing
+days; ``incomplete_windows`` counts them), ``no_prior_observation`` (no persistence value),
+``forecast_drivers`` (forecast values filled days after the issue date).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from lakefeed.exceptions import FeatureError
+from lakefeed.features.windows import WindowPlan, day_positions, gather_windows, reduce_windows, to_daily
+
+__all__ = ["FLAG_CODES", "build_feature_rows", "calendar_features", "forecast_array", "persistence"]
+
+#: Codes used in the ``flags`` column of feature rows.
+FLAG_CODES = ("outside_driver_record", "incomplete_window", "no_prior_observation", "forecast_drivers")
+
+
+def calendar_features(dates: pd.DatetimeIndex) -> tuple[np.ndarray, np.ndarray]:
+    """Day of year as a point on the unit circle: (sin, cos) of 2 pi (doy - 1) / days in that year."""
+    dates = pd.DatetimeIndex(dates)
+    ndays = np.where(dates.is_leap_year, 366.0, 365.0)
+    angle = 2.0 * np.pi * (dates.dayofyear.to_numpy() - 1) / ndays
+    return np.sin(angle), np.cos(angle)
+
+
+def persistence(
+    observations: pd.DataFrame,
+    target_dates: pd.DatetimeIndex,
+    issue_dates: pd.DatetimeIndex,
+    groups: np.ndarray | None = None,
+    *,
+    value: str = "chla",
+    by: str | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Last accepted observation on or before the issue date and before the target date.
+
+    Parameters
+    ----------
+    observations
+        Accepted observations with ``date``, ``value`` (mg m-3 for chlorophyll-a) and, when
+        ``by`` is given, the group column (e.g. ``aoi``).
+    target_dates, issue_dates
+        One per row.
+    groups
+        Group label per row (needed when ``by`` is given).
+
+    Returns
+    -------
+    (values, dates)
+        Value (NaN when none) and date (NaT when none) of the baseline observation, per row.
+    """
+    obs = observations.dropna(subset=[value])
+    odays = pd.to_datetime(obs["date"]).to_numpy().astype("datetime64[D]").astype(np.int64)
+    cutoff = np.minimum(
+        issue_dates.to_numpy().astype("datetime64[D]").astype(np.int64),
+        target_dates.to_numpy().astype("datetime64[D]").astype(np.int64) - 1,
+    )
+    span = 1 << 32
+    if by is not None:
+        cats = pd.Index(pd.unique(np.concatenate([obs[by].astype(str).to_numpy(), np.asarray(groups, dtype=str)])))
+        okey = cats.get_indexer(obs[by].astype(str)).astype(np.int64) * span + odays
+        rkey = cats.get_indexer(np.asarray(groups, dtype=str)).astype(np.int64) * span + cutoff
+        ogrp = cats.get_indexer(obs[by].astype(str))
+        rgrp = cats.get_indexer(np.asarray(groups, dtype=str))
+    else:
+        okey, rkey = odays, cutoff
+        ogrp = np.zeros(len(obs), dtype=np.int64)
+        rgrp = np.zeros(len(cutoff), dtype=np.int64)
+    order = np.argsort(okey, kind="stable")
+    okey, ogrp, ovals, odays = okey[order], ogrp[order], obs[value].to_numpy(float)[order], odays[order]
+    pos = np.searchsorted(okey, rkey, side="right") - 1
+    ok = pos >= 0
+    ok[ok] &= ogrp[pos[ok]] == rgrp[ok]
+    vals = np.where(ok, ovals[np.clip(pos, 0, None)] if len(ovals) else np.nan, np.nan)
+    days = np.where(ok, odays[np.clip(pos, 0, None)] if len(odays) else 0, 0).astype("datetime64[D]")
+    return vals, np.where(ok, days.astype("datetime64[ns]"), np.datetime64("NaT", "ns"))
+
+
+def forecast_array(
+    forecast_drivers: pd.DataFrame, columns: Sequence[str], issue_dates: pd.DatetimeIndex, max_offset: int
+) -> np.ndarray:
+    """Forecast drivers as (rows, max_offset + 1, drivers): element [i, o] is day issue_i + o.
+
+    ``forecast_drivers`` has ``issue_date``, ``date`` and the driver columns (daily values in
+    the same units as the observed drivers). Missing combinations are NaN.
+    """
+    missing = [c for c in ("issue_date", "date") if c not in forecast_drivers.columns]
+    if missing:
+        raise FeatureError(f"forecast drivers lack column(s) {missing}; expected issue_date, date and driver columns")
+    fc = forecast_drivers
+    idays = pd.to_datetime(fc["issue_date"]).to_numpy().astype("datetime64[D]").astype(np.int64)
+    off = pd.to_datetime(fc["date"]).to_numpy().astype("datetime64[D]").astype(np.int64) - idays
+    keep = (off >= 0) & (off <= max_offset)
+    uniq, inv = np.unique(idays[keep], return_inverse=True)
+    cube = np.full((len(uniq), max_offset + 1, len(columns)), np.nan)
+    vals = np.column_stack([fc[c].to_numpy(float)[keep] if c in fc else np.full(keep.sum(), np.nan) for c in columns])
+    cube[inv, off[keep]] = vals.reshape(-1, len(columns))
+    rows = issue_dates.to_numpy().astype("datetime64[D]").astype(np.int64)
+    at = np.searchsorted(uniq, rows)
+    found = (at < len(uniq)) & (uniq[np.clip(at, 0, max(len(uniq) - 1, 0))] == rows if len(uniq) else False)
+    out = np.full((len(rows), max_offset + 1, len(columns)), np.nan)
+    out[found] = cube[at[found]]
+    return out
+
+
+def build_feature_rows(
+    targets: pd.DataFrame,
+    drivers: pd.DataFrame,
+    *,
+    lead: int = 0,
+    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    stats: Mapping[str, Sequence[str]] | None = None,
+    include_target_day: bool = False,
+    max_missing_fraction: float = 0.2,
+    forecast_drivers: pd.DataFrame | None = None,
+    observations: pd.DataFrame | None = None,
+    by: str | None = "aoi",
+    value: str = "chla",
+) -> pd.DataFrame:
+    """Feature rows for target observations at one lead time, using only data known at issue.
+
+    Parameters
+    ----------
+    targets
+        One row per target: ``target_date`` (or ``date``), ``value`` (chlorophyll-a, mg m-3)
+        and the group column ``by`` (e.g. ``aoi``) when given.
+    drivers
+        Observed daily drivers indexed by local date (one column per driver, canonical units).
+    lead
+        Lead time h in days (>= 0); issue date = target date - h.
+    windows, stats, include_target_day, max_missing_fraction
+        As in :func:`lakefeed.features.windows.window_features`.
+    forecast_drivers
+        Optional forecasts: ``issue_date``, ``date`` and driver columns (same names and units
+        as ``drivers``); they fill the days after the issue date. Without them those days are
+        missing.
+    observations
+        Accepted observations for the persistence baseline (``date``, ``value``, ``by``);
+        default the targets themselves.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``[by], target_date, lead_days, issue_date, chla, persistence_chla,
+        persistence_age_days, days_since_prev_obs, doy_sin, doy_cos, <features>,
+        incomplete_windows, outside_driver_record, flags``, in the order of ``targets``.
+    """
+    if lead < 0:
+        raise FeatureError(f"lead time must be >= 0 days; got {lead}")
+    tcol = "target_date" if "target_date" in targets.columns else "date"
+    if by is not None and by not in targets.columns:
+        by = None
+    tdates = pd.DatetimeIndex(pd.to_datetime(targets[tcol])).normalize()
+    issue = tdates - pd.Timedelta(days=lead)
+    daily = to_daily(drivers.select_dtypes("number"))
+    columns = list(daily.columns)
+    plan = WindowPlan.build(columns, windows=windows, stats=stats)
+    k_max = max(plan.windows)
+    # features depend on the target date only: compute once per unique date
+    uniq, inv = np.unique(tdates.to_numpy(), return_inverse=True)
+    udates = pd.DatetimeIndex(uniq)
+    uissue = udates - pd.Timedelta(days=lead)
+    shift = 1 if include_target_day else 0
+    end = day_positions(daily.index, udates) + shift
+    gathered = gather_windows(daily.to_numpy(dtype=np.float64), end, k_max)
+    day_pos = end[:, None] - 1 - np.arange(k_max)[None, :]
+    issue_pos = day_positions(daily.index, uissue)
+    after = day_pos > issue_pos[:, None]  # (u, k_max): unknown at issue
+    used_forecast = np.zeros(len(udates), dtype=bool)
+    if after.any():
+        gathered[after] = np.nan
+        if forecast_drivers is not None:
+            offsets = day_pos - issue_pos[:, None]
+            fc = forecast_array(forecast_drivers, columns, uissue, max(lead + shift, 1))
+            o = np.clip(offsets, 0, fc.shape[1] - 1)
+            filled = np.take_along_axis(fc, o[:, :, None], axis=1)
+            gathered = np.where(after[:, :, None], filled, gathered)
+            used_forecast = (after[:, :, None] & np.isfinite(filled)).any(axis=(1, 2))
+    values, incomplete = reduce_windows(gathered, plan, columns, max_missing_fraction=max_missing_fraction)
+    n_days = len(daily)
+    last_day = end - 1
+    outside = (last_day < 0) | (last_day >= n_days) if n_days else np.ones(len(udates), dtype=bool)
+
+    groups = targets[by].astype(str).to_numpy() if by else None
+    obs = observations if observations is not None else targets.rename(columns={tcol: "date"})
+    p_val, p_date = persistence(obs, tdates, issue, groups, value=value, by=by)
+    p_date = pd.DatetimeIndex(p_date)
+    sin, cos = calendar_features(tdates)
+    out = {}
+    if by:
+        out[by] = targets[by].to_numpy()
+    out.update(
+        target_date=tdates.to_numpy(),
+        lead_days=np.full(len(tdates), lead, dtype=np.int16),
+        issue_date=issue.to_numpy(),
+        chla=targets[value].to_numpy(float),
+        persistence_chla=p_val,
+        persistence_age_days=((tdates - p_date).days.to_numpy(dtype=float)),
+        days_since_prev_obs=((issue - p_date).days.to_numpy(dtype=float)),
+        doy_sin=sin,
+        doy_cos=cos,
+    )
+    frame = pd.DataFrame(out, index=targets.index)
+    feats = pd.DataFrame(values[inv], columns=plan.names, index=targets.index)
+    n_incomplete = incomplete.sum(axis=1)[inv].astype(np.int16)
+    codes = {
+        "outside_driver_record": outside[inv],
+        "incomplete_window": n_incomplete > 0,
+        "no_prior_observation": np.isnan(p_val),
+        "forecast_drivers": used_forecast[inv],
+    }
+    flags = pd.Series("", index=targets.index)
+    for code, mask in codes.items():
+        flags = flags.where(~mask, flags + np.where(flags == "", "", ";") + code)
+    tail = pd.DataFrame(
+        {"incomplete_windows": n_incomplete, "outside_driver_record": codes["outside_driver_record"], "flags": flags},
+        index=targets.index,
+    )
+    return pd.concat([frame, feats, tail], axis=1)

@@ -1,0 +1,269 @@
+"""Antecedent windows of daily drivers at irregular target dates, for all drivers at once.
+
+Takes a daily driver frame (one row per local calendar date, one column per driver, in the
+drivers' own units) and target dates; returns one column per driver, statistic and window
+length, named ``<driver column>__<stat>_<k>d``, in the driver's unit (``sum`` over a window of
+a quantity per day is in the unit of that quantity times days, e.g. mm d-1 -> mm over the window).
+
+How: each target's longest window is gathered exactly (a fancy-index gather of the
+``k_max`` days before the target, one array of shape (targets, k_max, drivers)) and reduced by
+accumulating *outward from the target day*, so every shorter window is a prefix of the
+longest one. This is O(targets x k_max) per driver, linear in the length of the record and
+exact: a dry spell sums to exactly 0 (a cumulative sum over the whole record would drift, see
+PITFALLS "Antecedent windows").
+
+Windows end the day before the target date by default (``include_target_day=False``): the
+window of length k for target t covers the days t-k .. t-1; with ``include_target_day=True``
+it covers t-k+1 .. t. A window with more missing days than ``max_missing_fraction * k`` gives
+a missing value and a flag, never a value over fewer days.
+
+Pure: no file I/O. Must not loop over rows in Python.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from lakefeed.exceptions import FeatureError
+
+__all__ = [
+    "STATISTICS",
+    "WindowPlan",
+    "default_statistics",
+    "feature_name",
+    "gather_windows",
+    "reduce_windows",
+    "to_daily",
+    "window_features",
+]
+
+#: Statistics a window can be summarised by.
+STATISTICS = ("mean", "sum", "min", "max")
+
+
+def feature_name(column: str, stat: str, k: int) -> str:
+    """Name of a window feature: ``<driver column>__<stat>_<k>d`` (e.g. ``tp_load__sum_10d``)."""
+    return f"{column}__{stat}_{k}d"
+
+
+def default_statistics(column: str) -> list[str]:
+    """Statistics used for a driver column when the configuration names none.
+
+    Sums for precipitation and loads (amounts accumulate), mean/min/max for temperatures,
+    the mean for everything else (radiation, wind, humidity, discharge, concentrations).
+    """
+    c = column.lower()
+    if "precip" in c or c.endswith("_load") or c.endswith("_sum"):
+        return ["sum"]
+    if "temperature" in c or "dewpoint" in c:
+        return ["mean", "min", "max"]
+    return ["mean"]
+
+
+@dataclass(frozen=True)
+class WindowPlan:
+    """Which windows and statistics to compute for which driver columns.
+
+    ``windows`` in days (positive, sorted, unique); ``stats`` maps driver column -> statistics.
+    """
+
+    windows: tuple[int, ...]
+    stats: Mapping[str, tuple[str, ...]]
+
+    @classmethod
+    def build(
+        cls,
+        columns: Sequence[str],
+        *,
+        windows: Sequence[int],
+        stats: Mapping[str, Sequence[str]] | None = None,
+    ) -> WindowPlan:
+        """Validate windows and statistics; columns without configured statistics get the defaults."""
+        ws = [int(w) for w in windows]
+        bad = [w for w in ws if w <= 0]
+        if bad or not ws:
+            raise FeatureError(
+                f"antecedent window lengths must be positive whole days; got {list(windows)}. "
+                "Fix features.windows in the lake configuration (e.g. [1, 3, 7, 30])."
+            )
+        plan: dict[str, tuple[str, ...]] = {}
+        for c in columns:
+            chosen = list((stats or {}).get(c) or default_statistics(c))
+            unknown = [s for s in chosen if s not in STATISTICS]
+            if unknown:
+                raise FeatureError(f"driver {c!r}: unknown statistic(s) {unknown}; use any of {list(STATISTICS)}")
+            plan[c] = tuple(dict.fromkeys(chosen))
+        return cls(windows=tuple(sorted(set(ws))), stats=plan)
+
+    @property
+    def names(self) -> list[str]:
+        """Feature column names in output order (driver, statistic, window)."""
+        return [feature_name(c, s, k) for c, ss in self.stats.items() for s in ss for k in self.windows]
+
+
+def to_daily(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.DataFrame:
+    """A complete daily calendar: one row per day from the first to the last date, gaps as NaN.
+
+    ``drivers`` has a DatetimeIndex of local calendar dates (or a ``date_column``). Duplicate
+    dates are an error (say which).
+    """
+    frame = drivers.set_index(date_column) if date_column else drivers
+    idx = pd.DatetimeIndex(pd.to_datetime(frame.index)).normalize()
+    if idx.has_duplicates:
+        dups = idx[idx.duplicated()].unique()[:3]
+        raise FeatureError(f"driver table has duplicate dates, e.g. {[str(d.date()) for d in dups]}; one row per day")
+    frame = frame.set_axis(idx).sort_index()
+    if len(frame) == 0:
+        return frame
+    full = pd.date_range(frame.index[0], frame.index[-1], freq="D")
+    return frame.reindex(full)
+
+
+def gather_windows(values: np.ndarray, end: np.ndarray, k_max: int) -> np.ndarray:
+    """Gather, for each target, the ``k_max`` days before the exclusive end position ``end``.
+
+    Parameters
+    ----------
+    values
+        (days, drivers) float array on a complete daily calendar.
+    end
+        (targets,) integer positions; the window is ``values[end-k_max:end]`` reversed, so that
+        element ``[:, j, :]`` is the day ``end-1-j`` (nearest day first). Positions outside the
+        record give NaN.
+    k_max
+        Longest window in days.
+
+    Returns
+    -------
+    numpy.ndarray
+        (targets, k_max, drivers) float64.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    n, d = values.shape
+    idx = np.asarray(end, dtype=np.int64)[:, None] - 1 - np.arange(k_max, dtype=np.int64)[None, :]
+    outside = (idx < 0) | (idx >= n)
+    padded = np.vstack([values, np.full((1, d), np.nan)])
+    idx = np.where(outside, n, idx)
+    return padded[idx]
+
+
+def reduce_windows(
+    gathered: np.ndarray,
+    plan: WindowPlan,
+    columns: Sequence[str],
+    *,
+    max_missing_fraction: float = 0.2,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Reduce gathered windows to the features of ``plan``.
+
+    Parameters
+    ----------
+    gathered
+        (targets, k_max, drivers) from :func:`gather_windows` (NaN = missing day).
+    plan
+        Windows and statistics; ``columns`` names the drivers along the last axis.
+    max_missing_fraction
+        A window with more than ``max_missing_fraction * k`` missing days is missing.
+
+    Returns
+    -------
+    (values, incomplete)
+        (targets, features) float64 and bool arrays in ``plan.names`` order; ``incomplete``
+        marks values set missing because the window had too many missing days.
+    """
+    t = gathered.shape[0]
+    col_pos = {c: i for i, c in enumerate(columns)}
+    ks = np.asarray(plan.windows) - 1
+    valid = np.isfinite(gathered)
+    count = np.cumsum(valid, axis=1, dtype=np.int32)[:, ks, :]  # (t, windows, drivers)
+    missing = np.asarray(plan.windows)[None, :, None] - count
+    too_many = missing > np.floor(max_missing_fraction * np.asarray(plan.windows) + 1e-9)[None, :, None]
+    by_stat: dict[str, np.ndarray] = {}
+    needed = {s for ss in plan.stats.values() for s in ss}
+    if needed & {"sum", "mean"}:
+        total = np.cumsum(np.where(valid, gathered, 0.0), axis=1)[:, ks, :]
+        by_stat["sum"] = total
+        with np.errstate(invalid="ignore", divide="ignore"):
+            by_stat["mean"] = total / count
+    if "min" in needed:
+        by_stat["min"] = np.fmin.accumulate(gathered, axis=1)[:, ks, :]
+    if "max" in needed:
+        by_stat["max"] = np.fmax.accumulate(gathered, axis=1)[:, ks, :]
+    blocks, flags = [], []
+    for c, ss in plan.stats.items():
+        j = col_pos[c]
+        bad = too_many[:, :, j] | (count[:, :, j] == 0)
+        for s in ss:
+            blocks.append(np.where(bad, np.nan, by_stat[s][:, :, j]))
+            flags.append(bad)
+    if not blocks:
+        return np.empty((t, 0)), np.empty((t, 0), dtype=bool)
+    return np.concatenate(blocks, axis=1), np.concatenate(flags, axis=1)
+
+
+def window_features(
+    drivers: pd.DataFrame,
+    target_dates: Sequence[object] | pd.DatetimeIndex,
+    *,
+    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    stats: Mapping[str, Sequence[str]] | None = None,
+    include_target_day: bool = False,
+    max_missing_fraction: float = 0.2,
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Antecedent-window features of daily drivers at (irregular) target dates.
+
+    Parameters
+    ----------
+    drivers
+        Daily drivers indexed by local calendar date; one numeric column per driver, in its
+        canonical unit. Missing days may be absent rows or NaN.
+    target_dates
+        Target dates (any order, duplicates allowed).
+    windows
+        Window lengths in days (positive).
+    stats
+        Driver column -> statistics (``mean``, ``sum``, ``min``, ``max``); columns not named get
+        :func:`default_statistics`. Only columns of ``drivers`` are used.
+    include_target_day
+        Whether the window ends on the target day (True) or the day before (False, default).
+    max_missing_fraction
+        Largest admissible fraction of missing days in a window.
+
+    Returns
+    -------
+    (features, incomplete)
+        Frames indexed like ``target_dates`` with columns ``<driver>__<stat>_<k>d``: values
+        (driver units; sums in unit x days) and bool flags for windows with too many missing days.
+
+    Examples
+    --------
+    >>> days = pd.date_range("2024-01-01", periods=5)
+    >>> f, _ = window_features(pd.DataFrame({"precipitation_sum": [1.0, 2, 3, 4, 5]}, index=days),
+    ...                        ["2024-01-05"], windows=[3])
+    >>> float(f.iloc[0, 0])
+    9.0
+    """
+    daily = to_daily(drivers.select_dtypes("number"))
+    plan = WindowPlan.build(list(daily.columns), windows=windows, stats=stats)
+    targets = pd.DatetimeIndex(pd.to_datetime(target_dates)).normalize()
+    end = day_positions(daily.index, targets) + (1 if include_target_day else 0)
+    gathered = gather_windows(daily.to_numpy(dtype=np.float64), end, max(plan.windows))
+    values, incomplete = reduce_windows(
+        gathered, plan, list(daily.columns), max_missing_fraction=max_missing_fraction
+    )
+    return (
+        pd.DataFrame(values, index=targets, columns=plan.names),
+        pd.DataFrame(incomplete, index=targets, columns=plan.names),
+    )
+
+
+def day_positions(calendar: pd.DatetimeIndex, dates: pd.DatetimeIndex) -> np.ndarray:
+    """Position of each date on a complete daily ``calendar`` (may be < 0 or >= len)."""
+    if len(calendar) == 0:
+        return np.zeros(len(dates), dtype=np.int64)
+    start = calendar[0].to_datetime64().astype("datetime64[D]")
+    return (dates.to_numpy().astype("datetime64[D]") - start).astype(np.int64)

@@ -1,0 +1,320 @@
+"""Open gridded reanalysis (CF NetCDF file, glob of files, or Zarr store) lazily as canonical xarray.
+
+Takes the path strings of a weather source (globs allowed). Returns a :class:`Grid`: an
+``xarray.Dataset`` backed by dask with dims renamed to (``time``, ``latitude``,
+``longitude``), longitude in -180..180 (0..360 grids are rolled), latitude in the file's own
+order (ascending or descending), time as UTC ``datetime64`` sorted without duplicates.
+Variables are found by CF ``standard_name`` (:data:`lakefeed.config.sources.WEATHER_ROLES`),
+else through the config's mapping; their units come from the file's ``units`` attribute or
+from the config.
+
+A grid without CRS information is taken as geographic lat/lon only when its coordinates say
+so (CF ``standard_name`` latitude/longitude or units degrees_north/degrees_east). Every file
+is opened and probed on entry: a corrupt or truncated file is named in the error; with
+``on_error="skip"`` the other files are kept and the bad ones listed in ``Grid.skipped``.
+
+Must not: compute the data (only one probe element per variable and file is read), do science.
+"""
+
+from __future__ import annotations
+
+import glob
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from lakefeed.config.sources import WEATHER_ROLES
+from lakefeed.exceptions import SourceError
+from lakefeed.geometry.weights import grid_signature
+from lakefeed.units import parse_unit
+
+__all__ = ["Grid", "expand_paths", "find_variable", "open_grid", "select_roles"]
+
+_LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}
+_LON_UNITS = {"degrees_east", "degree_east", "degree_e", "degrees_e", "degreee", "degreese"}
+TARGET_CHUNK_BYTES = 96 * 2**20
+
+
+@dataclass(frozen=True)
+class Grid:
+    """A normalised lat/lon grid.
+
+    Attributes
+    ----------
+    dataset
+        Dims (time, latitude, longitude); time UTC; longitude -180..180.
+    files
+        The files (or Zarr store) the dataset was built from, in time order.
+    skipped
+        One message per file left out (``on_error="skip"``).
+    crs
+        "EPSG:4326" unless the file's grid mapping names another geographic datum.
+    """
+
+    dataset: xr.Dataset
+    files: tuple[Path, ...]
+    skipped: tuple[str, ...] = field(default_factory=tuple)
+    crs: str = "EPSG:4326"
+
+    @property
+    def lat(self) -> np.ndarray:
+        """Cell-centre latitudes (degrees north), file order."""
+        return np.asarray(self.dataset["latitude"].values, dtype=float)
+
+    @property
+    def lon(self) -> np.ndarray:
+        """Cell-centre longitudes (degrees east, -180..180)."""
+        return np.asarray(self.dataset["longitude"].values, dtype=float)
+
+    @property
+    def signature(self) -> str:
+        """Content hash of the grid's cells and CRS (key of cached weights)."""
+        return grid_signature(self.lat, self.lon, crs=self.crs)
+
+    @property
+    def label(self) -> str:
+        """Short name for messages: the file, or first..last file."""
+        if len(self.files) == 1:
+            return str(self.files[0])
+        return f"{self.files[0].name}..{self.files[-1].name} ({len(self.files)} files)"
+
+
+def expand_paths(paths: str | Path | Iterable[str | Path]) -> list[Path]:
+    """Expand globs (sorted); a pattern matching nothing is an error naming it."""
+    items = [paths] if isinstance(paths, str | Path) else list(paths)
+    out: list[Path] = []
+    for p in items:
+        s = str(p)
+        if any(ch in s for ch in "*?["):
+            found = sorted(glob.glob(s))
+            if not found:
+                raise SourceError(f"weather grid: no file matches {s!r}; check weather.paths in sources.yaml")
+            out.extend(Path(f) for f in found)
+        else:
+            if not Path(s).exists():
+                raise SourceError(f"weather grid: file not found: {s}; check weather.paths in sources.yaml")
+            out.append(Path(s))
+    if not out:
+        raise SourceError("weather grid: no paths given; set weather.paths in sources.yaml")
+    return out
+
+
+def _is_coord(var: xr.DataArray, kind: Literal["latitude", "longitude"]) -> bool:
+    units = str(var.attrs.get("units", "")).strip().lower().replace(" ", "")
+    return var.attrs.get("standard_name") == kind or units in (_LAT_UNITS if kind == "latitude" else _LON_UNITS)
+
+
+def _spatial_dims(ds: xr.Dataset, path: Path) -> tuple[str, str]:
+    lat = [n for n, v in ds.variables.items() if v.ndim == 1 and _is_coord(v, "latitude")]
+    lon = [n for n, v in ds.variables.items() if v.ndim == 1 and _is_coord(v, "longitude")]
+    mappings = {str(v.attrs.get("grid_mapping_name")) for v in ds.variables.values() if "grid_mapping_name" in v.attrs}
+    if mappings - {"latitude_longitude"}:
+        raise SourceError(
+            f"weather grid {path}: grid mapping {sorted(mappings)} is not a latitude/longitude grid; "
+            "only geographic grids are supported (regrid it to lat/lon first)"
+        )
+    if not lat or not lon:
+        raise SourceError(
+            f"weather grid {path}: cannot tell that the grid is geographic: no 1-D coordinate with standard_name "
+            "'latitude'/'longitude' or units 'degrees_north'/'degrees_east' and no CRS; add those attributes "
+            f"(coordinates found: {sorted(map(str, ds.coords))})"
+        )
+    ydim, xdim = ds[lat[0]].dims[0], ds[lon[0]].dims[0]
+    return str(ydim), str(xdim)
+
+
+def _engine(path: Path) -> str:
+    """Backend by content (guessing by trying every installed xarray backend is slow)."""
+    if path.suffix == ".zarr" or (path.is_dir() and ((path / ".zgroup").exists() or (path / "zarr.json").exists())):
+        return "zarr"
+    try:
+        with open(path, "rb") as fh:
+            magic = fh.read(8)
+    except OSError as err:
+        raise SourceError(f"weather grid {path}: cannot read ({err})") from err
+    if magic.startswith((b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF")):
+        return "netcdf4"
+    raise SourceError(
+        f"weather grid {path}: not a NetCDF (classic or NetCDF-4/HDF5) file nor a Zarr store (starts with "
+        f"{magic[:4]!r}); the file may be corrupt, truncated or of another format"
+    )
+
+
+def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
+    engine = _engine(path)
+    try:
+        if engine == "zarr":
+            ds = xr.open_zarr(path, chunks=None)
+        else:
+            ds = xr.open_dataset(path, engine=engine, chunks=None, cache=False)
+    except Exception as err:  # netCDF4/HDF5/zarr raise many types
+        raise SourceError(f"weather grid {path}: cannot open ({type(err).__name__}: {err}); the file may be corrupt "
+                          "or truncated: download it again") from err
+    if "time" not in ds.dims:
+        cand = [n for n, v in ds.variables.items() if v.ndim == 1 and np.issubdtype(v.dtype, np.datetime64)]
+        if not cand:
+            raise SourceError(f"weather grid {path}: no time coordinate (CF time with units 'hours since ...')")
+        ds = ds.swap_dims({ds[cand[0]].dims[0]: cand[0]}).rename({cand[0]: "time"})
+    if not np.issubdtype(ds["time"].dtype, np.datetime64):
+        raise SourceError(f"weather grid {path}: time could not be decoded ({ds['time'].dtype}); give CF time units")
+    ydim, xdim = _spatial_dims(ds, path)
+    ds = ds.rename({ydim: "latitude", xdim: "longitude"}) if (ydim, xdim) != ("latitude", "longitude") else ds
+    for name in ("latitude", "longitude"):
+        if name not in ds.coords:
+            raise SourceError(f"weather grid {path}: dimension {name} has no coordinate values")
+    grid_vars = [n for n, v in ds.data_vars.items() if set(v.dims) == {"time", "latitude", "longitude"}]
+    ds = ds[grid_vars].transpose("time", "latitude", "longitude")
+    # probe: read one element of the last chunk of every variable (truncation shows up here)
+    try:
+        for n in grid_vars:
+            ds[n].isel(time=-1, latitude=-1, longitude=-1).values  # noqa: B018
+    except Exception as err:
+        raise SourceError(
+            f"weather grid {path}: reading variable {n!r} failed ({type(err).__name__}: {err}); the file is corrupt "
+            "or truncated: download it again"
+        ) from err
+    if chunk_time is None:
+        native = ds[grid_vars[0]].encoding.get("chunksizes") if grid_vars else None
+        per_step = max(1, ds.sizes["latitude"] * ds.sizes["longitude"] * 8)
+        nt = max(1, TARGET_CHUNK_BYTES // per_step)
+        if native and native[0]:
+            nt = max(int(native[0]), nt // int(native[0]) * int(native[0]))
+        chunk_time = nt
+    # one dask chunk per time block over the whole grid; a later window selection reads only the window
+    return ds.chunk({"time": min(chunk_time, max(1, ds.sizes["time"])), "latitude": -1, "longitude": -1})
+
+
+def _normalise_lon(ds: xr.Dataset) -> xr.Dataset:
+    lon = np.asarray(ds["longitude"].values, dtype=float)
+    if lon.max() <= 180 and lon.min() >= -180:
+        return ds
+    wrapped = (lon + 180.0) % 360.0 - 180.0
+    ds = ds.assign_coords(longitude=("longitude", wrapped, ds["longitude"].attrs))
+    k = int(np.argmin(wrapped))
+    rolled = np.roll(wrapped, -k)
+    if np.all(np.diff(rolled) > 0):
+        return ds.roll(longitude=-k, roll_coords=True) if k else ds
+    return ds.sortby("longitude")
+
+
+def _check_time(ds: xr.Dataset, files: list[Path], starts: list[int]) -> None:
+    t = ds["time"].values
+    d = np.diff(t.astype("datetime64[ns]").astype(np.int64))
+    bad = np.nonzero(d <= 0)[0]
+    if bad.size:
+        i = int(bad[0]) + 1
+        which = files[int(np.searchsorted(starts, i, side="right")) - 1]
+        kind = "duplicate" if d[bad[0]] == 0 else "out of order"
+        raise SourceError(
+            f"weather grid {which}: time axis has a {kind} step at {pd.Timestamp(t[i])} (after "
+            f"{pd.Timestamp(t[i - 1])}); remove overlapping files or sort the time axis"
+        )
+
+
+def open_grid(
+    paths: str | Path | Iterable[str | Path],
+    *,
+    time_zone: str = "UTC",
+    on_error: Literal["raise", "skip"] = "raise",
+    chunk_time: int | None = None,
+) -> Grid:
+    """Open one file, a glob of files or a Zarr store as a normalised lazy :class:`Grid`.
+
+    Parameters
+    ----------
+    paths
+        Path(s) or glob(s) of CF NetCDF files, or a Zarr store.
+    time_zone
+        Time zone of naive time stamps in the files (CF files are UTC; then leave "UTC").
+    on_error
+        ``"raise"``: the first unreadable file stops with an error naming every unreadable file;
+        ``"skip"``: unreadable files are left out and listed in ``Grid.skipped``.
+    chunk_time
+        Time steps per dask chunk (default: about 96 MiB of float64 per chunk, a multiple of the
+        file's own chunking).
+    """
+    files = expand_paths(paths)
+    opened: list[tuple[Path, xr.Dataset]] = []
+    problems: list[str] = []
+    for f in files:
+        try:
+            opened.append((f, _open_one(f, chunk_time)))
+        except SourceError as err:
+            problems.append(str(err))
+    if problems and (on_error == "raise" or not opened):
+        ok = f" ({len(opened)} other file(s) opened fine)" if opened else ""
+        raise SourceError("\n".join(problems) + ok)
+    opened.sort(key=lambda fd: fd[1]["time"].values[0] if fd[1].sizes["time"] else np.datetime64("NaT"))
+    ref_f, ref = opened[0]
+    for f, ds in opened[1:]:
+        for c in ("latitude", "longitude"):
+            if ds.sizes[c] != ref.sizes[c] or not np.allclose(ds[c].values, ref[c].values):
+                raise SourceError(f"weather grid {f}: its {c} differs from {ref_f}'s; all files must share one grid")
+    dsets = [ds for _, ds in opened]
+    ds = dsets[0] if len(dsets) == 1 else xr.concat(
+        dsets, dim="time", data_vars="minimal", coords="minimal", compat="override", join="override",
+        combine_attrs="override",
+    )
+    starts = list(np.cumsum([0] + [d.sizes["time"] for d in dsets[:-1]]))
+    _check_time(ds, [f for f, _ in opened], starts)
+    if time_zone != "UTC":
+        t = pd.DatetimeIndex(ds["time"].values).tz_localize(time_zone).tz_convert("UTC").tz_localize(None)
+        ds = ds.assign_coords(time=t.values)
+    ds = _normalise_lon(ds)
+    return Grid(dataset=ds, files=tuple(f for f, _ in opened), skipped=tuple(problems))
+
+
+def find_variable(ds: xr.Dataset, role: str, *, mapping: Mapping[str, str] | None = None, where: str = "") -> str:
+    """Name of the variable playing ``role``: by CF standard_name first, else by the config mapping."""
+    wanted = WEATHER_ROLES.get(role, (role,))
+    for sn in wanted:
+        for name, var in ds.data_vars.items():
+            if var.attrs.get("standard_name") == sn:
+                return str(name)
+    if mapping and role in mapping:
+        name = mapping[role]
+        if name in ds.data_vars:
+            return name
+        raise SourceError(
+            f"weather grid {where}: variable {name!r} (weather.variables.{role} in sources.yaml) is not in the file; "
+            f"variables are {sorted(map(str, ds.data_vars))}"
+        )
+    raise SourceError(
+        f"weather grid {where}: no variable with standard_name {' or '.join(map(repr, wanted))} and no mapping in "
+        f"sources.yaml weather.variables.{role}; add the file's variable name under that key "
+        f"(variables are {sorted(map(str, ds.data_vars))})"
+    )
+
+
+def select_roles(
+    grid: Grid,
+    roles: Iterable[str],
+    *,
+    mapping: Mapping[str, str] | None = None,
+    units: Mapping[str, str] | None = None,
+) -> dict[str, xr.DataArray]:
+    """The variables of ``roles`` with ``attrs['units']`` resolved (config beats file) and checked.
+
+    Each DataArray's attrs carry ``units``, ``standard_name`` (if any), ``source_name`` and
+    ``packing_step`` (scale_factor of packed data, else 0) for noise clipping.
+    """
+    out = {}
+    for role in roles:
+        name = find_variable(grid.dataset, role, mapping=mapping, where=grid.label)
+        var = grid.dataset[name]
+        unit = (units or {}).get(role) or var.attrs.get("units")
+        if not unit:
+            raise SourceError(
+                f"weather grid {grid.label}: variable {name!r} ({role}) has no 'units' attribute; declare it in "
+                f"sources.yaml weather.units.{role}"
+            )
+        parse_unit(unit)
+        attrs = dict(var.attrs)
+        attrs.update(units=unit, source_name=name, packing_step=float(var.encoding.get("scale_factor", 0.0) or 0.0))
+        out[role] = var.copy(deep=False).assign_attrs(attrs)
+    return out

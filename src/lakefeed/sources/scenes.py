@@ -1,0 +1,434 @@
+"""Chlorophyll-a scenes: the catalogue (STAC or a GeoTIFF folder) and the windowed reader.
+
+Takes a :class:`~lakefeed.config.sources.SceneSource` (or a catalogue path) and returns a pandas
+table of scenes; reads, for each scene, only the window of the value, quality and uncertainty
+bands that covers the areas of interest (AOIs) and returns the pixels whose centre lies in each
+AOI. Must not compute statistics or decide acceptance (that is :mod:`lakefeed.extract`).
+
+Pixel rule: a pixel belongs to an AOI when its centre lies inside the (shore-buffered) AOI
+polygon (``rasterio.features.geometry_mask`` with ``all_touched=False``).
+
+Problems with one scene (missing, truncated or corrupt file, no CRS, bands of different shapes)
+raise :class:`~lakefeed.exceptions.SourceError` from :meth:`SceneReader.read`;
+:func:`read_scenes` records them as the scene's rejection reason and goes on with the others.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from collections.abc import Iterator, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pystac
+import rasterio
+import rasterio.errors
+import rasterio.features
+import rasterio.windows
+import shapely
+from pyproj import CRS
+from rasterio.errors import RasterioError
+from rasterio.windows import Window
+
+from lakefeed.config.sources import SceneSource
+from lakefeed.exceptions import SourceError
+from lakefeed.extract.scene_stats import shore_buffered
+from lakefeed.stages._result import Progress, no_progress
+
+__all__ = ["SCENE_COLUMNS", "AoiPixels", "SceneReader", "SceneWindow", "list_scenes", "read_scenes"]
+
+#: Columns of the scene table returned by :func:`list_scenes` (``reason`` is "" for usable scenes).
+SCENE_COLUMNS = ["scene_id", "sensor", "time", "value_href", "quality_href", "uncertainty_href", "reason"]
+
+
+# ----------------------------------------------------------------------------------------- catalogue
+def list_scenes(source: SceneSource | str | Path, *, asset: str | None = None) -> pd.DataFrame:
+    """List the scenes of a STAC catalogue or a GeoTIFF folder.
+
+    Parameters
+    ----------
+    source
+        The scene source of the configuration, or a path: a STAC Catalog/Collection JSON file or a
+        folder of STAC Item JSON files (then defaults of :class:`SceneSource` apply).
+    asset
+        Key of the chlorophyll-a asset (overrides ``source.asset``); default: the first asset whose
+        roles include ``data``.
+
+    Returns
+    -------
+    DataFrame with :data:`SCENE_COLUMNS`, sorted by time; ``time`` is UTC (tz-aware). Items that
+    cannot be used (no datetime, no sensor label, asset missing, unreadable JSON) are kept with
+    ``reason`` set and ``time`` possibly NaT.
+
+    Raises
+    ------
+    SourceError
+        The catalogue path does not exist or holds no scene at all.
+    """
+    if not isinstance(source, SceneSource):
+        source = SceneSource(catalog=str(source))
+    asset = asset or source.asset
+    if source.catalog is not None:
+        rows = list(_stac_rows(Path(source.catalog), source, asset))
+        where = source.catalog
+    else:
+        rows = list(_folder_rows(Path(source.folder or ""), source, asset))
+        where = source.folder
+    if not rows:
+        raise SourceError(f"scene catalogue {where}: no scenes found; check the path (and filename_pattern)")
+    table = pd.DataFrame(rows, columns=SCENE_COLUMNS)
+    table["time"] = pd.to_datetime(table["time"], utc=True)
+    return table.sort_values(["time", "scene_id"], na_position="last").reset_index(drop=True)
+
+
+def _stac_rows(path: Path, source: SceneSource, asset: str | None) -> Iterator[dict[str, Any]]:
+    if not path.exists():
+        raise SourceError(f"scene catalogue {path}: not found; give a STAC catalog/collection file or a folder")
+    if path.is_dir():
+        files = sorted(path.glob("*.json"))
+        for f in files:
+            yield _item_row(f, source, asset)
+        return
+    try:
+        root = pystac.read_file(str(path))
+    except Exception as err:  # pystac raises several kinds on bad JSON / unknown types
+        raise SourceError(f"scene catalogue {path}: not a readable STAC file ({err})") from err
+    if isinstance(root, pystac.Item):
+        yield _item_row(path, source, asset)
+        return
+    yield from _walk(root, source, asset, seen=set())
+
+
+def _walk(cat: pystac.Catalog, source: SceneSource, asset: str | None, seen: set[str]) -> Iterator[dict[str, Any]]:
+    """Follow item and child links one by one, so that one bad item does not stop the walk."""
+    for link in cat.links:
+        if link.rel not in ("item", "child"):
+            continue
+        href = link.get_absolute_href() or link.href
+        if href in seen:
+            continue
+        seen.add(href)
+        if link.rel == "item":
+            yield _item_row(Path(href), source, asset)
+        else:
+            try:
+                child = pystac.read_file(href)
+            except Exception as err:
+                yield _rejected(Path(href).stem, f"child catalogue {href} unreadable: {err}")
+                continue
+            if isinstance(child, pystac.Catalog):
+                yield from _walk(child, source, asset, seen)
+
+
+def _rejected(scene_id: str, reason: str, sensor: str = "", time: Any = None) -> dict[str, Any]:
+    return dict(scene_id=scene_id, sensor=sensor, time=time, value_href=None, quality_href=None,
+                uncertainty_href=None, reason=reason)  # fmt: skip
+
+
+def _item_row(path: Path, source: SceneSource, asset: str | None) -> dict[str, Any]:
+    try:
+        data = json.loads(Path(path).read_text())
+    except (OSError, ValueError) as err:
+        return _rejected(path.stem, f"STAC item {path} unreadable: {err}")
+    scene_id = str(data.get("id") or path.stem)
+    props = data.get("properties") or {}
+    if props.get("datetime") is None and not (props.get("start_datetime") and props.get("end_datetime")):
+        return _rejected(scene_id, f"STAC item {path}: no 'datetime' (nor start/end_datetime); add it to the item")
+    try:
+        item = pystac.Item.from_dict(data, href=str(path))
+    except Exception as err:
+        return _rejected(scene_id, f"STAC item {path} invalid: {err}")
+    if item.datetime is not None:
+        time = item.datetime
+    else:  # an interval: its midpoint
+        start, end = item.common_metadata.start_datetime, item.common_metadata.end_datetime
+        time = start + (end - start) / 2  # type: ignore[operator]
+    sensor = _sensor_label(item.properties, source)
+    if not sensor:
+        return _rejected(
+            scene_id, f"STAC item {path}: no sensor label in property {source.sensor_property!r}", time=time
+        )
+    key = asset
+    if key is None:
+        key = next((k for k, a in item.assets.items() if "data" in (a.roles or [])), None)
+    if key is None or key not in item.assets:
+        what = f"asset {key!r}" if key else "an asset with role 'data'"
+        return _rejected(scene_id, f"STAC item {path}: has no {what}; assets are {list(item.assets)}", sensor, time)
+
+    def href(k: str | None) -> str | None:
+        return item.assets[k].get_absolute_href() if k and k in item.assets else None
+
+    return dict(
+        scene_id=scene_id,
+        sensor=sensor,
+        time=time,
+        value_href=href(key),
+        quality_href=href(source.quality_asset),
+        uncertainty_href=href(source.uncertainty_asset),
+        reason="",
+    )
+
+
+def _sensor_label(props: Mapping[str, Any], source: SceneSource) -> str:
+    raw = props.get(source.sensor_property)
+    if raw is None:
+        raw = props.get("constellation") or props.get("platform")
+    if isinstance(raw, list):
+        raw = raw[0] if raw else None
+    if raw is None:
+        return ""
+    return source.sensor_map.get(str(raw), str(raw))
+
+
+def _folder_rows(folder: Path, source: SceneSource, asset: str | None) -> Iterator[dict[str, Any]]:
+    """GeoTIFFs named by a regex with groups ``date``, ``sensor`` (optional ``time`` and ``asset``).
+
+    Files whose ``asset`` group equals ``quality_asset`` / ``uncertainty_asset`` are those bands of the
+    scene; any other (or no) ``asset`` value is the chlorophyll-a band.
+    """
+    if not folder.is_dir():
+        raise SourceError(f"scene folder {folder}: not found; check 'folder' in sources.yaml scenes")
+    pattern = re.compile(source.filename_pattern or "")
+    missing = {"date", "sensor"} - set(pattern.groupindex)
+    if missing:
+        raise SourceError(
+            f"scenes.filename_pattern {pattern.pattern!r}: needs named groups {sorted(missing)}, e.g. "
+            r"'(?P<sensor>[a-z]+)_(?P<date>\d{8})\.tif'"
+        )
+    scenes: dict[str, dict[str, Any]] = {}
+    for f in sorted(folder.rglob("*")):
+        m = pattern.fullmatch(f.name)
+        if not m or not f.is_file():
+            continue
+        g = m.groupdict()
+        stamp = g["date"] + (("T" + g["time"]) if g.get("time") else "")
+        sensor = source.sensor_map.get(g["sensor"], g["sensor"])
+        scene_id = f"{sensor}_{g['date']}" + (f"_{g['time']}" if g.get("time") else "")
+        row = scenes.setdefault(scene_id, _rejected(scene_id, "", sensor))
+        try:
+            row["time"] = pd.Timestamp(stamp).tz_localize("UTC") if pd.Timestamp(stamp).tz is None else stamp
+        except ValueError:
+            row["reason"] = f"{f.name}: date {stamp!r} not understood"
+            continue
+        kind = g.get("asset")
+        if kind is not None and kind == source.quality_asset:
+            row["quality_href"] = str(f)
+        elif kind is not None and kind == source.uncertainty_asset:
+            row["uncertainty_href"] = str(f)
+        elif asset is None or kind is None or kind == asset:
+            row["value_href"] = str(f)
+    for row in scenes.values():
+        if row["value_href"] is None and not row["reason"]:
+            row["reason"] = f"scene {row['scene_id']}: no chlorophyll-a file in {folder}"
+        yield row
+
+
+# -------------------------------------------------------------------------------------------- reader
+@dataclass
+class AoiPixels:
+    """Pixels of one scene whose centre lies in one AOI (1-D arrays of equal length).
+
+    ``n_outside`` counts AOI pixels beyond the scene's edge (they count as not valid).
+    """
+
+    values: np.ndarray
+    quality: np.ndarray | None
+    uncertainty: np.ndarray | None
+    n_outside: int = 0
+
+
+@dataclass
+class SceneWindow:
+    """What was read from one scene: the window (full scene rows/cols), per-AOI pixels, skips."""
+
+    scene_id: str
+    window: Window
+    shape: tuple[int, int]
+    nodata: float | None
+    pixel_size_m: float
+    shore_buffer_m: float
+    pixels: dict[str, AoiPixels] = field(default_factory=dict)
+    skipped: dict[str, str] = field(default_factory=dict)
+
+
+def _metric_crs(gdf: gpd.GeoDataFrame) -> CRS:
+    crs = CRS.from_user_input(gdf.crs)
+    if crs.is_projected and crs.axis_info and crs.axis_info[0].unit_name in ("metre", "meter"):
+        return crs
+    return gdf.estimate_utm_crs()
+
+
+class SceneReader:
+    """Reads AOI windows of scenes; caches the shore-buffered AOIs per (buffer, scene CRS).
+
+    Parameters
+    ----------
+    aois
+        AOI polygons (any CRS), one row per AOI, ids in ``id_field``.
+    id_field
+        Field holding the AOI ids.
+    lake
+        Lake polygon(s) for the inward shoreline buffer; None: the buffer applies inward from
+        each AOI's own boundary.
+    """
+
+    def __init__(self, aois: gpd.GeoDataFrame, *, id_field: str, lake: gpd.GeoDataFrame | None = None) -> None:
+        if aois.crs is None:
+            raise SourceError("areas of interest have no CRS; set one on the layer and try again")
+        self._metric = _metric_crs(aois)
+        self.aois = gpd.GeoSeries(aois.geometry.values, index=aois[id_field].astype(str), crs=aois.crs)
+        self.aois = self.aois.to_crs(self._metric)
+        self.lake = None if lake is None else shapely.union_all(lake.to_crs(self._metric).geometry.values)
+        self._cache: dict[tuple[float, str], gpd.GeoSeries] = {}
+
+    def _aois_in(self, crs: CRS, buffer_m: float) -> gpd.GeoSeries:
+        key = (round(buffer_m, 6), crs.to_wkt())
+        if key not in self._cache:
+            self._cache[key] = shore_buffered(self.aois, self.lake, buffer_m).to_crs(crs)
+        return self._cache[key]
+
+    def read(self, scene_id: str, value_href: str, quality_href: str | None = None,
+             uncertainty_href: str | None = None, *, shore_buffer_m: float | None = None) -> SceneWindow:  # fmt: skip
+        """Read the AOI window of one scene.
+
+        ``shore_buffer_m`` (metres): inward shoreline buffer; None: one pixel of the scene.
+
+        Raises
+        ------
+        SourceError
+            Missing, truncated or corrupt file; scene without CRS; a quality/uncertainty band whose
+            shape or grid differs from the value band.
+        """
+        src = _open(value_href, scene_id, "chlorophyll-a")
+        with src:
+            if src.crs is None:
+                raise SourceError(f"scene {scene_id}: {value_href} has no CRS; write one into the file (e.g. gdal_edit)")
+            crs = CRS.from_user_input(src.crs)
+            pixel_m = _pixel_size_m(src, crs)
+            buffer_m = pixel_m if shore_buffer_m is None else float(shore_buffer_m)
+            geoms = self._aois_in(crs, buffer_m)
+            out = SceneWindow(scene_id, Window(0, 0, 0, 0), src.shape, src.nodata, pixel_m, buffer_m)
+            scene_box = shapely.box(*src.bounds)
+            keep = []
+            for aoi, geom in geoms.items():
+                if geom is None or geom.is_empty:
+                    out.skipped[str(aoi)] = f"AOI empty after the {buffer_m:g} m inward shore buffer"
+                elif not geom.intersects(scene_box):
+                    out.skipped[str(aoi)] = "AOI does not intersect the scene footprint"
+                else:
+                    keep.append(str(aoi))
+            if not keep:
+                return out
+            union = shapely.union_all(geoms.loc[keep].values)
+            full = rasterio.features.geometry_window(src, [union], boundless=True)
+            try:
+                inner = full.intersection(Window(0, 0, src.width, src.height))
+            except rasterio.errors.WindowError:
+                out.skipped.update({a: "AOI does not intersect the scene footprint" for a in keep})
+                return out
+            out.window = full
+            values = _read(src, inner, full, scene_id, value_href, fill=np.nan)
+            transform = rasterio.windows.transform(full, src.transform)
+            quality = _read_other(quality_href, scene_id, "quality", src, inner, full)
+            uncertainty = _read_other(uncertainty_href, scene_id, "uncertainty", src, inner, full)
+        inside = np.zeros(values.shape, dtype=bool)
+        inside[inner.row_off - full.row_off : inner.row_off - full.row_off + inner.height,
+               inner.col_off - full.col_off : inner.col_off - full.col_off + inner.width] = True  # fmt: skip
+        for aoi in keep:
+            mask = rasterio.features.geometry_mask(
+                [geoms[aoi]], out_shape=values.shape, transform=transform, all_touched=False, invert=True
+            )
+            if not mask.any():
+                out.skipped[aoi] = "no pixel centre inside the AOI (AOI smaller than a pixel)"
+                continue
+            sel = mask & inside
+            out.pixels[aoi] = AoiPixels(
+                values=values[sel],
+                quality=None if quality is None else quality[sel],
+                uncertainty=None if uncertainty is None else uncertainty[sel],
+                n_outside=int(mask.sum() - sel.sum()),
+            )
+        return out
+
+
+def _open(href: str, scene_id: str, what: str) -> rasterio.io.DatasetReader:
+    if "://" not in href and not Path(href).exists():
+        raise SourceError(f"scene {scene_id}: {what} file {href} is missing")
+    try:
+        return rasterio.open(href)
+    except (RasterioError, OSError) as err:
+        raise SourceError(f"scene {scene_id}: {what} file {href} is unreadable or corrupt ({err})") from err
+
+
+def _pixel_size_m(src: rasterio.io.DatasetReader, crs: CRS) -> float:
+    size = float(abs(src.transform.a))
+    if crs.is_geographic:
+        lat = np.deg2rad((src.bounds.top + src.bounds.bottom) / 2)
+        return size * 111_320.0 * float(np.cos(lat))
+    return size * float(crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0)
+
+
+def _read(src: Any, inner: Window, full: Window, scene_id: str, href: str, *, fill: float) -> np.ndarray:
+    """Read ``inner`` of band 1 and place it in an array of the ``full`` window (outside: ``fill``)."""
+    try:
+        data = src.read(1, window=inner)
+    except (RasterioError, OSError) as err:
+        raise SourceError(f"scene {scene_id}: reading {href} failed; truncated or corrupt file? ({err})") from err
+    if inner == full:
+        return data
+    out = np.full((full.height, full.width), fill, dtype=np.result_type(data.dtype, np.float32))
+    r, c = inner.row_off - full.row_off, inner.col_off - full.col_off
+    out[r : r + inner.height, c : c + inner.width] = data
+    return out
+
+
+def _read_other(href: str | None, scene_id: str, what: str, ref: Any, inner: Window, full: Window) -> np.ndarray | None:
+    if not href:
+        return None
+    src = _open(href, scene_id, what)
+    with src:
+        if src.shape != ref.shape or not src.transform.almost_equals(ref.transform):
+            raise SourceError(
+                f"scene {scene_id}: {what} band {href} has shape {src.shape} / transform {tuple(src.transform)[:6]}, "
+                f"the chlorophyll-a band {ref.shape} / {tuple(ref.transform)[:6]}; both must share one grid"
+            )
+        data = _read(src, inner, full, scene_id, href, fill=np.nan)
+        if src.nodata is not None and np.isfinite(src.nodata):  # the band's own no-data: unknown (NaN)
+            data = np.where(data == src.nodata, np.nan, data.astype(np.float32, copy=False))
+        return data
+
+
+def read_scenes(
+    scenes: pd.DataFrame,
+    reader: SceneReader,
+    *,
+    shore_buffer_m: Mapping[str, float] | None = None,
+    progress: Progress | None = None,
+) -> Iterator[tuple[pd.Series, SceneWindow | None, str]]:
+    """Read every usable scene sequentially; yield ``(scene row, window or None, reason)``.
+
+    ``shore_buffer_m`` maps sensor labels to their inward shore buffer (metres); sensors not
+    listed use one pixel of the scene. A scene that fails yields ``None`` and the reason; the
+    others go on. Memory is bounded by the AOI window, not the scene size.
+    """
+    progress = progress or no_progress
+    buffers = dict(shore_buffer_m or {})
+    total = len(scenes)
+    for i, (_, row) in enumerate(scenes.iterrows()):
+        if row["reason"]:
+            yield row, None, str(row["reason"])
+        else:
+            try:
+                win = reader.read(
+                    row["scene_id"], row["value_href"], row["quality_href"], row["uncertainty_href"],
+                    shore_buffer_m=buffers.get(row["sensor"]),
+                )  # fmt: skip
+                yield row, win, ""
+            except SourceError as err:
+                yield row, None, str(err)
+        progress("reading scenes", i + 1, total)

@@ -1,0 +1,244 @@
+"""Stage `features`: point-in-time feature rows, folds and sampling diagnostics of one lake.
+
+Reads from the store ``target_daily`` (the accepted chlorophyll-a per AOI and date) and the
+driver tables that exist: ``drivers_daily`` (the zone named by ``features.driver_zone``:
+``lake``, ``catchment``, ``aoi:<id>``, or ``aoi`` for each AOI's own zone) and
+``hydrology_daily`` (inflow, loads, flow-weighted concentrations); calls the pure core
+(:mod:`lakefeed.features`) and writes ``features`` and ``diagnostics``. When the previous
+``features`` were built with the same configuration from inputs whose old part is unchanged,
+only rows from the first new date on are recomputed (incremental refresh). Must not hold
+science of its own beyond wiring.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+
+import numpy as np
+import pandas as pd
+
+from lakefeed.config import Project
+from lakefeed.exceptions import FeatureError
+from lakefeed.features import (
+    WindowPlan,
+    assign_folds,
+    build_feature_rows,
+    refresh_feature_rows,
+    refresh_start,
+    sampling_diagnostics,
+)
+from lakefeed.features.incremental import prefix_digest
+from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.store import Store
+
+__all__ = ["build_features", "feature_units", "load_drivers"]
+
+_NOT_DRIVERS = {"valid_fraction", "flags", "load_method", "zone", "date", "lake"}
+KEYS = ["aoi", "target_date", "lead_days"]
+_DESCRIPTIONS = {
+    "issue_date": "issue date = target_date - lead_days; only data dated on or before it is used",
+    "chla": "chlorophyll-a on the target date (the label)",
+    "persistence_chla": "last accepted chlorophyll-a dated on or before the issue date and before the target date",
+    "persistence_age_days": "target_date minus the date of persistence_chla",
+    "days_since_prev_obs": "issue_date minus the date of the last accepted observation known at issue",
+    "doy_sin": "sin(2 pi (day of year - 1) / days in year) of the target date",
+    "doy_cos": "cos(2 pi (day of year - 1) / days in year) of the target date",
+    "incomplete_windows": "number of window features set missing for too many missing days",
+    "outside_driver_record": "the windows end before the first or after the last driver day",
+    "flags": "';'-joined: outside_driver_record, incomplete_window, no_prior_observation, forecast_drivers",
+}
+
+
+def _sum_unit(unit: str) -> str:
+    return unit[: -len(" d-1")] if unit.endswith(" d-1") else f"{unit} d"
+
+
+def feature_units(plan: WindowPlan, driver_units: dict[str, str]) -> dict[str, str]:
+    """Units of window features: the driver's unit; sums of per-day rates times days (mm d-1 -> mm)."""
+    out = {}
+    for c, stats in plan.stats.items():
+        u = driver_units.get(c)
+        if u is None:
+            continue
+        for s in stats:
+            for k in plan.windows:
+                out[f"{c}__{s}_{k}d"] = _sum_unit(u) if s == "sum" else u
+    return out
+
+
+def load_drivers(
+    store: Store, lake: str, *, zone: str, aois: list[str], wanted: list[str] | None
+) -> tuple[dict[str | None, pd.DataFrame], dict[str, str], list[str]]:
+    """Daily driver frames (indexed by date) per AOI (key None: the same for all), units, tables read."""
+    units: dict[str, str] = {}
+    read: list[str] = []
+    per_zone: dict[str, pd.DataFrame] = {}
+    hyd = None
+    if store.has_table("drivers_daily", lake):
+        dd = store.read_table("drivers_daily", lake)
+        units.update(dd.attrs.get("units", {}))
+        zones = sorted(dd["zone"].astype(str).unique())
+        need = [f"aoi:{a}" for a in aois] if zone == "aoi" else [zone]
+        missing = [z for z in need if z not in zones]
+        if missing:
+            raise FeatureError(
+                f"drivers_daily of lake {lake!r} has no zone {missing[0]!r} (features.driver_zone = {zone!r}); "
+                f"zones present: {zones}. Set features.driver_zone to one of them or enable that zone."
+            )
+        for z in need:
+            per_zone[z] = _values(dd[dd["zone"].astype(str) == z])
+        read.append(f"drivers_daily (zone {zone!r})")
+    if store.has_table("hydrology_daily", lake):
+        h = store.read_table("hydrology_daily", lake)
+        units.update(h.attrs.get("units", {}))
+        hyd = _values(h)
+        read.append("hydrology_daily")
+    keys: list[str | None] = [f"aoi:{a}" for a in aois] if zone == "aoi" and per_zone else [None]
+    frames: dict[str | None, pd.DataFrame] = {}
+    for key in keys:
+        parts = [per_zone[key if key else zone]] if per_zone else []
+        if hyd is not None:
+            parts.append(hyd)
+        frame = pd.concat(parts, axis=1, join="outer").sort_index() if parts else pd.DataFrame(index=pd.DatetimeIndex([]))
+        frames[key.split(":", 1)[1] if key else None] = frame
+    available = sorted({c for f in frames.values() for c in f.columns})
+    if wanted is not None:
+        absent = [c for c in wanted if c not in available]
+        if absent:
+            raise FeatureError(
+                f"driver {absent[0]!r} named in features.drivers of lake {lake!r} is provided by no store table "
+                f"(read: {', '.join(read) or 'none: no drivers_daily or hydrology_daily table'}); "
+                f"available drivers: {available}. Fix the name or run the stage that writes it."
+            )
+        frames = {k: f[list(wanted)] for k, f in frames.items()}
+    return frames, units, read
+
+
+def _values(frame: pd.DataFrame) -> pd.DataFrame:
+    cols = [c for c in frame.columns if c not in _NOT_DRIVERS and pd.api.types.is_numeric_dtype(frame[c])]
+    cols = [c for c in cols if not pd.api.types.is_bool_dtype(frame[c])]
+    out = frame.set_index(pd.DatetimeIndex(pd.to_datetime(frame["date"])).normalize())[cols].astype(float)
+    return out[~out.index.duplicated(keep="first")].sort_index()
+
+
+def _config_hash(project: Project, columns: list[str]) -> str:
+    payload = {"lake": project.lake.id, "features": project.lake.features.model_dump(mode="json"), "drivers": columns}
+    return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
+
+
+def _digests(frames: dict[str | None, pd.DataFrame], targets: pd.DataFrame, through: tuple[object, object]) -> str:
+    drv = pd.concat({str(k): f for k, f in frames.items()}, names=["key", "date"]).reset_index()
+    return prefix_digest(drv, date_column="date", through=through[0]) + prefix_digest(
+        targets, date_column="date", through=through[1]
+    )
+
+
+def build_features(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+    """Build ``features`` and ``diagnostics`` for one lake from the store's driver and target tables.
+
+    Examples
+    --------
+    >>> from lakefeed.config import load_project
+    >>> build_features(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
+    """
+    lake, opts = project.lake, project.lake.features
+    progress = progress or no_progress
+    result = StageResult(stage="features", lake=lake.id)
+    if not store.has_table("target_daily", lake.id):
+        if opts.drivers:
+            load_drivers(store, lake.id, zone=opts.driver_zone, aois=[], wanted=list(opts.drivers))
+        result.skipped, result.reason = True, "no target_daily table for this lake; run the target (scenes) stage first"
+        return result
+    progress("features: reading", 0, 3)
+    td = store.read_table("target_daily", lake.id)
+    targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
+    targets["aoi"] = targets["aoi"].astype(str)
+    targets["date"] = pd.to_datetime(targets["date"]).dt.normalize()
+    targets = targets.sort_values(["aoi", "date"]).reset_index(drop=True)
+    if targets.empty:
+        result.skipped, result.reason = True, "target_daily has no chlorophyll-a values for this lake"
+        return result
+    aois = sorted(targets["aoi"].unique())
+    wanted = list(opts.drivers) if opts.drivers else None
+    frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
+    columns = sorted({c for f in frames.values() for c in f.columns}, key=lambda c: (wanted or []).index(c) if wanted else c)
+    frames = {k: f.reindex(columns=columns) for k, f in frames.items()}
+    if not columns:
+        result.warnings.append("no driver tables (drivers_daily, hydrology_daily): features hold no window columns")
+    stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
+    plan = WindowPlan.build(columns, windows=opts.windows, stats=stats)
+    all_days = [f.index for f in frames.values() if len(f)]
+    record = (min(i.min() for i in all_days), max(i.max() for i in all_days)) if all_days else (None, None)
+    through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
+    cfg = _config_hash(project, columns)
+    digest_now = _digests(frames, targets, through)
+
+    since = None
+    prev = store.entry("features", lake.id)
+    if prev and prev.get("config_hash") == cfg and store.has_table("features", lake.id):
+        md = prev.get("metadata", {})
+        old = (md.get("drivers_through"), md.get("targets_through"))
+        if all(old) and _digests(frames, targets, old) == md.get("inputs_digest_at_through"):
+            since = refresh_start(*old)
+    existing = store.read_table("features", lake.id) if since is not None else None
+
+    progress("features: computing", 1, 3)
+    blocks = []
+    for key, drivers in frames.items():
+        tg = targets if key is None else targets[targets["aoi"] == key]
+        for h in opts.leads:
+            kw = dict(lead=h, windows=plan.windows, stats=plan.stats, include_target_day=opts.include_target_day,
+                      max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
+            if existing is not None:
+                old_rows = existing[(existing["lead_days"] == h) & (key is None or existing["aoi"] == key)]
+                old_rows = old_rows.drop(columns=["lake", "fold", "fold_kind"], errors="ignore")
+                blocks.append(refresh_feature_rows(old_rows, tg, drivers, since=since, **kw))
+            else:
+                blocks.append(build_feature_rows(tg, drivers, **kw))
+    rows = pd.concat(blocks, ignore_index=True).sort_values(KEYS, kind="stable").reset_index(drop=True)
+    rows["target_date"] = pd.to_datetime(rows["target_date"])
+    rows["issue_date"] = pd.to_datetime(rows["issue_date"])
+    fold = pd.Series(0, index=rows.index, dtype=np.int16)
+    for aoi, idx in rows.groupby("aoi").groups.items():
+        fold.loc[idx] = assign_folds(rows.loc[idx, "target_date"], k=opts.folds, kind=opts.fold_kind,
+                                     embargo_days=opts.embargo_days)  # fmt: skip
+        _ = aoi
+    rows.insert(rows.columns.get_loc("doy_cos") + 1, "fold", fold.astype(np.int16))
+    rows.insert(rows.columns.get_loc("fold") + 1, "fold_kind", opts.fold_kind)
+    n_outside = int(rows["outside_driver_record"].sum())
+    if n_outside and columns:
+        result.warnings.append(f"{n_outside} feature row(s) have target dates outside the driver record (kept, flagged)")
+
+    diag = sampling_diagnostics(targets, by="aoi", record=record, min_observations=opts.min_observations)
+    for _, d in diag.iterrows():
+        if d["warnings"]:
+            result.warnings.append(f"AOI {d['aoi']}: {d['warnings']}")
+
+    progress("features: writing", 2, 3)
+    units = {"chla": "mg m-3", "persistence_chla": "mg m-3", "persistence_age_days": "d", "days_since_prev_obs": "d",
+             "doy_sin": "1", "doy_cos": "1", "lead_days": "d", "fold": "1", "incomplete_windows": "1"}  # fmt: skip
+    units |= feature_units(plan, driver_units)
+    descr = dict(_DESCRIPTIONS)
+    descr["fold"] = (
+        "cross-validation fold: contiguous time blocks per AOI (-1: dropped by the embargo)"
+        if opts.fold_kind == "blocked"
+        else "RANDOM cross-validation fold (not time-blocked: ignores autocorrelation, overstates skill)"
+    )
+    inputs = {f"{t}/lake={lake.id}": store.entry(t, lake.id)["content_hash"] for t in ("target_daily", "drivers_daily",
+              "hydrology_daily") if store.has_table(t, lake.id) and store.entry(t, lake.id)}  # fmt: skip
+    meta = {
+        "drivers_through": str(pd.Timestamp(through[0]).date()),
+        "targets_through": str(pd.Timestamp(through[1]).date()),
+        "inputs_digest_at_through": digest_now,
+        "driver_zone": opts.driver_zone,
+        "fold_kind": opts.fold_kind,
+        "tables_read": "; ".join(["target_daily", *read]),
+    }
+    store.write_table("features", lake.id, rows, units=units, descriptions=descr, metadata=meta, inputs=inputs,
+                      config_hash=cfg, time_column="target_date")  # fmt: skip
+    dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")} | {"coverage_fraction": "1"}
+    store.write_table("diagnostics", lake.id, diag, units=dunits, inputs=inputs, config_hash=cfg, time_column="first_date")
+    progress("features: done", 3, 3)
+    result.tables = {"features": len(rows), "diagnostics": len(diag)}
+    return result

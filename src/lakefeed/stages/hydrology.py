@@ -1,0 +1,199 @@
+"""Stage ``hydrology``: lake inflow and nutrient loads -> ``hydrology_daily`` (+ ``load_estimates``).
+
+Takes a :class:`~lakefeed.config.Project` and a :class:`~lakefeed.store.Store`. Reads the lake and
+sub-basin layers and traces the catchment (:func:`lakefeed.geometry.network.trace_catchment`),
+reads the per-sub-basin model outputs (:func:`lakefeed.sources.hydrology.read_hydrology`), sums
+the inflow and loads (:func:`lakefeed.extract.loads.inflow_loads`) and, for each sampled tributary
+station, estimates daily loads from the sparse samples by every method
+(:mod:`lakefeed.extract.load_estimation`).
+
+Writes
+
+- ``hydrology_daily`` (one row per local date; the model output is daily already): ``date``,
+  ``inflow_discharge`` (m3 s-1), ``<nutrient>_load`` (kg d-1), ``<nutrient>_fwmc`` (mg L-1),
+  ``load_method``, ``flags``, then per-inflow ``inflow_<id>_discharge`` and ``<nutrient>_load_<id>``,
+  and per station ``<nutrient>_load_station_<station>`` (kg d-1, the configured method). The lake
+  totals are the model's (``load_method`` starts with ``model_output``); station estimates are
+  kept beside them, not mixed in.
+- ``load_estimates`` (one row per station, nutrient, method and date): ``station``, ``nutrient``,
+  ``method``, ``selected``, ``date``, ``load``, ``lower``, ``upper`` (kg d-1), ``warnings``.
+
+Must not: hold science (that lives in ``geometry`` and ``extract``).
+"""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+import pandas as pd
+
+from lakefeed.config import Project
+from lakefeed.config.sources import SampleStation
+from lakefeed.exceptions import ConfigError, ExtractError, LakefeedWarning
+from lakefeed.extract.load_estimation import LoadEstimate, compare_methods
+from lakefeed.extract.loads import inflow_loads, inflow_members
+from lakefeed.geometry.network import Catchment, trace_catchment
+from lakefeed.sources.hydrology import read_hydrology
+from lakefeed.sources.samples import read_flow, read_samples
+from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.store import Store
+from lakefeed.units import CANONICAL
+
+__all__ = ["build_hydrology", "catchment_of", "station_method"]
+
+
+def catchment_of(project: Project) -> Catchment:
+    """Trace the lake's catchment from the configured sub-basin layer (reads the layers)."""
+    cfg = project.lake.subbasins
+    subbasins = read_layer(cfg, what="sub-basin layer", id_field=cfg.id_field)
+    lake = read_layer(project.lake.lake, what="lake polygon")
+    return trace_catchment(
+        subbasins,
+        lake,
+        id_field=cfg.id_field,
+        downstream_field=cfg.downstream_field,
+        lake_id=cfg.lake_id,
+        direct_inflows=cfg.direct_inflows,
+    )
+
+
+def station_method(station: SampleStation) -> str:
+    """Estimator name for a station's config (``rating_curve`` + ``ferguson`` -> ``rating_curve_ferguson``)."""
+    if station.method == "rating_curve" and station.rating_correction == "ferguson":
+        return "rating_curve_ferguson"
+    return station.method
+
+
+def _station_estimates(
+    station: SampleStation, flow: pd.Series, where: str
+) -> tuple[dict[str, dict[str, LoadEstimate | ExtractError]], str]:
+    samples = read_samples(station.path, units=station.units)
+    options = {"seasonal": station.rating_seasonal, "trend": station.rating_trend}
+    out = {}
+    for nutrient, part in samples.groupby("nutrient", sort=True):
+        out[str(nutrient)] = compare_methods(part, flow, min_samples=station.min_samples, **options)
+    return out, station_method(station)
+
+
+def build_hydrology(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+    """Build ``hydrology_daily`` (and ``load_estimates`` when stations are sampled) for one lake.
+
+    Parameters
+    ----------
+    project
+        The lake and its sources (``sources.hydrology``, ``sources.samples``).
+    store
+        Where the tables are written.
+    progress
+        Callback (description, done, total).
+
+    Returns
+    -------
+    StageResult with rows written per table and the warnings raised on the way.
+
+    Examples
+    --------
+    >>> from lakefeed.config import load_project
+    >>> from lakefeed.store import Store
+    >>> result = build_hydrology(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
+    """
+    progress = progress or no_progress
+    lake, sources = project.lake, project.sources
+    result = StageResult(stage="hydrology", lake=lake.id)
+    hyd = sources.hydrology
+    if hyd is None:
+        result.skipped, result.reason = True, "no hydrology source in sources.yaml"
+        return result
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", LakefeedWarning)
+        progress("hydrology: catchment", 0, 4)
+        catchment = catchment_of(project)
+        members = inflow_members(catchment.direct_inflows, catchment.subbasin_ids, discharge_kind=hyd.discharge_kind)
+        station_ids = [s.subbasin for s in sources.samples if s.subbasin]
+        unknown = [s for s in station_ids if s not in catchment.graph]
+        if unknown:
+            raise ConfigError(f"sources.yaml samples[].subbasin names unknown sub-basin(s) {unknown}")
+        progress("hydrology: model outputs", 1, 4)
+        data = read_hydrology(hyd, subbasin_ids=list(dict.fromkeys([*members, *station_ids])))
+        nutrients = [n for n in hyd.nutrients if n in data]
+        table = inflow_loads(data["discharge"][members], {n: data[n][members] for n in nutrients}, members=members)
+        gaps = int((table["flags"] != "").sum())
+        if gaps:
+            warnings.warn(
+                f"hydrology output: {gaps} day(s) with missing values; their lake values are missing and flagged",
+                LakefeedWarning,
+                stacklevel=2,
+            )
+        progress("hydrology: station loads", 2, 4)
+        method_text = ["model_output"]
+        estimates: list[pd.DataFrame] = []
+        for station in sources.samples:
+            if station.subbasin:
+                flow = data["discharge"][station.subbasin]
+            elif station.flow_path:
+                flow = read_flow(station.flow_path)
+            else:
+                raise ConfigError(f"sources.yaml samples: station {station.id!r} needs 'subbasin' or 'flow_path'")
+            per_nutrient, chosen = _station_estimates(station, flow, station.path)
+            method_text.append(f"station_{station.id}={chosen}")
+            for nutrient, results in per_nutrient.items():
+                for name, est in results.items():
+                    if isinstance(est, ExtractError):
+                        warnings.warn(f"station {station.id} {nutrient} {name}: {est}", LakefeedWarning, stacklevel=2)
+                        continue
+                    frame = est.daily.rename_axis("date").reset_index()
+                    frame.insert(0, "station", station.id)
+                    frame.insert(1, "nutrient", nutrient)
+                    frame.insert(2, "method", est.method if name != "rating_curve" else "rating_curve")
+                    frame.insert(3, "selected", name == chosen)
+                    frame["warnings"] = "; ".join(est.warnings)
+                    estimates.append(frame)
+                    if name == chosen:
+                        table[f"{nutrient}_load_station_{station.id}"] = est.daily["load"].reindex(table.index)
+                        for w in est.warnings:
+                            warnings.warn(
+                                f"station {station.id} {nutrient} ({name}): {w}", LakefeedWarning, stacklevel=2
+                            )
+        table.insert(len(nutrients) * 2 + 1, "load_method", ";".join(method_text))
+        progress("hydrology: writing", 3, 4)
+        out = table.reset_index()
+        out["date"] = out["date"].dt.date
+        units = {c: _unit_of(c) for c in out.columns if _unit_of(c)}
+        meta = {
+            "catchment_rule": catchment.rule,
+            "direct_inflows": ",".join(catchment.direct_inflows),
+            "catchment_subbasins": ",".join(catchment.subbasin_ids),
+            "catchment_area_km2": f"{catchment.area_km2:.6g}",
+            "discharge_kind": hyd.discharge_kind,
+            "source": str(hyd.path or Path(next(iter(hyd.files.values())))),
+        }
+        store.write_table("hydrology_daily", lake.id, out, units=units, metadata=meta)
+        result.tables["hydrology_daily"] = len(out)
+        if estimates:
+            est_frame = pd.concat(estimates, ignore_index=True)
+            est_frame["date"] = est_frame["date"].dt.date
+            store.write_table(
+                "load_estimates",
+                lake.id,
+                est_frame,
+                units={"load": CANONICAL["load"], "lower": CANONICAL["load"], "upper": CANONICAL["load"]},
+            )
+            result.tables["load_estimates"] = len(est_frame)
+        progress("hydrology: done", 4, 4)
+    result.warnings.extend(str(w.message) for w in caught if issubclass(w.category, LakefeedWarning))
+    for w in caught:  # re-raise anything that is not ours
+        if not issubclass(w.category, LakefeedWarning):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    return result
+
+
+def _unit_of(column: str) -> str | None:
+    if column.endswith("discharge"):
+        return CANONICAL["discharge"]
+    if "_load" in column:
+        return CANONICAL["load"]
+    if column.endswith("_fwmc"):
+        return CANONICAL["concentration"]
+    return None

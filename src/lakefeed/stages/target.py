@@ -1,0 +1,177 @@
+"""Stage `target`: chlorophyll-a observations and the fused daily target of one lake.
+
+Reads the scene catalogue and the AOI/lake polygons (:mod:`lakefeed.sources`), extracts windowed AOI
+statistics, screens them, harmonises the sensors and fuses same-day values (:mod:`lakefeed.extract`),
+and writes the store tables ``target_obs``, ``target_daily`` and ``sensor_bias``. Must not hold science
+of its own beyond wiring.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import numpy as np
+import pandas as pd
+
+from lakefeed.config import Project
+from lakefeed.config.lake import SensorConfig, TargetOptions, Threshold
+from lakefeed.extract.harmonise import BIAS_COLUMNS, apply_bias, fit_bias, fuse_daily, matchups
+from lakefeed.extract.scene_stats import STAT_COLUMNS, aoi_statistics
+from lakefeed.extract.screening import accept, flag_outliers
+from lakefeed.extract.trophic import CAUTION, carlson_tsi, exceedance_flags, oecd_category
+from lakefeed.sources.scenes import SceneReader, list_scenes, read_scenes
+from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.store import Store
+
+__all__ = ["OBS_COLUMNS", "OBS_UNITS", "build_target", "daily_target", "extract_observations"]
+
+OBS_COLUMNS = ["lake", "aoi", "scene_id", "sensor", "time", "date", *STAT_COLUMNS, "accepted", "reason", "outlier"]
+OBS_UNITS = {
+    "median": "mg m-3", "mean": "mg m-3", "p10": "mg m-3", "p90": "mg m-3", "std": "mg m-3", "cv": "1",
+    "n_valid": "1", "valid_fraction": "1", "uncertainty": "1",
+}  # fmt: skip
+DAILY_UNITS = {"chla": "mg m-3", "chla_uncertainty": "mg m-3", "n_obs": "1", "tsi": "1"}
+_DESCRIPTIONS = {
+    "uncertainty": "mean relative 1-sigma uncertainty of the valid pixels (fraction), NaN without a band",
+    "valid_fraction": "valid pixels / pixels whose centre lies in the shore-buffered AOI",
+    "trophic_class": "OECD (1982) category of the value (boundaries in the lower class). " + CAUTION,
+    "chla_uncertainty": "1-sigma uncertainty of the inverse-variance weighted mean",
+}
+
+
+def extract_observations(
+    scenes: pd.DataFrame,
+    reader: SceneReader,
+    *,
+    lake: str,
+    timezone: str = "UTC",
+    sensors: Mapping[str, SensorConfig] | None = None,
+    options: TargetOptions | None = None,
+    shore_buffer_m: float | None = None,
+    progress: Progress | None = None,
+) -> pd.DataFrame:
+    """One row per AOI and scene with statistics, acceptance and outlier flags (``OBS_COLUMNS``).
+
+    ``shore_buffer_m`` overrides every sensor's buffer (metres); sensors without a config use one
+    pixel of the scene. Unreadable scenes and skipped AOIs are rows with ``reason`` set.
+    """
+    sensors = dict(sensors or {})
+    options = options or TargetOptions()
+    buffers = {s: c.effective_shore_buffer_m for s, c in sensors.items()}
+    if shore_buffer_m is not None:
+        buffers = dict.fromkeys(set(scenes["sensor"]) | set(buffers), float(shore_buffer_m))
+    aoi_ids = list(reader.aois.index)
+    empty = dict.fromkeys(STAT_COLUMNS, np.nan) | {"n_valid": 0, "valid_fraction": 0.0}
+    rows = []
+    for scene, win, reason in read_scenes(scenes, reader, shore_buffer_m=buffers, progress=progress):
+        base = {"scene_id": scene["scene_id"], "sensor": scene["sensor"], "time": scene["time"]}
+        if win is None:
+            rows.extend(base | empty | {"aoi": a, "reason": reason} for a in aoi_ids)
+            continue
+        cfg = sensors.get(scene["sensor"])
+        rules = dict(
+            nodata=win.nodata,
+            bad_bits=cfg.bad_quality_bits if cfg else (),
+            bad_values=cfg.bad_quality_values if cfg else (),
+            valid_range=tuple(options.valid_range),
+        )
+        for aoi in aoi_ids:
+            if aoi in win.pixels:
+                px = win.pixels[aoi]
+                stats = aoi_statistics(px.values, px.quality, px.uncertainty, n_outside=px.n_outside, **rules)
+                rows.append(base | stats | {"aoi": aoi, "reason": ""})
+            else:
+                rows.append(base | empty | {"aoi": aoi, "reason": win.skipped.get(aoi, "AOI not read")})
+    obs = pd.DataFrame(rows)
+    if obs.empty:
+        return pd.DataFrame(columns=OBS_COLUMNS)
+    obs["time"] = pd.to_datetime(obs["time"], utc=True)
+    obs["date"] = obs["time"].dt.tz_convert(timezone).dt.date
+    obs["lake"] = lake
+    obs = accept(obs, min_valid_fraction=options.min_valid_fraction, min_valid_pixels=options.min_valid_pixels,
+                 max_cv=options.max_cv)  # fmt: skip
+    obs["outlier"] = flag_outliers(obs, window_days=options.outlier_window_days, threshold=options.outlier_threshold)
+    obs["n_valid"] = obs["n_valid"].astype("int64")
+    return obs[OBS_COLUMNS].sort_values(["aoi", "time", "scene_id"]).reset_index(drop=True)
+
+
+def daily_target(
+    obs: pd.DataFrame,
+    *,
+    sensors: Mapping[str, SensorConfig] | None = None,
+    reference: str | None = None,
+    options: TargetOptions | None = None,
+    thresholds: list[Threshold] | Mapping[str, float] = (),  # type: ignore[assignment]
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Harmonise and fuse accepted, non-outlier observations: ``(target_daily, sensor_bias)``.
+
+    Without a reference sensor the values are fused unadjusted (``sensor_bias`` is then empty).
+    The relative uncertainty of an observation is its band's mean, else the sensor's configured
+    ``uncertainty`` (default 0.3).
+    """
+    sensors = dict(sensors or {})
+    options = options or TargetOptions()
+    use = obs[obs["accepted"].astype(bool) & ~obs["outlier"].astype(bool) & (obs["median"] > 0)].copy()
+    default_rel = use["sensor"].map({s: c.uncertainty for s, c in sensors.items()}).fillna(SensorConfig.model_fields["uncertainty"].default)
+    use["relative_sigma"] = use["uncertainty"].where(use["uncertainty"] > 0, default_rel)
+    if reference is not None:
+        pairs = matchups(use, reference=reference, window_days=options.matchup_window_days)
+        fits = fit_bias(pairs, reference=reference, sensors=sorted(set(use["sensor"])), model=options.bias_model,
+                        min_matchups=options.min_matchups)  # fmt: skip
+    else:
+        fits = pd.DataFrame(columns=BIAS_COLUMNS)
+    if len(fits):
+        use[["value", "sigma"]] = apply_bias(use, fits)
+    else:
+        use["value"] = use["median"]
+        use["sigma"] = use["median"] * use["relative_sigma"]
+    daily = fuse_daily(use, by=("lake", "aoi", "date"))
+    daily["n_obs"] = daily["n_obs"].astype("int64")
+    daily["tsi"] = carlson_tsi(daily["chla"].to_numpy())
+    daily["trophic_class"] = oecd_category(daily["chla"].to_numpy())
+    daily = pd.concat([daily, exceedance_flags(daily["chla"], thresholds)], axis=1)
+    return daily, fits
+
+
+def build_target(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+    """Build ``target_obs``, ``target_daily`` and ``sensor_bias`` for one lake.
+
+    Examples
+    --------
+    >>> from lakefeed.config import load_project
+    >>> build_target(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
+    """
+    lake = project.lake
+    result = StageResult(stage="target", lake=lake.id)
+    source = project.sources.scenes
+    if source is None:
+        result.skipped, result.reason = True, "no 'scenes' section in the sources configuration"
+        return result
+    progress = progress or no_progress
+    aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field)
+    lake_poly = read_layer(lake.lake, what="lake polygon")
+    reader = SceneReader(aois, id_field=lake.aois.id_field, lake=lake_poly)
+    scenes = list_scenes(source)
+    obs = extract_observations(scenes, reader, lake=lake.id, timezone=lake.timezone, sensors=lake.sensors,
+                               options=lake.target, progress=progress)  # fmt: skip
+    reference = lake.reference_sensor
+    if reference is None and obs["sensor"].nunique() > 1:
+        result.warnings.append("no reference sensor configured: sensors are fused without harmonisation")
+    daily, fits = daily_target(obs, sensors=lake.sensors, reference=reference, options=lake.target,
+                               thresholds=lake.thresholds)  # fmt: skip
+    for _, f in fits[fits["note"].str.startswith("too few") | fits["note"].str.startswith("fitted")].iterrows():
+        result.warnings.append(f"sensor {f['sensor']}: {f['note']}")
+    bad = obs.loc[obs["reason"] != "", ["scene_id", "reason"]].drop_duplicates("scene_id")
+    unreadable = bad[bad["reason"].str.startswith("scene ") | bad["reason"].str.startswith("STAC")]
+    if len(unreadable):
+        result.warnings.append(f"{len(unreadable)} scene(s) rejected as unreadable, e.g. {unreadable['reason'].iloc[0]}")
+    meta = {"lakefeed.caution": CAUTION}
+    fit_meta = {"lakefeed.sensor_bias": fits.to_json(orient="records")}
+    store.write_table("target_obs", lake.id, obs, units=OBS_UNITS, descriptions=_DESCRIPTIONS, metadata=meta)
+    store.write_table("target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=_DESCRIPTIONS,
+                      metadata=meta | fit_meta)  # fmt: skip
+    bias_units = {"ratio": "1", "ln_ratio": "1", "ln_ratio_se": "1", "slope": "1", "intercept": "mg m-3", "r2": "1"}
+    store.write_table("sensor_bias", lake.id, fits.assign(lake=lake.id), units=bias_units)
+    result.tables = {"target_obs": len(obs), "target_daily": len(daily), "sensor_bias": len(fits)}
+    return result

@@ -1,0 +1,261 @@
+"""Stage ``weather``: daily weather drivers per zone from gridded reanalysis -> ``drivers_daily``.
+
+Takes a :class:`~lakefeed.config.Project` and a :class:`~lakefeed.store.Store`. Reads the
+weather grid (:mod:`lakefeed.sources.grids`) and the lake's layers, builds the zones, gets
+exact cell weights (cached under ``<store>/_cache/weights/``, keyed by grid signature and
+zone geometry hashes, so later runs and other files on the same grid reuse them), reads the
+grid once for every zone and variable at once, de-accumulates and converts units, and
+aggregates to the lake's local days. Writes ``drivers_daily`` (columns and units of DESIGN.md).
+
+The helpers :func:`get_weights`, :func:`hourly_drivers` and :func:`zonal_long` are shared
+with the ``lakefeed zonal`` command and the benchmark. Must not: hold science (that is in
+``extract``/``geometry``).
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Mapping
+from pathlib import Path
+
+import dask
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import xarray as xr
+from dask.callbacks import Callback
+
+from lakefeed.config import Project
+from lakefeed.config.sources import Accumulation, WeatherSource
+from lakefeed.exceptions import SourceError
+from lakefeed.extract.accumulation import Deaccumulated, deaccumulate, step_of
+from lakefeed.extract.daily import DAILY_UNITS, to_daily
+from lakefeed.extract.meteo import wind_speed
+from lakefeed.extract.zonal import zonal_mean
+from lakefeed.geometry.weights import ZoneWeights, zone_weights
+from lakefeed.geometry.zones import build_zones, zone_latitudes
+from lakefeed.sources.grids import Grid, open_grid, select_roles
+from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.store import Store
+from lakefeed.units import convert, parse_unit, ureg
+
+__all__ = ["build_weather", "get_weights", "hourly_drivers", "zonal_long"]
+
+ROLES = ("air_temperature", "dewpoint_temperature", "eastward_wind", "northward_wind", "shortwave_radiation",
+         "precipitation")
+_AMOUNT_NAMES = {"integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air",
+                 "lwe_thickness_of_precipitation_amount", "precipitation_amount"}
+WATER_DENSITY = ureg.Quantity(1000.0, "kg m-3")  # common practice for liquid water equivalent
+
+
+class _DaskProgress(Callback):
+    def __init__(self, progress: Progress, description: str) -> None:
+        super().__init__()
+        self._p, self._d, self._n, self._done = progress, description, 0, 0
+
+    def _start_state(self, dsk, state) -> None:  # noqa: ANN001
+        self._n = len(state["ready"]) + len(state["waiting"]) + len(state["running"])
+
+    def _posttask(self, key, result, dsk, state, worker_id) -> None:  # noqa: ANN001
+        self._done += 1
+        self._p(self._d, self._done, max(self._n, self._done))
+
+
+def get_weights(
+    zones: gpd.GeoDataFrame, grid: Grid, *, cache_dir: str | Path | None = None, allow_partial_coverage: bool = False
+) -> tuple[ZoneWeights, bool]:
+    """Exact zone weights for ``grid``, from ``cache_dir`` when cached (returns (weights, was_cached)).
+
+    ``zones``: GeoDataFrame with ``zone`` and geometry in the grid's CRS.
+    """
+    geoms = {str(z): g for z, g in zip(zones["zone"], zones.geometry.values, strict=True)}
+    from lakefeed.geometry.weights import zone_hash
+
+    key = hashlib.sha256(
+        "|".join([grid.signature, str(allow_partial_coverage), *(f"{z}={zone_hash(g)}" for z, g in geoms.items())])
+        .encode()
+    ).hexdigest()[:24]
+    path = Path(cache_dir) / f"{grid.signature}-{key}.npz" if cache_dir else None
+    if path is not None and path.exists():
+        with np.load(path, allow_pickle=False) as npz:
+            return ZoneWeights.from_arrays(dict(npz)), True
+    w = zone_weights(geoms, grid.lat, grid.lon, allow_partial_coverage=allow_partial_coverage, crs=grid.crs)
+    if path is not None:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_suffix(f".tmp{np.random.randint(1 << 30)}.npz")
+        np.savez(tmp, **w.to_arrays())
+        tmp.replace(path)
+    return w, False
+
+
+def _to_mm_per_step(values: xr.DataArray, unit: str, step_s: float) -> xr.DataArray:
+    q = ureg.Quantity(1.0, parse_unit(unit))
+    if q.check("[mass] / [length] ** 2") or q.check("[mass] / [length] ** 2 / [time]"):
+        q = q / WATER_DENSITY
+    if q.check("[length] / [time]"):
+        q = q * ureg.Quantity(step_s, "s")
+    if not q.check("[length]"):
+        raise SourceError(f"precipitation unit {unit!r} is not an amount, depth or flux; declare weather.units")
+    return values * float(q.to("mm").magnitude)
+
+
+def _to_watts(values: xr.DataArray, unit: str, step_s: float) -> xr.DataArray:
+    q = ureg.Quantity(1.0, parse_unit(unit))
+    if q.check("[mass] / [time] ** 2"):  # J m-2 per step
+        q = q / ureg.Quantity(step_s, "s")
+    if not q.check("[mass] / [time] ** 3"):
+        raise SourceError(f"shortwave unit {unit!r} is neither J m-2 nor W m-2; declare weather.units")
+    return values * float(q.to("W m-2").magnitude)
+
+
+def hourly_drivers(
+    grid: Grid,
+    weights: ZoneWeights,
+    *,
+    source: WeatherSource | None = None,
+    accumulation: Mapping[str, Accumulation] | None = None,
+    progress: Progress | None = None,
+) -> tuple[xr.Dataset, dict[str, int]]:
+    """Per-step zonal drivers in canonical units, computed in one pass (returns (dataset, clipped counts)).
+
+    Dataset dims (time, zone): ``air_temperature``, ``dewpoint`` (degC), ``wind_speed`` (m s-1, mean
+    of cell speeds), ``precipitation`` (mm per step), ``shortwave_radiation`` (W m-2, step mean),
+    ``valid_fraction`` (lowest of the variables; fraction of the whole zone).
+    """
+    src = source or WeatherSource(paths=[])
+    acc = dict(src.accumulation) | dict(accumulation or {})
+    var = select_roles(grid, ROLES, mapping=src.variables, units=src.units)
+    step_s = float(step_of(grid.dataset["time"].values) / np.timedelta64(1, "s"))
+    speed = wind_speed(convert(var["eastward_wind"], var["eastward_wind"].attrs["units"], "m s-1"),
+                       convert(var["northward_wind"], var["northward_wind"].attrs["units"], "m s-1"))
+    deacc: dict[str, Deaccumulated] = {}
+    for role in ("precipitation", "shortwave_radiation"):
+        a = acc.get(role, Accumulation())
+        deacc[role] = deaccumulate(var[role], kind=a.kind, reset_hour=a.reset_hour, name=var[role].attrs["source_name"])
+    fields = {
+        "air_temperature": var["air_temperature"],
+        "dewpoint": var["dewpoint_temperature"],
+        "wind_speed": speed,
+        "precipitation": deacc["precipitation"].increments,
+        "shortwave_radiation": deacc["shortwave_radiation"].increments,
+    }
+    zonal = {k: zonal_mean(v, weights) for k, v in fields.items()}
+    checks = {k: (d.bad_steps, d.n_clipped) for k, d in deacc.items()}
+    cb = _DaskProgress(progress, "weather: reading grid") if progress else None
+    with cb if cb else _Null():
+        zonal, checks = dask.compute(zonal, checks)
+    clipped = {k: deacc[k].check(bad_steps=b, n_clipped=n) for k, (b, n) in checks.items()}
+    out = xr.Dataset({
+        "air_temperature": convert(zonal["air_temperature"]["mean"], var["air_temperature"].attrs["units"], "degC"),
+        "dewpoint": convert(zonal["dewpoint"]["mean"], var["dewpoint_temperature"].attrs["units"], "degC"),
+        "wind_speed": zonal["wind_speed"]["mean"],
+        "precipitation": _to_mm_per_step(zonal["precipitation"]["mean"], var["precipitation"].attrs["units"], step_s),
+        "shortwave_radiation": _to_watts(
+            zonal["shortwave_radiation"]["mean"], var["shortwave_radiation"].attrs["units"], step_s
+        ),
+    })
+    vf = xr.concat([z["valid_fraction"] for z in zonal.values()], dim="v").min("v")
+    cov = xr.DataArray(weights.grid_coverage, dims="zone", coords={"zone": list(weights.zones)})
+    out["valid_fraction"] = vf * cov
+    for k in out.data_vars:
+        out[k].attrs = {}
+    return out, clipped
+
+
+class _Null:
+    def __enter__(self) -> None:
+        return None
+
+    def __exit__(self, *exc: object) -> None:
+        return None
+
+
+def zonal_long(grid: Grid, weights: ZoneWeights, *, accumulation: Accumulation | None = None,
+               progress: Progress | None = None) -> pd.DataFrame:
+    """Long table (zone, time, variable, value, unit, valid_fraction) of every (time, lat, lon) variable.
+
+    ``variable`` is the CF standard_name where the file has one, else the variable name. Known roles
+    are converted to canonical units (temperatures degC, wind m s-1, precipitation mm per step,
+    shortwave W m-2); accumulated amounts (by standard_name) are de-accumulated per ``accumulation``.
+    """
+    from lakefeed.config.sources import WEATHER_ROLES
+
+    by_sn = {sn: role for role, sns in WEATHER_ROLES.items() for sn in sns}
+    ds = grid.dataset
+    step_s = float(step_of(ds["time"].values) / np.timedelta64(1, "s"))
+    lazy, meta = {}, {}
+    for name, da in ds.data_vars.items():
+        sn = da.attrs.get("standard_name")
+        unit = da.attrs.get("units")
+        if not unit:
+            raise SourceError(f"weather grid {grid.label}: variable {name!r} has no 'units' attribute")
+        parse_unit(unit)
+        if sn in _AMOUNT_NAMES and accumulation is not None:
+            da = deaccumulate(da, kind=accumulation.kind, reset_hour=accumulation.reset_hour, name=str(name))
+        lazy[str(name)] = (zonal_mean(da.increments if hasattr(da, "increments") else da, weights), da)
+        meta[str(name)] = (sn or str(name), by_sn.get(sn or ""), unit)
+    cb = _DaskProgress(progress, "zonal: reading grid") if progress else None
+    with cb if cb else _Null():
+        (res,) = dask.compute({k: (v[0], getattr(v[1], "bad_steps", None), getattr(v[1], "n_clipped", None))
+                               for k, v in lazy.items()})
+    frames = []
+    for name, (z, bad, ncl) in res.items():
+        src = lazy[name][1]
+        if isinstance(src, Deaccumulated):
+            src.check(bad_steps=bad, n_clipped=ncl)
+        label, role, unit = meta[name]
+        mean = z["mean"]
+        if role in ("air_temperature", "dewpoint_temperature"):
+            mean, unit = convert(mean, unit, "degC"), "degC"
+        elif role in ("eastward_wind", "northward_wind"):
+            mean, unit = convert(mean, unit, "m s-1"), "m s-1"
+        elif role == "precipitation":
+            mean, unit = _to_mm_per_step(mean, unit, step_s), "mm"
+        elif role == "shortwave_radiation":
+            mean, unit = _to_watts(mean, unit, step_s), "W m-2"
+        f = xr.Dataset({"value": mean, "valid_fraction": z["valid_fraction"]}).to_dataframe().reset_index()
+        f["variable"], f["unit"] = label, unit
+        frames.append(f)
+    out = pd.concat(frames, ignore_index=True)
+    return out[["zone", "time", "variable", "value", "unit", "valid_fraction"]]
+
+
+def build_weather(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+    """Build ``drivers_daily`` for one lake.
+
+    Examples
+    --------
+    >>> from lakefeed.config import load_project  # doctest: +SKIP
+    >>> build_weather(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
+    StageResult(stage='weather', lake='tallow', tables={'drivers_daily': 1098}, ...)
+    """
+    p = progress or no_progress
+    lake = project.lake
+    src = project.sources.weather
+    if src is None:
+        return StageResult("weather", lake.id, skipped=True, reason="no weather source in sources.yaml")
+    grid = open_grid(src.paths, time_zone=src.time_zone, on_error="skip")
+    warn = [f"file left out: {m}" for m in grid.skipped]
+    p("weather: zones", 0, 3)
+    lake_g = read_layer(lake.lake, what="lake polygon")
+    aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
+    subs = None
+    if lake.zones.catchment or lake.zones.subbasins:
+        subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
+    zones = build_zones(lake_g, aois=aois, aoi_id_field=lake.aois.id_field, subbasins=subs,
+                        subbasin_layer=lake.subbasins, options=lake.zones, crs=grid.crs)
+    p("weather: weights", 1, 3)
+    weights, _ = get_weights(zones, grid, cache_dir=Path(store.root) / "_cache" / "weights",
+                             allow_partial_coverage=lake.zones.allow_partial_coverage)
+    p("weather: weights", 2, 3)
+    hourly, clipped = hourly_drivers(grid, weights, source=src, progress=progress)
+    warn += [f"{k}: {n} value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
+    flags = {z: weights.flags(z) for z in weights.zones}
+    daily = to_daily(hourly, tz=lake.timezone, latitude=zone_latitudes(zones), zone_flags=flags)
+    daily.insert(0, "lake", lake.id)
+    daily["date"] = daily["date"].dt.date
+    store.write_table("drivers_daily", lake.id, daily, units=DAILY_UNITS,
+                      metadata={"grid_signature": weights.signature, "files": str(len(grid.files))})
+    p("weather: done", 3, 3)
+    return StageResult("weather", lake.id, tables={"drivers_daily": len(daily)}, warnings=warn)

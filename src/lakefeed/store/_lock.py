@@ -1,0 +1,131 @@
+"""A store-wide writer lock, so two writers on one store never interleave.
+
+Local stores use ``fcntl.flock`` on ``<store>/.lock`` (released by the OS if the writer
+dies) plus a per-process re-entrant lock (threads of one process, nested use). Other fsspec
+filesystems get an advisory lock file (created if absent, removed on release; a lock older
+than ``stale_after`` seconds is taken over). A second writer waits up to ``timeout`` seconds,
+then gets a :class:`StoreError` naming the holder.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import threading
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Any
+
+from lakefeed.exceptions import StoreError
+from lakefeed.store._fs import is_local
+
+__all__ = ["LOCK_NAME", "store_lock"]
+
+LOCK_NAME = ".lock"
+_REGISTRY: dict[str, list[Any]] = {}  # lock path -> [RLock, depth, fd]
+_REGISTRY_GUARD = threading.Lock()
+
+
+def _holder(fs: Any, path: str) -> str:
+    try:
+        with fs.open(path, "rb") as f:
+            info = json.loads(f.read() or b"{}")
+        return f"pid {info.get('pid')} on {info.get('host')} since {info.get('since')}"
+    except (OSError, ValueError):
+        return "another writer"
+
+
+def _stamp() -> bytes:
+    return json.dumps(
+        {"pid": os.getpid(), "host": os.uname().nodename, "since": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())}
+    ).encode()
+
+
+@contextmanager
+def store_lock(fs: Any, root: str, *, timeout: float = 300.0, stale_after: float = 3600.0) -> Iterator[None]:
+    """Hold the store's writer lock for the duration of the block (re-entrant within a process)."""
+    path = f"{root}/{LOCK_NAME}"
+    with _REGISTRY_GUARD:
+        entry = _REGISTRY.setdefault(path, [threading.RLock(), 0, None])
+    rlock: threading.RLock = entry[0]
+    if not rlock.acquire(timeout=timeout):
+        raise StoreError(f"store {root!r} is locked by another writer in this process; waited {timeout:.0f} s")
+    try:
+        if entry[1] == 0:
+            entry[2] = _acquire_local(path, root, timeout) if is_local(fs) else _acquire_remote(fs, path, root, timeout, stale_after)
+        entry[1] += 1
+        try:
+            yield
+        finally:
+            entry[1] -= 1
+            if entry[1] == 0:
+                _release(fs, path, entry[2])
+                entry[2] = None
+    finally:
+        rlock.release()
+
+
+def _acquire_local(path: str, root: str, timeout: float) -> int:
+    import fcntl
+
+    fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+    deadline = time.monotonic() + timeout
+    while True:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            break
+        except BlockingIOError:
+            if time.monotonic() >= deadline:
+                holder = _read_fd(fd)
+                os.close(fd)
+                raise StoreError(
+                    f"store {root!r} is being written by {holder}; waited {timeout:.0f} s. "
+                    "Wait for that run to finish (only one writer per store at a time)."
+                ) from None
+            time.sleep(0.05)
+    os.ftruncate(fd, 0)
+    os.pwrite(fd, _stamp(), 0)
+    return fd
+
+
+def _read_fd(fd: int) -> str:
+    try:
+        info = json.loads(os.pread(fd, 4096, 0) or b"{}")
+        return f"pid {info.get('pid')} on {info.get('host')} since {info.get('since')}"
+    except (OSError, ValueError):
+        return "another writer"
+
+
+def _acquire_remote(fs: Any, path: str, root: str, timeout: float, stale_after: float) -> None:
+    deadline = time.monotonic() + timeout
+    while fs.exists(path):
+        try:
+            modified = fs.modified(path).timestamp()
+        except (NotImplementedError, OSError, AttributeError):
+            modified = time.time()
+        if time.time() - modified > stale_after:
+            break
+        if time.monotonic() >= deadline:
+            raise StoreError(
+                f"store {root!r} is being written by {_holder(fs, path)}; waited {timeout:.0f} s. "
+                f"Wait for that run to finish, or remove {path} if no writer is running."
+            )
+        time.sleep(0.2)
+    with fs.open(path, "wb") as f:
+        f.write(_stamp())
+    return None
+
+
+def _release(fs: Any, path: str, fd: int | None) -> None:
+    if fd is not None:
+        import fcntl
+
+        os.ftruncate(fd, 0)
+        fcntl.flock(fd, fcntl.LOCK_UN)
+        os.close(fd)
+    else:
+        try:
+            fs.rm(path)
+        except (OSError, FileNotFoundError):
+            pass

@@ -1,0 +1,97 @@
+"""Reading the store from outside lakefeed's own writer: DuckDB views and the feature loader.
+
+Takes a :class:`~lakefeed.store.Store`; gives a DuckDB connection with one view per table
+(Hive partitioning, so ``lake`` is a column) and :func:`load_features`, a lake's feature
+table as pandas with its units. Must not write to the store.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+import pandas as pd
+
+from lakefeed.exceptions import StoreError
+from lakefeed.store._parquet import PART, Store
+
+__all__ = ["connect", "load_features", "query"]
+
+_IDENT = re.compile(r"^[a-z][a-z0-9_]*$")
+
+
+def _glob(store: Store, table: str) -> str:
+    base = f"{store.path}/{table}/lake=*/{PART}"
+    return base if store.local else store.fs.unstrip_protocol(base)
+
+
+def connect(store: Store, *, tables: list[str] | None = None) -> Any:
+    """An in-memory DuckDB connection with a view per store table (``SELECT * FROM features``).
+
+    Views read ``<store>/<table>/lake=*/part-0.parquet`` with Hive partitioning; remote stores
+    are read through the store's fsspec filesystem.
+    """
+    import duckdb
+
+    store.manifest()  # refuses newer schema versions
+    con = duckdb.connect(":memory:")
+    if not store.local:
+        con.register_filesystem(store.fs)
+    for name in tables or store.tables():
+        if not _IDENT.fullmatch(name):
+            continue
+        pattern = _glob(store, name).replace("'", "''")
+        con.execute(
+            f"CREATE VIEW {name} AS SELECT * FROM read_parquet('{pattern}', hive_partitioning = true, "
+            "union_by_name = true)"
+        )
+    return con
+
+
+def query(store: Store, sql: str) -> pd.DataFrame:
+    """Run SQL over the store's tables (as views by name) and return a pandas frame."""
+    import duckdb
+
+    con = connect(store)
+    try:
+        return con.execute(sql).fetchdf()
+    except duckdb.Error as err:
+        raise StoreError(f"query failed: {err}; tables in {store.url}: {', '.join(store.tables()) or 'none'}") from err
+    finally:
+        con.close()
+
+
+def load_features(store: Store | str, lake: str, aoi: str | None = None, *, lead: int | None = None) -> pd.DataFrame:
+    """A lake's feature table as pandas, with units in ``.attrs['units']``.
+
+    Parameters
+    ----------
+    store
+        A :class:`Store` or its root (folder or fsspec URL).
+    lake
+        Lake id.
+    aoi
+        Keep only this area of interest (default: all).
+    lead
+        Keep only this lead time in days (default: all).
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per (aoi, target_date, lead_days), sorted; units of each value column in
+        ``.attrs['units']`` (e.g. ``chla``: mg m-3).
+    """
+    st = store if isinstance(store, Store) else Store(store)
+    frame = st.read_table("features", lake)
+    attrs = dict(frame.attrs)
+    if aoi is not None:
+        if aoi not in set(frame["aoi"].astype(str)):
+            raise StoreError(
+                f"lake {lake!r} has no features for AOI {aoi!r}; AOIs present: {sorted(frame['aoi'].astype(str).unique())}"
+            )
+        frame = frame[frame["aoi"].astype(str) == aoi]
+    if lead is not None:
+        frame = frame[frame["lead_days"] == lead]
+    frame = frame.sort_values(["aoi", "target_date", "lead_days"]).reset_index(drop=True)
+    frame.attrs = attrs
+    return frame

@@ -1,0 +1,91 @@
+"""`lakefeed loads`: every estimator side by side, --out daily or per period, clear errors."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+from lakefeed.cli import app
+from lakefeed.exceptions import ExtractError, SourceError
+from lakefeed.extract.load_estimation import METHODS
+
+runner = CliRunner()
+
+
+@pytest.fixture
+def files(tmp_path: Path) -> tuple[Path, Path]:
+    rng = np.random.default_rng(11)
+    days = pd.date_range("2023-01-01", "2023-12-31", freq="D")
+    q = np.exp(1 + 0.6 * np.sin(2 * np.pi * np.arange(len(days)) / 365) + rng.normal(0, 0.4, len(days)))
+    c = 0.08 * q**0.3
+    pd.DataFrame({"date": days.strftime("%Y-%m-%d"), "discharge": q}).to_csv(tmp_path / "flow.csv", index=False)
+    pos = np.sort(rng.choice(len(days), 36, replace=False))
+    pd.DataFrame({"date": days[pos].strftime("%Y-%m-%d"), "concentration": c[pos], "censored": [False] * 36}).to_csv(
+        tmp_path / "samples.csv", index=False
+    )
+    return tmp_path / "samples.csv", tmp_path / "flow.csv"
+
+
+def run(*args: str):
+    return runner.invoke(app, list(args), env={"COLUMNS": "200"}, catch_exceptions=True)
+
+
+def test_prints_every_method(files: tuple[Path, Path]) -> None:
+    samples, flow = files
+    res = run("loads", "--samples", str(samples), "--flow", str(flow))
+    assert res.exit_code == 0, res.output
+    for name in METHODS:
+        assert name in res.output
+    assert "total (kg)" in res.output and "mean (kg d-1)" in res.output and "95 % interval" in res.output
+
+
+def test_out_daily_matches_independent_calculation(files: tuple[Path, Path], tmp_path: Path) -> None:
+    samples, flow = files
+    out = tmp_path / "daily.csv"
+    res = run("loads", "--samples", str(samples), "--flow", str(flow), "--method", "interpolation", "--out", str(out))
+    assert res.exit_code == 0, res.output
+    got = pd.read_csv(out)
+    assert list(got.columns) == ["date", "load", "lower", "upper", "method"]
+    assert len(got) == 365 and set(got["method"]) == {"interpolation"}
+    # independent: numpy interpolation of concentration over day numbers x flow x 86.4 (REFERENCES.md "Loads")
+    s, q = pd.read_csv(samples, parse_dates=["date"]), pd.read_csv(flow, parse_dates=["date"])
+    t = (q["date"] - q["date"][0]).dt.days.to_numpy()
+    ts = (s["date"] - q["date"][0]).dt.days.to_numpy()
+    expected = np.interp(t, ts, s["concentration"]) * q["discharge"].to_numpy() * 86.4
+    np.testing.assert_allclose(got["load"], expected, rtol=1e-5)
+    assert (got["lower"] <= got["load"] + 1e-9).all() and (got["upper"] >= got["load"] - 1e-9).all()
+
+
+def test_out_period_rows_for_beale(files: tuple[Path, Path], tmp_path: Path) -> None:
+    samples, flow = files
+    out = tmp_path / "beale.csv"
+    res = run("loads", "--samples", str(samples), "--flow", str(flow), "--method", "beale", "--out", str(out))
+    assert res.exit_code == 0, res.output
+    got = pd.read_csv(out)
+    assert len(got) == 1 and got.loc[0, "start"] == "2023-01-01" and got.loc[0, "days"] == 365
+    assert {"load_kg", "se_kg", "lower_kg", "upper_kg", "method"} <= set(got.columns)
+
+
+def test_errors(files: tuple[Path, Path], tmp_path: Path) -> None:
+    samples, flow = files
+    res = run("loads", "--samples", str(samples), "--flow", str(flow), "--method", "magic")
+    assert isinstance(res.exception, ExtractError)
+    late = tmp_path / "late.csv"
+    late.write_text("date,concentration\n2024-02-01,1.0\n")
+    res = run("loads", "--samples", str(late), "--flow", str(flow))
+    assert isinstance(res.exception, ExtractError) and "outside the flow record" in str(res.exception)
+    res = run("loads", "--samples", str(tmp_path / "missing.csv"), "--flow", str(flow))
+    assert isinstance(res.exception, SourceError)
+
+
+def test_duplicate_dates_warned_not_fatal(files: tuple[Path, Path], tmp_path: Path) -> None:
+    samples, flow = files
+    frame = pd.read_csv(samples)
+    pd.concat([frame, frame.iloc[[0]]]).to_csv(tmp_path / "dup.csv", index=False)
+    res = run("loads", "--samples", str(tmp_path / "dup.csv"), "--flow", str(flow))
+    assert res.exit_code == 0, res.output
+    assert "duplicate sample date" in res.output

@@ -1,0 +1,79 @@
+"""Acceptance rules and the Hampel outlier filter on irregular AOI series."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from lakefeed.extract.screening import accept, flag_outliers, hampel
+
+
+def _obs(**cols: list) -> pd.DataFrame:
+    n = len(next(iter(cols.values())))
+    base = {"n_valid": [100] * n, "valid_fraction": [1.0] * n, "cv": [0.1] * n, "reason": [""] * n}
+    return pd.DataFrame(base | cols)
+
+
+def test_acceptance_reasons_and_rejected_rows_kept() -> None:
+    obs = _obs(
+        n_valid=[100, 40, 3, 0, 100, 0],
+        valid_fraction=[0.9, 0.49, 1.0, 0.0, 0.5, 0.0],
+        cv=[0.2, 0.2, 0.2, np.nan, 1.5, np.nan],
+        reason=["", "", "", "", "", "scene s: file x.tif is missing"],
+    )
+    out = accept(obs, min_valid_fraction=0.5, min_valid_pixels=5, max_cv=1.0)
+    assert len(out) == len(obs)
+    assert out["accepted"].tolist() == [True, False, False, False, False, False]
+    assert out["reason"][1] == "valid fraction 0.49 < 0.5"  # Bailey & Werdell (2006) half-valid rule
+    assert out["reason"][2] == "valid pixels 3 < 5"
+    assert out["reason"][3].startswith("no valid pixel")
+    assert out["reason"][4] == "heterogeneous AOI: cv 1.5 > 1"
+    assert out["reason"][5] == "scene s: file x.tif is missing"  # upstream reason kept
+    assert accept(obs.iloc[[4]], max_cv=None)["accepted"].item()  # exactly 0.5 is enough
+
+
+def test_hampel_hand_example() -> None:
+    """Daily series 1..9 with a spike; window 5 days, threshold 3: only the spike is flagged.
+
+    Worked by hand: window of day 4 = {x2..x6} = {2, 3, 50, 5, 6}; median 5; |dev| = 3, 2, 45, 0, 1;
+    MAD 2; 3 * 1.4826 * 2 = 8.9 < 45 -> flagged. Day 3: {1, 2, 3, 50, 5}: median 3, MAD 2, |3-3| = 0.
+    """
+    days = np.arange(9.0)
+    x = np.array([1, 2, 3, 4, 50, 6, 7, 8, 9], dtype=float)
+    x[4] = 50.0
+    flags = hampel(days, x, window_days=4, threshold=3.0, min_points=5)
+    assert flags.tolist() == [False] * 4 + [True] + [False] * 4
+
+
+def test_hampel_needs_enough_points_and_ignores_nan() -> None:
+    days = np.array([0.0, 10.0, 20.0, 20.5, 21.0])
+    x = np.array([1.0, 100.0, 1.0, np.nan, 1.0])
+    assert not hampel(days, x, window_days=5, threshold=3, min_points=3).any()
+
+
+def test_flag_outliers_per_aoi_and_sensor_on_logs() -> None:
+    t = pd.date_range("2024-05-01", periods=30, freq="D", tz="UTC")
+    rng = np.random.default_rng(1)
+    kite = 5 * np.exp(rng.normal(0, 0.05, 30))
+    kite[15] = 60.0  # planted outlier
+    dune = 2 * kite.copy()  # a biased sensor: not an outlier relative to itself
+    dune[15] = 2 * 5.0
+    obs = pd.concat(
+        [pd.DataFrame({"aoi": "a", "sensor": s, "time": t, "median": v, "accepted": True}) for s, v in
+         [("kite", kite), ("dune", dune)]], ignore_index=True)  # fmt: skip
+    obs.loc[3, "accepted"] = False
+    obs.loc[3, "median"] = 1000.0  # rejected rows are never flagged
+    flags = flag_outliers(obs, window_days=11, threshold=3.5)
+    assert flags.sum() == 1 and flags[15]
+    assert len(flags) == len(obs)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.floats(-3, 3), min_size=1, max_size=80), st.floats(2.0, 40.0))
+def test_hampel_constant_series_never_flagged_and_shape(xs: list[float], w: float) -> None:
+    x = np.array(xs)
+    days = np.cumsum(np.ones(x.size))
+    assert hampel(days, x, window_days=w, threshold=3).shape == x.shape
+    assert not hampel(days, np.full(x.size, 2.0), window_days=w, threshold=3).any()

@@ -1,0 +1,211 @@
+"""The features stage over a synthetic store: columns, units, errors, incremental == full, CLI."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+from lakefeed.config import Project
+from lakefeed.config._base import LayerRef
+from lakefeed.config.lake import AoiLayer, FeatureOptions, LakeConfig, SubbasinLayer
+from lakefeed.config.sources import SourcesConfig
+from lakefeed.exceptions import FeatureError
+from lakefeed.features import build_feature_rows
+from lakefeed.stages.features import build_features
+from lakefeed.store import Store, load_features
+
+DRIVER_UNITS = {"air_temperature_mean": "degC", "precipitation_sum": "mm d-1", "wind_speed_mean": "m s-1",
+                "valid_fraction": "1"}  # fmt: skip
+
+
+def _project(tmp_path: Path, **features: object) -> Project:
+    lake = LakeConfig(
+        id="tallow",
+        name="Tallow Reservoir",
+        timezone="Europe/Berlin",
+        sources=tmp_path / "sources.yaml",
+        lake=LayerRef(path=tmp_path / "lake.gpkg"),
+        aois=AoiLayer(path=tmp_path / "aois.gpkg"),
+        subbasins=SubbasinLayer(path=tmp_path / "subbasins.gpkg"),
+        features=FeatureOptions(**features),
+    )
+    return Project(lake=lake, sources=SourcesConfig(), lake_file=tmp_path / "lake.yaml", sources_file=tmp_path / "s.yaml")
+
+
+def _inputs(end: str = "2022-12-31", seed: int = 0) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    rng = np.random.default_rng(seed)
+    days = pd.date_range("2021-01-01", "2022-12-31")
+    n = len(days)
+    base = pd.DataFrame(
+        {
+            "date": days,
+            "air_temperature_mean": 10 + 9 * np.sin(2 * np.pi * (days.dayofyear - 110) / 365) + rng.normal(0, 1, n),
+            "precipitation_sum": np.where(rng.random(n) < 0.5, 0.0, rng.gamma(0.8, 5, n)),
+            "wind_speed_mean": rng.gamma(3, 1, n),
+            "valid_fraction": 1.0,
+            "flags": "",
+        }
+    )
+    drivers = pd.concat([base.assign(zone="lake"), base.assign(zone="catchment", precipitation_sum=0.0)])
+    drivers = drivers[drivers["date"] <= end].reset_index(drop=True)
+    hyd = pd.DataFrame({"date": days, "inflow_discharge": rng.gamma(2, 3, n), "tp_load": rng.gamma(2, 1, n),
+                        "load_method": "rating_curve"})  # fmt: skip
+    hyd = hyd[hyd["date"] <= end].reset_index(drop=True)
+    tdays = np.sort(rng.choice(days[10:], 150, replace=False))
+    target = pd.DataFrame({"aoi": rng.choice(["intake", "open_water"], 150), "date": tdays,
+                           "chla": rng.gamma(2, 5, 150), "n_obs": 1})  # fmt: skip
+    target = target[target["date"] <= pd.Timestamp(end) - pd.Timedelta(days=3)].reset_index(drop=True)
+    return drivers, hyd, target
+
+
+def _write(store: Store, drivers: pd.DataFrame, hyd: pd.DataFrame, target: pd.DataFrame) -> None:
+    store.write_table("drivers_daily", "tallow", drivers, units=DRIVER_UNITS)
+    store.write_table("hydrology_daily", "tallow", hyd, units={"inflow_discharge": "m3 s-1", "tp_load": "kg d-1"})
+    store.write_table("target_daily", "tallow", target, units={"chla": "mg m-3"})
+
+
+def test_stage_writes_contract_columns_with_units(tmp_path: Path) -> None:
+    store = Store(tmp_path / "store")
+    drivers, hyd, target = _inputs()
+    _write(store, drivers, hyd, target)
+    res = build_features(_project(tmp_path, leads=[0, 2], windows=[1, 7]), store)
+    assert not res.skipped and res.tables["features"] == 2 * len(target) and res.tables["diagnostics"] == 2
+    f = load_features(store, "tallow")
+    for c in ["lake", "aoi", "target_date", "lead_days", "issue_date", "chla", "persistence_chla",
+              "persistence_age_days", "days_since_prev_obs", "doy_sin", "doy_cos", "fold",
+              "air_temperature_mean__max_7d", "precipitation_sum__sum_7d", "tp_load__sum_7d",
+              "inflow_discharge__mean_1d", "wind_speed_mean__mean_7d", "flags"]:  # fmt: skip
+        assert c in f.columns, c
+    assert not any(c.startswith("valid_fraction") for c in f.columns)
+    u = f.attrs["units"]
+    assert u["precipitation_sum__sum_7d"] == "mm" and u["tp_load__sum_7d"] == "kg"
+    assert u["air_temperature_mean__mean_7d"] == "degC" and u["chla"] == "mg m-3"
+    # spot check one row against an independent pandas computation (lake zone, not catchment)
+    row = f[(f["lead_days"] == 0)].iloc[20]
+    d = drivers[drivers["zone"] == "lake"].set_index("date")
+    win = d.loc[row["target_date"] - pd.Timedelta(days=7) : row["target_date"] - pd.Timedelta(days=1)]
+    assert row["precipitation_sum__sum_7d"] == pytest.approx(win["precipitation_sum"].sum(), rel=1e-12)
+    assert set(f.loc[f["lead_days"] == 0, "fold"]) == {0, 1, 2, 3, 4}
+    diag = store.read_table("diagnostics", "tallow")
+    assert diag["warn_few_observations"].all()  # fewer than 140 per AOI
+    assert any("accepted observations" in w for w in res.warnings)
+
+
+def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    project = _project(tmp_path, leads=[0, 3], windows=[1, 5, 30])
+    inc = Store(tmp_path / "inc")
+    old = _inputs(end="2022-10-31")
+    _write(inc, *old)
+    build_features(project, inc)
+    _write(inc, *_inputs(end="2022-11-30"))  # one more month of every input
+    calls = []
+    import lakefeed.stages.features as stage
+
+    real = stage.refresh_feature_rows
+    monkeypatch.setattr(stage, "refresh_feature_rows", lambda *a, **k: calls.append(k["since"]) or real(*a, **k))
+    build_features(project, inc)
+    # the refresh starts the day after the last old target (the old drivers reach further)
+    assert calls and calls[0] == old[2]["date"].max() + pd.Timedelta(days=1)
+    full = Store(tmp_path / "full")
+    _write(full, *_inputs(end="2022-11-30"))
+    build_features(project, full)
+    pd.testing.assert_frame_equal(inc.read_table("features", "tallow"), full.read_table("features", "tallow"))
+    pd.testing.assert_frame_equal(inc.read_table("diagnostics", "tallow"), full.read_table("diagnostics", "tallow"))
+    # re-running with the same inputs changes nothing (idempotent): same file bytes
+    before = Path(inc.part_file("features", "tallow")).read_bytes()
+    build_features(project, inc)
+    assert Path(inc.part_file("features", "tallow")).read_bytes() == before
+
+
+def test_changed_old_data_triggers_full_rebuild(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    project = _project(tmp_path, windows=[3])
+    store = Store(tmp_path / "s")
+    drivers, hyd, target = _inputs(end="2022-10-31")
+    _write(store, drivers, hyd, target)
+    build_features(project, store)
+    drivers.loc[5, "precipitation_sum"] += 1.0
+    _write(store, drivers, hyd, target)
+    import lakefeed.stages.features as stage
+
+    monkeypatch.setattr(stage, "refresh_feature_rows", lambda *a, **k: pytest.fail("must rebuild in full"))
+    build_features(project, store)
+
+
+def test_driver_named_in_config_but_in_no_table(tmp_path: Path) -> None:
+    store = Store(tmp_path / "s")
+    _write(store, *_inputs())
+    with pytest.raises(FeatureError, match=r"'tn_load'.*no store table.*available drivers"):
+        build_features(_project(tmp_path, drivers={"tn_load": ["sum"]}), store)
+
+
+def test_unknown_driver_zone(tmp_path: Path) -> None:
+    store = Store(tmp_path / "s")
+    _write(store, *_inputs())
+    with pytest.raises(FeatureError, match=r"no zone 'aoi:intake'.*zones present"):
+        build_features(_project(tmp_path, driver_zone="aoi:intake"), store)
+
+
+def test_targets_outside_driver_record_kept_with_flag(tmp_path: Path) -> None:
+    store = Store(tmp_path / "s")
+    drivers, hyd, target = _inputs()
+    _write(store, drivers[drivers["date"] >= "2021-06-01"], hyd[hyd["date"] >= "2021-06-01"], target)
+    res = build_features(_project(tmp_path, windows=[3], drivers={"precipitation_sum": ["sum"]}), store)
+    f = load_features(store, "tallow")
+    early = f[f["target_date"] < "2021-05-31"]
+    assert len(f) == len(target) and len(early) > 0
+    assert early["outside_driver_record"].all() and early["precipitation_sum__sum_3d"].isna().all()
+    assert any("outside the driver record" in w for w in res.warnings)
+
+
+def test_configured_statistics_and_random_folds(tmp_path: Path) -> None:
+    store = Store(tmp_path / "s")
+    _write(store, *_inputs())
+    build_features(_project(tmp_path, windows=[2], drivers={"wind_speed_mean": ["max", "min"]}, fold_kind="random",
+                            folds=3), store)  # fmt: skip
+    f = load_features(store, "tallow")
+    assert [c for c in f.columns if "__" in c] == ["wind_speed_mean__max_2d", "wind_speed_mean__min_2d"]
+    assert (f["fold_kind"] == "random").all() and set(f["fold"]) == {0, 1, 2}
+
+
+def test_stage_matches_core_function(tmp_path: Path) -> None:
+    store = Store(tmp_path / "s")
+    drivers, hyd, target = _inputs()
+    _write(store, drivers, hyd, target)
+    build_features(_project(tmp_path, windows=[4], drivers={"air_temperature_mean": ["mean"]}), store)
+    f = load_features(store, "tallow", aoi="intake")
+    d = drivers[drivers["zone"] == "lake"].set_index("date")[["air_temperature_mean"]]
+    t = target[target["aoi"] == "intake"]
+    want = build_feature_rows(t, d, lead=0, windows=[4])
+    np.testing.assert_array_equal(f["air_temperature_mean__mean_4d"].to_numpy(), want["air_temperature_mean__mean_4d"])
+
+
+def test_cli_features_and_query(tmp_path: Path) -> None:
+    import yaml
+
+    from lakefeed.cli import app
+
+    store = Store(tmp_path / "store")
+    _write(store, *_inputs())
+    for name in ("lake.gpkg", "aois.gpkg", "subbasins.gpkg"):
+        (tmp_path / name).write_text("")
+    (tmp_path / "sources.yaml").write_text(yaml.safe_dump({"store": str(tmp_path / "store")}))
+    (tmp_path / "lake-tallow.yaml").write_text(
+        yaml.safe_dump({"id": "tallow", "name": "Tallow Reservoir", "timezone": "Europe/Berlin",
+                        "sources": "sources.yaml", "lake": {"path": "lake.gpkg"}, "aois": {"path": "aois.gpkg"},
+                        "subbasins": {"path": "subbasins.gpkg"}, "features": {"windows": [3]}})  # fmt: skip
+    )
+    runner = CliRunner()
+    out = runner.invoke(app, ["features", str(tmp_path / "lake-tallow.yaml")])
+    assert out.exit_code == 0, out.output
+    assert "Sampling diagnostics" in out.output and "intake" in out.output
+    q = runner.invoke(app, ["query", "SELECT aoi, count(*) AS n FROM features GROUP BY aoi ORDER BY aoi",
+                            "--store", str(tmp_path / "store"), "--csv"])  # fmt: skip
+    assert q.exit_code == 0, q.output
+    lines = q.output.strip().splitlines()
+    assert lines[0] == "aoi,n" and lines[1].startswith("intake,")
+    t = runner.invoke(app, ["query", "SELECT count(*) AS n FROM diagnostics", "--store", str(tmp_path / "store")])
+    assert t.exit_code == 0 and "2" in t.output

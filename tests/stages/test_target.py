@@ -1,0 +1,167 @@
+"""Stage `target` end to end: a synthetic project built in code, and the sample scenario."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyarrow.parquet as pq
+import pytest
+import shapely
+
+from lakefeed.config import load_project
+from lakefeed.extract.trophic import CAUTION
+from lakefeed.stages.target import build_target
+from lakefeed.store import Store
+
+sys.path.insert(0, str(Path(__file__).parents[1] / "sources"))
+from scene_factory import write_catalog, write_item, write_tif  # noqa: E402
+
+X0, Y0 = 600_000.0, 5_200_000.0
+RATIO = 1.25  # planted dune / kite bias
+
+
+def _project(tmp: Path, *, n_days: int = 40) -> Path:
+    lake = shapely.box(X0, Y0 - 3000, X0 + 3000, Y0)
+    gpd.GeoDataFrame({"name": ["test lake"]}, geometry=[lake], crs=32632).to_file(tmp / "lake.gpkg")
+    aois = [shapely.box(X0 + 500, Y0 - 1500, X0 + 1500, Y0 - 500), shapely.box(X0 + 1500, Y0 - 2800, X0 + 2800, Y0 - 1500)]
+    gpd.GeoDataFrame({"aoi_id": ["north", "south"]}, geometry=aois, crs=32632).to_file(tmp / "aois.gpkg")
+    gpd.GeoDataFrame({"subbasin_id": ["s1"], "downstream_id": ["LAKE"]}, geometry=[shapely.box(0, 0, 1, 1)],
+                     crs=32632).to_file(tmp / "sub.gpkg")  # fmt: skip
+    rng = np.random.default_rng(11)
+    truth = 8 * np.exp(0.6 * np.sin(np.arange(n_days) / 6.0))
+    items = []
+    for day in range(n_days):
+        date = pd.Timestamp("2024-06-01") + pd.Timedelta(days=day)
+        for sensor, res, every, ratio in (("kite", 20.0, 2, 1.0), ("dune", 100.0, 1, RATIO)):
+            if day % every:
+                continue
+            n = int(3000 / res)
+            value = (ratio * truth[day] * rng.lognormal(0, 0.1, (n, n))).astype("float32")
+            quality = (rng.random((n, n)) < 0.05).astype("uint8")
+            if day == 7 and sensor == "dune":
+                quality[:] = 1  # fully clouded: rejected, kept
+            sid = f"{sensor}_{date:%Y%m%d}"
+            d = tmp / "scenes" / "data"
+            assets = {"chla": write_tif(d / f"{sid}_chla.tif", value, res=res, origin=(X0, Y0)),
+                      "quality": write_tif(d / f"{sid}_quality.tif", quality, res=res, origin=(X0, Y0), nodata=None)}  # fmt: skip
+            if day == 10 and sensor == "kite":
+                assets["chla"].write_bytes(b"corrupt")
+            items.append(write_item(tmp / "scenes" / "items", sid, datetime=f"{date:%Y-%m-%d}T22:30:00Z", sensor=sensor,
+                                    assets={k: str(v) for k, v in assets.items()}))  # fmt: skip
+    write_catalog(tmp / "scenes", items)
+    (tmp / "sources.yaml").write_text(f"scenes:\n  catalog: {tmp}/scenes/catalog.json\n  asset: chla\n")
+    (tmp / "lake.yaml").write_text(
+        f"""id: testlake
+name: Test Lake
+timezone: Europe/Berlin
+sources: sources.yaml
+lake: {{path: lake.gpkg}}
+aois: {{path: aois.gpkg, id_field: aoi_id}}
+subbasins: {{path: sub.gpkg}}
+sensors:
+  kite: {{pixel_size_m: 20, reference: true, bad_quality_bits: [0], uncertainty: 0.1}}
+  dune: {{pixel_size_m: 100, bad_quality_bits: [0], uncertainty: 0.2}}
+target: {{min_matchups: 10}}
+thresholds:
+  - {{name: level_a, value: 10}}
+"""
+    )
+    return tmp / "lake.yaml"
+
+
+def test_build_target_synthetic(tmp_path: Path) -> None:
+    project = load_project(_project(tmp_path))
+    store = Store(tmp_path / "store")
+    calls: list[tuple[str, int, int]] = []
+    result = build_target(project, store, progress=lambda d, i, n: calls.append((d, i, n)))
+    assert calls[-1][1] == calls[-1][2] == 60
+    obs = store.read_table("target_obs", "testlake")
+    daily = store.read_table("target_daily", "testlake")
+    assert obs.attrs["units"]["median"] == "mg m-3" and daily.attrs["units"]["chla"] == "mg m-3"
+    assert list(obs.columns) == ["lake", "aoi", "scene_id", "sensor", "time", "date", "median", "mean", "p10", "p90",
+                                 "std", "cv", "n_valid", "valid_fraction", "uncertainty", "accepted", "reason",
+                                 "outlier"]  # fmt: skip
+    assert list(daily.columns[:9]) == ["lake", "aoi", "date", "chla", "chla_uncertainty", "n_obs", "sensors", "tsi",
+                                       "trophic_class"]  # fmt: skip
+    assert "exceeds_level_a" in daily.columns
+    assert len(obs) == 60 * 2
+    # 22:30 UTC is the next local day in Europe/Berlin (summer time, UTC+2)
+    first = obs.sort_values("time").iloc[0]
+    assert str(first["date"]) == "2024-06-02"
+    clouded = obs[obs["scene_id"] == "dune_20240608"]
+    assert not clouded["accepted"].any() and clouded["reason"].str.startswith("no valid pixel").all()
+    corrupt = obs[obs["scene_id"] == "kite_20240611"]
+    assert len(corrupt) == 2
+    assert not corrupt["accepted"].any() and corrupt["reason"].str.contains("unreadable or corrupt").all()
+    assert any("unreadable" in w for w in result.warnings)
+    bias = store.read_table("sensor_bias", "testlake").set_index("sensor")
+    d = bias.loc["dune"]
+    assert d["adjusted"] and abs(d["ln_ratio"] - np.log(RATIO)) < 3 * d["ln_ratio_se"]
+    # fused values track the planted truth after harmonisation (noise 10 % per pixel, many pixels)
+    assert (daily["sensors"] == "dune,kite").sum() > 20
+    assert daily["chla"].between(8 * np.exp(-0.7), 8 * np.exp(0.7)).all()
+    meta = pq.read_schema(tmp_path / "store" / "target_daily" / "lake=testlake" / "part-0.parquet").metadata
+    assert meta[b"lakefeed.caution"].decode() == CAUTION
+    assert json.loads(meta[b"lakefeed.sensor_bias"])[0]["sensor"] == "dune"
+    assert result.tables["target_obs"] == 120
+
+
+def test_build_target_skipped_without_scenes(tmp_path: Path) -> None:
+    lake_yaml = _project(tmp_path, n_days=1)
+    (tmp_path / "sources.yaml").write_text("store: store\n")
+    result = build_target(load_project(lake_yaml), Store(tmp_path / "store"))
+    assert result.skipped and "scenes" in result.reason
+
+
+def _has_generator() -> bool:
+    import lakefeed.sample as sample
+
+    return hasattr(sample, "generate")
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not _has_generator(), reason="lakefeed.sample.generate not available yet")
+def test_sample_scenario_bias_and_truth(small_sample: Path, tmp_path: Path) -> None:
+    """On the sample scenario: planted dune/kite ratio recovered within its standard error (3 se);
+    accepted, harmonised daily values track the planted per-AOI truth."""
+    project = load_project(next((small_sample / "config").glob("lake-*.yaml")))
+    store = Store(tmp_path / "store")
+    build_target(project, store)
+    truth = json.loads((small_sample / "truth" / "truth.json").read_text())
+    bias = store.read_table("sensor_bias", project.id).set_index("sensor")
+    planted = _planted_ratio(truth)
+    d = bias.loc["dune"]
+    print(f"dune/kite ratio {d['ratio']:.4f} +- {d['se']:.4f} (planted {planted}), n={d['n']}")
+    assert d["adjusted"]
+    assert abs(d["ln_ratio"] - np.log(planted)) < 3 * d["ln_ratio_se"]
+    daily = store.read_table("target_daily", project.id)
+    chla_truth = pd.read_csv(small_sample / "truth" / "chla_truth.csv")
+    m = _merge_truth(daily, chla_truth)
+    err = np.log(m["chla"] / m["truth"])
+    print(f"daily fused vs truth: n={len(m)}, median |ln error| {err.abs().median():.3f}, bias {err.mean():.3f}")
+    assert len(m) > 30
+    assert err.abs().median() < 0.15 and abs(err.mean()) < 0.1
+
+
+def _planted_ratio(truth: dict) -> float:
+    """dune / kite bias ratio from truth.json (the generator stores per-sensor ratios)."""
+    s = truth.get("sensor_bias") or truth.get("sensors") or truth
+    if "dune" in s and isinstance(s["dune"], dict):
+        kite = s.get("kite", {}).get("bias_ratio", 1.0) if isinstance(s.get("kite"), dict) else 1.0
+        return float(s["dune"].get("bias_ratio", s["dune"].get("ratio"))) / float(kite)
+    return float(s.get("dune_over_kite") or s.get("dune_kite_ratio") or s["dune"])
+
+
+def _merge_truth(daily: pd.DataFrame, truth: pd.DataFrame) -> pd.DataFrame:
+    t = truth.copy()
+    if "aoi" not in t.columns:  # wide: one column per AOI
+        t = t.melt(id_vars=["date"], var_name="aoi", value_name="truth")
+    else:
+        t = t.rename(columns={c: "truth" for c in t.columns if c not in ("date", "aoi")})
+    t["date"] = pd.to_datetime(t["date"]).dt.date
+    return daily.merge(t[["aoi", "date", "truth"]], on=["aoi", "date"])

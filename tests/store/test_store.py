@@ -1,0 +1,229 @@
+"""The Parquet store: round trip with units, manifest, atomic and idempotent writes, lock, errors."""
+
+from __future__ import annotations
+
+import json
+import os
+import threading
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow.dataset as ds
+import pyarrow.parquet as pq
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from hypothesis.extra import pandas as hpd
+
+from lakefeed.exceptions import StoreError
+from lakefeed.store import SCHEMA_VERSION, Store, connect, load_features, query
+from lakefeed.store._manifest import MANIFEST_NAME
+
+
+def _frame(n: int = 5) -> pd.DataFrame:
+    return pd.DataFrame(
+        {
+            "aoi": ["a", "b", "a", "b", "a"][:n],
+            "target_date": pd.date_range("2024-05-01", periods=n, freq="3D"),
+            "lead_days": np.zeros(n, dtype=np.int16),
+            "chla": np.linspace(1.0, 9.0, n),
+            "flags": ["", "x", "", "", "y;z"][:n],
+        }
+    )
+
+
+_UNITS = st.sampled_from(["mg m-3", "degC", "mm", "kg d-1", "1", "m3 s-1"])
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(
+    hpd.data_frames(
+        [
+            hpd.column("aoi", elements=st.sampled_from(["x", "y", "zone 1"])),
+            hpd.column("date", dtype="datetime64[ns]", elements=st.datetimes(
+                min_value=pd.Timestamp("1990-01-01").to_pydatetime(), max_value=pd.Timestamp("2090-01-01").to_pydatetime())),
+            hpd.column("value", dtype=float),
+            hpd.column("count", dtype=np.int32),
+            hpd.column("ok", dtype=bool),
+        ],
+        index=hpd.range_indexes(min_size=0, max_size=30),
+    ),
+    st.dictionaries(st.sampled_from(["value", "count", "date"]), _UNITS),
+)
+def test_round_trip_identical_frames_and_units(tmp_path: Path, frame: pd.DataFrame, units: dict[str, str]) -> None:
+    """Property: write then read gives the same frame and the same units (encode/decode identity)."""
+    store = Store(tmp_path / "store")
+    store.write_table("features", "lake-1", frame, units=units)
+    back = store.read_table("features", "lake-1")
+    assert back.attrs["units"] == units
+    pd.testing.assert_frame_equal(back.drop(columns="lake"), frame.reset_index(drop=True))
+    assert (back["lake"] == "lake-1").all()
+
+
+def test_memory_fsspec_store_round_trip() -> None:
+    store = Store("memory://lakefeed-test-store")
+    store.write_table("features", "tallow", _frame(), units={"chla": "mg m-3"}, descriptions={"chla": "label"})
+    back = store.read_table("features", "tallow")
+    assert back.attrs == {"units": {"chla": "mg m-3"}, "descriptions": {"chla": "label"}}
+    assert store.url.startswith("memory://") and store.tables() == ["features"]
+    got = query(store, "SELECT count(*) AS n FROM features").iloc[0, 0]
+    assert got == 5
+
+
+def test_duckdb_returns_the_same_rows_as_pyarrow_dataset(tmp_path: Path) -> None:
+    """DuckDB (read_parquet, Hive partitioning) and pyarrow.dataset see identical rows."""
+    store = Store(tmp_path)
+    store.write_table("features", "north", _frame(), units={"chla": "mg m-3"})
+    store.write_table("features", "south", _frame(3).assign(chla=[7.0, 8.0, 9.0]), units={"chla": "mg m-3"})
+    arrow = ds.dataset(tmp_path / "features", format="parquet", partitioning="hive").to_table().to_pandas()
+    arrow["lake"] = arrow["lake"].astype(str)
+    con = connect(store)
+    duck = con.execute("SELECT * FROM features").fetchdf()
+    key = ["lake", "aoi", "target_date"]
+    a = arrow.sort_values(key).reset_index(drop=True)[duck.columns]
+    b = duck.sort_values(key).reset_index(drop=True)
+    b["target_date"] = b["target_date"].astype(a["target_date"].dtype)
+    pd.testing.assert_frame_equal(a, b, check_dtype=False)
+    assert len(a) == 8
+
+
+def test_units_and_descriptions_in_arrow_schema(tmp_path: Path) -> None:
+    store = Store(tmp_path)
+    path = store.write_table("features", "tallow", _frame(), units={"chla": "mg m-3"}, descriptions={"chla": "label"})
+    schema = pq.read_schema(path)
+    assert schema.field("chla").metadata == {b"unit": b"mg m-3", b"description": b"label"}
+    assert json.loads(schema.metadata[b"lakefeed.units"]) == {"chla": "mg m-3"}
+
+
+def test_manifest_records_provenance(tmp_path: Path) -> None:
+    src = tmp_path / "input.csv"
+    src.write_text("a,b\n1,2\n")
+    store = Store(tmp_path / "s")
+    store.write_table("features", "tallow", _frame(), inputs=[str(src)], config_hash="cfg1")
+    m = json.loads((tmp_path / "s" / MANIFEST_NAME).read_text())
+    assert m["schema_version"] == SCHEMA_VERSION and m["package_version"]
+    e = m["tables"]["features"]["tallow"]
+    assert e["config_hash"] == "cfg1" and e["rows"] == 5
+    assert e["time_range"] == ["2024-05-01T00:00:00", "2024-05-13T00:00:00"]
+    # sha256 of b"a,b\n1,2\n" (computed with hashlib; an independent value)
+    import hashlib
+
+    assert e["inputs"] == {str(src): hashlib.sha256(b"a,b\n1,2\n").hexdigest()}
+
+
+def test_idempotent_same_inputs_same_bytes(tmp_path: Path) -> None:
+    store = Store(tmp_path)
+    p = store.write_table("features", "tallow", _frame(), units={"chla": "mg m-3"}, config_hash="c")
+    first = Path(p).read_bytes(), (tmp_path / MANIFEST_NAME).read_bytes()
+    store.write_table("features", "tallow", _frame(), units={"chla": "mg m-3"}, config_hash="c")
+    assert (Path(p).read_bytes(), (tmp_path / MANIFEST_NAME).read_bytes()) == first
+
+
+def test_interrupted_write_leaves_previous_table_intact(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    store = Store(tmp_path)
+    store.write_table("features", "tallow", _frame(), units={"chla": "mg m-3"})
+    before = store.read_table("features", "tallow")
+    real = pq.write_table
+
+    def crash(table, where, **kw):  # writes part of the file, then dies
+        real(table.slice(0, 1), where, **kw)
+        raise RuntimeError("simulated crash mid-write")
+
+    monkeypatch.setattr(pq, "write_table", crash)
+    with pytest.raises(RuntimeError, match="simulated crash"):
+        store.write_table("features", "tallow", _frame().assign(chla=-1.0), units={"chla": "mg m-3"})
+    monkeypatch.undo()
+    after = store.read_table("features", "tallow")
+    pd.testing.assert_frame_equal(after, before)
+    assert not [p for p in (tmp_path / "features").iterdir() if p.name.startswith(".tmp")]
+    assert store.entry("features", "tallow")["rows"] == 5
+
+
+def test_store_of_newer_schema_version_is_refused(tmp_path: Path) -> None:
+    store = Store(tmp_path)
+    store.write_table("features", "tallow", _frame())
+    m = json.loads((tmp_path / MANIFEST_NAME).read_text())
+    m["schema_version"] = SCHEMA_VERSION + 1
+    (tmp_path / MANIFEST_NAME).write_text(json.dumps(m))
+    with pytest.raises(StoreError, match="newer|schema version"):
+        store.read_table("features", "tallow")
+    with pytest.raises(StoreError, match="Upgrade lakefeed"):
+        store.write_table("features", "tallow", _frame())
+
+
+@pytest.mark.skipif(os.geteuid() == 0, reason="root can write anywhere")
+def test_store_path_not_writable(tmp_path: Path) -> None:
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    ro.chmod(0o500)
+    try:
+        with pytest.raises(StoreError, match="not writable"):
+            Store(ro / "store").write_table("features", "tallow", _frame())
+    finally:
+        ro.chmod(0o700)
+
+
+def test_store_path_below_a_file_is_not_writable(tmp_path: Path) -> None:
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(StoreError, match="not writable"):
+        Store(tmp_path / "file" / "store").write_table("features", "tallow", _frame())
+
+
+def test_store_path_that_is_a_file(tmp_path: Path) -> None:
+    f = tmp_path / "file"
+    f.write_text("x")
+    with pytest.raises(StoreError, match="not writable|is a file"):
+        Store(f).write_table("features", "tallow", _frame())
+
+
+def test_second_writer_waits_then_refuses_with_clear_message(tmp_path: Path) -> None:
+    holder = Store(tmp_path)
+    other = Store(tmp_path, lock_timeout=0.3)
+    entered, release = threading.Event(), threading.Event()
+
+    def hold() -> None:
+        with holder.lock():
+            entered.set()
+            release.wait(10)
+
+    t = threading.Thread(target=hold)
+    t.start()
+    entered.wait(5)
+    try:
+        with pytest.raises(StoreError, match="locked|being written"):
+            other.write_table("features", "tallow", _frame())
+    finally:
+        release.set()
+        t.join()
+    other.write_table("features", "tallow", _frame())  # free again
+
+
+def test_lock_across_processes(tmp_path: Path) -> None:
+    """A writer in another process holding the flock makes this one refuse (no interleaving)."""
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, time; from lakefeed.store import Store\n"
+        f"s = Store({str(tmp_path)!r})\n"
+        "with s.lock():\n    print('held', flush=True); time.sleep(3)\n"
+    )
+    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout.readline().strip() == "held"
+        with pytest.raises(StoreError, match=r"pid \d+"):
+            Store(tmp_path, lock_timeout=0.2).write_table("features", "tallow", _frame())
+    finally:
+        proc.wait(10)
+
+
+def test_load_features_with_units(tmp_path: Path) -> None:
+    store = Store(tmp_path)
+    store.write_table("features", "tallow", _frame(), units={"chla": "mg m-3"})
+    f = load_features(str(tmp_path), "tallow", aoi="a")
+    assert f["aoi"].eq("a").all() and len(f) == 3 and f.attrs["units"]["chla"] == "mg m-3"
+    with pytest.raises(StoreError, match="AOIs present"):
+        load_features(store, "tallow", aoi="nope")
+    with pytest.raises(StoreError, match="run the stage first"):
+        load_features(store, "other")
