@@ -2,7 +2,7 @@
 
 Writes N tiled, deflate-compressed GeoTIFF scenes (value float32 + quality uint8) of SIZE x SIZE
 pixels to ``benchmarks/_data/scenes/`` (gitignored; reused when present) and three small AOIs, then
-runs each route in its own subprocess (so that peak memory, ``ru_maxrss``, belongs to one route):
+runs each route in its own subprocess (so that peak memory, VmHWM, belongs to one route):
 
 - ``lakefeed``: :class:`lakefeed.sources.scenes.SceneReader` (one windowed read per band for the union
   of the AOIs) + :func:`lakefeed.extract.scene_stats.aoi_statistics`;
@@ -114,9 +114,28 @@ def run_rioxarray(folder: Path, n: int) -> dict:
     return {"seconds": time.perf_counter() - t0, "medians": medians, "pixels_read_per_band": int(v.size)}
 
 
+def _peak_rss_mib() -> float:
+    """Peak resident memory of this process (VmHWM; ru_maxrss can carry the parent's peak over exec)."""
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def _warm(folder: Path) -> None:
+    """Read every scene file once (in 8 MiB chunks) so both routes start from the same page cache."""
+    for f in sorted(folder.glob("s*.tif")):
+        with f.open("rb") as fh:
+            while fh.read(8 << 20):
+                pass
+
+
 def _child(route: str, folder: Path, n: int) -> None:
     out = run_lakefeed(folder, n) if route == "lakefeed" else run_rioxarray(folder, n)
-    out["peak_rss_mib"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    out["peak_rss_mib"] = _peak_rss_mib()
     print(json.dumps(out))
 
 
@@ -140,9 +159,7 @@ def main() -> None:
     t0 = time.perf_counter()
     folder = make_data(a.n, a.size)
     print(f"data: {a.n} scenes of {a.size}x{a.size} px in {folder} ({time.perf_counter() - t0:.0f} s to prepare)")
-    # warm the page cache once for both routes alike
-    for f in folder.glob("s*.tif"):
-        f.read_bytes()
+    _warm(folder)
     lf = _spawn("lakefeed", folder, a.n)
     rx = _spawn("rioxarray", folder, a.n)
     agree = np.allclose(lf["medians"], rx["medians"], rtol=1e-6, equal_nan=True)
@@ -154,8 +171,7 @@ def main() -> None:
     if a.big:
         nb = min(a.n, 50)
         big = make_data(nb, a.big)
-        for f in big.glob("s*.tif"):
-            f.read_bytes()
+        _warm(big)
         lb = _spawn("lakefeed", big, nb)
         print(f"lakefeed on {nb} scenes of {a.big}x{a.big} px: {nb / lb['seconds']:.1f} scenes/s, peak RSS {lb['peak_rss_mib']:.0f} MiB "
               f"(vs {lf['peak_rss_mib']:.0f} MiB at {a.size} px)")  # fmt: skip

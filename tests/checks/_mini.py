@@ -102,7 +102,11 @@ def weather_dataset(times: pd.DatetimeIndex, *, lon0: float = 8.5, lat0: float =
     shape = (len(times), lat.size, lon.size)
     ds = xr.Dataset(
         {
-            name: (("time", "latitude", "longitude"), np.full(shape, v, dtype="float32"), {"standard_name": s, "units": u})
+            name: (
+                ("time", "latitude", "longitude"),
+                np.full(shape, v, dtype="float32"),
+                {"standard_name": s, "units": u},
+            )
             for name, (s, u, v) in WEATHER_VARS.items()
         },
         coords={
@@ -129,7 +133,11 @@ def forecast_dataset(issues: pd.DatetimeIndex) -> xr.Dataset:
             for name, (s, u, v) in WEATHER_VARS.items()
         },
         coords={
-            "forecast_reference_time": ("forecast_reference_time", issues, {"standard_name": "forecast_reference_time"}),
+            "forecast_reference_time": (
+                "forecast_reference_time",
+                issues,
+                {"standard_name": "forecast_reference_time"},
+            ),
             "forecast_period": ("forecast_period", steps, {"standard_name": "forecast_period"}),
             "latitude": ("latitude", lat, {"standard_name": "latitude", "units": "degrees_north"}),
             "longitude": ("longitude", lon, {"standard_name": "longitude", "units": "degrees_east"}),

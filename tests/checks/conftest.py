@@ -5,9 +5,8 @@ from __future__ import annotations
 import shutil
 from pathlib import Path
 
-import pytest
-
 import _mini
+import pytest
 
 
 @pytest.fixture(scope="session")

@@ -3,9 +3,11 @@
 from __future__ import annotations
 
 import os
+import warnings
 from collections.abc import Callable
 from pathlib import Path
 
+import _mini
 import geopandas as gpd
 import pandas as pd
 import pytest
@@ -14,7 +16,6 @@ import yaml
 from shapely.geometry import box
 from typer.testing import CliRunner
 
-import _mini
 from lakefeed.cli import app
 
 runner = CliRunner()
@@ -78,7 +79,9 @@ def _break_crs(root: Path) -> None:
     lake = _mini.lake_layer()
     lake = gpd.GeoDataFrame(lake.drop(columns="geometry"), geometry=list(lake.geometry))  # no CRS
     (root / "geometry" / "lake.gpkg").unlink()
-    _mini.write_layer(lake, root / "geometry" / "lake.gpkg")
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="'crs' was not provided")
+        _mini.write_layer(lake, root / "geometry" / "lake.gpkg")
 
 
 def _break_empty(root: Path) -> None:
@@ -139,7 +142,7 @@ BROKEN = {
     "no crs": (_break_crs, ["lake polygon (config key 'lake.path')", "has no CRS"]),
     "empty layer": (_break_empty, ["areas of interest", "empty layer"]),
     "aoi outside": (_break_aoi_outside, ["AOI 'bathing_bay': 75.0% of its area (75.00 ha) lies outside the lake"]),
-    "cycle": (_break_network(["b", "a", "LAKE", "OUTSIDE"]), ["cycle in the sub-basin network: ", "'a'"]),
+    "cycle": (_break_network(["b", "a", "LAKE", "OUTSIDE"]), ["cycle in the sub-basin network: a -> b -> a"]),
     "dangling": (
         _break_network(["LAKE", "a", "zz", "OUTSIDE"]),
         ["dangling downstream id 'zz' (of sub-basin(s) 'c')"],
@@ -179,17 +182,21 @@ def test_missing_config_file(tmp_path: Path) -> None:
 
 
 def test_self_intersecting_polygon_is_a_warning_and_fails_with_strict(mini: Path) -> None:
+    """Repaired, not rejected (documented in lakefeed.sources.vectors): a warning naming the feature."""
     root = mini.parent.parent
     lake = _mini.lake_layer()
     x, y = _mini.X0, _mini.Y0
-    lake.loc[0, "geometry"] = shapely.Polygon([(x, y), (x + 3000, y + 2000), (x + 3000, y), (x, y + 2000), (x, y)])
+    # the last edge crosses the bottom edge near the south-west corner: a small bow-tie
+    ring = [(x, y), (x + 3000, y), (x + 3000, y + 2000), (x, y + 2000), (x + 20, y - 20), (x, y)]
+    lake.loc[0, "geometry"] = shapely.Polygon(ring)
     _mini.write_layer(lake, root / "geometry" / "lake.gpkg")
     code, out = check(str(mini))
-    assert "warning  lake polygon" in out and "repaired invalid polygon(s) feature #0 (Self-intersection" in out
-    # the repaired bow-tie no longer holds every AOI: that part is a problem of its own
-    assert code == 1 and "AOI 'intake'" not in out.split("AOIs inside lake")[0]
+    assert code == 0, out
+    assert "warning  lake polygon" in out
+    assert "repaired invalid polygon(s) feature #0 (Self-intersection" in out
+    assert "1 warning" in out
     code, out = check("--strict", str(mini))
-    assert code == 1
+    assert code == 1 and "fix the lines marked problem or warning" in out
 
 
 def test_sources_not_configured_are_skipped(mini: Path) -> None:
@@ -237,3 +244,16 @@ def test_check_fails_on_a_broken_copy_of_the_sample(request: pytest.FixtureReque
     lake_file.write_text(text.replace("Europe/Berlin", "Europe/Tallow"))
     code, out = check(str(lake_file))
     assert code == 1 and "unknown time zone 'Europe/Tallow'" in out
+
+
+def test_several_lakes_in_a_folder(mini: Path) -> None:
+    second = mini.parent / "lake-other.yaml"
+    data = yaml.safe_load(mini.read_text())
+    second.write_text(yaml.safe_dump({**data, "id": "other", "timezone": "Mars/Base"}))
+    code, out = check(str(mini.parent))
+    assert code == 1
+    assert out.startswith("mini  (") and "\nlake-other.yaml  (" in out
+    assert "1 of 2 lake config(s) have problems" in out
+    second.write_text(yaml.safe_dump(data))  # same id as lake-mini.yaml
+    code, out = check(str(mini.parent))
+    assert code == 1 and "lake id 'mini' is also used by" in out

@@ -5,12 +5,13 @@ from __future__ import annotations
 import warnings
 from pathlib import Path
 
+import _mini
 import geopandas as gpd
 import pytest
 import shapely
+import yaml
 from shapely.geometry import Polygon, box
 
-import _mini
 from lakefeed.checks.geometry import AOI_OUTSIDE_TOLERANCE, check_aois_inside, check_geometry
 from lakefeed.config import load_lake
 from lakefeed.config._base import LayerRef
@@ -129,3 +130,34 @@ def test_check_geometry_reports_a_repair_as_a_warning(mini: Path) -> None:
     warned = [r for r in results if r.status == "warning"]
     assert len(warned) == 1 and "intake (Self-intersection" in warned[0].message
     assert all(r.ok for r in results)
+
+
+def test_lake_id_found_from_the_shore_when_not_configured(mini: Path) -> None:
+    data = yaml.safe_load(mini.read_text())
+    del data["subbasins"]["lake_id"]
+    mini.write_text(yaml.safe_dump(data))
+    results, layers = check_geometry(load_lake(mini))
+    net = [r for r in results if r.name == "sub-basin network"]
+    assert all(r.ok for r in results), [r.message for r in results]
+    assert "direct inflows a, c by rule outlet_in_lake (lake id 'LAKE' found from the shore)" in net[0].message
+    assert layers.catchment_ids("subbasin_id") == ["a", "b", "c"]
+
+
+def test_numeric_ids_with_blank_downstream(mini: Path) -> None:
+    """Integer ids and a float downstream column (NaN for 'drains elsewhere') must match as '1', '2'..."""
+    root = mini.parent.parent
+    sb = _mini.subbasin_layer()
+    sb["subbasin_id"] = [1, 2, 3, 4]
+    sb["downstream_id"] = [0.0, 1.0, 0.0, float("nan")]
+    _mini.write_layer(sb, root / "geometry" / "subbasins.gpkg")
+    data = yaml.safe_load(mini.read_text())
+    data["subbasins"].update(lake_id="0", outside_ids=[])
+    mini.write_text(yaml.safe_dump(data))
+    results, layers = check_geometry(load_lake(mini))
+    assert all(r.ok for r in results), [r.message for r in results if not r.ok]
+    assert layers.catchment_ids("subbasin_id") == ["1", "2", "3"]
+
+
+def test_whole_float_ids_become_integer_strings(tmp_path: Path) -> None:
+    gdf = gpd.GeoDataFrame({"sid": [1.0, 2.0]}, geometry=[box(0, 0, 1, 1), box(2, 2, 3, 3)], crs=_mini.CRS)
+    assert read_layer(_gpkg(tmp_path, gdf), what="sub-basins", id_field="sid")["sid"].tolist() == ["1", "2"]

@@ -3,24 +3,29 @@
 from __future__ import annotations
 
 from pathlib import Path
-
-import geopandas as gpd
-import pandas as pd
-import pytest
+from typing import Any
 
 import _mini
-from lakefeed.checks.grids import check_forecast, grid_extent_results, weather_variables
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from shapely.geometry import box
+
+from lakefeed.checks import CheckResult
+from lakefeed.checks.grids import check_forecast, grid_data_results, grid_extent_results, weather_variables
 from lakefeed.config import Accumulation, ForecastSource
 
 F = Path("grid.nc")
 ACC = {"shortwave_radiation": Accumulation(kind="since_reset"), "precipitation": Accumulation(kind="since_reset")}
 
 
-def grid() -> object:
+def grid() -> xr.Dataset:
     return _mini.weather_dataset(pd.date_range("2024-01-01", periods=2, freq="h"))
 
 
-def run(ds, **kw):  # noqa: ANN001, ANN201
+def run(ds: xr.Dataset, **kw: Any) -> list[CheckResult]:
     opts = {"variables": {}, "units": {}, "accumulation": ACC, "section": "weather", "file": F, **kw}
     return weather_variables(ds, **opts)
 
@@ -115,3 +120,18 @@ def test_forecast_without_reference_time(tmp_path: Path, missing: str) -> None:
     ds.to_netcdf(tmp_path / "fc.nc")
     res, _ = check_forecast(ForecastSource(paths=[str(tmp_path / "fc.nc")], accumulation=ACC), {})
     assert any("no forecast_reference_time" in r.message for r in res if not r.ok)
+
+
+def test_zone_in_the_no_data_region() -> None:
+    """Cells over the lake all NaN: a problem; some NaN over the catchment: a warning."""
+    ds = grid()
+    lake = _lake(9.0, 47.8)  # centre cell (lat index 5, lon index 5)
+    catchment = gpd.GeoDataFrame(geometry=[box(8.86, 47.66, 9.14, 47.94)], crs="EPSG:4326")  # 3 x 3 cells
+    (ok,) = grid_data_results(ds, {"lake": lake}, variable="air_temp", section="weather", file=F)
+    assert ok.ok and "lake: all 1 cells hold data" in ok.message
+    ds["air_temp"][:, 5, 5] = np.nan
+    lake_res, catch_res = grid_data_results(
+        ds, {"lake": lake, "catchment": catchment}, variable="air_temp", section="weather", file=F
+    )
+    assert not lake_res.ok and "lake: 1 of 1 cells are no-data (NaN)" in lake_res.message
+    assert catch_res.status == "warning" and "catchment: 1 of 9 cells are no-data" in catch_res.message

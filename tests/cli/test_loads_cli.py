@@ -68,6 +68,14 @@ def test_out_period_rows_for_beale(files: tuple[Path, Path], tmp_path: Path) -> 
     got = pd.read_csv(out)
     assert len(got) == 1 and got.loc[0, "start"] == "2023-01-01" and got.loc[0, "days"] == 365
     assert {"load_kg", "se_kg", "lower_kg", "upper_kg", "method"} <= set(got.columns)
+    # independent: Beale's formula as written in REFERENCES.md ("Loads"), theta = 1/n, over the whole record
+    s, q = pd.read_csv(samples, parse_dates=["date"]), pd.read_csv(flow, parse_dates=["date"])
+    qs = q.set_index("date")["discharge"].loc[s["date"]].to_numpy()
+    ls = qs * s["concentration"].to_numpy() * 86.4
+    n, lbar, qbar = len(ls), ls.mean(), qs.mean()
+    s_lq, s_qq = np.cov(ls, qs, ddof=1)[0, 1], qs.var(ddof=1)
+    mu = q["discharge"].mean() * (lbar / qbar) * (1 + s_lq / (n * lbar * qbar)) / (1 + s_qq / (n * qbar**2))
+    assert got.loc[0, "load_kg"] == pytest.approx(mu * 365, rel=1e-5)
 
 
 def test_errors(files: tuple[Path, Path], tmp_path: Path) -> None:

@@ -45,6 +45,8 @@ def test_valid_config_loads_with_absolute_paths(tmp_path: Path) -> None:
     assert isinstance(project.lake, LakeConfig)
     assert project.lake.lake.path == (tmp_path / "geometry" / "lake.gpkg").resolve()
     assert project.lake.subbasins.outside_ids == ["OUTSIDE"]
+    default = load_lake(write(tmp_path, {**LAKE, "subbasins": {"path": "s.gpkg"}}))
+    assert default.subbasins.outside_ids == ["0", "-1", "NONE", "NAN", "OUTSIDE"]
     assert project.sources.weather is not None
     assert project.sources.weather.paths == [str(tmp_path.resolve() / "weather" / "*.nc")]
 
@@ -183,3 +185,13 @@ def test_duplicate_lake_ids_across_files(tmp_path: Path) -> None:
     (path.parent / "lake-copy.yaml").write_text(yaml.safe_dump(LAKE))
     with pytest.raises(ConfigError, match="also used by"):
         load_projects([path.parent])
+
+
+def test_folder_skips_other_yaml_but_keeps_broken_lake_files(tmp_path: Path) -> None:
+    path = write(tmp_path)
+    (path.parent / "deploy.yaml").write_text(yaml.safe_dump({"name": "monthly", "deployments": []}))
+    (path.parent / "notes.yaml").write_text("a: [unclosed\n")
+    (path.parent / "lake-broken.yaml").write_text("id: [unclosed\n")
+    (path.parent / "reservoir.yml").write_text(yaml.safe_dump({**LAKE, "id": "res"}))
+    found = [f.name for f in find_lake_files([path.parent])]
+    assert found == ["lake-broken.yaml", "lake-mini.yaml", "reservoir.yml"]

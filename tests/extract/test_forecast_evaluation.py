@@ -79,7 +79,10 @@ def test_no_look_ahead():
     second = expanding_adjustment(fc, altered, variables=VARS, min_overlap_days=45, options=OPTIONS).adjusted
     upto = (fc["issue_date"] <= cut).to_numpy()
     pd.testing.assert_frame_equal(first[upto], second[upto])
-    assert (first.loc[upto, "fitted_through"].dropna() < first.loc[upto, "issue_date"][first.loc[upto, "fitted_through"].notna()]).all()
+    assert (
+        first.loc[upto, "fitted_through"].dropna()
+        < first.loc[upto, "issue_date"][first.loc[upto, "fitted_through"].notna()]
+    ).all()
     assert not first[~upto]["air_temperature_mean"].equals(second[~upto]["air_temperature_mean"])
 
 

@@ -203,6 +203,21 @@ def test_censored_values_use_half_the_detection_limit() -> None:
     assert any("1 censored sample(s) set to 0.5 x detection limit" in w for w in est.warnings)
 
 
+def test_composite_passes_through_the_samples() -> None:
+    """Composite (rating curve + interpolated log residuals; Aulenbach & Hooper 2006, PITFALLS.md): on sample
+    days it returns the observed load; with an exact power law (zero residuals) it equals the rating curve."""
+    rng = np.random.default_rng(2)
+    flow = record(list(np.exp(rng.normal(1, 0.5, 120))))
+    pos = list(range(3, 120, 9))
+    noisy = list(2.0 * flow.to_numpy()[pos] ** 1.2 * np.exp(rng.normal(0, 0.3, len(pos))))
+    est = estimate_load(samples_for(flow, pos, noisy), flow, method="composite")
+    np.testing.assert_allclose(est.daily["load"].to_numpy()[pos], noisy, rtol=1e-9)
+    exact = samples_for(flow, pos, list(2.0 * flow.to_numpy()[pos] ** 1.2))
+    comp = estimate_load(exact, flow, method="composite")
+    np.testing.assert_allclose(comp.daily["load"], 2.0 * flow.to_numpy() ** 1.2, rtol=1e-9)
+    assert comp.lower_kg <= comp.total_kg <= comp.upper_kg
+
+
 # ----------------------------------------------------------------------------- warnings and bad input
 
 

@@ -35,22 +35,23 @@ def test_acceptance_reasons_and_rejected_rows_kept() -> None:
 
 
 def test_hampel_hand_example() -> None:
-    """Daily series 1..9 with a spike; window 5 days, threshold 3: only the spike is flagged.
+    """Daily series 1..9 with a spike; window +-2 days, threshold 3: only the spike is flagged.
 
-    Worked by hand: window of day 4 = {x2..x6} = {2, 3, 50, 5, 6}; median 5; |dev| = 3, 2, 45, 0, 1;
-    MAD 2; 3 * 1.4826 * 2 = 8.9 < 45 -> flagged. Day 3: {1, 2, 3, 50, 5}: median 3, MAD 2, |3-3| = 0.
+    Worked by hand (leave-one-out): day 4's neighbours {3, 4, 6, 7}: median 5, MAD 1.5, scale 2.22;
+    |50 - 5| = 45 > 6.7 -> flagged. Day 3's neighbours {2, 3, 50, 6}: median 4.5, MAD 2, scale 2.97;
+    |4 - 4.5| = 0.5 -> kept.
     """
     days = np.arange(9.0)
     x = np.array([1, 2, 3, 4, 50, 6, 7, 8, 9], dtype=float)
     x[4] = 50.0
-    flags = hampel(days, x, window_days=4, threshold=3.0, min_points=5)
+    flags = hampel(days, x, window_days=4, threshold=3.0, min_points=3)
     assert flags.tolist() == [False] * 4 + [True] + [False] * 4
 
 
 def test_hampel_needs_enough_points_and_ignores_nan() -> None:
     days = np.array([0.0, 10.0, 20.0, 20.5, 21.0])
     x = np.array([1.0, 100.0, 1.0, np.nan, 1.0])
-    assert not hampel(days, x, window_days=5, threshold=3, min_points=3).any()
+    assert not hampel(days, x, window_days=5, threshold=3, min_points=3).any()  # at most 2 others
 
 
 def test_flag_outliers_per_aoi_and_sensor_on_logs() -> None:

@@ -17,7 +17,9 @@ def _inputs(n: int, seed: int = 5) -> tuple[pd.DataFrame, pd.DataFrame]:
                            index=days)  # fmt: skip
     drivers[rng.random(drivers.shape) < 0.05] = np.nan
     tdays = np.sort(rng.choice(days, n // 4, replace=False))
-    targets = pd.DataFrame({"aoi": rng.choice(["p", "q"], len(tdays)), "date": tdays, "chla": rng.gamma(2, 3, len(tdays))})
+    targets = pd.DataFrame(
+        {"aoi": rng.choice(["p", "q"], len(tdays)), "date": tdays, "chla": rng.gamma(2, 3, len(tdays))}
+    )
     return drivers, targets.sort_values(["aoi", "date"]).reset_index(drop=True)
 
 

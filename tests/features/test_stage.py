@@ -33,7 +33,9 @@ def _project(tmp_path: Path, **features: object) -> Project:
         subbasins=SubbasinLayer(path=tmp_path / "subbasins.gpkg"),
         features=FeatureOptions(**features),
     )
-    return Project(lake=lake, sources=SourcesConfig(), lake_file=tmp_path / "lake.yaml", sources_file=tmp_path / "s.yaml")
+    return Project(
+        lake=lake, sources=SourcesConfig(), lake_file=tmp_path / "lake.yaml", sources_file=tmp_path / "s.yaml"
+    )
 
 
 def _inputs(end: str = "2022-12-31", seed: int = 0) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
@@ -194,9 +196,18 @@ def test_cli_features_and_query(tmp_path: Path) -> None:
         (tmp_path / name).write_text("")
     (tmp_path / "sources.yaml").write_text(yaml.safe_dump({"store": str(tmp_path / "store")}))
     (tmp_path / "lake-tallow.yaml").write_text(
-        yaml.safe_dump({"id": "tallow", "name": "Tallow Reservoir", "timezone": "Europe/Berlin",
-                        "sources": "sources.yaml", "lake": {"path": "lake.gpkg"}, "aois": {"path": "aois.gpkg"},
-                        "subbasins": {"path": "subbasins.gpkg"}, "features": {"windows": [3]}})  # fmt: skip
+        yaml.safe_dump(
+            {
+                "id": "tallow",
+                "name": "Tallow Reservoir",
+                "timezone": "Europe/Berlin",
+                "sources": "sources.yaml",
+                "lake": {"path": "lake.gpkg"},
+                "aois": {"path": "aois.gpkg"},
+                "subbasins": {"path": "subbasins.gpkg"},
+                "features": {"windows": [3]},
+            }
+        )
     )
     runner = CliRunner()
     out = runner.invoke(app, ["features", str(tmp_path / "lake-tallow.yaml")])

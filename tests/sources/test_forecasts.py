@@ -32,7 +32,11 @@ def make_archive(
     temp = temp_k + 0.1 * lead_hours[None, :, None, None] / 24 + np.zeros(shape)
 
     def var(values, sn, units):
-        return (("forecast_reference_time", lead_name, "latitude", "longitude"), values, {"standard_name": sn, "units": units})
+        return (
+            ("forecast_reference_time", lead_name, "latitude", "longitude"),
+            values,
+            {"standard_name": sn, "units": units},
+        )
 
     coords = {
         "forecast_reference_time": ("forecast_reference_time", issues, {"standard_name": "forecast_reference_time"}),
@@ -44,7 +48,11 @@ def make_archive(
     elif lead_as == "hours":
         coords[lead_name] = (lead_name, lead_hours, {"standard_name": "forecast_period", "units": "hours"})
     elif lead_as == "text":
-        coords[lead_name] = (lead_name, np.array([f"T+{int(h)}" for h in lead_hours]), {"standard_name": "forecast_period"})
+        coords[lead_name] = (
+            lead_name,
+            np.array([f"T+{int(h)}" for h in lead_hours]),
+            {"standard_name": "forecast_period"},
+        )
     per_step = np.full(shape, precip_m_per_step)
     per_step[:, 0] = 0.0
     sw = np.full(shape, 200.0 * step_h * 3600)

@@ -189,8 +189,18 @@ def _bad_inputs(tmp_path: Path) -> dict[str, tuple[str, str | None]]:
 def test_bad_scene_files_are_recorded_and_others_go_on(tmp_path: Path) -> None:
     cases = _bad_inputs(tmp_path)
     scenes = pd.DataFrame(
-        [dict(scene_id=k, sensor="kite", time=pd.Timestamp("2024-06-01", tz="UTC"), value_href=v, quality_href=q,
-              uncertainty_href=None, reason="") for k, (v, q) in cases.items()]  # fmt: skip
+        [
+            dict(
+                scene_id=k,
+                sensor="kite",
+                time=pd.Timestamp("2024-06-01", tz="UTC"),
+                value_href=v,
+                quality_href=q,
+                uncertainty_href=None,
+                reason="",
+            )
+            for k, (v, q) in cases.items()
+        ]  # fmt: skip
     )
     reader = SceneReader(_aois((X0 + 200, Y0 - 1800, X0 + 1800, Y0 - 200)), id_field="aoi_id")
     out = {row["scene_id"]: (win, reason) for row, win, reason in read_scenes(scenes, reader)}

@@ -28,7 +28,10 @@ RATIO = 1.25  # planted dune / kite bias
 def _project(tmp: Path, *, n_days: int = 40) -> Path:
     lake = shapely.box(X0, Y0 - 3000, X0 + 3000, Y0)
     gpd.GeoDataFrame({"name": ["test lake"]}, geometry=[lake], crs=32632).to_file(tmp / "lake.gpkg")
-    aois = [shapely.box(X0 + 500, Y0 - 1500, X0 + 1500, Y0 - 500), shapely.box(X0 + 1500, Y0 - 2800, X0 + 2800, Y0 - 1500)]
+    aois = [
+        shapely.box(X0 + 500, Y0 - 1500, X0 + 1500, Y0 - 500),
+        shapely.box(X0 + 1500, Y0 - 2800, X0 + 2800, Y0 - 1500),
+    ]
     gpd.GeoDataFrame({"aoi_id": ["north", "south"]}, geometry=aois, crs=32632).to_file(tmp / "aois.gpkg")
     gpd.GeoDataFrame({"subbasin_id": ["s1"], "downstream_id": ["LAKE"]}, geometry=[shapely.box(0, 0, 1, 1)],
                      crs=32632).to_file(tmp / "sub.gpkg")  # fmt: skip
@@ -127,41 +130,39 @@ def _has_generator() -> bool:
 @pytest.mark.slow
 @pytest.mark.skipif(not _has_generator(), reason="lakefeed.sample.generate not available yet")
 def test_sample_scenario_bias_and_truth(small_sample: Path, tmp_path: Path) -> None:
-    """On the sample scenario: planted dune/kite ratio recovered within its standard error (3 se);
-    accepted, harmonised daily values track the planted per-AOI truth."""
+    """On the sample scenario (seed 7, reduced): the planted dune/kite ratio (truth.json, 1.25) is
+    recovered within 2 standard errors (measured: 1.233 +- 0.015 from 11 matchups, 1.1 se off); accepted,
+    non-outlier observations track the planted per-AOI truth (measured: median |ln error| 0.005 for kite,
+    0.22 for dune before harmonisation = its bias); fused daily values after harmonisation: median
+    |ln error| 0.008, mean ln error 0.017 over 144 AOI-days. One planted outlier scene (factor 4) is
+    flagged; another, on a steep decline with few neighbours, is not."""
     project = load_project(next((small_sample / "config").glob("lake-*.yaml")))
     store = Store(tmp_path / "store")
     build_target(project, store)
     truth = json.loads((small_sample / "truth" / "truth.json").read_text())
+    planted = float(truth["dune_over_kite_ratio"])
     bias = store.read_table("sensor_bias", project.id).set_index("sensor")
-    planted = _planted_ratio(truth)
     d = bias.loc["dune"]
-    print(f"dune/kite ratio {d['ratio']:.4f} +- {d['se']:.4f} (planted {planted}), n={d['n']}")
-    assert d["adjusted"]
-    assert abs(d["ln_ratio"] - np.log(planted)) < 3 * d["ln_ratio_se"]
-    daily = store.read_table("target_daily", project.id)
+    assert d["adjusted"] and d["n"] >= 10
+    assert abs(d["ln_ratio"] - np.log(planted)) < 2 * d["ln_ratio_se"]
+    assert abs(d["ratio"] - planted) < 2 * d["se"]
     chla_truth = pd.read_csv(small_sample / "truth" / "chla_truth.csv")
+    obs = store.read_table("target_obs", project.id)
+    good = _merge_truth(obs[obs["accepted"] & ~obs["outlier"]], chla_truth)
+    err = np.log(good["median"] / good["truth"]).groupby(good["sensor"]).median()
+    assert abs(err["kite"]) < 0.05
+    assert abs(err["dune"] - np.log(planted)) < 0.05  # raw dune values carry the planted bias
+    daily = store.read_table("target_daily", project.id)
     m = _merge_truth(daily, chla_truth)
-    err = np.log(m["chla"] / m["truth"])
-    print(f"daily fused vs truth: n={len(m)}, median |ln error| {err.abs().median():.3f}, bias {err.mean():.3f}")
-    assert len(m) > 30
-    assert err.abs().median() < 0.15 and abs(err.mean()) < 0.1
-
-
-def _planted_ratio(truth: dict) -> float:
-    """dune / kite bias ratio from truth.json (the generator stores per-sensor ratios)."""
-    s = truth.get("sensor_bias") or truth.get("sensors") or truth
-    if "dune" in s and isinstance(s["dune"], dict):
-        kite = s.get("kite", {}).get("bias_ratio", 1.0) if isinstance(s.get("kite"), dict) else 1.0
-        return float(s["dune"].get("bias_ratio", s["dune"].get("ratio"))) / float(kite)
-    return float(s.get("dune_over_kite") or s.get("dune_kite_ratio") or s["dune"])
+    derr = np.log(m["chla"] / m["truth"])
+    assert len(m) > 60
+    assert derr.abs().median() < 0.05 and abs(derr.mean()) < 0.05
+    assert (np.abs(derr) < 0.2).mean() > 0.95
+    outlier_scenes = set(truth["outlier_scenes"])
+    assert obs.loc[obs["outlier"], "scene_id"].isin(outlier_scenes).all()
 
 
 def _merge_truth(daily: pd.DataFrame, truth: pd.DataFrame) -> pd.DataFrame:
-    t = truth.copy()
-    if "aoi" not in t.columns:  # wide: one column per AOI
-        t = t.melt(id_vars=["date"], var_name="aoi", value_name="truth")
-    else:
-        t = t.rename(columns={c: "truth" for c in t.columns if c not in ("date", "aoi")})
+    t = truth[["date", "aoi", "chla"]].rename(columns={"chla": "truth"})
     t["date"] = pd.to_datetime(t["date"]).dt.date
-    return daily.merge(t[["aoi", "date", "truth"]], on=["aoi", "date"])
+    return daily.merge(t, on=["aoi", "date"])

@@ -41,8 +41,14 @@ _UNITS = st.sampled_from(["mg m-3", "degC", "mm", "kg d-1", "1", "m3 s-1"])
     hpd.data_frames(
         [
             hpd.column("aoi", elements=st.sampled_from(["x", "y", "zone 1"])),
-            hpd.column("date", dtype="datetime64[ns]", elements=st.datetimes(
-                min_value=pd.Timestamp("1990-01-01").to_pydatetime(), max_value=pd.Timestamp("2090-01-01").to_pydatetime())),
+            hpd.column(
+                "date",
+                dtype="datetime64[ns]",
+                elements=st.datetimes(
+                    min_value=pd.Timestamp("1990-01-01").to_pydatetime(),
+                    max_value=pd.Timestamp("2090-01-01").to_pydatetime(),
+                ),
+            ),
             hpd.column("value", dtype=float),
             hpd.column("count", dtype=np.int32),
             hpd.column("ok", dtype=bool),
@@ -146,7 +152,7 @@ def test_store_of_newer_schema_version_is_refused(tmp_path: Path) -> None:
     m = json.loads((tmp_path / MANIFEST_NAME).read_text())
     m["schema_version"] = SCHEMA_VERSION + 1
     (tmp_path / MANIFEST_NAME).write_text(json.dumps(m))
-    with pytest.raises(StoreError, match="newer|schema version"):
+    with pytest.raises(StoreError, match=r"newer|schema version"):
         store.read_table("features", "tallow")
     with pytest.raises(StoreError, match="Upgrade lakefeed"):
         store.write_table("features", "tallow", _frame())
@@ -173,7 +179,7 @@ def test_store_path_below_a_file_is_not_writable(tmp_path: Path) -> None:
 def test_store_path_that_is_a_file(tmp_path: Path) -> None:
     f = tmp_path / "file"
     f.write_text("x")
-    with pytest.raises(StoreError, match="not writable|is a file"):
+    with pytest.raises(StoreError, match=r"not writable|is a file"):
         Store(f).write_table("features", "tallow", _frame())
 
 
@@ -191,7 +197,7 @@ def test_second_writer_waits_then_refuses_with_clear_message(tmp_path: Path) -> 
     t.start()
     entered.wait(5)
     try:
-        with pytest.raises(StoreError, match="locked|being written"):
+        with pytest.raises(StoreError, match=r"locked|being written"):
             other.write_table("features", "tallow", _frame())
     finally:
         release.set()

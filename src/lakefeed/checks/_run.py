@@ -8,14 +8,14 @@ reported as skipped. Opens sources for metadata only; never writes anything.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from lakefeed.checks._open import Period
 from lakefeed.checks._result import CheckResult, failed, guarded, passed, skipped
 from lakefeed.checks.coverage import check_coverage
-from lakefeed.checks.geometry import check_geometry
+from lakefeed.checks.geometry import Layers, check_geometry
 from lakefeed.checks.grids import check_forecast, check_weather
 from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
 from lakefeed.config import Project, find_lake_files, load_project
@@ -50,12 +50,15 @@ def check_project(project: Project) -> list[CheckResult]:
         passed("lake id", f"{lake.id!r} is a plain slug"),
         passed("time zone", f"{lake.timezone} is a known IANA time zone"),
     ]
-    geo, layers = check_geometry(lake)
+    try:
+        geo, layers = check_geometry(lake)
+    except Exception as err:  # an unexpected library failure is still a finding, not a crash
+        geo, layers = [failed("geometry", f"{type(err).__name__}: {err}", "check the geometry files")], Layers()
     results += geo
     zones = {"lake": layers.lake, "catchment": layers.catchment(lake.subbasins.id_field)}
     periods: dict[str, Period | None] = {}
 
-    def run(name: str, key: str, fn) -> None:  # noqa: ANN001 - small local helper
+    def run(name: str, key: str, fn: Callable[[], tuple[list[CheckResult], Period | None]]) -> None:
         holder: dict[str, Period | None] = {}
 
         def body() -> list[CheckResult]:
@@ -66,18 +69,11 @@ def check_project(project: Project) -> list[CheckResult]:
         periods[key] = holder.get("period")
 
     run("weather", "weather", lambda: check_weather(src.weather, zones))
-    if layers.subbasins is not None:
-        ids = layers.subbasins[lake.subbasins.id_field].astype(str).tolist()
-        net = layers.network
-        required = net.catchment if net is not None and net.lake_known and net.catchment else ids
-        run("hydrology", "hydrology", lambda: check_hydrology(src.hydrology, required_ids=required))
-    elif src.hydrology is not None:
+    ids = [] if layers.subbasins is None else layers.subbasins[lake.subbasins.id_field].astype(str).tolist()
+    if layers.subbasins is None and src.hydrology is not None:
         results.append(skipped("hydrology ids", "needs the sub-basin layer"))
-        ids = []
-        run("hydrology", "hydrology", lambda: check_hydrology(src.hydrology, required_ids=[]))
-    else:
-        ids = []
-        run("hydrology", "hydrology", lambda: check_hydrology(None, required_ids=[]))
+    required = layers.catchment_ids(lake.subbasins.id_field)
+    run("hydrology", "hydrology", lambda: check_hydrology(src.hydrology, required_ids=required))
     run("samples", "samples", lambda: check_samples(src.samples, subbasin_ids=ids))
     run("scenes", "scenes", lambda: check_scenes(src.scenes, lake))
     run("forecast", "forecast issues", lambda: check_forecast(src.forecast, zones))

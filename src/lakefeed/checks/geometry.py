@@ -18,13 +18,14 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import geopandas as gpd
-import pandas as pd
 import shapely
 
 from lakefeed.checks._result import CheckResult, failed, passed, skipped, warned
-from lakefeed.checks.network import NetworkReport, check_network
+from lakefeed.checks.catchment import check_subbasin_network
+from lakefeed.checks.network import NetworkReport
 from lakefeed.config import LakeConfig
 from lakefeed.exceptions import LakefeedError, LakefeedWarning
+from lakefeed.geometry.network import Catchment
 from lakefeed.sources.vectors import read_layer
 
 __all__ = ["AOI_OUTSIDE_TOLERANCE", "Layers", "check_aois_inside", "check_geometry"]
@@ -41,14 +42,20 @@ class Layers:
     aois: gpd.GeoDataFrame | None = None
     subbasins: gpd.GeoDataFrame | None = None
     network: NetworkReport | None = None
+    traced: Catchment | None = None
 
     def catchment(self, id_field: str) -> gpd.GeoDataFrame | None:
         """Sub-basins draining into the lake (all of them when that cannot be told)."""
         if self.subbasins is None:
             return None
-        if self.network is None or not self.network.lake_known or not self.network.catchment:
-            return self.subbasins
-        return self.subbasins[self.subbasins[id_field].isin(set(self.network.catchment))]
+        if self.traced is not None:
+            return self.subbasins[self.subbasins[id_field].isin(set(self.traced.subbasin_ids))]
+        return self.subbasins
+
+    def catchment_ids(self, id_field: str) -> list[str]:
+        """Ids of the sub-basins draining into the lake (all ids when that cannot be told)."""
+        gdf = self.catchment(id_field)
+        return [] if gdf is None else gdf[id_field].astype(str).tolist()
 
 
 def _read(
@@ -154,48 +161,6 @@ def check_geometry(lake: LakeConfig) -> tuple[list[CheckResult], Layers]:
     if layers.subbasins is None:
         results.append(skipped("sub-basin network", "needs the sub-basin layer"))
         return results, layers
-    gdf = layers.subbasins
-    if sb.downstream_field not in gdf.columns:
-        results.append(
-            failed(
-                "sub-basin network",
-                f"{sb.path}: no field {sb.downstream_field!r} (subbasins.downstream_field); "
-                f"fields are {[c for c in gdf.columns if c != gdf.geometry.name]}",
-                "set subbasins.downstream_field to the field holding each sub-basin's downstream id",
-            )
-        )
-        return results, layers
-    down = [None if pd.isna(v) else str(v) for v in gdf[sb.downstream_field]]
-    report = check_network(
-        gdf[sb.id_field].tolist(),
-        down,
-        lake_id=sb.lake_id,
-        outside_ids=sb.outside_ids,
-        direct_inflows=sb.direct_inflows,
-    )
-    layers.network = report
-    hint = (
-        "fix the downstream ids in the sub-basin layer; ids meaning 'the lake' go in subbasins.lake_id, "
-        "ids meaning 'drains elsewhere' in subbasins.outside_ids"
-    )
-    results += [failed("sub-basin network", f"{sb.path}: {p}", hint) for p in report.problems]
-    if not report.problems:
-        if report.lake_known:
-            results.append(
-                passed(
-                    "sub-basin network",
-                    f"{report.n_subbasins} sub-basins; {len(report.direct_inflows)} drain directly into the lake "
-                    f"({', '.join(report.direct_inflows)}); catchment of {len(report.catchment)}; "
-                    f"{len(report.outside)} drain elsewhere",
-                )
-            )
-        else:
-            results.append(
-                warned(
-                    "sub-basin network",
-                    f"{report.n_subbasins} sub-basins, no cycles or dangling ids, but nothing says which drain "
-                    "into the lake",
-                    "set subbasins.lake_id (the downstream id meaning 'the lake') or subbasins.direct_inflows",
-                )
-            )
+    res, layers.network, layers.traced = check_subbasin_network(layers.subbasins, layers.lake, sb)
+    results += res
     return results, layers

@@ -16,7 +16,10 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
+import shapely
+import shapely.affinity
 import xarray as xr
 
 from lakefeed.checks._open import Period, expand, find_coord, lonlat_bounds, open_lazy, time_period
@@ -24,7 +27,14 @@ from lakefeed.checks._result import CheckResult, failed, passed, skipped, warned
 from lakefeed.config import WEATHER_ROLES, Accumulation, ForecastSource, WeatherSource
 from lakefeed.units import is_convertible
 
-__all__ = ["EXPECTED_UNITS", "check_forecast", "check_weather", "grid_extent_results", "weather_variables"]
+__all__ = [
+    "EXPECTED_UNITS",
+    "check_forecast",
+    "check_weather",
+    "grid_data_results",
+    "grid_extent_results",
+    "weather_variables",
+]
 
 #: Unit each CF standard name must be convertible to (amounts stay amounts, fluxes stay fluxes).
 EXPECTED_UNITS: dict[str, str] = {
@@ -62,8 +72,7 @@ def weather_variables(
                 out.append(
                     failed(
                         name,
-                        f"{section}.{key}.{role}: unknown role"
-                        + (f"; did you mean {guess[0]!r}?" if guess else ""),
+                        f"{section}.{key}.{role}: unknown role" + (f"; did you mean {guess[0]!r}?" if guess else ""),
                         f"keys are roles ({', '.join(WEATHER_ROLES)})"
                         + ("" if key == "variables" else " or variable names of the file"),
                     )
@@ -183,6 +192,67 @@ def grid_extent_results(
     return out
 
 
+def _first_step_over(da: xr.DataArray, lat: xr.DataArray, lon: xr.DataArray, geom: shapely.Geometry) -> np.ndarray:
+    """Values of the first step of ``da`` at the cells whose centres lie in ``geom`` (or the centroid's cell)."""
+    la, lo = np.asarray(lat.values, dtype=float), np.asarray(lon.values, dtype=float)
+    w, s, e, n = geom.bounds
+    dla = float(np.abs(np.diff(la)).max()) if la.size > 1 else 0.0
+    dlo = float(np.abs(np.diff(lo)).max()) if lo.size > 1 else 0.0
+    ila = np.flatnonzero((la >= s - dla) & (la <= n + dla))
+    ilo = np.flatnonzero((lo >= w - dlo) & (lo <= e + dlo))
+    if ila.size == 0 or ilo.size == 0:
+        return np.array([])
+    first = {d: 0 for d in da.dims if d not in (lat.dims[0], lon.dims[0])}
+    window = da.isel(first).isel({lat.dims[0]: ila, lon.dims[0]: ilo}).transpose(lat.dims[0], lon.dims[0])
+    values = np.asarray(window.values, dtype=float)  # a few cells of one time step
+    glo, gla = np.meshgrid(lo[ilo], la[ila])
+    inside = shapely.contains_xy(geom, glo, gla)
+    if not inside.any():
+        c = geom.centroid
+        inside = np.zeros_like(inside)
+        inside[np.abs(la[ila] - c.y).argmin(), np.abs(lo[ilo] - c.x).argmin()] = True
+    return values[inside]
+
+
+def grid_data_results(
+    ds: xr.Dataset,
+    zones: Mapping[str, gpd.GeoDataFrame | None],
+    *,
+    variable: str,
+    section: str,
+    file: Path,
+) -> list[CheckResult]:
+    """Cells over each zone must hold data (not the grid's NaN no-data region), read at the first time step only.
+
+    A zone wholly in no-data cells is a problem; partly, a warning (its ``valid_fraction`` drops).
+    """
+    name = f"{section} data over zones"
+    lat, lon = find_coord(ds, "latitude"), find_coord(ds, "longitude")
+    if lat is None or lon is None or lat.ndim != 1 or lon.ndim != 1 or variable not in ds.data_vars:
+        return [skipped(name, "needs 1-D latitude/longitude coordinates and an air temperature variable")]
+    out = []
+    for zone, gdf in zones.items():
+        if gdf is None or len(gdf) == 0:
+            continue
+        geom = shapely.union_all(gdf.to_crs("EPSG:4326").geometry.values)
+        if float(np.nanmax(lon.values)) > 180.0 and geom.bounds[0] < 0:
+            geom = shapely.affinity.translate(geom, xoff=360.0)
+        vals = _first_step_over(ds[variable], lat, lon, geom)
+        if vals.size == 0:
+            continue  # outside the grid: reported by the extent check
+        missing = int(np.isnan(vals).sum())
+        what = (
+            f"{zone}: {missing} of {vals.size} cells are no-data (NaN) in {variable!r} of {file.name} at the first step"
+        )
+        if missing == vals.size:
+            out.append(failed(name, what, f"use a {section} grid with data over the {zone}"))
+        elif missing:
+            out.append(warned(name, what, f"the {zone}'s valid fraction will be below 1"))
+        else:
+            out.append(passed(name, f"{zone}: all {vals.size} cells hold data at the first step"))
+    return out
+
+
 def _scan_times(files: Sequence[Path], coord: str) -> Period | None:
     """Period over all files from one coordinate (reads that coordinate only)."""
     periods = []
@@ -196,6 +266,14 @@ def _scan_times(files: Sequence[Path], coord: str) -> Period | None:
     if not periods:
         return None
     return Period(min(p.start for p in periods), max(p.end for p in periods))
+
+
+def _role_variable(ds: xr.Dataset, role: str, variables: Mapping[str, str]) -> str | None:
+    names = WEATHER_ROLES[role]
+    found = next((str(k) for k, v in ds.data_vars.items() if v.attrs.get("standard_name") in names), None)
+    if found is None and variables.get(role) in ds.data_vars:
+        found = variables[role]
+    return found
 
 
 def check_weather(
@@ -219,6 +297,9 @@ def check_weather(
             file=files[0],
         )
         out += grid_extent_results(ds, zones, section="weather", file=files[0])
+        temp = _role_variable(ds, "air_temperature", src.variables)
+        if temp is not None:
+            out += grid_data_results(ds, zones, variable=temp, section="weather", file=files[0])
     period = _scan_times(files, "time")
     if period is None:
         out.append(failed("weather period", "no readable time coordinate in the weather files", "add a CF time axis"))
@@ -266,7 +347,8 @@ def check_forecast(
             out.append(
                 passed(
                     "forecast axes",
-                    f"issue time {ref.name!r}, lead {lead.name!r} with {lead.size} steps up to {_lead(lead.values.max())}",
+                    f"issue time {ref.name!r}, lead {lead.name!r} with {lead.size} steps "
+                    f"up to {_lead(lead.values.max())}",
                 )
             )
         out += weather_variables(

@@ -75,7 +75,7 @@ def check_network(
     lake_id
         Downstream id meaning "drains into the lake".
     outside_ids
-        Downstream ids meaning "drains out of the area".
+        Downstream ids meaning "drains out of the area" (case-insensitive).
     direct_inflows
         Sub-basins listed by hand as draining directly into the lake.
 
@@ -92,7 +92,7 @@ def check_network(
     if dups:
         problems.append(f"duplicate sub-basin ids: {_short(dups)}")
     known = set(sid)
-    outside = {str(o) for o in outside_ids}
+    outside = {str(o).strip().upper() for o in outside_ids}
     graph = nx.DiGraph()
     graph.add_nodes_from([LAKE_NODE, OUTSIDE_NODE])
     graph.add_nodes_from(sid)
@@ -106,7 +106,7 @@ def check_network(
             graph.add_edge(i, d)
         elif lake_id is not None and d == str(lake_id):
             graph.add_edge(i, LAKE_NODE)
-        elif d in outside:
+        elif d.upper() in outside:
             graph.add_edge(i, OUTSIDE_NODE)
         else:
             dangling.setdefault(d, []).append(i)
@@ -125,10 +125,12 @@ def check_network(
     loops = sorted(str(u) for u, _ in nx.selfloop_edges(graph))
     if loops:
         problems.append(f"sub-basin(s) draining into themselves: {_short(loops)}")
-    for comp in nx.strongly_connected_components(graph):
-        if len(comp) > 1:
-            cycle = [str(u) for u, _ in nx.find_cycle(graph.subgraph(comp))]
-            problems.append(f"cycle in the sub-basin network: {' -> '.join([*cycle, cycle[0]])}")
+    comps = sorted(sorted(map(str, c)) for c in nx.strongly_connected_components(graph) if len(c) > 1)
+    for comp in comps:
+        cycle = [str(u) for u, _ in nx.find_cycle(graph.subgraph(comp), source=comp[0])]
+        start = cycle.index(min(cycle))  # start at the smallest id, so the message is stable
+        cycle = cycle[start:] + cycle[:start]
+        problems.append(f"cycle in the sub-basin network: {' -> '.join([*cycle, cycle[0]])}")
     direct = sorted(str(u) for u in graph.predecessors(LAKE_NODE))
     catchment = sorted(str(u) for u in nx.ancestors(graph, LAKE_NODE))
     out = sorted(str(u) for u in nx.ancestors(graph, OUTSIDE_NODE) if u != LAKE_NODE)

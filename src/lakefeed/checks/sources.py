@@ -137,7 +137,9 @@ def _tables(src: HydrologySource, roles: list[str], required: Sequence[str]) -> 
         try:
             frame = pd.read_parquet(p, columns=cols) if p.suffix == ".parquet" else pd.read_csv(p, usecols=cols)
         except (ValueError, KeyError) as err:
-            return [failed("hydrology file", f"{p.name}: {err}", "a long table needs date, subbasin, variable, value")], None
+            return [
+                failed("hydrology file", f"{p.name}: {err}", "a long table needs date, subbasin, variable, value")
+            ], None
         out.append(passed("hydrology file", f"{p.name}: {len(frame)} rows"))
         out.append(_ids_result("hydrology ids", frame["subbasin"].astype(str).unique().tolist(), required, p.name))
         have = set(frame["variable"].astype(str))
@@ -184,10 +186,10 @@ def check_samples(
             continue
         cols = [str(c) for c in pd.read_csv(p, nrows=0).columns]
         values = set(cols) - {"date", "censored"}
-        if "date" not in cols or not ({"concentration", "nutrient"} <= values or values - {"concentration", "nutrient"}):
-            out.append(
-                failed(name, f"{p.name}: needs 'date' and 'concentration' + 'nutrient' columns; has {cols}", "")
-            )
+        if "date" not in cols or not (
+            {"concentration", "nutrient"} <= values or values - {"concentration", "nutrient"}
+        ):
+            out.append(failed(name, f"{p.name}: needs 'date' and 'concentration' + 'nutrient' columns; has {cols}", ""))
             continue
         dates = pd.read_csv(p, usecols=["date"])["date"].to_numpy()
         per = time_period(dates)
@@ -262,7 +264,9 @@ def check_scenes(src: SceneSource | None, lake: LakeConfig) -> tuple[list[CheckR
         cat = pystac.read_file(str(path))
         items = list(cat.get_items(recursive=True)) if hasattr(cat, "get_items") else [cat]
     except Exception as err:
-        return [failed("scene catalogue", f"{path.name}: not a readable STAC file: {err}", "validate it with pystac")], None
+        return [
+            failed("scene catalogue", f"{path.name}: not a readable STAC file: {err}", "validate it with pystac")
+        ], None
     if not items:
         return [failed("scene catalogue", f"{path.name}: no STAC items found", "link the scene items")], None
     out = [passed("scene catalogue", f"{path.name}: {len(items)} items")]
@@ -298,7 +302,9 @@ def check_scenes(src: SceneSource | None, lake: LakeConfig) -> tuple[list[CheckR
             opt = [k for k in (src.quality_asset, src.uncertainty_asset) if k and k not in first.assets]
             line = f"data asset of {first.id!r} found"
             out.append(
-                warned("scene assets", f"{line}; missing optional asset(s) {opt}", "") if opt else passed("scene assets", line)
+                warned("scene assets", f"{line}; missing optional asset(s) {opt}", "")
+                if opt
+                else passed("scene assets", line)
             )
     times = [it.datetime for it in items if it.datetime is not None]
     return out, time_period(np.array([pd.Timestamp(t) for t in times])) if times else None

@@ -22,7 +22,7 @@ from rich.table import Table
 
 from lakefeed.cli._app import app, console, err_console
 from lakefeed.exceptions import ExtractError, LakefeedWarning, SourceError
-from lakefeed.extract.load_estimation import METHODS, LoadEstimate, compare_methods
+from lakefeed.extract.load_estimation import METHODS, LoadEstimate, align, compare_methods
 from lakefeed.sources.samples import read_flow, read_samples
 
 __all__ = ["loads", "to_output_frame"]
@@ -52,7 +52,9 @@ def loads(
     method: str = typer.Option("rating_curve", "--method", help=f"Method written by --out: {', '.join(METHODS)}."),
     out: Path | None = typer.Option(None, "--out", help="Write the chosen method's loads (.csv or .parquet)."),
     nutrient: str | None = typer.Option(None, "--nutrient", help="Which nutrient, when the samples hold several."),
-    period: str = typer.Option("year", "--period", help="Period rows of period estimators: year or record."),
+    period: str = typer.Option(
+        "record", "--period", help="Periods of the period estimators (Beale, fwmc): the whole record or each year."
+    ),
     seasonal: bool = typer.Option(False, "--seasonal", help="Rating curve: add seasonal sine/cosine terms."),
     trend: bool = typer.Option(False, "--trend", help="Rating curve: add a linear trend term."),
     units: str = typer.Option("mg L-1", "--units", help="Unit of the sample concentrations."),
@@ -62,6 +64,8 @@ def loads(
     Censored samples (below detection; the value is the detection limit) count as half the limit.
     Duplicate sample dates are averaged (with a warning); samples outside the flow record are an error.
     """
+    if period not in ("year", "record"):
+        raise ExtractError(f"--period {period!r} is unknown; choose 'record' or 'year'")
     if method not in METHODS:
         raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHODS)}")
     with warnings.catch_warnings(record=True) as caught:
@@ -77,6 +81,7 @@ def loads(
     part = table[table["nutrient"] == chosen]
     if part.empty:
         raise SourceError(f"samples {samples}: no samples of nutrient {chosen!r}; nutrients are {names}")
+    align(part, q, where=f"samples {samples}")  # input errors (e.g. samples outside the flow record) stop here
     results = compare_methods(part, q, period=period, seasonal=seasonal, trend=trend)
     title = (
         f"Loads from {len(part)} samples and {len(q)} days of flow "

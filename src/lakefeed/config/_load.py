@@ -236,28 +236,35 @@ def load_project(lake_path: str | Path) -> Project:
     return Project(lake=lake, sources=sources, lake_file=lake_path, sources_file=Path(lake.sources))
 
 
+def _looks_like_lake_config(path: Path) -> bool:
+    if path.name.lower().startswith("lake"):
+        return True
+    try:
+        data = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except (yaml.YAMLError, OSError, UnicodeDecodeError):
+        return False
+    if not isinstance(data, dict):
+        return False
+    keys = set(map(str, data))
+    return "id" in keys or len(keys & set(LakeConfig.model_fields)) >= 2
+
+
 def find_lake_files(paths: list[str | Path]) -> list[Path]:
     """Lake config files among ``paths`` (files, or folders searched for ``*.yaml``/``*.yml``).
 
-    In a folder, a YAML file is taken as a lake config unless all its top-level keys are keys
-    of the sources config (so a misspelt lake file is still checked and its problems shown).
-    Files named directly are always taken, even if missing (the loader then reports that).
+    In a folder, a YAML file is taken as a lake config when its name starts with ``lake``
+    (``lake-<id>.yaml``, checked even if broken, so its problems are shown), or when its top
+    level has an ``id`` key or at least two lake config keys. Sources files and other YAML
+    files are left alone. Files named directly are always taken, even if missing (the loader
+    then reports that).
     """
-    source_keys = set(SourcesConfig.model_fields)
     files: list[Path] = []
     for p in map(Path, paths):
         if not p.is_dir():
             files.append(p)
             continue
-        for f in sorted([*p.glob("*.yaml"), *p.glob("*.yml")]):
-            try:
-                data = yaml.safe_load(f.read_text(encoding="utf-8"))
-            except (yaml.YAMLError, OSError, UnicodeDecodeError):
-                files.append(f)
-                continue
-            if isinstance(data, dict) and data and set(data) <= source_keys:
-                continue
-            files.append(f)
+        found = sorted({*p.glob("*.yaml"), *p.glob("*.yml")})
+        files += [f for f in found if _looks_like_lake_config(f)]
     return files
 
 

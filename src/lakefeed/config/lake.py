@@ -25,10 +25,11 @@ class SubbasinLayer(LayerRef):
 
     ``lake_id``: the id used in ``downstream_field`` for "drains into the lake" (if any).
     ``direct_inflows``: ids listed by hand as draining directly into the lake (optional).
-    ``outside_ids``: downstream ids that mean "drains out of the area, not into the lake"
-    (default ``["OUTSIDE"]``, the sample scenario's convention). Empty downstream values
-    always mean that. Any other downstream id that is not a sub-basin id is a dangling
-    reference (an error).
+    ``outside_ids``: downstream ids that mean "drains out of the area, not into the lake",
+    compared case-insensitively (default ``0, -1, NONE, NAN, OUTSIDE``: common practice, the
+    same as :data:`lakefeed.geometry.network.DEFAULT_OUTSIDE_IDS`). Empty downstream values
+    always mean that. Any other downstream id that is not a sub-basin id (nor the lake's) is
+    a dangling reference (an error).
     ``outlet_field``: optional field with outlet point WKT; else outlets are not used.
     """
 
@@ -36,7 +37,7 @@ class SubbasinLayer(LayerRef):
     downstream_field: str = "downstream_id"
     lake_id: str | None = None
     direct_inflows: list[str] | None = None
-    outside_ids: list[str] = Field(default_factory=lambda: ["OUTSIDE"])
+    outside_ids: list[str] = Field(default_factory=lambda: ["0", "-1", "NONE", "NAN", "OUTSIDE"])
 
 
 class ZoneOptions(StrictModel):

@@ -164,15 +164,16 @@ def to_daily(
     ratio = cols["shortwave_radiation_mean"] / cols["clear_sky_radiation"].where(cols["clear_sky_radiation"] > 0)
     cols["radiation_ratio"] = ratio
 
-    frame = xr.Dataset(cols).transpose("date", "zone").to_dataframe().reset_index()
-    inc = incomplete.transpose("date", "zone").values.ravel()
-    high = (ratio > RADIATION_SUSPECT_RATIO).transpose("date", "zone").values.ravel()
+    inc = incomplete.transpose("date", "zone").values
+    high = (ratio > RADIATION_SUSPECT_RATIO).transpose("date", "zone").values
     flags = np.where(inc, "missing_hours;", "").astype(object) + np.where(high, "radiation_above_clear_sky;", "")
-    for z, extra in (zone_flags or {}).items():
+    for k, z in enumerate(zones):
+        extra = (zone_flags or {}).get(z) or ()
         if extra:
-            sel = (frame["zone"] == z).to_numpy()
-            flags[sel] = flags[sel] + "".join(f"{f};" for f in extra)
-    frame["flags"] = pd.Series(flags, index=frame.index).str.rstrip(";")
+            flags[:, k] = flags[:, k] + "".join(f"{f};" for f in extra)
+    ds = xr.Dataset(cols).transpose("date", "zone")
+    frame = ds.to_dataframe(dim_order=["date", "zone"]).reset_index()
+    frame["flags"] = pd.Series(flags.ravel(), index=frame.index).str.rstrip(";")
     frame["date"] = pd.to_datetime(frame["date"])
     frame = frame[DAILY_COLUMNS].sort_values(["zone", "date"], kind="stable").reset_index(drop=True)
     return frame

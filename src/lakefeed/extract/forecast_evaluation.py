@@ -11,6 +11,7 @@ Two honest schemes, so that no evaluated forecast is adjusted with a fit that sa
   issued before R, and only reanalysis before R), and adjusts the forecasts issued from R to the next
   refit. The adjusted value of an issue dated t therefore uses no reanalysis after t (no look-ahead).
   Issues before the first refit with ``min_overlap_days`` of overlap stay unadjusted (NaN), counted.
+  Issues after the last reanalysis date use one fit on the whole overlap (the table stored for reuse).
 - :func:`leave_one_year_out`: for every issue year, fit on the other years' forecasts (needs two years).
 
 :func:`bias_table` gives per variable and lead the mean bias (forecast - reanalysis, in the variable's
@@ -100,6 +101,10 @@ def expanding_adjustment(
     if refit not in ("month", "year"):
         raise ExtractError(f"refit must be 'month' or 'year'; got {refit!r}")
     starts = pd.DatetimeIndex(issue.to_period("M" if refit == "month" else "Y").start_time)
+    if len(reference):
+        # issues after the end of the reanalysis all use the fit on the whole overlap (the operational case)
+        after_end = pd.Timestamp(pd.to_datetime(reference["date"]).max()) + pd.Timedelta(days=1)
+        starts = starts.where(starts <= after_end, after_end)
     out = forecast.copy()
     for v in variables:
         out[v] = np.nan

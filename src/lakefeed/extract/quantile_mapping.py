@@ -56,6 +56,7 @@ WET_DAY_VARIABLES: tuple[str, ...] = ("precipitation_sum",)
 
 Season = Literal["month", "doy", "none"]
 KEYS = ["variable", "zone", "lead_min", "lead_max", "season"]
+_TABLE_NUMBERS = ("quantile", "hist", "ref", "factor", "wet_threshold", "dry_fraction_hist", "dry_fraction_ref")
 
 
 def quantile_nodes(n: int) -> np.ndarray:
@@ -214,6 +215,19 @@ def fit_quantile_mapping(
     return table
 
 
+def _group_quantiles(values: np.ndarray, group: np.ndarray, n: np.ndarray, nodes: np.ndarray) -> np.ndarray:
+    """Type-7 (linear) quantiles of ``values`` per group code (0..len(n)-1): (groups, nodes)."""
+    order = np.lexsort((values, group))
+    srt = values[order]
+    start = np.concatenate([[0], np.cumsum(n)[:-1]])
+    pos = nodes[None, :] * (n[:, None] - 1)
+    lo = np.floor(pos).astype(np.int64)
+    frac = pos - lo
+    hi = np.minimum(lo + 1, n[:, None] - 1)
+    a, b = srt[start[:, None] + lo], srt[start[:, None] + hi]
+    return a + (b - a) * frac
+
+
 def _fit_one(
     frame: pd.DataFrame,
     var: str,
@@ -226,42 +240,50 @@ def _fit_one(
 ) -> pd.DataFrame:
     keys = ["zone", "lead_min", "lead_max", "season"]
     sub = frame[[*keys, var, f"{var}__ref"]].dropna()
-    hist = sub[var].to_numpy(float)
-    ref = sub[f"{var}__ref"].to_numpy(float)
+    grouped = sub.groupby(keys, sort=True)
+    code = grouped.ngroup().to_numpy()
+    counts = grouped.size()
+    keep = (counts >= min_values).to_numpy()
+    if not keep.any():
+        return pd.DataFrame(columns=["variable", *keys, "quantile", "hist", "ref", "factor"])
+    # renumber the kept groups 0..k-1 and drop the others
+    new = np.full(keep.size, -1)
+    new[keep] = np.arange(keep.sum())
+    code = new[code]
+    use = code >= 0
+    code = code[use]
+    hist = sub[var].to_numpy(float)[use]
+    ref = sub[f"{var}__ref"].to_numpy(float)[use]
     if threshold is not None:
         ref = np.where(ref < threshold, 0.0, ref)
-    sub = sub.assign(hist=hist, ref=ref, hdry=hist < (threshold or -np.inf), rdry=ref < (threshold or -np.inf))
-    grouped = sub.groupby(keys, sort=True)
-    counts = grouped.size().rename("n_values")
-    counts = counts[counts >= min_values]
-    if counts.empty:
-        return pd.DataFrame(columns=["variable", *keys, "quantile", "hist", "ref", "factor"])
-    sub = sub.set_index(keys).loc[counts.index].reset_index()
-    grouped = sub.groupby(keys, sort=True)
-    # pandas' grouped quantile interpolates linearly (Hyndman & Fan type 7, as numpy and xsdba)
-    hq = grouped["hist"].quantile(list(nodes)).rename("hist")
-    rq = grouped["ref"].quantile(list(nodes)).rename("ref")
-    out = pd.concat([hq, rq], axis=1).reset_index().rename(columns={f"level_{len(keys)}": "quantile"})
-    fractions = (
-        grouped[["hdry", "rdry"]].mean().rename(columns={"hdry": "dry_fraction_hist", "rdry": "dry_fraction_ref"})
-    )
-    out = out.merge(counts.reset_index(), on=keys).merge(fractions.reset_index(), on=keys)
-    h, r = out["hist"].to_numpy(), out["ref"].to_numpy()
+    n = counts.to_numpy()[keep]
+    hq = _group_quantiles(hist, code, n, nodes)
+    rq = _group_quantiles(ref, code, n, nodes)
+    if threshold is not None:
+        p0h = np.bincount(code, weights=(hist < threshold).astype(float)) / n
+        p0r = np.bincount(code, weights=(ref < threshold).astype(float)) / n
+    else:
+        p0h = p0r = np.full(n.size, np.nan)
     if kind == "+":
-        factor = r - h
+        factor = rq - hq
     else:
         floor = threshold if threshold is not None else 0.0
         with np.errstate(divide="ignore", invalid="ignore"):
-            factor = np.where((h > 0) & (h >= floor), r / h, np.nan)
+            factor = np.where((hq > 0) & (hq >= floor), rq / hq, np.nan)
         factor = np.minimum(factor, max_factor)
-    out["factor"] = factor
+    nq = nodes.size
+    key_frame = counts.reset_index(name="n_values").loc[keep].reset_index(drop=True)
+    out = key_frame.loc[np.repeat(np.arange(len(key_frame)), nq)].reset_index(drop=True)
     out.insert(0, "variable", var)
+    out.insert(len(keys) + 1, "quantile", np.tile(nodes, len(key_frame)))
+    out.insert(len(keys) + 2, "hist", hq.ravel())
+    out.insert(len(keys) + 3, "ref", rq.ravel())
+    out["dry_fraction_hist"] = np.repeat(p0h, nq)
+    out["dry_fraction_ref"] = np.repeat(p0r, nq)
+    out["factor"] = factor.ravel()
     out["kind"] = kind
     out["wet_threshold"] = np.nan if threshold is None else threshold
     out["max_factor"] = max_factor
-    if threshold is None:
-        out["dry_fraction_hist"] = np.nan
-        out["dry_fraction_ref"] = np.nan
     return out
 
 
@@ -277,14 +299,10 @@ def _row_uniform(zone: np.ndarray, date: pd.Series, lead: np.ndarray) -> np.ndar
     return (x >> np.uint64(11)).astype(np.float64) / float(2**53)
 
 
-def _adjust_group(x: np.ndarray, u: np.ndarray, tab: pd.DataFrame) -> np.ndarray:
-    """Adjust the values ``x`` of one group with its quantile table rows (sorted by quantile)."""
-    p = tab["quantile"].to_numpy(float)
-    hq = tab["hist"].to_numpy(float)
-    rq = tab["ref"].to_numpy(float)
-    af = tab["factor"].to_numpy(float)
-    kind = tab["kind"].iat[0]
-    thr = tab["wet_threshold"].iat[0]
+def _adjust_group(x: np.ndarray, u: np.ndarray, tab: Mapping[str, np.ndarray], kind: str) -> np.ndarray:
+    """Adjust the values ``x`` of one group with its quantile table columns (sorted by quantile)."""
+    p, hq, rq, af = tab["quantile"], tab["hist"], tab["ref"], tab["factor"]
+    thr = tab["wet_threshold"][0]
     out = np.full_like(x, np.nan)
     ok = ~np.isnan(x)
     if kind == "+":
@@ -300,18 +318,20 @@ def _adjust_group(x: np.ndarray, u: np.ndarray, tab: pd.DataFrame) -> np.ndarray
     wet = ok & (x >= thr)
     out[wet] = x[wet] * np.interp(x[wet], hq[wet_knot], af[wet_knot])
     dry = ok & ~wet
-    p0h, p0r = tab["dry_fraction_hist"].iat[0], tab["dry_fraction_ref"].iat[0]
+    p0h, p0r = tab["dry_fraction_hist"][0], tab["dry_fraction_ref"][0]
     out[dry] = 0.0
     if p0h > p0r and dry.any():
         # Themessl et al. (2012): rank the dry forecast day within the forecasts' dry share ...
         dknot = ~wet_knot
-        pk, hk = np.concatenate([[0.0], p[dknot]]), np.concatenate([[hq[dknot].min()], hq[dknot]])
-        rank = np.interp(x[dry], hk, pk)
-        # ... where sub-threshold values tie with the lowest knot (e.g. exact zeros) use the row's uniform
-        above = p[dknot][hq[dknot] > hk[0]]
-        tied_top = above.min() if above.size else p0h  # upper end of the probability the tie occupies
-        tied = x[dry] <= hk[0]
-        rank = np.where(tied, u[dry] * tied_top, rank)
+        if dknot.any():
+            lowest = hq[dknot].min()
+            rank = np.interp(x[dry], np.concatenate([[lowest], hq[dknot]]), np.concatenate([[0.0], p[dknot]]))
+            # ... where sub-threshold values tie with the lowest knot (e.g. exact zeros) use the row's uniform
+            above = p[dknot][hq[dknot] > lowest]
+            tied_top = above.min() if above.size else p0h  # upper end of the probability the tie occupies
+            rank = np.where(x[dry] <= lowest, u[dry] * tied_top, rank)
+        else:
+            rank = u[dry] * p0h
         uu = np.minimum(rank, p0h)
         value = np.interp(uu, p, rq)
         out[dry] = np.where(uu > p0r, np.maximum(value, thr), 0.0)
@@ -366,8 +386,10 @@ def apply_quantile_mapping(
     fallback, unadjusted = {}, {}
     group_keys = ["zone", "lead_min", "lead_max", "season"]
     for var in variables:
-        tv = table[table["variable"] == var]
-        tabs = {k: g for k, g in tv.sort_values("quantile").groupby(group_keys, sort=False)}
+        tv = table[table["variable"] == var].sort_values([*group_keys, "quantile"], kind="stable")
+        cols = {c: tv[c].to_numpy(float) for c in _TABLE_NUMBERS}
+        where = tv.groupby(group_keys, sort=False).indices
+        kind = str(tv["kind"].iat[0]) if len(tv) else "+"
         fitted = tv[group_keys].drop_duplicates().assign(_fit=True)
         keys = keyframe.merge(fitted, on=group_keys, how="left")
         use_pooled = keys["_fit"].isna().to_numpy() & (season != "none")
@@ -377,10 +399,11 @@ def apply_quantile_mapping(
         result = np.full_like(x, np.nan)
         done = np.zeros(len(x), dtype=bool)
         for key, pos in keys.groupby(group_keys, sort=False).indices.items():
-            tab = tabs.get(key)
-            if tab is None:
+            rows = where.get(key)
+            if rows is None:
                 continue
-            result[pos] = _adjust_group(x[pos], u[pos], tab)
+            tab = {c: v[rows] for c, v in cols.items()}
+            result[pos] = _adjust_group(x[pos], u[pos], tab, kind)
             done[pos] = True
         unadjusted[var] = int((~done & ~np.isnan(x)).sum())
         out[var] = result

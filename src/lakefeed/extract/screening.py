@@ -10,11 +10,11 @@ fraction of the AOI reaches ``min_valid_fraction`` (default 0.5), at least ``min
 valid, and the coefficient of variation does not exceed ``max_cv``. A too-heterogeneous AOI (cv above
 the limit) is rejected with its reason, so it can be found and re-admitted by the user.
 
-Outliers: a Hampel filter on ln(median) over a centred time window: a value is an outlier when
-``|x - m| > threshold * 1.4826 * MAD``, ``m`` and ``MAD`` being the median and the median absolute
-deviation of the accepted values of the same AOI and sensor within ``window_days`` (the value itself
-included; at least ``min_points`` values in the window, else never flagged); the robust standard
-deviation ``1.4826 * MAD`` is floored at ``min_scale`` (0.1 in ln units by default, lakefeed's choice). Sensors are screened
+Outliers: a leave-one-out Hampel filter (rolling median / MAD) on ln(median) over a centred time
+window: a value is an outlier when ``|x - m| > threshold * max(1.4826 * MAD, min_scale)``, ``m`` and
+``MAD`` being the median and the median absolute deviation of the OTHER accepted values of the same AOI
+and sensor within ``window_days`` (at least ``min_points`` of them, else never flagged); ``min_scale``
+is 0.2 in ln units by default (lakefeed's choice: real day-to-day changes of 20 % are common). Sensors are screened
 separately because their biases differ before harmonisation.
 """
 
@@ -68,10 +68,15 @@ def hampel(
     *,
     window_days: float,
     threshold: float,
-    min_points: int = 5,
+    min_points: int = 3,
     min_scale: float = 0.0,
 ) -> np.ndarray:
-    """Hampel outlier flags of one irregular series (vectorised).
+    """Outlier flags of one irregular series by a leave-one-out Hampel filter (vectorised).
+
+    For each value, ``m`` and ``MAD`` are the median and the median absolute deviation of the OTHER
+    finite values within the centred window; the value is an outlier when
+    ``|x - m| > threshold * max(1.4826 * MAD, min_scale)``. Leaving the value out keeps a spike from
+    widening its own yardstick, which matters on sparse satellite series.
 
     Parameters
     ----------
@@ -82,12 +87,12 @@ def hampel(
     window_days
         Full width of the centred window (days).
     threshold
-        Multiple of the robust standard deviation (1.4826 MAD) beyond which a value is an outlier.
+        Multiple of the robust standard deviation beyond which a value is an outlier.
     min_points
-        Minimum number of finite values in a window for a decision.
+        Minimum number of other finite values in the window for a decision.
     min_scale
         Floor of the robust standard deviation (units of ``values``): small windows can give a tiny MAD
-        by chance, which would flag ordinary noise.
+        by chance, which would flag ordinary variability.
     """
     t = np.asarray(days, dtype=np.float64)
     x = np.asarray(values, dtype=np.float64)
@@ -98,15 +103,15 @@ def hampel(
     hi = np.searchsorted(t, t + half, side="right")
     width = int((hi - lo).max())
     idx = lo[:, None] + np.arange(width)[None, :]
-    inside = idx < hi[:, None]
-    win = np.where(inside, x[np.minimum(idx, t.size - 1)], np.nan)
+    others = (idx < hi[:, None]) & (idx != np.arange(t.size)[:, None])
+    win = np.where(others, x[np.minimum(idx, t.size - 1)], np.nan)
     count = np.isfinite(win).sum(axis=1)
     with np.errstate(all="ignore"), warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN windows
+        warnings.simplefilter("ignore", RuntimeWarning)  # windows without other values
         med = np.nanmedian(win, axis=1)
         mad = np.nanmedian(np.abs(win - med[:, None]), axis=1)
-        dev = np.abs(x - med)
         scale = np.maximum(MAD_TO_SIGMA * mad, min_scale)
+        dev = np.abs(x - med)
         return (count >= min_points) & (scale > 0) & (dev > threshold * scale)
 
 
@@ -115,16 +120,16 @@ def flag_outliers(
     *,
     window_days: float = 31,
     threshold: float = 3.5,
-    min_points: int = 5,
-    min_scale: float = 0.1,
+    min_points: int = 3,
+    min_scale: float = 0.2,
     value: str = "median",
     by: tuple[str, ...] = ("aoi", "sensor"),
 ) -> pd.Series:
     """Outlier flags (bool Series aligned with ``obs``) for the accepted rows, per AOI and sensor.
 
     The filter works on ln(``value``) (chlorophyll-a is roughly log-normal; common practice) over
-    ``time``; rows not accepted are never flagged. ``min_scale`` (default 0.1 in ln units, i.e. about
-    10 %) floors the robust standard deviation, lakefeed's choice. See :func:`hampel`.
+    ``time``; rows not accepted are never flagged. ``min_scale`` (default 0.2 in ln units, about 20 %,
+    lakefeed's choice) floors the robust standard deviation. See :func:`hampel`.
     """
     flags = pd.Series(False, index=obs.index)
     ok = obs["accepted"].astype(bool) & (obs[value] > 0)

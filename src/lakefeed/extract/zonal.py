@@ -5,7 +5,9 @@ were built for (numpy- or dask-backed) and a :class:`lakefeed.geometry.weights.Z
 Returns an ``xarray.Dataset`` with ``mean`` and ``valid_fraction`` (dims time, zone). The
 sparse weight matrix is applied to each time chunk of the array (``dask.array.map_blocks``):
 the grid is read once, for every zone at once, and memory depends on the chunk size, not the
-record length. Only the window of cells that carries weight is read.
+record length. Only the window of cells that carries weight is read. A CF-packed variable
+opened undecoded (attributes ``scale_factor``/``add_offset``/``_FillValue`` still present) is
+decoded inside each block for the weighted cells only: exact, as the weighted mean is linear.
 
 NaN cells are left out and the remaining weights renormalised at every time step; the valid
 covered-area fraction of each zone and step is ``valid_fraction`` (0..1; multiply by the
@@ -27,7 +29,7 @@ import xarray as xr
 from lakefeed.exceptions import ExtractError
 from lakefeed.geometry.weights import ZoneWeights
 
-__all__ = ["apply_weights", "zonal_mean", "zonal_means"]
+__all__ = ["PACKING_ATTRS", "apply_weights", "packing_of", "zonal_mean", "zonal_means"]
 
 
 #: Above this many (cells x zones) entries the weights are applied as a sparse matrix, else dense BLAS.
@@ -44,8 +46,25 @@ def _prepare(weights_t: sp.csr_matrix) -> tuple[np.ndarray, np.ndarray | sp.csr_
     return cols, dense, total
 
 
+#: CF packing attributes (present when a grid was opened without decoding; see sources.grids).
+PACKING_ATTRS = ("scale_factor", "add_offset", "_FillValue", "missing_value")
+
+
+def packing_of(attrs: dict) -> tuple[float, float, tuple[float, ...]] | None:
+    """(scale, offset, fill values) of an undecoded CF-packed variable, or None when decoded."""
+    if not any(k in attrs for k in PACKING_ATTRS):
+        return None
+    fills = []
+    for k in ("_FillValue", "missing_value"):
+        if k in attrs:
+            fills.extend(np.atleast_1d(attrs[k]).astype(float).tolist())
+    return float(attrs.get("scale_factor", 1.0)), float(attrs.get("add_offset", 0.0)), tuple(fills)
+
+
 def apply_weights(
-    block: np.ndarray, weights_t: sp.csr_matrix | tuple[np.ndarray, np.ndarray | sp.csr_matrix, np.ndarray]
+    block: np.ndarray,
+    weights_t: sp.csr_matrix | tuple[np.ndarray, np.ndarray | sp.csr_matrix, np.ndarray],
+    packing: tuple[float, float, tuple[float, ...]] | None = None,
 ) -> np.ndarray:
     """Weighted means and valid fractions of one (time, cells...) block.
 
@@ -55,14 +74,26 @@ def apply_weights(
         Array (n_time, ...) whose trailing dims flatten to the cells of ``weights_t``.
     weights_t
         Sparse (cells x zones) weight matrix (transposed zone weights), or its prepared form.
+    packing
+        (scale, offset, fill values) when ``block`` holds undecoded CF-packed values: only the
+        weighted cells are decoded (the weighted mean is linear, so this is exact).
 
     Returns
     -------
-    ndarray (n_time, 2 * n_zones): means in the block's units, then valid fractions (0..1).
+    ndarray (n_time, 2 * n_zones): means in the block's (decoded) units, then valid fractions (0..1).
     """
     cols, w, total = weights_t if isinstance(weights_t, tuple) else _prepare(weights_t)
     nt = block.shape[0]
     x = np.asarray(block).reshape(nt, -1)[:, cols]
+    if packing is not None:
+        scale, offset, fills = packing
+        bad = np.isin(x, fills) if fills else np.zeros(x.shape, bool)
+        x = x.astype(np.float64)
+        if scale != 1.0:
+            x *= scale
+        if offset != 0.0:
+            x += offset
+        x[bad] = np.nan
     nan = np.isnan(x)
     if nan.any():
         num = np.asarray(np.where(nan, 0.0, x) @ w)
@@ -110,6 +141,8 @@ def zonal_mean(data: xr.DataArray, weights: ZoneWeights, *, time_dim: str = "tim
     sub = data.isel({ydim: window[0], xdim: window[1]})
     wt = _prepare(weights.restrict(window).T.tocsr())
     nz = len(weights.zones)
+    packing = packing_of(data.attrs)
+    attrs = {k: v for k, v in data.attrs.items() if k not in PACKING_ATTRS}
     arr = sub.data
     if isinstance(arr, da.Array):
         arr = arr.rechunk({1: -1, 2: -1})
@@ -117,6 +150,7 @@ def zonal_mean(data: xr.DataArray, weights: ZoneWeights, *, time_dim: str = "tim
             apply_weights,
             arr,
             wt,
+            packing,
             drop_axis=[1, 2],
             new_axis=[1],
             chunks=(arr.chunks[0], (2 * nz,)),
@@ -124,9 +158,9 @@ def zonal_mean(data: xr.DataArray, weights: ZoneWeights, *, time_dim: str = "tim
             meta=np.empty((0, 0), dtype=np.float64),
         )
     else:
-        out = apply_weights(np.asarray(arr), wt)
+        out = apply_weights(np.asarray(arr), wt, packing)
     coords = {time_dim: data[time_dim], "zone": list(weights.zones)}
-    mean = xr.DataArray(out[:, :nz], dims=(time_dim, "zone"), coords=coords, attrs=dict(data.attrs))
+    mean = xr.DataArray(out[:, :nz], dims=(time_dim, "zone"), coords=coords, attrs=attrs)
     frac = xr.DataArray(out[:, nz:], dims=(time_dim, "zone"), coords=coords, attrs={"units": "1"})
     return xr.Dataset({"mean": mean, "valid_fraction": frac})
 

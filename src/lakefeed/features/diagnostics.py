@@ -19,12 +19,21 @@ import json
 import numpy as np
 import pandas as pd
 
+from lakefeed.features.windows import as_dates
+
 __all__ = ["GAP_BINS", "SEASONS", "sampling_diagnostics"]
 
 #: Meteorological seasons by month (northern-hemisphere names; the months are what counts).
 SEASONS = {"djf": (12, 1, 2), "mam": (3, 4, 5), "jja": (6, 7, 8), "son": (9, 10, 11)}
 #: Gap-length classes in days (between consecutive observation dates): lower, upper inclusive.
-GAP_BINS = {"1d": (1, 1), "2_5d": (2, 5), "6_10d": (6, 10), "11_30d": (11, 30), "31_90d": (31, 90), "over_90d": (91, None)}
+GAP_BINS = {
+    "1d": (1, 1),
+    "2_5d": (2, 5),
+    "6_10d": (6, 10),
+    "11_30d": (11, 30),
+    "31_90d": (31, 90),
+    "over_90d": (91, None),
+}
 
 
 def _one(days: np.ndarray, start: np.datetime64 | None, end: np.datetime64 | None, min_obs: int, share: float) -> dict:
@@ -68,7 +77,9 @@ def _one(days: np.ndarray, start: np.datetime64 | None, end: np.datetime64 | Non
     row["warn_season_under_represented"] = bool(low)
     if low:
         warns.append(
-            "season(s) " + ", ".join(f"{s.upper()} ({shares[s]:.0%})" for s in low) + f" under-represented (< {share:.0%})"
+            "season(s) "
+            + ", ".join(f"{s.upper()} ({shares[s]:.0%})" for s in low)
+            + f" under-represented (< {share:.0%})"
         )
     row["warnings"] = "; ".join(warns)
     return row
@@ -112,7 +123,7 @@ def sampling_diagnostics(
     start = np.datetime64(pd.Timestamp(record[0])) if record and record[0] is not None else None
     end = np.datetime64(pd.Timestamp(record[1])) if record and record[1] is not None else None
     rows = []
-    days_all = pd.to_datetime(obs["date"]).to_numpy().astype("datetime64[D]")
+    days_all = as_dates(obs["date"]).to_numpy().astype("datetime64[D]")
     keys = obs[by].astype(str).to_numpy()
     for g in sorted(set(keys)):
         row = {by: g}

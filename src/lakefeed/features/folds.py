@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.exceptions import FeatureError
+from lakefeed.features.windows import as_dates
 
 __all__ = ["EMBARGOED", "assign_folds", "blocked_folds", "random_folds"]
 
@@ -28,7 +29,7 @@ EMBARGOED = -1
 
 
 def _days(dates: Sequence[object] | pd.DatetimeIndex) -> np.ndarray:
-    return pd.DatetimeIndex(pd.to_datetime(dates)).to_numpy().astype("datetime64[D]").astype(np.int64)
+    return as_dates(dates).to_numpy().astype("datetime64[D]").astype(np.int64)
 
 
 def blocked_folds(dates: Sequence[object] | pd.DatetimeIndex, *, k: int = 5, embargo_days: int = 0) -> np.ndarray:

@@ -20,13 +20,14 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.features.pit import build_feature_rows
+from lakefeed.features.windows import as_dates
 
 __all__ = ["prefix_digest", "refresh_feature_rows", "refresh_start"]
 
 
 def prefix_digest(frame: pd.DataFrame, *, date_column: str, through: object) -> str:
     """SHA-256 of the rows dated on or before ``through`` (content only, order-independent)."""
-    dates = pd.to_datetime(frame[date_column])
+    dates = as_dates(frame[date_column])
     part = frame[dates <= pd.Timestamp(through)]
     part = part.sort_values(list(part.columns)).reset_index(drop=True) if len(part) else part
     hashed = pd.util.hash_pandas_object(part, index=False).to_numpy()
@@ -71,12 +72,9 @@ def refresh_feature_rows(
     """
     since = pd.Timestamp(since)
     tcol = "target_date" if "target_date" in targets.columns else "date"
-    tdates = pd.to_datetime(targets[tcol])
-    new_targets = targets[tdates >= since]
+    new_targets = targets[as_dates(targets[tcol]) >= since]
     spill = since - pd.Timedelta(days=max(windows) + 1 + lead)
-    idx = pd.to_datetime(drivers.index)
-    window_drivers = drivers[idx >= spill]
-    obs = targets.rename(columns={tcol: "date"})
+    window_drivers = drivers[as_dates(drivers.index) >= spill]
     fresh = build_feature_rows(
         new_targets,
         window_drivers,
@@ -86,34 +84,26 @@ def refresh_feature_rows(
         include_target_day=include_target_day,
         max_missing_fraction=max_missing_fraction,
         forecast_drivers=forecast_drivers,
-        observations=obs,
+        observations=targets.rename(columns={tcol: "date"}),
         by=by,
         value=value,
     )
-    fresh = fresh.drop(columns=["outside_driver_record", "flags"]).join(
-        _outside_flags(fresh, drivers, include_target_day)
-    )
-    kept = existing[pd.to_datetime(existing["target_date"]) < since]
-    merged = pd.concat([kept.reindex(columns=fresh.columns), fresh], ignore_index=True) if len(kept) else fresh
-    keys = [by, "target_date"] if by and by in merged.columns else ["target_date"]
-    return merged.sort_values(keys, kind="stable").reset_index(drop=True)
-
-
-def _outside_flags(rows: pd.DataFrame, drivers: pd.DataFrame, include_target_day: bool) -> pd.DataFrame:
-    """Recompute ``outside_driver_record`` and ``flags`` against the whole driver record."""
-    idx = pd.DatetimeIndex(pd.to_datetime(drivers.index))
-    last_day = pd.to_datetime(rows["target_date"]) - pd.Timedelta(days=0 if include_target_day else 1)
-    if len(idx):
-        outside = ((last_day < idx.min()) | (last_day > idx.max())).to_numpy()
+    keep = np.flatnonzero(as_dates(existing["target_date"]) < since)
+    if len(keep) == 0:
+        merged = fresh.reset_index(drop=True)
     else:
-        outside = np.ones(len(rows), dtype=bool)
-    codes = {
-        "outside_driver_record": outside,
-        "incomplete_window": rows["incomplete_windows"].to_numpy() > 0,
-        "no_prior_observation": rows["persistence_chla"].isna().to_numpy(),
-        "forecast_drivers": rows["flags"].str.contains("forecast_drivers", regex=False).to_numpy(),
-    }
-    flags = pd.Series("", index=rows.index)
-    for code, mask in codes.items():
-        flags = flags.where(~mask, flags + np.where(flags == "", "", ";") + code)
-    return pd.DataFrame({"outside_driver_record": outside, "flags": flags}, index=rows.index)
+        kept = existing.iloc[keep]
+        if list(kept.columns) != list(fresh.columns):
+            kept = kept.reindex(columns=fresh.columns)
+        merged = pd.concat([kept, fresh], ignore_index=True)
+    keys = [by, "target_date"] if by and by in merged.columns else ["target_date"]
+    return _sorted(merged, keys)
+
+
+def _sorted(frame: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
+    """Stable sort by ``keys``; no copy when already sorted."""
+    codes = [pd.factorize(frame[k], sort=True)[0] for k in keys]
+    order = np.lexsort(codes[::-1])
+    if (order == np.arange(len(order))).all():
+        return frame
+    return frame.take(order).reset_index(drop=True)

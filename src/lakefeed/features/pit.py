@@ -31,12 +31,26 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.exceptions import FeatureError
-from lakefeed.features.windows import WindowPlan, day_positions, gather_windows, reduce_windows, to_daily
+from lakefeed.features.windows import WindowPlan, as_dates, gather_windows, reduce_windows, to_daily
 
-__all__ = ["FLAG_CODES", "build_feature_rows", "calendar_features", "forecast_array", "persistence"]
+__all__ = ["FLAG_CODES", "build_feature_rows", "calendar_features", "flag_strings", "forecast_array", "persistence"]
 
 #: Codes used in the ``flags`` column of feature rows.
 FLAG_CODES = ("outside_driver_record", "incomplete_window", "no_prior_observation", "forecast_drivers")
+
+
+def flag_strings(codes: Mapping[str, np.ndarray]) -> np.ndarray:
+    """';'-joined names of the true codes per row (vectorised through a table of combinations)."""
+    names = list(codes)
+    if not names:
+        return np.zeros(0, dtype=object)
+    combo = np.zeros(len(next(iter(codes.values()))), dtype=np.int64)
+    for bit, name in enumerate(names):
+        combo |= np.asarray(codes[name], dtype=np.int64) << bit
+    table = np.array(
+        [";".join(n for b, n in enumerate(names) if c >> b & 1) for c in range(1 << len(names))], dtype=object
+    )
+    return table[combo]
 
 
 def calendar_features(dates: pd.DatetimeIndex) -> tuple[np.ndarray, np.ndarray]:
@@ -73,31 +87,51 @@ def persistence(
     (values, dates)
         Value (NaN when none) and date (NaT when none) of the baseline observation, per row.
     """
-    obs = observations.dropna(subset=[value])
-    odays = pd.to_datetime(obs["date"]).to_numpy().astype("datetime64[D]").astype(np.int64)
-    cutoff = np.minimum(
+    vals, days = _last_known(
+        observations,
+        target_dates.to_numpy().astype("datetime64[D]").astype(np.int64),
         issue_dates.to_numpy().astype("datetime64[D]").astype(np.int64),
-        target_dates.to_numpy().astype("datetime64[D]").astype(np.int64) - 1,
+        groups,
+        value=value,
+        by=by,
     )
+    found = ~np.isnan(vals)
+    return vals, np.where(found, days.astype("datetime64[D]").astype("datetime64[ns]"), np.datetime64("NaT", "ns"))
+
+
+def _last_known(
+    observations: pd.DataFrame,
+    tdays: np.ndarray,
+    idays: np.ndarray,
+    groups: np.ndarray | None,
+    *,
+    value: str,
+    by: str | None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """(value, day number) of the last observation on or before the issue day and before the target day."""
+    ovals = observations[value].to_numpy(dtype=float)
+    keep = ~np.isnan(ovals)
+    ovals = ovals[keep]
+    odays = as_dates(observations["date"]).to_numpy().astype("datetime64[D]").astype(np.int64)[keep]
+    cutoff = np.minimum(idays, tdays - 1)
     span = 1 << 32
     if by is not None:
-        cats = pd.Index(pd.unique(np.concatenate([obs[by].astype(str).to_numpy(), np.asarray(groups, dtype=str)])))
-        okey = cats.get_indexer(obs[by].astype(str)).astype(np.int64) * span + odays
-        rkey = cats.get_indexer(np.asarray(groups, dtype=str)).astype(np.int64) * span + cutoff
-        ogrp = cats.get_indexer(obs[by].astype(str))
-        rgrp = cats.get_indexer(np.asarray(groups, dtype=str))
+        ogroups = observations[by].to_numpy(dtype=object)[keep]
+        codes, _ = pd.factorize(np.concatenate([ogroups.astype(str), np.asarray(groups).astype(str)]))
+        ogrp, rgrp = codes[: len(ogroups)].astype(np.int64), codes[len(ogroups) :].astype(np.int64)
+        okey, rkey = ogrp * span + odays, rgrp * span + cutoff
     else:
         okey, rkey = odays, cutoff
-        ogrp = np.zeros(len(obs), dtype=np.int64)
+        ogrp = np.zeros(len(odays), dtype=np.int64)
         rgrp = np.zeros(len(cutoff), dtype=np.int64)
     order = np.argsort(okey, kind="stable")
-    okey, ogrp, ovals, odays = okey[order], ogrp[order], obs[value].to_numpy(float)[order], odays[order]
+    okey, ogrp, ovals, odays = okey[order], ogrp[order], ovals[order], odays[order]
     pos = np.searchsorted(okey, rkey, side="right") - 1
     ok = pos >= 0
     ok[ok] &= ogrp[pos[ok]] == rgrp[ok]
     vals = np.where(ok, ovals[np.clip(pos, 0, None)] if len(ovals) else np.nan, np.nan)
-    days = np.where(ok, odays[np.clip(pos, 0, None)] if len(odays) else 0, 0).astype("datetime64[D]")
-    return vals, np.where(ok, days.astype("datetime64[ns]"), np.datetime64("NaT", "ns"))
+    days = np.where(ok, odays[np.clip(pos, 0, None)] if len(odays) else 0, 0).astype(np.int64)
+    return vals, days
 
 
 def forecast_array(
@@ -112,8 +146,8 @@ def forecast_array(
     if missing:
         raise FeatureError(f"forecast drivers lack column(s) {missing}; expected issue_date, date and driver columns")
     fc = forecast_drivers
-    idays = pd.to_datetime(fc["issue_date"]).to_numpy().astype("datetime64[D]").astype(np.int64)
-    off = pd.to_datetime(fc["date"]).to_numpy().astype("datetime64[D]").astype(np.int64) - idays
+    idays = as_dates(fc["issue_date"]).to_numpy().astype("datetime64[D]").astype(np.int64)
+    off = as_dates(fc["date"]).to_numpy().astype("datetime64[D]").astype(np.int64) - idays
     keep = (off >= 0) & (off <= max_offset)
     uniq, inv = np.unique(idays[keep], return_inverse=True)
     cube = np.full((len(uniq), max_offset + 1, len(columns)), np.nan)
@@ -174,41 +208,42 @@ def build_feature_rows(
     tcol = "target_date" if "target_date" in targets.columns else "date"
     if by is not None and by not in targets.columns:
         by = None
-    tdates = pd.DatetimeIndex(pd.to_datetime(targets[tcol])).normalize()
-    issue = tdates - pd.Timedelta(days=lead)
-    daily = to_daily(drivers.select_dtypes("number"))
+    tdates = as_dates(targets[tcol])
+    tdays = tdates.to_numpy().astype("datetime64[D]").astype(np.int64)
+    numeric = drivers if all(dt.kind in "fiu" for dt in drivers.dtypes) else drivers.select_dtypes("number")
+    daily = to_daily(numeric)
     columns = list(daily.columns)
     plan = WindowPlan.build(columns, windows=windows, stats=stats)
     k_max = max(plan.windows)
     # features depend on the target date only: compute once per unique date
-    uniq, inv = np.unique(tdates.to_numpy(), return_inverse=True)
-    udates = pd.DatetimeIndex(uniq)
-    uissue = udates - pd.Timedelta(days=lead)
+    uniq, inv = np.unique(tdays, return_inverse=True)
+    start = daily.index[0].to_datetime64().astype("datetime64[D]").astype(np.int64) if len(daily) else 0
     shift = 1 if include_target_day else 0
-    end = day_positions(daily.index, udates) + shift
+    end = uniq - start + shift
     gathered = gather_windows(daily.to_numpy(dtype=np.float64), end, k_max)
-    day_pos = end[:, None] - 1 - np.arange(k_max)[None, :]
-    issue_pos = day_positions(daily.index, uissue)
-    after = day_pos > issue_pos[:, None]  # (u, k_max): unknown at issue
-    used_forecast = np.zeros(len(udates), dtype=bool)
+    day_pos = end[None, :] - 1 - np.arange(k_max)[:, None]  # (k_max, u)
+    issue_pos = uniq - lead - start
+    after = day_pos > issue_pos[None, :]  # unknown at issue
+    used_forecast = np.zeros(len(uniq), dtype=bool)
     if after.any():
         gathered[after] = np.nan
         if forecast_drivers is not None:
-            offsets = day_pos - issue_pos[:, None]
+            uissue = pd.DatetimeIndex((uniq - lead).astype("datetime64[D]").astype("datetime64[ns]"))
             fc = forecast_array(forecast_drivers, columns, uissue, max(lead + shift, 1))
-            o = np.clip(offsets, 0, fc.shape[1] - 1)
-            filled = np.take_along_axis(fc, o[:, :, None], axis=1)
+            o = np.clip(day_pos - issue_pos[None, :], 0, fc.shape[1] - 1)
+            filled = fc[np.arange(len(uniq))[None, :], o]  # (k_max, u, drivers)
             gathered = np.where(after[:, :, None], filled, gathered)
-            used_forecast = (after[:, :, None] & np.isfinite(filled)).any(axis=(1, 2))
+            used_forecast = (after[:, :, None] & np.isfinite(filled)).any(axis=(0, 2))
     values, incomplete = reduce_windows(gathered, plan, columns, max_missing_fraction=max_missing_fraction)
     n_days = len(daily)
     last_day = end - 1
-    outside = (last_day < 0) | (last_day >= n_days) if n_days else np.ones(len(udates), dtype=bool)
+    outside = (last_day < 0) | (last_day >= n_days) if n_days else np.ones(len(uniq), dtype=bool)
 
-    groups = targets[by].astype(str).to_numpy() if by else None
+    groups = targets[by].to_numpy() if by else None
     obs = observations if observations is not None else targets.rename(columns={tcol: "date"})
-    p_val, p_date = persistence(obs, tdates, issue, groups, value=value, by=by)
-    p_date = pd.DatetimeIndex(p_date)
+    idays = tdays - lead
+    p_val, p_day = _last_known(obs, tdays, idays, groups, value=value, by=by)
+    none = np.isnan(p_val)
     sin, cos = calendar_features(tdates)
     out = {}
     if by:
@@ -216,11 +251,11 @@ def build_feature_rows(
     out.update(
         target_date=tdates.to_numpy(),
         lead_days=np.full(len(tdates), lead, dtype=np.int16),
-        issue_date=issue.to_numpy(),
+        issue_date=idays.astype("datetime64[D]").astype("datetime64[ns]"),
         chla=targets[value].to_numpy(float),
         persistence_chla=p_val,
-        persistence_age_days=((tdates - p_date).days.to_numpy(dtype=float)),
-        days_since_prev_obs=((issue - p_date).days.to_numpy(dtype=float)),
+        persistence_age_days=np.where(none, np.nan, (tdays - p_day).astype(float)),
+        days_since_prev_obs=np.where(none, np.nan, (idays - p_day).astype(float)),
         doy_sin=sin,
         doy_cos=cos,
     )
@@ -230,14 +265,15 @@ def build_feature_rows(
     codes = {
         "outside_driver_record": outside[inv],
         "incomplete_window": n_incomplete > 0,
-        "no_prior_observation": np.isnan(p_val),
+        "no_prior_observation": none,
         "forecast_drivers": used_forecast[inv],
     }
-    flags = pd.Series("", index=targets.index)
-    for code, mask in codes.items():
-        flags = flags.where(~mask, flags + np.where(flags == "", "", ";") + code)
     tail = pd.DataFrame(
-        {"incomplete_windows": n_incomplete, "outside_driver_record": codes["outside_driver_record"], "flags": flags},
+        {
+            "incomplete_windows": n_incomplete,
+            "outside_driver_record": codes["outside_driver_record"],
+            "flags": flag_strings(codes),
+        },
         index=targets.index,
     )
     return pd.concat([frame, feats, tail], axis=1)

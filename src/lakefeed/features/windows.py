@@ -33,6 +33,7 @@ from lakefeed.exceptions import FeatureError
 __all__ = [
     "STATISTICS",
     "WindowPlan",
+    "as_dates",
     "default_statistics",
     "feature_name",
     "gather_windows",
@@ -112,15 +113,25 @@ def to_daily(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.Dat
     dates are an error (say which).
     """
     frame = drivers.set_index(date_column) if date_column else drivers
-    idx = pd.DatetimeIndex(pd.to_datetime(frame.index)).normalize()
+    idx = as_dates(frame.index)
+    if len(idx) == 0:
+        return frame.set_axis(idx)
+    if idx.is_monotonic_increasing and idx.is_unique and len(idx) == (idx[-1] - idx[0]).days + 1:
+        return frame.set_axis(idx)  # already complete
     if idx.has_duplicates:
         dups = idx[idx.duplicated()].unique()[:3]
         raise FeatureError(f"driver table has duplicate dates, e.g. {[str(d.date()) for d in dups]}; one row per day")
     frame = frame.set_axis(idx).sort_index()
-    if len(frame) == 0:
-        return frame
     full = pd.date_range(frame.index[0], frame.index[-1], freq="D")
     return frame.reindex(full)
+
+
+def as_dates(values: object) -> pd.DatetimeIndex:
+    """Calendar dates (midnight, no time zone) from dates, timestamps or ISO strings."""
+    arr = values.to_numpy() if isinstance(values, (pd.Index, pd.Series)) else np.asarray(values)
+    if arr.dtype.kind == "M":
+        return pd.DatetimeIndex(arr.astype("datetime64[D]").astype("datetime64[ns]"))
+    return pd.DatetimeIndex(pd.to_datetime(arr)).normalize()
 
 
 def gather_windows(values: np.ndarray, end: np.ndarray, k_max: int) -> np.ndarray:
@@ -131,23 +142,21 @@ def gather_windows(values: np.ndarray, end: np.ndarray, k_max: int) -> np.ndarra
     values
         (days, drivers) float array on a complete daily calendar.
     end
-        (targets,) integer positions; the window is ``values[end-k_max:end]`` reversed, so that
-        element ``[:, j, :]`` is the day ``end-1-j`` (nearest day first). Positions outside the
-        record give NaN.
+        (targets,) integer positions; element ``[j, i, :]`` of the result is day ``end[i]-1-j``
+        (nearest day first). Positions outside the record give NaN.
     k_max
         Longest window in days.
 
     Returns
     -------
     numpy.ndarray
-        (targets, k_max, drivers) float64.
+        (k_max, targets, drivers) float64.
     """
     values = np.asarray(values, dtype=np.float64)
     n, d = values.shape
-    idx = np.asarray(end, dtype=np.int64)[:, None] - 1 - np.arange(k_max, dtype=np.int64)[None, :]
-    outside = (idx < 0) | (idx >= n)
+    idx = np.asarray(end, dtype=np.int64)[None, :] - 1 - np.arange(k_max, dtype=np.int64)[:, None]
     padded = np.vstack([values, np.full((1, d), np.nan)])
-    idx = np.where(outside, n, idx)
+    idx[(idx < 0) | (idx >= n)] = n
     return padded[idx]
 
 
@@ -160,10 +169,14 @@ def reduce_windows(
 ) -> tuple[np.ndarray, np.ndarray]:
     """Reduce gathered windows to the features of ``plan``.
 
+    Accumulates outward from the target, one day at a time over all targets and drivers
+    (every shorter window is a prefix of the longer ones); sums are sequential over at most
+    ``k_max`` values, so a window of zeros sums to exactly 0.
+
     Parameters
     ----------
     gathered
-        (targets, k_max, drivers) from :func:`gather_windows` (NaN = missing day).
+        (k_max, targets, drivers) from :func:`gather_windows` (NaN = missing day).
     plan
         Windows and statistics; ``columns`` names the drivers along the last axis.
     max_missing_fraction
@@ -175,34 +188,53 @@ def reduce_windows(
         (targets, features) float64 and bool arrays in ``plan.names`` order; ``incomplete``
         marks values set missing because the window had too many missing days.
     """
-    t = gathered.shape[0]
-    col_pos = {c: i for i, c in enumerate(columns)}
-    ks = np.asarray(plan.windows) - 1
-    valid = np.isfinite(gathered)
-    count = np.cumsum(valid, axis=1, dtype=np.int32)[:, ks, :]  # (t, windows, drivers)
-    missing = np.asarray(plan.windows)[None, :, None] - count
-    too_many = missing > np.floor(max_missing_fraction * np.asarray(plan.windows) + 1e-9)[None, :, None]
-    by_stat: dict[str, np.ndarray] = {}
+    k_max, t, d = gathered.shape
     needed = {s for ss in plan.stats.values() for s in ss}
-    if needed & {"sum", "mean"}:
-        total = np.cumsum(np.where(valid, gathered, 0.0), axis=1)[:, ks, :]
-        by_stat["sum"] = total
+    want = {k - 1: w for w, k in enumerate(plan.windows)}
+    n_w, n_s = len(plan.windows), len(STATISTICS)
+    si = {s: i for i, s in enumerate(STATISTICS)}
+    # results laid out (targets, drivers, statistics, windows): reshaped, the columns are in plan order
+    res = np.empty((t, d, n_s, n_w))
+    counts = np.empty((t, d, n_w), dtype=np.int32)
+    count = np.zeros((t, d), dtype=np.int32)
+    total = np.zeros((t, d)) if needed & {"sum", "mean"} else None
+    low = np.full((t, d), np.nan) if "min" in needed else None
+    high = np.full((t, d), np.nan) if "max" in needed else None
+    for j in range(k_max):
+        day = gathered[j]
+        ok = ~np.isnan(day)
+        count += ok
+        if total is not None:
+            total += np.where(ok, day, 0.0)
+        if low is not None:
+            np.fmin(low, day, out=low)
+        if high is not None:
+            np.fmax(high, day, out=high)
+        if j in want:
+            w = want[j]
+            counts[:, :, w] = count
+            if total is not None:
+                res[:, :, si["sum"], w] = total
+            if low is not None:
+                res[:, :, si["min"], w] = low
+            if high is not None:
+                res[:, :, si["max"], w] = high
+    ks = np.asarray(plan.windows)
+    bad = ((ks - counts) > np.floor(max_missing_fraction * ks + 1e-9)) | (counts == 0)  # (t, d, windows)
+    if "mean" in needed:
         with np.errstate(invalid="ignore", divide="ignore"):
-            by_stat["mean"] = total / count
-    if "min" in needed:
-        by_stat["min"] = np.fmin.accumulate(gathered, axis=1)[:, ks, :]
-    if "max" in needed:
-        by_stat["max"] = np.fmax.accumulate(gathered, axis=1)[:, ks, :]
-    blocks, flags = [], []
-    for c, ss in plan.stats.items():
-        j = col_pos[c]
-        bad = too_many[:, :, j] | (count[:, :, j] == 0)
-        for s in ss:
-            blocks.append(np.where(bad, np.nan, by_stat[s][:, :, j]))
-            flags.append(bad)
-    if not blocks:
-        return np.empty((t, 0)), np.empty((t, 0), dtype=bool)
-    return np.concatenate(blocks, axis=1), np.concatenate(flags, axis=1)
+            res[:, :, si["mean"], :] = res[:, :, si["sum"], :] / counts
+    res[np.broadcast_to(bad[:, :, None, :], res.shape)] = np.nan
+    col_pos = {c: i for i, c in enumerate(columns)}
+    flat = np.array(
+        [(col_pos[c] * n_s + si[s]) * n_w + w for c, ss in plan.stats.items() for s in ss for w in range(n_w)],
+        dtype=np.int64,
+    )
+    values = res.reshape(t, d * n_s * n_w)
+    flags = np.broadcast_to(bad[:, :, None, :], res.shape).reshape(t, d * n_s * n_w)
+    if len(flat) == values.shape[1] and (flat == np.arange(len(flat))).all():
+        return values, np.ascontiguousarray(flags)
+    return values[:, flat], flags[:, flat]
 
 
 def window_features(
@@ -249,12 +281,10 @@ def window_features(
     """
     daily = to_daily(drivers.select_dtypes("number"))
     plan = WindowPlan.build(list(daily.columns), windows=windows, stats=stats)
-    targets = pd.DatetimeIndex(pd.to_datetime(target_dates)).normalize()
+    targets = as_dates(target_dates)
     end = day_positions(daily.index, targets) + (1 if include_target_day else 0)
     gathered = gather_windows(daily.to_numpy(dtype=np.float64), end, max(plan.windows))
-    values, incomplete = reduce_windows(
-        gathered, plan, list(daily.columns), max_missing_fraction=max_missing_fraction
-    )
+    values, incomplete = reduce_windows(gathered, plan, list(daily.columns), max_missing_fraction=max_missing_fraction)
     return (
         pd.DataFrame(values, index=targets, columns=plan.names),
         pd.DataFrame(incomplete, index=targets, columns=plan.names),

@@ -20,11 +20,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 from pyproj import Transformer
-from scipy.signal import lfilter
 
 from lakefeed.sample._geo import CRS, LAKE_LATLON
 from lakefeed.sample._io import rng_for
-from lakefeed.sample._weather import WeatherModel
+from lakefeed.sample._weather import WeatherModel, recursive_filter
 
 __all__ = ["PARAMS", "lake_truth", "spatial_pattern"]
 
@@ -89,7 +88,7 @@ def lake_truth(
     air = f["air_temp"][:, 0].reshape(nd, 24).mean(axis=1)
     sw = f["sw_flux"][:, 0].reshape(nd, 24).mean(axis=1)
     alpha = 1.0 / p["TAU_DAYS"]
-    tw = lfilter([alpha], [1.0, alpha - 1.0], air - air[0]) + air[0]
+    tw = recursive_filter(air, 1.0 - alpha, alpha, y0=air[0])
     frame = pd.DataFrame({"water_temperature_proxy": np.maximum(tw, 3.5), "shortwave": sw}, index=model.days)
     frame = frame.loc[start:end].copy()
     frame["tp_load_30d"] = tp_load.reindex(frame.index).rolling(int(p["P_WINDOW_DAYS"]), min_periods=1).mean()
@@ -106,7 +105,7 @@ def lake_truth(
         bloom[sel] = amp * np.exp(-0.5 * ((doy[sel] - peak) / p["BLOOM_WIDTH_DAYS"]) ** 2)
     frame["bloom"] = bloom
     phi = p["NOISE_PHI"]
-    noise = lfilter([1.0], [1.0, -phi], rng.normal(0.0, p["NOISE_SD"] * np.sqrt(1 - phi**2), len(frame)))
+    noise = recursive_filter(rng.normal(0.0, p["NOISE_SD"] * np.sqrt(1 - phi**2), len(frame)), phi)
     frame["chla"] = (p["C_MAX"] * frame["f_t"] * frame["f_i"] * frame["f_p"] + p["BACKGROUND"] + bloom) * np.exp(noise)
     frame.index.name = "date"
     return frame

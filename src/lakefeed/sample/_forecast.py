@@ -121,7 +121,7 @@ def write_forecasts(
         ds = grid_attrs(ds)
         ds.attrs = {"title": f"Invented forecast archive for the Tallow sample scenario, issues of {month}"}
         enc = {
-            k: {"dtype": "float32", "zlib": True, "complevel": 1, "shuffle": True, "chunksizes": (1, ns, len(LATS), len(LONS))}
+            k: {"dtype": "float32", "zlib": True, "complevel": 1, "shuffle": True, "chunksizes": (min(8, int(sel.sum())), ns, len(LATS), len(LONS))}
             for k in VARIABLES
         }
         enc["forecast_reference_time"] = {"units": "hours since 1970-01-01 00:00:00", "calendar": "proleptic_gregorian", "dtype": "int64"}

@@ -17,11 +17,10 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 from pyproj import Transformer
-from scipy.signal import lfilter
 
 from lakefeed.sample._geo import CRS, Geometry
 from lakefeed.sample._io import rng_for, write_netcdf
-from lakefeed.sample._weather import WeatherModel
+from lakefeed.sample._weather import WeatherModel, recursive_filter
 from lakefeed.units import convert
 
 __all__ = ["RATING", "SAMPLED_SUBBASIN", "TP_DETECTION_LIMIT", "Hydrology", "simulate_hydrology", "write_hydrology"]
@@ -54,9 +53,7 @@ class Hydrology:
 def _reservoir(inflow: np.ndarray, k_days: float, initial: np.ndarray | None = None) -> np.ndarray:
     """Outflow of a linear reservoir (time constant k, daily steps) along axis 0."""
     a = np.exp(-1.0 / k_days)
-    zi = None if initial is None else (a * initial)[None, :]
-    out = lfilter([1.0 - a], [1.0, -a], inflow, axis=0, zi=zi)
-    return out[0] if initial is not None else out
+    return recursive_filter(inflow, a, 1.0 - a, y0=initial)
 
 
 def _runoff_mm(precip: np.ndarray, temp: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -112,8 +109,7 @@ def simulate_hydrology(
     doy = dates.dayofyear.to_numpy()[:, None].astype(float)
     conc = {}
     for nut, p in RATING.items():
-        noise = lfilter([1.0], [1.0, -p["noise_phi"]], rng.normal(0, p["noise_sd"], q.shape), axis=0)
-        noise *= np.sqrt(1.0 - p["noise_phi"] ** 2)
+        noise = recursive_filter(rng.normal(0, p["noise_sd"], q.shape), p["noise_phi"], np.sqrt(1.0 - p["noise_phi"] ** 2))
         level = np.log(p["c50"]) + rng.normal(0.0, 0.12, len(ids))[None, :]
         conc[nut] = np.exp(
             level

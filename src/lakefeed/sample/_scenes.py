@@ -21,7 +21,6 @@ import rasterio
 import shapely
 from pyproj import Transformer
 from rasterio.crs import CRS as RasterCRS
-from rasterio.transform import from_origin
 from scipy.ndimage import distance_transform_edt
 
 from lakefeed.sample._geo import CRS
@@ -32,7 +31,7 @@ __all__ = ["SENSORS", "NODATA", "QUALITY_NODATA", "SensorSpec", "write_scenes"]
 NODATA = -9999.0
 QUALITY_NODATA = 255
 _EXT = [
-    "https://stac-extensions.github.io/projection/v1.1.0/schema.json",
+    "https://stac-extensions.github.io/projection/v2.0.0/schema.json",
     "https://stac-extensions.github.io/eo/v1.1.0/schema.json",
     "https://stac-extensions.github.io/raster/v1.1.0/schema.json",
 ]
@@ -99,7 +98,7 @@ def _grid(spec: SensorSpec, lake: shapely.Polygon, pattern_fn: Callable, to_ll: 
     box = shapely.box(x0, y1 - ny * res, x0 + nx * res, y1)
     footprint = shapely.transform(box, lambda c: np.column_stack(to_ll.transform(c[:, 0], c[:, 1])))
     return _Grid(
-        from_origin(x0, y1, res, res), (ny, nx), xx, yy, np.where(inside, dist, -dist), pattern_fn(xx, yy), kernel,
+        rasterio.Affine(res, 0.0, x0, 0.0, -res, y1), (ny, nx), xx, yy, np.where(inside, dist, -dist), pattern_fn(xx, yy), kernel,
         shapely.set_precision(footprint, 1e-7),
     )
 
@@ -188,7 +187,7 @@ def _item(spec: SensorSpec, scene_id: str, when: pd.Timestamp, grid: _Grid, cove
             "platform": f"{spec.name}-1",
             "gsd": spec.pixel_m,
             "eo:cloud_cover": round(100.0 * cover, 2),
-            "proj:epsg": int(CRS.split(":")[1]),
+            "proj:code": CRS,
             "proj:shape": list(grid.shape),
             "proj:transform": [float(v) for v in list(grid.transform)[:6]],
         },

@@ -21,7 +21,15 @@ import xarray as xr
 from lakefeed.sample._io import rng_for, write_netcdf
 from lakefeed.units import convert
 
-__all__ = ["VARIABLES", "WeatherModel", "accumulate_since_midnight", "draw_weather", "grid_attrs", "write_reanalysis"]
+__all__ = [
+    "VARIABLES",
+    "WeatherModel",
+    "accumulate_since_midnight",
+    "draw_weather",
+    "grid_attrs",
+    "recursive_filter",
+    "write_reanalysis",
+]
 
 #: Variable name -> (standard_name, units, long_name) of the gridded weather files.
 VARIABLES: dict[str, tuple[str, str, str]] = {
@@ -62,8 +70,8 @@ class WeatherModel:
     wind: np.ndarray  # (days, 2) daily u, v in m s-1
     gradient_k_per_deg: np.ndarray  # daily west-east temperature gradient
 
-    def at(self, lat: np.ndarray, lon: np.ndarray) -> dict[str, np.ndarray]:
-        """Hourly fields at points: (n_hours, n_points) arrays.
+    def at(self, lat: np.ndarray, lon: np.ndarray, hours: slice | None = None) -> dict[str, np.ndarray]:
+        """Hourly fields at points: (n_hours, n_points) arrays, for all stamps or the slice ``hours`` of them.
 
         Returns ``air_temp`` and ``dewpoint`` (degC), ``wind_u``/``wind_v`` (m s-1) at the stamps,
         and hourly amounts over the interval ending at each stamp: ``precip`` (mm) and
@@ -72,7 +80,7 @@ class WeatherModel:
         lat = np.asarray(lat, dtype=float)[None, :]
         lon = np.asarray(lon, dtype=float)[None, :]
         nd = len(self.days)
-        hours = np.arange(nd * 24)
+        hours = np.arange(nd * 24)[hours if hours is not None else slice(None)]
         day_of = hours // 24
         t_stamp = (hours + 1.0) / 24.0  # stamp time in days since the first day 00 UTC
         doy = self.days.dayofyear.to_numpy()[day_of][:, None].astype(float)
@@ -116,17 +124,29 @@ class WeatherModel:
             + 0.3 * pattern[:, :1] * np.sin(2 * np.pi * (lon - 9.0) / 1.5)
             + 0.3 * pattern[:, 1:] * np.cos(2 * np.pi * (lat - 47.5) / 1.2)
         ) * (1.0 + 0.0008 * (height - LAKE_ELEVATION_M))
-        rain = self.rain_mm.reshape(-1)[:, None] * np.clip(spatial, 0.2, None)
+        rain = self.rain_mm.reshape(-1)[hours][:, None] * np.clip(spatial, 0.2, None)
         return {"air_temp": temp, "dewpoint": dew, "wind_u": u, "wind_v": v, "precip": rain, "sw_flux": sw}
+
+
+def recursive_filter(x: np.ndarray, a: float, b: float = 1.0, y0: np.ndarray | float | None = None) -> np.ndarray:
+    """First-order recursion along axis 0: ``y[t] = a * y[t-1] + b * x[t]`` with ``y[-1] = y0`` (default 0).
+
+    Used for AR(1) noise, linear reservoirs and exponential smoothing; series here are short (days).
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.empty_like(x)
+    prev = np.zeros(x.shape[1:]) if y0 is None else np.asarray(y0, dtype=float)
+    for t in range(x.shape[0]):
+        prev = a * prev + b * x[t]
+        y[t] = prev
+    return y
 
 
 def _ar1(rng: np.random.Generator, n: int, phi: float, sd: float) -> np.ndarray:
     """Stationary AR(1) series of length n with lag-1 correlation ``phi`` and standard deviation ``sd``."""
-    from scipy.signal import lfilter
-
     eps = rng.normal(0.0, sd * np.sqrt(1.0 - phi**2), n)
     eps[0] = rng.normal(0.0, sd)
-    return lfilter([1.0], [1.0, -phi], eps)
+    return recursive_filter(eps, phi)
 
 
 def draw_weather(seed: int, first_day: pd.Timestamp, n_days: int) -> WeatherModel:
@@ -189,32 +209,36 @@ def write_reanalysis(
 ) -> list[Path]:
     """Write ``reanalysis_YYYY-MM.nc`` from ``start`` 00 UTC to ``end`` 23 UTC (inclusive months)."""
     lat2, lon2 = np.meshgrid(LATS, LONS, indexing="ij")
-    f = model.at(lat2.ravel(), lon2.ravel())
-    shape = (len(model.stamps), len(LATS), len(LONS))
-    fields = {
-        "air_temp": convert(f["air_temp"], "degC", "K"),
-        "dewpoint": convert(f["dewpoint"], "degC", "K"),
-        "wind_u": f["wind_u"],
-        "wind_v": f["wind_v"],
-        "sw_down": accumulate_since_midnight(f["sw_flux"] * 3600.0, model.stamps),  # W m-2 over 3600 s -> J m-2
-        "precip": accumulate_since_midnight(convert(f["precip"], "mm", "m"), model.stamps),
-    }
-    fields = {k: v.reshape(shape).astype(np.float32) for k, v in fields.items()}
-    for arr in fields.values():
-        arr[:, NODATA_CORNER["latitude"], NODATA_CORNER["longitude"]] = np.nan
     months = pd.period_range(start, end, freq="M")
     paths = []
     for i, month in enumerate(months):
         lo = max(month.start_time, start)
         hi = min(month.end_time.floor("h"), end + pd.Timedelta(hours=23))
-        sel = (model.stamps >= lo) & (model.stamps <= hi)
+        # evaluate from 01 UTC of the day before, so the 00 UTC value holds that day's total
+        k0 = model.stamps.get_loc(lo - pd.Timedelta(hours=23))
+        k1 = model.stamps.get_loc(hi) + 1
+        stamps = model.stamps[k0:k1]
+        f = model.at(lat2.ravel(), lon2.ravel(), slice(k0, k1))
+        fields = {
+            "air_temp": convert(f["air_temp"], "degC", "K"),
+            "dewpoint": convert(f["dewpoint"], "degC", "K"),
+            "wind_u": f["wind_u"],
+            "wind_v": f["wind_v"],
+            "sw_down": accumulate_since_midnight(f["sw_flux"] * 3600.0, stamps),  # W m-2 over 3600 s -> J m-2
+            "precip": accumulate_since_midnight(convert(f["precip"], "mm", "m"), stamps),
+        }
+        shape = (len(stamps), len(LATS), len(LONS))
+        fields = {k: v.reshape(shape)[23:].astype(np.float32) for k, v in fields.items()}
+        for arr in fields.values():
+            arr[:, NODATA_CORNER["latitude"], NODATA_CORNER["longitude"]] = np.nan
+        sel = slice(23, None)
         ds = xr.Dataset(
             {
-                k: (("time", "latitude", "longitude"), fields[k][sel], _var_attrs(k))
+                k: (("time", "latitude", "longitude"), fields[k], _var_attrs(k))
                 for k in ("air_temp", "dewpoint", "wind_u", "wind_v", "sw_down", "precip")
             },
             coords={
-                "time": ("time", model.stamps[sel].to_numpy(), {"standard_name": "time", "axis": "T"}),
+                "time": ("time", stamps[sel].to_numpy(), {"standard_name": "time", "axis": "T"}),
                 "latitude": LATS,
                 "longitude": LONS,
             },

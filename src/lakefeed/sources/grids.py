@@ -33,7 +33,7 @@ from lakefeed.exceptions import SourceError
 from lakefeed.geometry.weights import grid_signature
 from lakefeed.units import parse_unit
 
-__all__ = ["Grid", "expand_paths", "find_variable", "open_grid", "select_roles"]
+__all__ = ["Grid", "decode", "expand_paths", "find_variable", "open_grid", "select_roles"]
 
 _LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}
 _LON_UNITS = {"degrees_east", "degree_east", "degree_e", "degrees_e", "degreee", "degreese"}
@@ -149,9 +149,9 @@ def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
     engine = _engine(path)
     try:
         if engine == "zarr":
-            ds = xr.open_zarr(path, chunks=None)
+            ds = xr.open_zarr(path, chunks=None, mask_and_scale=False)
         else:
-            ds = xr.open_dataset(path, engine=engine, chunks=None, cache=False)
+            ds = xr.open_dataset(path, engine=engine, chunks=None, cache=False, mask_and_scale=False)
     except Exception as err:  # netCDF4/HDF5/zarr raise many types
         raise SourceError(f"weather grid {path}: cannot open ({type(err).__name__}: {err}); the file may be corrupt "
                           "or truncated: download it again") from err
@@ -291,17 +291,38 @@ def find_variable(ds: xr.Dataset, role: str, *, mapping: Mapping[str, str] | Non
     )
 
 
+def decode(var: xr.DataArray) -> xr.DataArray:
+    """Lazily apply CF packing (fill values -> NaN, ``scale_factor``, ``add_offset``) in float64.
+
+    Grids are opened undecoded so that zonal means can decode only the weighted cells; use this
+    before any non-linear use. ``attrs['packing_step']`` keeps the scale factor (packing noise).
+    """
+    fills = [a for k in ("_FillValue", "missing_value") if k in var.attrs for a in np.atleast_1d(var.attrs[k])]
+    scale = float(var.attrs.get("scale_factor", 1.0))
+    offset = float(var.attrs.get("add_offset", 0.0))
+    attrs = {k: v for k, v in var.attrs.items() if k not in ("_FillValue", "missing_value", "scale_factor", "add_offset")}
+    out = var.astype(np.float64)
+    for f in fills:
+        out = out.where(var != f)
+    if scale != 1.0 or offset != 0.0:
+        out = out * scale + offset
+    attrs["packing_step"] = float(var.attrs.get("packing_step", 0.0)) or (scale if "scale_factor" in var.attrs else 0.0)
+    return out.assign_attrs(attrs).rename(var.name)
+
+
 def select_roles(
     grid: Grid,
     roles: Iterable[str],
     *,
     mapping: Mapping[str, str] | None = None,
     units: Mapping[str, str] | None = None,
+    packed: bool = False,
 ) -> dict[str, xr.DataArray]:
     """The variables of ``roles`` with ``attrs['units']`` resolved (config beats file) and checked.
 
     Each DataArray's attrs carry ``units``, ``standard_name`` (if any), ``source_name`` and
-    ``packing_step`` (scale_factor of packed data, else 0) for noise clipping.
+    ``packing_step`` (scale_factor of packed data, else 0) for noise clipping. Values are decoded
+    (:func:`decode`) unless ``packed`` (then CF packing attributes stay for :func:`zonal_mean`).
     """
     out = {}
     for role in roles:
@@ -315,6 +336,7 @@ def select_roles(
             )
         parse_unit(unit)
         attrs = dict(var.attrs)
-        attrs.update(units=unit, source_name=name, packing_step=float(var.encoding.get("scale_factor", 0.0) or 0.0))
-        out[role] = var.copy(deep=False).assign_attrs(attrs)
+        attrs.update(units=unit, source_name=name, packing_step=float(var.attrs.get("scale_factor", 0.0) or 0.0))
+        var = var.copy(deep=False).assign_attrs(attrs)
+        out[role] = var if packed else decode(var)
     return out

@@ -80,9 +80,7 @@ def _repair(gdf: gpd.GeoDataFrame, where: str, path: Path, id_field: str | None)
     for label, g in zip(labels, shapely.make_valid(geoms[invalid]), strict=True):
         parts = [p for p in shapely.get_parts(g) if p.geom_type in _POLYGONAL and not p.is_empty]
         if not parts:
-            raise GeometryError(
-                f"{where}: {path}: feature {label} is invalid and has no area once repaired; redraw it"
-            )
+            raise GeometryError(f"{where}: {path}: feature {label} is invalid and has no area once repaired; redraw it")
         fixed.append(shapely.union_all(parts))
     warnings.warn(
         f"{where}: {path}: repaired invalid polygon(s) "
@@ -108,7 +106,8 @@ def read_layer(
     what
         What the layer is, for messages ("lake polygon", "areas of interest", ...).
     id_field
-        If given, the field must exist, be non-null and unique; it is returned as ``str``.
+        If given, the field must exist, be non-null and unique; it is returned as ``str``
+        (whole floats such as ``3.0`` become ``'3'``; surrounding blanks are dropped).
     key
         The config key that points to the layer (e.g. ``"aois.path"``), named in messages.
 
@@ -150,7 +149,10 @@ def read_layer(
                 f"{where}: {path}: field {id_field!r} is empty for features "
                 f"{np.flatnonzero(gdf[id_field].isna().to_numpy()).tolist()}; give every feature an id"
             )
-        gdf[id_field] = gdf[id_field].astype(str)
+        ids = gdf[id_field]
+        if ids.dtype.kind == "f" and bool((ids == ids.round()).all()):
+            ids = ids.astype("int64")  # 3.0 (a REAL column) is the id '3', as in the downstream fields
+        gdf[id_field] = ids.astype(str).str.strip()
         dup = gdf[id_field][gdf[id_field].duplicated()].unique().tolist()
         if dup:
             raise GeometryError(f"{where}: {path}: duplicate ids in {id_field!r}: {dup}; ids must be unique")

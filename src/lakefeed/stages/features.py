@@ -100,7 +100,8 @@ def load_drivers(
         parts = [per_zone[key if key else zone]] if per_zone else []
         if hyd is not None:
             parts.append(hyd)
-        frame = pd.concat(parts, axis=1, join="outer").sort_index() if parts else pd.DataFrame(index=pd.DatetimeIndex([]))
+        empty = pd.DataFrame(index=pd.DatetimeIndex([]))
+        frame = pd.concat(parts, axis=1, join="outer").sort_index() if parts else empty
         frames[key.split(":", 1)[1] if key else None] = frame
     available = sorted({c for f in frames.values() for c in f.columns})
     if wanted is not None:
@@ -162,7 +163,8 @@ def build_features(project: Project, store: Store, *, progress: Progress | None 
     aois = sorted(targets["aoi"].unique())
     wanted = list(opts.drivers) if opts.drivers else None
     frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
-    columns = sorted({c for f in frames.values() for c in f.columns}, key=lambda c: (wanted or []).index(c) if wanted else c)
+    present = {c for f in frames.values() for c in f.columns}
+    columns = [c for c in wanted if c in present] if wanted else sorted(present)
     frames = {k: f.reindex(columns=columns) for k, f in frames.items()}
     if not columns:
         result.warnings.append("no driver tables (drivers_daily, hydrology_daily): features hold no window columns")
@@ -208,7 +210,9 @@ def build_features(project: Project, store: Store, *, progress: Progress | None 
     rows.insert(rows.columns.get_loc("fold") + 1, "fold_kind", opts.fold_kind)
     n_outside = int(rows["outside_driver_record"].sum())
     if n_outside and columns:
-        result.warnings.append(f"{n_outside} feature row(s) have target dates outside the driver record (kept, flagged)")
+        result.warnings.append(
+            f"{n_outside} feature row(s) have target dates outside the driver record (kept, flagged)"
+        )
 
     diag = sampling_diagnostics(targets, by="aoi", record=record, min_observations=opts.min_observations)
     for _, d in diag.iterrows():
@@ -238,7 +242,9 @@ def build_features(project: Project, store: Store, *, progress: Progress | None 
     store.write_table("features", lake.id, rows, units=units, descriptions=descr, metadata=meta, inputs=inputs,
                       config_hash=cfg, time_column="target_date")  # fmt: skip
     dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")} | {"coverage_fraction": "1"}
-    store.write_table("diagnostics", lake.id, diag, units=dunits, inputs=inputs, config_hash=cfg, time_column="first_date")
+    store.write_table(
+        "diagnostics", lake.id, diag, units=dunits, inputs=inputs, config_hash=cfg, time_column="first_date"
+    )
     progress("features: done", 3, 3)
     result.tables = {"features": len(rows), "diagnostics": len(diag)}
     return result

@@ -31,7 +31,7 @@ import pandas as pd
 from lakefeed.config import Project
 from lakefeed.config.sources import SampleStation
 from lakefeed.exceptions import ConfigError, ExtractError, LakefeedWarning
-from lakefeed.extract.load_estimation import LoadEstimate, compare_methods
+from lakefeed.extract.load_estimation import LoadEstimate, align, compare_methods
 from lakefeed.extract.loads import inflow_loads, inflow_members
 from lakefeed.geometry.network import Catchment, trace_catchment
 from lakefeed.sources.hydrology import read_hydrology
@@ -73,6 +73,7 @@ def _station_estimates(
     options = {"seasonal": station.rating_seasonal, "trend": station.rating_trend}
     out = {}
     for nutrient, part in samples.groupby("nutrient", sort=True):
+        align(part, flow, where=f"samples {where} ({nutrient})")  # input errors stop the stage here
         out[str(nutrient)] = compare_methods(part, flow, min_samples=station.min_samples, **options)
     return out, station_method(station)
 
@@ -156,7 +157,10 @@ def build_hydrology(project: Project, store: Store, *, progress: Progress | None
                             warnings.warn(
                                 f"station {station.id} {nutrient} ({name}): {w}", LakefeedWarning, stacklevel=2
                             )
-        table.insert(len(nutrients) * 2 + 1, "load_method", ";".join(method_text))
+        table["load_method"] = ";".join(method_text)
+        head = ["inflow_discharge", *[f"{n}_load" for n in nutrients], *[f"{n}_fwmc" for n in nutrients]]
+        head += ["load_method", "flags"]
+        table = table[head + [c for c in table.columns if c not in head]]
         progress("hydrology: writing", 3, 4)
         out = table.reset_index()
         out["date"] = out["date"].dt.date

@@ -166,8 +166,8 @@ def build_target(project: Project, store: Store, *, progress: Progress | None = 
     unreadable = bad[bad["reason"].str.startswith("scene ") | bad["reason"].str.startswith("STAC")]
     if len(unreadable):
         result.warnings.append(f"{len(unreadable)} scene(s) rejected as unreadable, e.g. {unreadable['reason'].iloc[0]}")
-    meta = {"lakefeed.caution": CAUTION}
-    fit_meta = {"lakefeed.sensor_bias": fits.to_json(orient="records")}
+    meta = {"caution": CAUTION}
+    fit_meta = {"sensor_bias": fits.to_json(orient="records")}
     store.write_table("target_obs", lake.id, obs, units=OBS_UNITS, descriptions=_DESCRIPTIONS, metadata=meta)
     store.write_table("target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=_DESCRIPTIONS,
                       metadata=meta | fit_meta)  # fmt: skip

@@ -34,7 +34,7 @@ from lakefeed.extract.meteo import wind_speed
 from lakefeed.extract.zonal import zonal_mean
 from lakefeed.geometry.weights import ZoneWeights, zone_weights
 from lakefeed.geometry.zones import build_zones, zone_latitudes
-from lakefeed.sources.grids import Grid, open_grid, select_roles
+from lakefeed.sources.grids import Grid, decode, open_grid, select_roles
 from lakefeed.sources.vectors import read_layer
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store
@@ -125,14 +125,14 @@ def hourly_drivers(
     """
     src = source or WeatherSource(paths=[])
     acc = dict(src.accumulation) | dict(accumulation or {})
-    var = select_roles(grid, ROLES, mapping=src.variables, units=src.units)
+    var = select_roles(grid, ROLES, mapping=src.variables, units=src.units, packed=True)
     step_s = float(step_of(grid.dataset["time"].values) / np.timedelta64(1, "s"))
-    speed = wind_speed(convert(var["eastward_wind"], var["eastward_wind"].attrs["units"], "m s-1"),
-                       convert(var["northward_wind"], var["northward_wind"].attrs["units"], "m s-1"))
+    u, v = decode(var["eastward_wind"]), decode(var["northward_wind"])
+    speed = wind_speed(convert(u, u.attrs["units"], "m s-1"), convert(v, v.attrs["units"], "m s-1"))
     deacc: dict[str, Deaccumulated] = {}
     for role in ("precipitation", "shortwave_radiation"):
-        a = acc.get(role, Accumulation())
-        deacc[role] = deaccumulate(var[role], kind=a.kind, reset_hour=a.reset_hour, name=var[role].attrs["source_name"])
+        a = acc.get(role) or acc.get(var[role].attrs["source_name"]) or Accumulation()
+        deacc[role] = deaccumulate(decode(var[role]), kind=a.kind, reset_hour=a.reset_hour, name=var[role].attrs["source_name"])
     fields = {
         "air_temperature": var["air_temperature"],
         "dewpoint": var["dewpoint_temperature"],
@@ -192,7 +192,7 @@ def zonal_long(grid: Grid, weights: ZoneWeights, *, accumulation: Accumulation |
             raise SourceError(f"weather grid {grid.label}: variable {name!r} has no 'units' attribute")
         parse_unit(unit)
         if sn in _AMOUNT_NAMES and accumulation is not None:
-            da = deaccumulate(da, kind=accumulation.kind, reset_hour=accumulation.reset_hour, name=str(name))
+            da = deaccumulate(decode(da), kind=accumulation.kind, reset_hour=accumulation.reset_hour, name=str(name))
         lazy[str(name)] = (zonal_mean(da.increments if hasattr(da, "increments") else da, weights), da)
         meta[str(name)] = (sn or str(name), by_sn.get(sn or ""), unit)
     cb = _DaskProgress(progress, "zonal: reading grid") if progress else None

@@ -53,7 +53,10 @@ def store_lock(fs: Any, root: str, *, timeout: float = 300.0, stale_after: float
         raise StoreError(f"store {root!r} is locked by another writer in this process; waited {timeout:.0f} s")
     try:
         if entry[1] == 0:
-            entry[2] = _acquire_local(path, root, timeout) if is_local(fs) else _acquire_remote(fs, path, root, timeout, stale_after)
+            if is_local(fs):
+                entry[2] = _acquire_local(path, root, timeout)
+            else:
+                entry[2] = _acquire_remote(fs, path, root, timeout, stale_after)
         entry[1] += 1
         try:
             yield

@@ -70,9 +70,7 @@ def read_units(schema: pa.Schema) -> dict[str, str]:
 
 def read_descriptions(schema: pa.Schema) -> dict[str, str]:
     """Per-column descriptions stored in a schema (field metadata ``description``)."""
-    return {
-        f.name: f.metadata[b"description"].decode() for f in schema if f.metadata and b"description" in f.metadata
-    }
+    return {f.name: f.metadata[b"description"].decode() for f in schema if f.metadata and b"description" in f.metadata}
 
 
 def _time_range(frame: pd.DataFrame, time_column: str | None) -> tuple[str | None, list[str | None]]:

@@ -86,9 +86,8 @@ def load_features(store: Store | str, lake: str, aoi: str | None = None, *, lead
     attrs = dict(frame.attrs)
     if aoi is not None:
         if aoi not in set(frame["aoi"].astype(str)):
-            raise StoreError(
-                f"lake {lake!r} has no features for AOI {aoi!r}; AOIs present: {sorted(frame['aoi'].astype(str).unique())}"
-            )
+            present = sorted(frame["aoi"].astype(str).unique())
+            raise StoreError(f"lake {lake!r} has no features for AOI {aoi!r}; AOIs present: {present}")
         frame = frame[frame["aoi"].astype(str) == aoi]
     if lead is not None:
         frame = frame[frame["lead_days"] == lead]

@@ -16,6 +16,7 @@ name                       what                                             unce
 ``beale_season``           Beale stratified by season                        root MSE
 ``beale_flow``             Beale stratified by flow (top 20 % of days)       root MSE
 ``fwmc``                   flow-weighted mean concentration x total flow     bootstrap 95 % interval
+``composite``              rating curve + interpolated log residuals         bootstrap 95 % interval
 =========================  ===============================================  ======================
 
 Every method warns when prediction days have flows outside the sampled range and when there are
@@ -37,6 +38,7 @@ from lakefeed.extract.load_estimation._common import (
     LoadEstimate,
     align,
 )
+from lakefeed.extract.load_estimation.composite import composite_load
 from lakefeed.extract.load_estimation.rating import RatingFit, design_matrix, rating_curve_load
 from lakefeed.extract.load_estimation.ratio import beale_load, beale_mean
 from lakefeed.extract.load_estimation.simple import fwmc_load, interpolation_load
@@ -51,6 +53,7 @@ __all__ = [
     "beale_load",
     "beale_mean",
     "compare_methods",
+    "composite_load",
     "design_matrix",
     "estimate_load",
     "fwmc_load",
@@ -69,6 +72,7 @@ METHODS: dict[str, tuple[_Estimator, dict[str, Any]]] = {
     "beale_season": (beale_load, {"strata": "season"}),
     "beale_flow": (beale_load, {"strata": "flow"}),
     "fwmc": (fwmc_load, {}),
+    "composite": (composite_load, {}),
 }
 
 
@@ -89,7 +93,9 @@ def estimate_load(
         raise ExtractError(f"unknown load estimation method {method!r}; choose one of {sorted(METHODS)}")
     func, fixed = METHODS[method]
     if func is not rating_curve_load:
-        options = {k: v for k, v in options.items() if k not in {"seasonal", "trend", "correction"}}
+        options.pop("correction", None)
+    if func not in (rating_curve_load, composite_load):
+        options = {k: v for k, v in options.items() if k not in {"seasonal", "trend"}}
     if func is not beale_load:
         options.pop("finite_population", None)
     return func(samples, flow, **{**fixed, **options}, min_samples=dict(min_samples or {}))

@@ -1,0 +1,109 @@
+"""Composite load estimator: log-log rating curve plus linearly interpolated residuals.
+
+The rating curve of :mod:`.rating` (ln L on ln Q, optional seasonal and trend terms) gives the
+systematic part; its log residuals at the sample days are interpolated linearly in time (held
+constant outside the sampled span) and added back, so the estimate passes through every sample
+and follows the flow between them. Being anchored to the observed loads, it needs no
+retransformation correction. Regression plus interpolated residuals did best in bootstrap
+comparisons of load methods under sparse sampling (Aulenbach & Hooper 2006; see PITFALLS.md).
+
+Uncertainty: a bootstrap over the samples (resampled with replacement, refitted, residuals
+re-interpolated; ``n_boot`` times, fixed seed) gives 95 % percentile intervals of the daily loads,
+the period loads and the total. Pure: no file I/O.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from lakefeed.extract.load_estimation._common import (
+    LoadEstimate,
+    Period,
+    align,
+    period_codes,
+    period_sums,
+    periods_frame,
+    standard_warnings,
+    summarise,
+)
+from lakefeed.extract.load_estimation.rating import decimal_year, design_matrix
+from lakefeed.extract.load_estimation.simple import _bootstrap_indices, _intervals
+from lakefeed.extract.loads import load_factor
+
+__all__ = ["composite_load"]
+
+
+def composite_load(
+    samples: pd.DataFrame,
+    flow: pd.Series,
+    *,
+    seasonal: bool = False,
+    trend: bool = False,
+    period: Period = "year",
+    min_samples: dict[str, int] | None = None,
+    n_boot: int = 300,
+    seed: int = 0,
+) -> LoadEstimate:
+    """Daily loads = exp(rating-curve fit + interpolated log residual), kg d-1.
+
+    Parameters
+    ----------
+    samples
+        ``date``, ``concentration`` (mg L-1), optional ``censored``; one row per date.
+    flow
+        Daily discharge, m3 s-1, DatetimeIndex.
+    seasonal, trend
+        Terms of the underlying rating curve.
+
+    Returns
+    -------
+    LoadEstimate (kind ``daily``) with bootstrap 95 % intervals; the sample-count threshold is the
+    rating curve's.
+    """
+    a = align(samples, flow)
+    kf = load_factor()
+    warnings = standard_warnings(a, "rating_curve", min_samples)
+    sample_load = a.conc * a.sample_flow * kf
+    use = (a.sample_flow > 0) & (sample_load > 0)
+    if (~use).any():
+        warnings.append(f"{int((~use).sum())} sample(s) with zero flow or zero concentration left out of the fit")
+    t_all = decimal_year(a.days)
+    pos = a.sample_pos[use].astype(float)
+    y = np.log(sample_load[use])
+    ln_q = np.log(a.sample_flow[use])
+    opts = {"ln_q_mean": float(ln_q.mean()), "t_mean": float(t_all[a.sample_pos[use]].mean())}
+    opts.update(seasonal=seasonal, trend=trend)
+    x_s = design_matrix(ln_q, t_all[a.sample_pos[use]], **opts)
+    positive = a.flow > 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x_d = design_matrix(np.log(np.where(positive, a.flow, 1.0)), t_all, **opts)
+    t = np.arange(len(a.days), dtype=float)
+
+    def predict(idx: np.ndarray) -> np.ndarray:
+        coef, *_ = np.linalg.lstsq(x_s[idx], y[idx], rcond=None)
+        resid = y[idx] - x_s[idx] @ coef
+        out = np.where(positive, np.exp(x_d @ coef + np.interp(t, pos[idx], resid)), 0.0)
+        return np.where(np.isnan(a.flow), np.nan, out)
+
+    daily = predict(np.arange(len(y)))
+    boot = np.stack([predict(i) for i in _bootstrap_indices(len(y), n_boot, seed)])  # loop over replicates
+    lo_d, hi_d, _ = _intervals(boot)
+    codes, bounds = period_codes(a.days, period)
+    pk = period_sums(daily, codes, len(bounds))[0]
+    plo, phi, pse = _intervals(period_sums(boot, codes, len(bounds)))
+    lo, hi, se = _intervals(boot.sum(axis=1))
+    return summarise(
+        a,
+        daily,
+        lo_d,
+        hi_d,
+        periods_frame(bounds, codes, a, pk, pse, plo, phi),
+        method="composite",
+        kind="daily",
+        se_kg=float(se),
+        lower_kg=float(lo),
+        upper_kg=float(hi),
+        uncertainty=f"bootstrap over samples ({n_boot} resamples), 95 % percentile interval",
+        warnings=warnings,
+    )

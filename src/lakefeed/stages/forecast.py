@@ -1,0 +1,302 @@
+"""Stage ``forecast``: archived forecasts -> daily drivers per lead, bias adjustment, evaluation, re-forecast rows.
+
+Takes a :class:`~lakefeed.config.Project` (its ``forecast`` source) and a :class:`~lakefeed.store.Store`
+that already holds ``drivers_daily`` (the weather stage) and, for re-forecast rows, ``features`` and
+``target_daily``. Reads the forecast archive (:mod:`lakefeed.sources.forecasts`), builds the lake's
+zones and exact weights on the forecast grid (cached like the reanalysis'), de-accumulates, aggregates
+to zones with the reanalysis' machinery and to local days per lead, fits and applies the quantile
+mapping without look-ahead (monthly expanding refits) and writes:
+
+- ``forecast_drivers_daily``: keys ``zone, issue_date, lead_days, adjustment`` (``raw`` or
+  ``quantile_mapping``), then ``issue_time, date``, the ``drivers_daily`` columns, ``flags`` and
+  ``fitted_through`` (last reanalysis date the adjustment's fit used);
+- ``bias_adjustment``: the quantile table fitted on the whole overlap (reused by later runs while the
+  reanalysis has not advanced and the settings are unchanged; used for forecasts issued after it);
+- ``forecast_evaluation``: the before/after table per variable and lead (out-of-sample);
+- ``features``: re-forecast rows (leads ``features.forecast_leads``) appended to the hindcast rows.
+
+Must not hold science (that is in ``extract``/``features``).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from lakefeed.config import Project
+from lakefeed.config.sources import Accumulation, ForecastSource, WeatherSource
+from lakefeed.exceptions import ExtractError
+from lakefeed.extract.daily import DAILY_UNITS
+from lakefeed.extract.forecast_daily import check_increments, deaccumulate_forecast, to_daily_by_lead
+from lakefeed.extract.forecast_evaluation import bias_table, expanding_adjustment, leave_one_year_out, overlap_days
+from lakefeed.extract.quantile_mapping import DEFAULT_KINDS, fit_quantile_mapping
+from lakefeed.features import assign_folds
+from lakefeed.features.reforecast import reforecast_rows
+from lakefeed.geometry.zones import build_zones, zone_latitudes
+from lakefeed.sources.forecasts import ISSUE, LEAD, ForecastArchive, open_forecasts
+from lakefeed.sources.grids import find_variable
+from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages.weather import get_weights, hourly_drivers
+from lakefeed.store import Store
+from lakefeed.units import convert
+
+__all__ = ["adjust_forecasts", "build_forecast", "daily_forecasts", "fit_options"]
+
+ADJUSTED = "quantile_mapping"
+_AMOUNTS = ("precipitation", "shortwave_radiation")
+
+
+def fit_options(src: ForecastSource) -> dict[str, object]:
+    """Keyword arguments of :func:`~lakefeed.extract.quantile_mapping.fit_quantile_mapping` from the config."""
+    return {
+        "quantiles": src.quantiles,
+        "lead_groups": src.lead_groups,
+        "season": "month",
+        "month_window": src.month_window,
+        "wet_day_threshold": src.wet_day_threshold_mm,
+        "max_factor": src.max_factor,
+    }
+
+
+def _settings_hash(src: ForecastSource, variables: list[str]) -> str:
+    payload = {"options": fit_options(src), "variables": variables, "min_overlap_days": src.min_overlap_days}
+    return hashlib.sha256(json.dumps(payload, sort_keys=True, default=str).encode()).hexdigest()[:16]
+
+
+def daily_forecasts(
+    archive: ForecastArchive, project: Project, *, cache_dir: Path | None = None, progress: Progress | None = None
+) -> tuple[pd.DataFrame, list[str]]:
+    """Raw daily forecast drivers per zone, issue and lead (``drivers_daily`` columns and units) and warnings."""
+    lake, src = project.lake, project.sources.forecast or ForecastSource(paths=[])
+    ds = archive.dataset
+    warnings: list[str] = []
+    for role in _AMOUNTS:
+        name = find_variable(ds, role, mapping=src.variables, where=archive.label)
+        # keyed by role (as WEATHER_ROLES) or by the file's variable name
+        acc = src.accumulation.get(role) or src.accumulation.get(name) or Accumulation()
+        inc, bad = deaccumulate_forecast(ds[name], kind=acc.kind, name=name)
+        check_increments(bad.values, ds[ISSUE].values, ds[LEAD].values, name=name)
+        ds = ds.assign({name: inc})
+    grid = archive.as_grid(ds)
+    lake_g = read_layer(lake.lake, what="lake polygon")
+    aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
+    subs = None
+    if lake.zones.catchment or lake.zones.subbasins:
+        subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
+    zones = build_zones(lake_g, aois=aois, aoi_id_field=lake.aois.id_field, subbasins=subs,
+                        subbasin_layer=lake.subbasins, options=lake.zones, crs=grid.crs)  # fmt: skip
+    weights, _ = get_weights(zones, grid, cache_dir=cache_dir, allow_partial_coverage=lake.zones.allow_partial_coverage)
+    as_is = {role: Accumulation(kind="none") for role in _AMOUNTS}  # de-accumulated above, along the lead
+    wsrc = WeatherSource(paths=[], variables=src.variables, units=src.units)
+    steps, clipped = hourly_drivers(grid, weights, source=wsrc, accumulation=as_is, progress=progress)
+    warnings += [f"{k}: {n} forecast value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
+    shape = (ds.sizes[ISSUE], ds.sizes[LEAD], len(weights.zones))
+    cube = xr.Dataset(
+        {k: ((ISSUE, LEAD, "zone"), np.asarray(v.values).reshape(shape)) for k, v in steps.data_vars.items()},
+        coords={ISSUE: ds[ISSUE].values, LEAD: ds[LEAD].values, "zone": list(weights.zones)},
+    )
+    flags = {z: weights.flags(z) for z in weights.zones}
+    daily = to_daily_by_lead(cube, tz=lake.timezone, latitude=zone_latitudes(zones), zone_flags=flags)
+    return daily, warnings
+
+
+def _reference(store: Store, lake: str) -> pd.DataFrame:
+    ref = store.read_table("drivers_daily", lake)
+    units = ref.attrs.get("units", {})
+    ref = ref.drop(columns=["lake"], errors="ignore")
+    ref["date"] = pd.to_datetime(ref["date"])
+    for col, unit in DAILY_UNITS.items():
+        have = units.get(col)
+        if col in ref.columns and have and have != unit:
+            ref[col] = convert(ref[col].astype(float), have, unit)  # raises SourceError when not convertible
+    return ref
+
+
+def adjust_forecasts(
+    raw: pd.DataFrame,
+    reference: pd.DataFrame,
+    src: ForecastSource,
+    *,
+    stored: pd.DataFrame | None = None,
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, dict[str, object]]:
+    """Adjusted forecasts (no look-ahead), the whole-overlap quantile table, the evaluation table, info."""
+    variables = [v for v in DEFAULT_KINDS if v in raw.columns and v in reference.columns]
+    have = overlap_days(raw, reference, variables)
+    if have < src.min_overlap_days:
+        raise ExtractError(
+            f"forecast bias adjustment: the forecasts and the reanalysis overlap on {have} day(s), fewer than "
+            f"forecast.min_overlap_days = {src.min_overlap_days} in sources.yaml; extend the reanalysis or the "
+            "forecast archive, or lower min_overlap_days (at least a year is advisable)"
+        )
+    options = fit_options(src)
+    end = pd.Timestamp(reference["date"].max())
+    settings = _settings_hash(src, variables)
+
+    def reuse(start: pd.Timestamp) -> pd.DataFrame | None:
+        if stored is None or stored.empty or start != end + pd.Timedelta(days=1):
+            return None
+        same = stored["settings"].iat[0] == settings and pd.Timestamp(stored["fitted_through"].iat[0]) == end
+        return stored.drop(columns=["settings", "fitted_through"]) if same else None
+
+    res = expanding_adjustment(raw, reference, variables=variables, min_overlap_days=src.min_overlap_days,
+                               options=options, reuse=reuse)  # fmt: skip
+    final = reuse(end + pd.Timedelta(days=1))
+    reused = final is not None
+    if final is None:
+        final = fit_quantile_mapping(raw, reference, variables=variables, **options)
+    final = final.assign(settings=settings, fitted_through=end)
+    adj = res.adjusted
+    if "relative_humidity_mean" in adj:
+        adj["relative_humidity_mean"] = adj["relative_humidity_mean"].clip(0.0, 100.0)
+    if {"shortwave_radiation_mean", "clear_sky_radiation"} <= set(adj.columns):
+        cs = adj["clear_sky_radiation"].where(adj["clear_sky_radiation"] > 0)
+        adj["radiation_ratio"] = adj["shortwave_radiation_mean"] / cs
+    done = adj[variables].notna().any(axis=1).to_numpy()
+    evaluation = bias_table(raw[done], adj[done], reference, variables=variables, units=DAILY_UNITS)
+    if pd.DatetimeIndex(raw["issue_date"]).year.nunique() >= 2:
+        loyo = leave_one_year_out(raw, reference, variables=variables, min_overlap_days=src.min_overlap_days,
+                                  options=options)  # fmt: skip
+        ok = loyo[variables].notna().any(axis=1).to_numpy()
+        evaluation = pd.concat([evaluation, bias_table(raw[ok], loyo[ok], reference, variables=variables,
+                                                       units=DAILY_UNITS, method="leave_one_year_out")])  # fmt: skip
+    info = {"unadjusted_issues": len(res.unadjusted_issues), "fallback_rows": res.fallback_rows, "reused": reused,
+            "overlap_days": have, "variables": variables}  # fmt: skip
+    return adj, final, evaluation.reset_index(drop=True), info
+
+
+def _reforecast(
+    project: Project, store: Store, adjusted: pd.DataFrame, result: StageResult
+) -> tuple[pd.DataFrame, dict[str, str]] | None:
+    """Features table with the re-forecast rows appended (or None when it cannot be built yet)."""
+    from lakefeed.stages.features import load_drivers
+
+    lake, opts = project.lake, project.lake.features
+    if not (store.has_table("features", lake.id) and store.has_table("target_daily", lake.id)):
+        result.warnings.append("no features/target_daily table: re-forecast rows not built (run the features stage)")
+        return None
+    existing = store.read_table("features", lake.id)
+    units = dict(existing.attrs.get("units", {}))
+    existing = existing.drop(columns=["lake"], errors="ignore")
+    td = store.read_table("target_daily", lake.id)
+    targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
+    targets["aoi"] = targets["aoi"].astype(str)
+    targets["date"] = pd.to_datetime(targets["date"]).dt.normalize()
+    aois = sorted(targets["aoi"].unique())
+    wanted = list(opts.drivers) if opts.drivers else None
+    frames, _, _ = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
+    stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
+    blocks = []
+    for key, drivers in frames.items():
+        zone = f"aoi:{key}" if key is not None else opts.driver_zone
+        fc = adjusted[adjusted["zone"] == zone]
+        cols = [c for c in drivers.columns if c in fc.columns]
+        fc = fc[["issue_date", "date", *cols]].assign(
+            issue_date=lambda f: pd.to_datetime(f["issue_date"]), date=lambda f: pd.to_datetime(f["date"])
+        )
+        tg = targets if key is None else targets[targets["aoi"] == key]
+        blocks.append(
+            reforecast_rows(tg, drivers, fc, leads=opts.forecast_leads, windows=opts.windows, stats=stats or None,
+                            include_target_day=opts.include_target_day,
+                            max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
+        )
+    rows = pd.concat(blocks, ignore_index=True)
+    mine = existing["forecast_days"].notna() if "forecast_days" in existing else pd.Series(False, index=existing.index)
+    hind = existing.loc[~mine.to_numpy()]
+    clash = hind["lead_days"].isin(opts.forecast_leads)
+    if clash.any():
+        result.warnings.append(
+            f"{int(clash.sum())} hindcast feature row(s) at leads {sorted(set(hind.loc[clash, 'lead_days']))} "
+            "are replaced by re-forecast rows (features.leads and features.forecast_leads overlap)"
+        )
+        hind = hind.loc[~clash.to_numpy()]
+    folds = hind[["aoi", "target_date", "fold"]].drop_duplicates(["aoi", "target_date"]) if "fold" in hind else None
+    rows["target_date"] = pd.to_datetime(rows["target_date"])
+    rows["issue_date"] = pd.to_datetime(rows["issue_date"])
+    if folds is not None and len(folds):
+        folds = folds.assign(target_date=pd.to_datetime(folds["target_date"]))
+        rows = rows.merge(folds, on=["aoi", "target_date"], how="left")
+    if "fold" not in rows or rows["fold"].isna().any():
+        fresh = np.concatenate([assign_folds(g["target_date"], k=opts.folds, kind=opts.fold_kind,
+                                             embargo_days=opts.embargo_days) for _, g in rows.groupby("aoi")])  # fmt: skip
+        order = np.concatenate([g.index.to_numpy() for _, g in rows.groupby("aoi")])
+        filled = pd.Series(fresh, index=order).reindex(rows.index)
+        rows["fold"] = rows["fold"].fillna(filled) if "fold" in rows else filled
+    rows["fold"] = rows["fold"].astype(np.int16)
+    if "fold_kind" in hind:
+        rows["fold_kind"] = opts.fold_kind
+    out = pd.concat([hind, rows[[c for c in hind.columns if c in rows] + ["forecast_days", "forecast_fraction"]]],
+                    ignore_index=True)  # fmt: skip
+    out = out.sort_values(["aoi", "target_date", "lead_days"], kind="stable").reset_index(drop=True)
+    units |= {"forecast_days": "d", "forecast_fraction": "1", "lead_days": "d"}
+    return out, units
+
+
+def build_forecast(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+    """Build ``forecast_drivers_daily``, ``bias_adjustment``, ``forecast_evaluation`` and re-forecast ``features``.
+
+    Examples
+    --------
+    >>> from lakefeed.config import load_project  # doctest: +SKIP
+    >>> build_forecast(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
+    """
+    p = progress or no_progress
+    lake, src = project.lake, project.sources.forecast
+    result = StageResult("forecast", lake.id)
+    if src is None:
+        result.skipped, result.reason = True, "no forecast source in sources.yaml"
+        return result
+    if not store.has_table("drivers_daily", lake.id):
+        result.skipped, result.reason = True, "no drivers_daily table for this lake; run the weather stage first"
+        return result
+    p("forecast: reading archive", 0, 5)
+    archive = open_forecasts(src.paths)
+    result.warnings += [f"forecast issue gap: {g}" for g in archive.issue_gaps]
+    cache = Path(store.root) / "_cache" / "weights"
+    raw, warn = daily_forecasts(archive, project, cache_dir=cache, progress=progress)
+    result.warnings += warn
+    p("forecast: bias adjustment", 2, 5)
+    reference = _reference(store, lake.id)
+    stored = None
+    if store.has_table("bias_adjustment", lake.id):
+        stored = store.read_table("bias_adjustment", lake.id).drop(columns=["lake"], errors="ignore")
+    adjusted, table, evaluation, info = adjust_forecasts(raw, reference, src, stored=stored)
+    if info["unadjusted_issues"]:
+        result.warnings.append(
+            f"{info['unadjusted_issues']} forecast issue(s) left unadjusted: fewer than "
+            f"min_overlap_days = {src.min_overlap_days} days of earlier overlap to fit on"
+        )
+    p("forecast: writing", 3, 5)
+    both = pd.concat([raw.assign(adjustment="raw", fitted_through=pd.NaT), adjusted.assign(adjustment=ADJUSTED)],
+                     ignore_index=True)  # fmt: skip
+    keys = ["zone", "issue_date", "lead_days", "adjustment", "issue_time", "date"]
+    both = both[keys + [c for c in both.columns if c not in keys]]
+    for c in ("issue_date", "date", "fitted_through"):
+        both[c] = pd.to_datetime(both[c]).dt.date
+    units = dict(DAILY_UNITS) | {"lead_days": "d"}
+    meta = {"settings": str(table["settings"].iat[0]), "overlap_days": str(info["overlap_days"]),
+            "bias_table_reused": str(info["reused"])}  # fmt: skip
+    store.write_table("forecast_drivers_daily", lake.id, both, units=units, metadata=meta, time_column="date")
+    tunits = {c: "see variable" for c in ("hist", "ref")} | {"quantile": "1", "lead_min": "d", "lead_max": "d"}
+    store.write_table("bias_adjustment", lake.id, table.assign(fitted_through=pd.Timestamp(table["fitted_through"].iat[0]).date()),
+                      units=tunits, metadata=meta, time_column=None)  # fmt: skip
+    store.write_table("forecast_evaluation", lake.id, evaluation, units={"lead_days": "d", "ks_raw": "1",
+                      "ks_adjusted": "1"}, metadata=meta, time_column=None)  # fmt: skip
+    result.tables = {"forecast_drivers_daily": len(both), "bias_adjustment": len(table),
+                     "forecast_evaluation": len(evaluation)}  # fmt: skip
+    p("forecast: re-forecast features", 4, 5)
+    feats = _reforecast(project, store, adjusted, result)
+    if feats is not None:
+        frame, funits = feats
+        entry = store.entry("features", lake.id) or {}
+        store.write_table("features", lake.id, frame, units=funits, metadata=entry.get("metadata"),
+                          inputs=entry.get("inputs"), config_hash=entry.get("config_hash"),
+                          time_column="target_date")  # fmt: skip
+        result.tables["features"] = len(frame)
+    p("forecast: done", 5, 5)
+    return result

@@ -1,0 +1,144 @@
+"""Hydrology, sample and scene checks on tiny files: the formats and the clear messages."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import _mini
+import pandas as pd
+
+from lakefeed.checks import CheckResult
+from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
+from lakefeed.config import HydrologySource, LakeConfig, SampleStation, SceneSource, load_lake
+
+DAYS = pd.date_range("2024-01-01", periods=5, freq="D")
+
+
+def bad(results: list[CheckResult]) -> list[str]:
+    return [r.message for r in results if not r.ok]
+
+
+def test_dsg_ids_variables_units_and_period(tmp_path: Path) -> None:
+    ds = _mini.hydrology_dataset(["a", "b"], DAYS)
+    ds["tp"].attrs["units"] = "mmol m-3"  # molar concentrations are accepted (converted with a molar mass)
+    ds["tn"].attrs["units"] = "m s-1"
+    ds.to_netcdf(tmp_path / "h.nc")
+    res, period = check_hydrology(HydrologySource(path=str(tmp_path / "h.nc")), required_ids=["a", "b", "c"])
+    msgs = bad(res)
+    assert len(msgs) == 2
+    assert "h.nc: sub-basin(s) of the network missing from the hydrology outputs: ['c']" in msgs
+    assert "h.nc: tn has units 'm s-1' (units attribute), not convertible to mg L-1 or mmol m-3" in msgs
+    assert str(period) == "2024-01-01 .. 2024-01-05"
+
+
+def test_dsg_char_array_ids(tmp_path: Path) -> None:
+    ds = _mini.hydrology_dataset(["a1", "b2"], DAYS)
+    ds["station_id"] = (("station",), ds["station_id"].values.astype("S2"), {"cf_role": "timeseries_id"})
+    ds.to_netcdf(tmp_path / "h.nc", encoding={"station_id": {"dtype": "S1"}})
+    res, _ = check_hydrology(HydrologySource(path=str(tmp_path / "h.nc")), required_ids=["a1", "b2"])
+    assert not bad(res)
+
+
+def test_dsg_missing_file_and_variable(tmp_path: Path) -> None:
+    res, _ = check_hydrology(HydrologySource(path=str(tmp_path / "none.nc")), required_ids=[])
+    assert bad(res) == [f"hydrology.path: file not found: {tmp_path / 'none.nc'}"]
+    _mini.hydrology_dataset(["a"], DAYS).drop_vars("tp").to_netcdf(tmp_path / "h.nc")
+    res, _ = check_hydrology(HydrologySource(path=str(tmp_path / "h.nc")), required_ids=["a"])
+    assert any("variable 'tp' for 'tp' (hydrology.variables.tp) not in the file" in m for m in bad(res))
+
+
+def test_wide_csv_needs_units_and_columns(tmp_path: Path) -> None:
+    frame = pd.DataFrame({"date": DAYS.strftime("%Y-%m-%d"), "a": 1.0, "b": 2.0})
+    for role in ("discharge", "tn", "tp"):
+        frame.to_csv(tmp_path / f"{role}.csv", index=False)
+    files = {r: str(tmp_path / f"{r}.csv") for r in ("discharge", "tn", "tp")}
+    src = HydrologySource(format="wide_csv", files=files, units={"discharge": "m3 s-1", "tn": "mg L-1"})
+    res, period = check_hydrology(src, required_ids=["a", "b"])
+    assert bad(res) == ["tp.csv: tp has no units"]
+    assert str(period) == "2024-01-01 .. 2024-01-05"
+
+
+def test_long_table(tmp_path: Path) -> None:
+    rows = [(d, s, v, 1.0) for d in DAYS for s in ("a", "b") for v in ("discharge", "tn")]
+    pd.DataFrame(rows, columns=["date", "subbasin", "variable", "value"]).to_parquet(tmp_path / "h.parquet")
+    units = {"discharge": "m3 s-1", "tn": "mg L-1"}
+    src = HydrologySource(format="long", path=str(tmp_path / "h.parquet"), units=units)
+    res, _ = check_hydrology(src, required_ids=["a", "b", "c"])
+    assert sorted(bad(res)) == [
+        "h.parquet: no rows for variable 'tp' (tp)",
+        "h.parquet: sub-basin(s) of the network missing from the hydrology outputs: ['c']",
+    ]
+
+
+def test_samples(tmp_path: Path) -> None:
+    pd.DataFrame({"date": ["2024-01-02", "2024-03-01"], "nutrient": "tp", "concentration": 0.1}).to_csv(
+        tmp_path / "s.csv", index=False
+    )
+    ok = SampleStation(id="st", path=str(tmp_path / "s.csv"), subbasin="a")
+    res, period = check_samples([ok], subbasin_ids=["a"])
+    assert not bad(res) and str(period) == "2024-01-02 .. 2024-03-01"
+    wrong = SampleStation(id="st", path=str(tmp_path / "s.csv"), subbasin="q")
+    missing = SampleStation(id="gone", path=str(tmp_path / "none.csv"))
+    res, _ = check_samples([wrong, missing], subbasin_ids=["a"])
+    assert bad(res) == [
+        "samples[0].subbasin: 'q' is not a sub-basin id of the network",
+        f"samples[1].path: file not found: {tmp_path / 'none.csv'}",
+    ]
+
+
+def _lake(tmp_path: Path, sensors: dict) -> LakeConfig:
+    import yaml
+
+    cfg = {**_mini.LAKE_YAML, "sensors": sensors}
+    path = tmp_path / "lake.yaml"
+    path.write_text(yaml.safe_dump(cfg))
+    return load_lake(path)
+
+
+def test_stac_catalogue_sensors_and_assets(tmp_path: Path) -> None:
+    _mini.write_scenes(tmp_path / "scenes", [("2024-01-02", "kite"), ("2024-01-04", "dune"), ("2024-01-09", "kite")])
+    lake = _lake(tmp_path, {"kite": {"pixel_size_m": 20}, "owl": {"pixel_size_m": 10}})
+    res, period = check_scenes(SceneSource(catalog=str(tmp_path / "scenes" / "catalog.json")), lake)
+    assert "catalog.json: 3 items" in res[0].message
+    assert bad(res) == ["catalog.json: configured sensor(s) ['owl'] have no scenes; found dune: 1, kite: 2"]
+    assert [r.message for r in res if r.status == "warning"] == [
+        "catalog.json: scenes of sensor(s) ['dune'] are not configured and will be ignored"
+    ]
+    assert str(period) == "2024-01-02 .. 2024-01-09"
+    # sensor_map renames labels
+    src = SceneSource(catalog=str(tmp_path / "scenes" / "catalog.json"), sensor_map={"dune": "owl"})
+    res, _ = check_scenes(src, lake)
+    assert not bad(res)
+
+
+def test_stac_unreadable_and_missing_asset(tmp_path: Path) -> None:
+    lake = _lake(tmp_path, {"kite": {"pixel_size_m": 20}})
+    (tmp_path / "broken.json").write_text("{not json")
+    res, _ = check_scenes(SceneSource(catalog=str(tmp_path / "broken.json")), lake)
+    assert bad(res)[0].startswith("broken.json: not a readable STAC file")
+    _mini.write_scenes(tmp_path / "scenes", [("2024-01-02", "kite")])
+    for f in (tmp_path / "scenes" / "data").rglob("*.tif"):
+        f.unlink()
+    res, _ = check_scenes(SceneSource(catalog=str(tmp_path / "scenes" / "catalog.json")), lake)
+    assert any("asset file not found" in m for m in bad(res))
+
+
+def test_scene_folder_with_pattern(tmp_path: Path) -> None:
+    folder = tmp_path / "tifs"
+    folder.mkdir()
+    for name in ("kite_2024-01-02.tif", "kite_2024-01-07.tif", "notes.tif"):
+        (folder / name).write_bytes(b"x")
+    lake = _lake(tmp_path, {"kite": {"pixel_size_m": 20}})
+    src = SceneSource(folder=str(folder), filename_pattern=r"(?P<sensor>[a-z]+)_(?P<date>\d{4}-\d{2}-\d{2})")
+    res, period = check_scenes(src, lake)
+    assert not bad(res) and "2 scenes (1 ignored)" in res[0].message
+    assert str(period) == "2024-01-02 .. 2024-01-07"
+
+
+def test_catalogue_json_is_not_rewritten(tmp_path: Path) -> None:
+    _mini.write_scenes(tmp_path / "scenes", [("2024-01-02", "kite")])
+    cat = tmp_path / "scenes" / "catalog.json"
+    before = json.loads(cat.read_text())
+    check_scenes(SceneSource(catalog=str(cat)), _lake(tmp_path, {"kite": {"pixel_size_m": 20}}))
+    assert json.loads(cat.read_text()) == before
