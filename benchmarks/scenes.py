@@ -42,8 +42,18 @@ def make_data(n: int, size: int) -> Path:
     if len(list(folder.glob("*_chla.tif"))) >= n:
         return folder
     folder.mkdir(parents=True, exist_ok=True)
-    profile = dict(driver="GTiff", width=size, height=size, count=1, crs="EPSG:32632", tiled=True, blockxsize=256,
-                   blockysize=256, compress="deflate", transform=Affine(RES, 0, X0, 0, -RES, Y0))  # fmt: skip
+    profile = dict(
+        driver="GTiff",
+        width=size,
+        height=size,
+        count=1,
+        crs="EPSG:32632",
+        tiled=True,
+        blockxsize=256,
+        blockysize=256,
+        compress="deflate",
+        transform=Affine(RES, 0, X0, 0, -RES, Y0),
+    )
     rng = np.random.default_rng(0)
     templates = []
     for k in range(4):  # four distinct scenes, copied to n files
@@ -88,7 +98,7 @@ def run_lakefeed(folder: Path, n: int) -> dict:
     for i in range(n):
         v, q = folder / f"s{i:04d}_chla.tif", folder / f"s{i:04d}_quality.tif"
         win = reader.read(f"s{i}", str(v), str(q), None, shore_buffer_m=0)
-        pixels = int(win.window.width * win.window.height)
+        pixels = win.pixels_read
         for aoi in ("intake", "bay", "open"):
             px = win.pixels[aoi]
             medians.append(aoi_statistics(px.values, px.quality, nodata=win.nodata)["median"])
@@ -149,7 +159,9 @@ def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--n", type=int, default=200)
     p.add_argument("--size", type=int, default=2000)
-    p.add_argument("--big", type=int, default=0, help="also run lakefeed on min(n, 50) scenes of this size (memory check)")
+    p.add_argument(
+        "--big", type=int, default=0, help="also run lakefeed on min(n, 50) scenes of this size (memory check)"
+    )
     p.add_argument("--child", choices=["lakefeed", "rioxarray"])
     p.add_argument("--folder", type=Path)
     a = p.parse_args()
@@ -165,16 +177,21 @@ def main() -> None:
     agree = np.allclose(lf["medians"], rx["medians"], rtol=1e-6, equal_nan=True)
     print(f"{'route':<12}{'scenes/s':>10}{'s total':>10}{'peak RSS MiB':>14}{'px read/band':>14}")
     for name, r in (("lakefeed", lf), ("rioxarray", rx)):
-        print(f"{name:<12}{a.n / r['seconds']:>10.1f}{r['seconds']:>10.2f}{r['peak_rss_mib']:>14.0f}"
-              f"{r['pixels_read_per_band']:>14}")  # fmt: skip
+        print(
+            f"{name:<12}{a.n / r['seconds']:>10.1f}{r['seconds']:>10.2f}{r['peak_rss_mib']:>14.0f}"
+            f"{r['pixels_read_per_band']:>14}"
+        )
     print(f"speed ratio lakefeed / rioxarray: {rx['seconds'] / lf['seconds']:.1f}x; medians agree: {agree}")
     if a.big:
         nb = min(a.n, 50)
         big = make_data(nb, a.big)
         _warm(big)
         lb = _spawn("lakefeed", big, nb)
-        print(f"lakefeed on {nb} scenes of {a.big}x{a.big} px: {nb / lb['seconds']:.1f} scenes/s, peak RSS {lb['peak_rss_mib']:.0f} MiB "
-              f"(vs {lf['peak_rss_mib']:.0f} MiB at {a.size} px)")  # fmt: skip
+        print(
+            f"lakefeed on {nb} scenes of {a.big}x{a.big} px: {nb / lb['seconds']:.1f} scenes/s, "
+            f"peak RSS {lb['peak_rss_mib']:.0f} MiB "
+            f"(vs {lf['peak_rss_mib']:.0f} MiB at {a.size} px)"
+        )
 
 
 if __name__ == "__main__":

@@ -1,7 +1,7 @@
 """A tiny, complete lake configuration built in code (for check tests; no generator needed).
 
 Everything is invented: lake ``mini`` in EPSG:32632, 3 AOIs, 4 sub-basins (a and c drain
-into the lake, b into a, d elsewhere), a 0.1-degree hourly weather grid in two files, CF
+into the lake, b into a, d elsewhere), a 0.1-degree hourly weather grid in two back-to-back files, CF
 timeSeries hydrology, a sample station, a STAC catalogue with two sensors and a forecast
 archive. Sizes are a few kB.
 """
@@ -193,11 +193,11 @@ def build(root: Path) -> Path:
     write_layer(aoi_layer(), root / "geometry" / "aois.gpkg")
     write_layer(subbasin_layer(), root / "geometry" / "subbasins.gpkg")
     (root / "weather").mkdir(parents=True)
-    for month in ("2024-01", "2024-02"):
-        t = pd.date_range(f"{month}-01", periods=48, freq="h")
-        weather_dataset(t).to_netcdf(root / "weather" / f"reanalysis_{month}.nc")
+    for day in ("2024-01-01", "2024-01-03"):  # two files of 48 hourly steps, back to back
+        t = pd.date_range(day, periods=48, freq="h")
+        weather_dataset(t).to_netcdf(root / "weather" / f"reanalysis_{day}.nc")
     (root / "forecast").mkdir()
-    forecast_dataset(pd.date_range("2024-01-05", periods=3, freq="D")).to_netcdf(
+    forecast_dataset(pd.date_range("2024-01-02", periods=3, freq="D")).to_netcdf(
         root / "forecast" / "forecast_2024-01.nc"
     )
     (root / "hydrology").mkdir()

@@ -135,3 +135,22 @@ def test_zone_in_the_no_data_region() -> None:
     )
     assert not lake_res.ok and "lake: 1 of 1 cells are no-data (NaN)" in lake_res.message
     assert catch_res.status == "warning" and "catchment: 1 of 9 cells are no-data" in catch_res.message
+
+
+def test_weather_files_gap_overlap_and_odd_grid(tmp_path: Path) -> None:
+    from lakefeed.checks._open import scan_files
+
+    t = pd.date_range("2024-01-01", periods=24, freq="h")
+    for name, times in (("w1.nc", t), ("w3.nc", t + pd.Timedelta(days=3))):
+        _mini.weather_dataset(times).to_netcdf(tmp_path / name)
+    files = [tmp_path / "w1.nc", tmp_path / "w3.nc"]
+    res, period = scan_files(files, "time", section="weather")
+    assert str(period) == "2024-01-01 .. 2024-01-04"
+    (gap,) = [r for r in res if r.status == "warning"]
+    # the first file ends 2024-01-01 23:00, the second starts 2024-01-04 00:00: 48 hourly steps are missing
+    assert "gap from 2024-01-01 23:00:00 (w1.nc) to 2024-01-04 00:00:00 (w3.nc): 2 days 00:00:00 missing" in gap.message
+    _mini.weather_dataset(t + pd.Timedelta(hours=12), lon0=8.6).to_netcdf(tmp_path / "w2.nc")
+    res, _ = scan_files([*files, tmp_path / "w2.nc"], "time", section="weather")
+    msgs = [r.message for r in res]
+    assert any(m.startswith("w2.nc: grid or variables differ from w1.nc") for m in msgs)
+    assert any("w2.nc starts at 2024-01-01 12:00:00, before w1.nc ends" in m for m in msgs)

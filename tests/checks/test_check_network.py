@@ -102,3 +102,11 @@ def test_outside_ids_are_case_insensitive_with_common_defaults() -> None:
     defaults = SubbasinLayer(path="x.gpkg").outside_ids
     rep = check_network(["a", "b", "c"], ["LAKE", "outside", "-1"], lake_id="LAKE", outside_ids=defaults)
     assert rep.problems == [] and rep.outside == ["b", "c"]
+
+
+def test_misspelt_lake_id_is_pointed_at() -> None:
+    rep = check_network(["a"], ["LAKE"], lake_id="LAKES")
+    assert rep.problems == [
+        "dangling downstream id 'LAKE' (of sub-basin(s) 'a'): no sub-basin has that id "
+        "(subbasins.lake_id is 'LAKES', which no sub-basin drains into)"
+    ]

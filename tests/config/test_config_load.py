@@ -113,6 +113,9 @@ def test_unknown_time_zone(tmp_path: Path) -> None:
     with pytest.raises(ConfigError) as err:
         load_lake(write(tmp_path, {**LAKE, "timezone": "Europe/Atlantis"}))
     assert "timezone (line 3): unknown time zone 'Europe/Atlantis'" in problems(err)
+    with pytest.raises(ConfigError) as err:
+        load_lake(write(tmp_path, {**LAKE, "timezone": "Europe/Berln"}))
+    assert "did you mean 'Europe/Berlin'" in problems(err)
 
 
 def test_unknown_time_zone_of_the_weather(tmp_path: Path) -> None:

@@ -94,10 +94,15 @@ def test_inverse_variance_hand_worked() -> None:
     sigma = 1 / sqrt(1.25) = 0.894427."""
     mean, sigma = inverse_variance_mean(np.array([10.0, 12.0]), np.array([1.0, 2.0]))
     assert mean == pytest.approx(10.4) and sigma == pytest.approx(0.894427191)
-    obs = pd.DataFrame({
-        "aoi": ["a", "a", "a", "b"], "date": [dt.date(2024, 6, 1)] * 3 + [dt.date(2024, 6, 1)],
-        "sensor": ["kite", "dune", "dune", "dune"], "value": [10.0, 12.0, 9.0, 4.0], "sigma": [1.0, 2.0, np.nan, 0.5],
-    })  # fmt: skip
+    obs = pd.DataFrame(
+        {
+            "aoi": ["a", "a", "a", "b"],
+            "date": [dt.date(2024, 6, 1)] * 3 + [dt.date(2024, 6, 1)],
+            "sensor": ["kite", "dune", "dune", "dune"],
+            "value": [10.0, 12.0, 9.0, 4.0],
+            "sigma": [1.0, 2.0, np.nan, 0.5],
+        }
+    )
     fused = fuse_daily(obs).set_index("aoi")
     assert fused.loc["a", "chla"] == pytest.approx(10.4) and fused.loc["a", "chla_uncertainty"] == pytest.approx(
         0.894427191
@@ -108,8 +113,18 @@ def test_inverse_variance_hand_worked() -> None:
 
 def test_apply_bias_ratio_and_sigma() -> None:
     obs = pd.DataFrame({"sensor": ["dune", "kite"], "median": [13.0, 10.0], "relative_sigma": [0.3, 0.4]})
-    fits = pd.DataFrame({"sensor": ["dune", "kite"], "model": "ratio", "ratio": [1.3, 1.0], "ln_ratio_se": [0.4, 0.0],
-                         "slope": np.nan, "intercept": np.nan, "se": np.nan, "adjusted": [True, False]})  # fmt: skip
+    fits = pd.DataFrame(
+        {
+            "sensor": ["dune", "kite"],
+            "model": "ratio",
+            "ratio": [1.3, 1.0],
+            "ln_ratio_se": [0.4, 0.0],
+            "slope": np.nan,
+            "intercept": np.nan,
+            "se": np.nan,
+            "adjusted": [True, False],
+        }
+    )
     adj = apply_bias(obs, fits)
     assert adj["value"].tolist() == pytest.approx([10.0, 10.0])
     assert adj["sigma"].tolist() == pytest.approx([10.0 * 0.5, 10.0 * 0.4])  # sqrt(0.3^2 + 0.4^2) = 0.5

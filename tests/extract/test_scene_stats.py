@@ -16,7 +16,7 @@ from lakefeed.extract.scene_stats import aoi_statistics, shore_buffered, valid_m
 from lakefeed.sources.scenes import SceneReader
 
 sys.path.insert(0, str(Path(__file__).parents[1] / "sources"))
-from scene_factory import ORIGIN, write_tif  # noqa: E402
+from scene_factory import ORIGIN, write_tif
 
 X0, Y0 = ORIGIN
 
@@ -35,8 +35,9 @@ def test_statistics_equal_rasterstats_with_centre_rule(tmp_path: Path) -> None:
     win = SceneReader(aois, id_field="aoi_id").read("s", str(path), shore_buffer_m=0)
     px = win.pixels["p"]
     ours = aoi_statistics(px.values, nodata=win.nodata)
-    ref = zonal_stats([poly], str(path), all_touched=False, nodata=-9999.0,
-                      stats="count mean median std percentile_10 percentile_90")[0]  # fmt: skip
+    ref = zonal_stats(
+        [poly], str(path), all_touched=False, nodata=-9999.0, stats="count mean median std percentile_10 percentile_90"
+    )[0]
     assert ours["n_valid"] == ref["count"] > 1000
     assert ours["mean"] == pytest.approx(ref["mean"], rel=1e-6)
     assert ours["median"] == pytest.approx(ref["median"], rel=1e-6)

@@ -62,8 +62,12 @@ def test_flag_outliers_per_aoi_and_sensor_on_logs() -> None:
     dune = 2 * kite.copy()  # a biased sensor: not an outlier relative to itself
     dune[15] = 2 * 5.0
     obs = pd.concat(
-        [pd.DataFrame({"aoi": "a", "sensor": s, "time": t, "median": v, "accepted": True}) for s, v in
-         [("kite", kite), ("dune", dune)]], ignore_index=True)  # fmt: skip
+        [
+            pd.DataFrame({"aoi": "a", "sensor": s, "time": t, "median": v, "accepted": True})
+            for s, v in [("kite", kite), ("dune", dune)]
+        ],
+        ignore_index=True,
+    )
     obs.loc[3, "accepted"] = False
     obs.loc[3, "median"] = 1000.0  # rejected rows are never flagged
     flags = flag_outliers(obs, window_days=11, threshold=3.5)

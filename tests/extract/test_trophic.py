@@ -26,7 +26,12 @@ def test_carlson_common_form_against_original_form() -> None:
 def test_carlson_classes_boundaries() -> None:
     """Carlson & Simpson (1996): < 40, 40-50, 50-70, > 70; a boundary belongs to the upper class."""
     assert carlson_class([39.99, 40.0, 50.0, 69.9, 70.0]).tolist() == [
-        "oligotrophic", "mesotrophic", "eutrophic", "eutrophic", "hypereutrophic"]  # fmt: skip
+        "oligotrophic",
+        "mesotrophic",
+        "eutrophic",
+        "eutrophic",
+        "hypereutrophic",
+    ]
 
 
 def test_oecd_boundaries_pinned_to_lower_class() -> None:
@@ -34,8 +39,17 @@ def test_oecd_boundaries_pinned_to_lower_class() -> None:
     in the lower class, so 8.0 is mesotrophic and 25.0 is eutrophic."""
     x = [0.5, 1.0, 1.01, 2.5, 2.51, 8.0, 8.01, 25.0, 25.01, np.nan]
     assert oecd_category(x).tolist() == [
-        "ultra-oligotrophic", "ultra-oligotrophic", "oligotrophic", "oligotrophic", "mesotrophic",
-        "mesotrophic", "eutrophic", "eutrophic", "hypertrophic", None]  # fmt: skip
+        "ultra-oligotrophic",
+        "ultra-oligotrophic",
+        "oligotrophic",
+        "oligotrophic",
+        "mesotrophic",
+        "mesotrophic",
+        "eutrophic",
+        "eutrophic",
+        "hypertrophic",
+        None,
+    ]
 
 
 def test_exceedance_flags_at_or_above() -> None:

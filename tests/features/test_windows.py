@@ -112,5 +112,8 @@ def test_default_statistics() -> None:
     """Sums for amounts, mean/min/max for temperatures, mean otherwise (common practice)."""
     assert default_statistics("precipitation_sum") == ["sum"]
     assert default_statistics("tp_load") == ["sum"]
+    assert default_statistics("tn_load_SB01") == ["sum"]
+    assert default_statistics("tn_fwmc") == ["mean"]
+    assert default_statistics("dewpoint_mean") == ["mean", "min", "max"]
     assert default_statistics("air_temperature_max") == ["mean", "min", "max"]
     assert default_statistics("inflow_discharge") == ["mean"]

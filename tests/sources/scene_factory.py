@@ -12,12 +12,26 @@ from affine import Affine
 ORIGIN = (500_000.0, 5_300_000.0)  # EPSG:32632, metres
 
 
-def write_tif(path: Path, data: np.ndarray, *, res: float = 20.0, crs: str | None = "EPSG:32632",
-              nodata: float | None = -9999.0, origin: tuple[float, float] = ORIGIN) -> Path:  # fmt: skip
+def write_tif(
+    path: Path,
+    data: np.ndarray,
+    *,
+    res: float = 20.0,
+    crs: str | None = "EPSG:32632",
+    nodata: float | None = -9999.0,
+    origin: tuple[float, float] = ORIGIN,
+) -> Path:
     """Write a single-band GeoTIFF, north-up, top-left corner at ``origin``."""
     path.parent.mkdir(parents=True, exist_ok=True)
-    profile = dict(driver="GTiff", width=data.shape[1], height=data.shape[0], count=1, dtype=data.dtype,
-                   transform=Affine(res, 0.0, origin[0], 0.0, -res, origin[1]), nodata=nodata)  # fmt: skip
+    profile = dict(
+        driver="GTiff",
+        width=data.shape[1],
+        height=data.shape[0],
+        count=1,
+        dtype=data.dtype,
+        transform=Affine(res, 0.0, origin[0], 0.0, -res, origin[1]),
+        nodata=nodata,
+    )
     if crs is not None:
         profile["crs"] = crs
     with rasterio.open(path, "w", **profile) as dst:
@@ -25,19 +39,30 @@ def write_tif(path: Path, data: np.ndarray, *, res: float = 20.0, crs: str | Non
     return path
 
 
-def write_item(folder: Path, scene_id: str, *, datetime: str | None, sensor: str | None,
-               assets: dict[str, str], extra: dict | None = None) -> Path:  # fmt: skip
+def write_item(
+    folder: Path,
+    scene_id: str,
+    *,
+    datetime: str | None,
+    sensor: str | None,
+    assets: dict[str, str],
+    extra: dict | None = None,
+) -> Path:
     """Write a STAC Item JSON; ``assets`` maps keys to hrefs (key ``chla`` gets role data)."""
     props: dict = {"datetime": datetime}
     if sensor is not None:
         props["constellation"] = sensor
     props.update(extra or {})
     item = {
-        "type": "Feature", "stac_version": "1.0.0", "id": scene_id, "properties": props,
+        "type": "Feature",
+        "stac_version": "1.0.0",
+        "id": scene_id,
+        "properties": props,
         "geometry": {"type": "Polygon", "coordinates": [[[9, 47], [9.1, 47], [9.1, 47.1], [9, 47]]]},
-        "bbox": [9, 47, 9.1, 47.1], "links": [],
+        "bbox": [9, 47, 9.1, 47.1],
+        "links": [],
         "assets": {k: {"href": v, "roles": ["data"] if k == "chla" else [k]} for k, v in assets.items()},
-    }  # fmt: skip
+    }
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / f"{scene_id}.json"
     path.write_text(json.dumps(item))

@@ -34,10 +34,17 @@ def _scene(tmp: Path, name: str = "s", n: int = 100, res: float = 20.0, **kw) ->
 def test_catalog_and_item_folder_list_the_same_scenes(tmp_path: Path) -> None:
     v = _scene(tmp_path)
     items = [
-        write_item(tmp_path / "items", "k1", datetime="2024-06-02T10:00:00Z", sensor="kite",
-                   assets={"chla": str(v), "quality": str(v)}),
-        write_item(tmp_path / "items", "d1", datetime="2024-06-01T09:00:00+02:00", sensor="dune", assets={"chla": str(v)}),
-    ]  # fmt: skip
+        write_item(
+            tmp_path / "items",
+            "k1",
+            datetime="2024-06-02T10:00:00Z",
+            sensor="kite",
+            assets={"chla": str(v), "quality": str(v)},
+        ),
+        write_item(
+            tmp_path / "items", "d1", datetime="2024-06-01T09:00:00+02:00", sensor="dune", assets={"chla": str(v)}
+        ),
+    ]
     cat = list_scenes(write_catalog(tmp_path, items))
     folder = list_scenes(tmp_path / "items")
     assert list(cat["scene_id"]) == ["d1", "k1"] == list(folder["scene_id"])  # sorted by time
@@ -66,8 +73,14 @@ def test_interval_item_uses_midpoint(tmp_path: Path) -> None:
 def test_sensor_label_asset_choice_and_sensor_map(tmp_path: Path) -> None:
     v = _scene(tmp_path)
     write_item(tmp_path / "items", "nos", datetime="2024-06-01T10:00:00Z", sensor=None, assets={"chla": str(v)})
-    write_item(tmp_path / "items", "plat", datetime="2024-06-01T10:00:00Z", sensor=None,
-               assets={"other": str(v), "chla": str(v)}, extra={"platform": "kite-2b"})  # fmt: skip
+    write_item(
+        tmp_path / "items",
+        "plat",
+        datetime="2024-06-01T10:00:00Z",
+        sensor=None,
+        assets={"other": str(v), "chla": str(v)},
+        extra={"platform": "kite-2b"},
+    )
     src = SceneSource(catalog=str(tmp_path / "items"), sensor_property="platform", sensor_map={"kite-2b": "kite"})
     t = list_scenes(src).set_index("scene_id")
     assert "no sensor label" in t.loc["nos", "reason"]
@@ -88,8 +101,9 @@ def test_unreadable_json_and_missing_catalog(tmp_path: Path) -> None:
 def test_geotiff_folder_with_pattern(tmp_path: Path) -> None:
     for name in ["kite_20240601_chla.tif", "kite_20240601_quality.tif", "dune_20240602_chla.tif", "notes.txt"]:
         (tmp_path / name).write_bytes(b"")
-    src = SceneSource(folder=str(tmp_path),
-                      filename_pattern=r"(?P<sensor>[a-z]+)_(?P<date>\d{8})_(?P<asset>[a-z]+)\.tif")  # fmt: skip
+    src = SceneSource(
+        folder=str(tmp_path), filename_pattern=r"(?P<sensor>[a-z]+)_(?P<date>\d{8})_(?P<asset>[a-z]+)\.tif"
+    )
     t = list_scenes(src)
     assert list(t["scene_id"]) == ["kite_20240601", "dune_20240602"]
     assert t["quality_href"].iloc[0].endswith("kite_20240601_quality.tif")
@@ -116,11 +130,23 @@ def test_window_is_bounded_by_the_aoi_not_the_scene(tmp_path: Path, monkeypatch:
     aoi = (X0 + 2000, Y0 - 3000, X0 + 2200, Y0 - 2800)  # 200 m = 10 x 10 pixels
     win = SceneReader(_aois(aoi), id_field="aoi_id").read("s", str(v), str(v), str(v), shore_buffer_m=0)
     assert reads == [(10, 10)] * 3  # value, quality, uncertainty: 100 pixels each of 1e6
-    assert (win.window.height, win.window.width) == (10, 10)
+    assert [(w.height, w.width) for w in win.windows] == [(10, 10)] and win.pixels_read == 100
     px = win.pixels["a0"]
     assert px.values.size == 100
     # pixel (row 140, col 100) is the top-left of the AOI; values are 1 + row * 1000 + col
     assert px.values.min() == 1 + 140 * 1000 + 100
+
+
+def test_far_apart_aois_get_their_own_windows(tmp_path: Path) -> None:
+    v = _scene(tmp_path, n=1000)
+    a = (X0 + 2000, Y0 - 3000, X0 + 2200, Y0 - 2800)
+    b = (X0 + 15000, Y0 - 16000, X0 + 15200, Y0 - 15800)
+    c = (X0 + 2100, Y0 - 3100, X0 + 2300, Y0 - 2900)  # overlaps a
+    win = SceneReader(_aois(a, b), id_field="aoi_id").read("s", str(v), shore_buffer_m=0)
+    assert win.pixels_read == 200 and len(win.windows) == 2  # not the 660 x 660 px common window
+    assert win.pixels["a1"].values.min() == 1 + 790 * 1000 + 750
+    near = SceneReader(_aois(a, c), id_field="aoi_id").read("s", str(v), shore_buffer_m=0)
+    assert len(near.windows) == 1 and near.pixels_read == 15 * 15
 
 
 def test_pixel_centre_rule(tmp_path: Path) -> None:
@@ -200,7 +226,7 @@ def test_bad_scene_files_are_recorded_and_others_go_on(tmp_path: Path) -> None:
                 reason="",
             )
             for k, (v, q) in cases.items()
-        ]  # fmt: skip
+        ]
     )
     reader = SceneReader(_aois((X0 + 200, Y0 - 1800, X0 + 1800, Y0 - 200)), id_field="aoi_id")
     out = {row["scene_id"]: (win, reason) for row, win, reason in read_scenes(scenes, reader)}

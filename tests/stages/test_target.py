@@ -19,7 +19,7 @@ from lakefeed.stages.target import build_target
 from lakefeed.store import Store
 
 sys.path.insert(0, str(Path(__file__).parents[1] / "sources"))
-from scene_factory import write_catalog, write_item, write_tif  # noqa: E402
+from scene_factory import write_catalog, write_item, write_tif
 
 X0, Y0 = 600_000.0, 5_200_000.0
 RATIO = 1.25  # planted dune / kite bias
@@ -33,8 +33,9 @@ def _project(tmp: Path, *, n_days: int = 40) -> Path:
         shapely.box(X0 + 1500, Y0 - 2800, X0 + 2800, Y0 - 1500),
     ]
     gpd.GeoDataFrame({"aoi_id": ["north", "south"]}, geometry=aois, crs=32632).to_file(tmp / "aois.gpkg")
-    gpd.GeoDataFrame({"subbasin_id": ["s1"], "downstream_id": ["LAKE"]}, geometry=[shapely.box(0, 0, 1, 1)],
-                     crs=32632).to_file(tmp / "sub.gpkg")  # fmt: skip
+    gpd.GeoDataFrame(
+        {"subbasin_id": ["s1"], "downstream_id": ["LAKE"]}, geometry=[shapely.box(0, 0, 1, 1)], crs=32632
+    ).to_file(tmp / "sub.gpkg")
     rng = np.random.default_rng(11)
     truth = 8 * np.exp(0.6 * np.sin(np.arange(n_days) / 6.0))
     items = []
@@ -50,28 +51,38 @@ def _project(tmp: Path, *, n_days: int = 40) -> Path:
                 quality[:] = 1  # fully clouded: rejected, kept
             sid = f"{sensor}_{date:%Y%m%d}"
             d = tmp / "scenes" / "data"
-            assets = {"chla": write_tif(d / f"{sid}_chla.tif", value, res=res, origin=(X0, Y0)),
-                      "quality": write_tif(d / f"{sid}_quality.tif", quality, res=res, origin=(X0, Y0), nodata=None)}  # fmt: skip
+            assets = {
+                "chla": write_tif(d / f"{sid}_chla.tif", value, res=res, origin=(X0, Y0)),
+                "quality": write_tif(d / f"{sid}_quality.tif", quality, res=res, origin=(X0, Y0), nodata=None),
+            }
             if day == 10 and sensor == "kite":
                 assets["chla"].write_bytes(b"corrupt")
-            items.append(write_item(tmp / "scenes" / "items", sid, datetime=f"{date:%Y-%m-%d}T22:30:00Z", sensor=sensor,
-                                    assets={k: str(v) for k, v in assets.items()}))  # fmt: skip
-    write_catalog(tmp / "scenes", items)
+            items.append(
+                write_item(
+                    tmp / "scenes" / "items",
+                    sid,
+                    datetime=f"{date:%Y-%m-%d}T22:30:00Z",
+                    sensor=sensor,
+                    assets={k: str(v) for k, v in assets.items()},
+                )
+            )
+    nodate = write_item(tmp / "scenes" / "items", "nodate", datetime=None, sensor="kite", assets={"chla": "x.tif"})
+    write_catalog(tmp / "scenes", [*items, nodate])
     (tmp / "sources.yaml").write_text(f"scenes:\n  catalog: {tmp}/scenes/catalog.json\n  asset: chla\n")
     (tmp / "lake.yaml").write_text(
-        f"""id: testlake
+        """id: testlake
 name: Test Lake
 timezone: Europe/Berlin
 sources: sources.yaml
-lake: {{path: lake.gpkg}}
-aois: {{path: aois.gpkg, id_field: aoi_id}}
-subbasins: {{path: sub.gpkg}}
+lake: {path: lake.gpkg}
+aois: {path: aois.gpkg, id_field: aoi_id}
+subbasins: {path: sub.gpkg}
 sensors:
-  kite: {{pixel_size_m: 20, reference: true, bad_quality_bits: [0], uncertainty: 0.1}}
-  dune: {{pixel_size_m: 100, bad_quality_bits: [0], uncertainty: 0.2}}
-target: {{min_matchups: 10}}
+  kite: {pixel_size_m: 20, reference: true, bad_quality_bits: [0], uncertainty: 0.1}
+  dune: {pixel_size_m: 100, bad_quality_bits: [0], uncertainty: 0.2}
+target: {min_matchups: 10}
 thresholds:
-  - {{name: level_a, value: 10}}
+  - {name: level_a, value: 10}
 """
     )
     return tmp / "lake.yaml"
@@ -82,17 +93,44 @@ def test_build_target_synthetic(tmp_path: Path) -> None:
     store = Store(tmp_path / "store")
     calls: list[tuple[str, int, int]] = []
     result = build_target(project, store, progress=lambda d, i, n: calls.append((d, i, n)))
-    assert calls[-1][1] == calls[-1][2] == 60
+    assert calls[-1][1] == calls[-1][2] == 61
     obs = store.read_table("target_obs", "testlake")
     daily = store.read_table("target_daily", "testlake")
     assert obs.attrs["units"]["median"] == "mg m-3" and daily.attrs["units"]["chla"] == "mg m-3"
-    assert list(obs.columns) == ["lake", "aoi", "scene_id", "sensor", "time", "date", "median", "mean", "p10", "p90",
-                                 "std", "cv", "n_valid", "valid_fraction", "uncertainty", "accepted", "reason",
-                                 "outlier"]  # fmt: skip
-    assert list(daily.columns[:9]) == ["lake", "aoi", "date", "chla", "chla_uncertainty", "n_obs", "sensors", "tsi",
-                                       "trophic_class"]  # fmt: skip
+    assert list(obs.columns) == [
+        "lake",
+        "aoi",
+        "scene_id",
+        "sensor",
+        "time",
+        "date",
+        "median",
+        "mean",
+        "p10",
+        "p90",
+        "std",
+        "cv",
+        "n_valid",
+        "valid_fraction",
+        "uncertainty",
+        "accepted",
+        "reason",
+        "outlier",
+    ]
+    assert list(daily.columns[:9]) == [
+        "lake",
+        "aoi",
+        "date",
+        "chla",
+        "chla_uncertainty",
+        "n_obs",
+        "sensors",
+        "tsi",
+        "trophic_class",
+    ]
     assert "exceeds_level_a" in daily.columns
-    assert len(obs) == 60 * 2
+    assert len(obs) == 61 * 2
+    assert obs.loc[obs["scene_id"] == "nodate", "reason"].str.contains("no 'datetime'").all()
     # 22:30 UTC is the next local day in Europe/Berlin (summer time, UTC+2)
     first = obs.sort_values("time").iloc[0]
     assert str(first["date"]) == "2024-06-02"
@@ -111,7 +149,7 @@ def test_build_target_synthetic(tmp_path: Path) -> None:
     meta = pq.read_schema(tmp_path / "store" / "target_daily" / "lake=testlake" / "part-0.parquet").metadata
     assert meta[b"lakefeed.caution"].decode() == CAUTION
     assert json.loads(meta[b"lakefeed.sensor_bias"])[0]["sensor"] == "dune"
-    assert result.tables["target_obs"] == 120
+    assert result.tables["target_obs"] == 122
 
 
 def test_build_target_skipped_without_scenes(tmp_path: Path) -> None:

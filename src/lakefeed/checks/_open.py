@@ -1,13 +1,14 @@
 """Open sources cheaply for the checks: globbing, lazy xarray opening, coordinates, periods.
 
 Takes paths and patterns from the config; returns file lists, lazily opened datasets
-(metadata and coordinates only: data variables are never read) and small summaries. Must
-not load data variables or write anything.
+(metadata and coordinates only: data variables are never read), small summaries and the
+per-file time-axis check. Must not load data variables or write anything.
 """
 
 from __future__ import annotations
 
 import glob
+import itertools
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -17,9 +18,10 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from lakefeed.checks._result import CheckResult, failed, passed, warned
 from lakefeed.exceptions import SourceError
 
-__all__ = ["Period", "expand", "find_coord", "lonlat_bounds", "open_lazy", "time_period"]
+__all__ = ["Period", "expand", "find_coord", "lonlat_bounds", "open_lazy", "scan_files", "time_period"]
 
 
 @dataclass(frozen=True)
@@ -122,3 +124,89 @@ def time_period(values: np.ndarray | xr.DataArray) -> Period | None:
     if len(t) == 0:
         return None
     return Period(t.min(), t.max())
+
+
+def _signature(ds: xr.Dataset) -> tuple[object, ...]:
+    lat, lon = find_coord(ds, "latitude"), find_coord(ds, "longitude")
+    shape = tuple(int(c.size) for c in (lat, lon) if c is not None)
+    bounds = lonlat_bounds(ds)
+    return shape, tuple(round(b, 4) for b in bounds) if bounds else None, tuple(sorted(map(str, ds.data_vars)))
+
+
+def _span(step: pd.Timedelta | None) -> str:
+    """A time step in plain words: '1 h', '6 h', '1 d', '15 min'."""
+    if step is None:
+        return "unknown"
+    secs = step.total_seconds()
+    for unit, size in (("d", 86400), ("h", 3600), ("min", 60)):
+        if secs >= size and secs % size == 0:
+            return f"{int(secs // size)} {unit}"
+    return str(step)
+
+
+def scan_files(files: Sequence[Path], coord: str, *, section: str) -> tuple[list[CheckResult], Period | None]:
+    """Read one time coordinate (and the grid's shape) of every file: period, gaps between files, odd grids.
+
+    A file whose grid or variables differ from the first file's is a problem; a gap of more
+    than one and a half time steps between consecutive files, or files overlapping in time, a
+    warning. Only coordinates are read.
+    """
+    out: list[CheckResult] = []
+    spans: list[tuple[pd.Timestamp, pd.Timestamp, Path]] = []
+    steps: list[pd.Timedelta] = []
+    ref: tuple[object, ...] | None = None
+    for f in files:
+        with open_lazy(f) as ds:
+            sig = _signature(ds)
+            if ref is None:
+                ref = sig
+            elif sig != ref:
+                out.append(
+                    failed(
+                        f"{section} files",
+                        f"{f.name}: grid or variables differ from {files[0].name} "
+                        f"(shape, extent, variables: {sig} vs {ref})",
+                        "all files of a source must share one grid and one set of variables",
+                    )
+                )
+            c = find_coord(ds, coord)
+            if c is None:
+                continue
+            try:
+                t = pd.DatetimeIndex(pd.to_datetime(np.asarray(c.values).ravel())).dropna().sort_values()
+            except (TypeError, ValueError):
+                continue
+            if len(t):
+                spans.append((t[0], t[-1], f))
+            if len(t) > 1:
+                steps.append(pd.Series(t).diff().dropna().median())
+    if not spans:
+        out.append(failed(f"{section} time axis", f"no readable {coord} coordinate in the {section} files", ""))
+        return out, None
+    spans.sort(key=lambda s: s[0])
+    step = min(steps) if steps else None
+    for (_, end, a), (start, _, b) in itertools.pairwise(spans):
+        if step is not None and start - end > 1.5 * step:
+            out.append(
+                warned(
+                    f"{section} time axis",
+                    f"gap from {end} ({a.name}) to {start} ({b.name}): {start - end - step} missing",
+                    "add the missing file(s); days in the gap get no values",
+                )
+            )
+        elif start <= end:
+            out.append(
+                warned(
+                    f"{section} time axis",
+                    f"{b.name} starts at {start}, before {a.name} ends ({end}): files overlap in time",
+                    "remove duplicate files from the glob",
+                )
+            )
+    period = Period(spans[0][0], max(s[1] for s in spans))
+    if not any(r.name == f"{section} time axis" for r in out):
+        out.append(
+            passed(
+                f"{section} time axis", f"{period}, step {_span(step)}, {len(files)} file(s) without gaps or overlaps"
+            )
+        )
+    return out, period

@@ -12,7 +12,7 @@ source's period for the coverage check. Must not read data variables or write an
 from __future__ import annotations
 
 import difflib
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from pathlib import Path
 
 import geopandas as gpd
@@ -22,7 +22,7 @@ import shapely
 import shapely.affinity
 import xarray as xr
 
-from lakefeed.checks._open import Period, expand, find_coord, lonlat_bounds, open_lazy, time_period
+from lakefeed.checks._open import Period, expand, find_coord, lonlat_bounds, open_lazy, scan_files
 from lakefeed.checks._result import CheckResult, failed, passed, skipped, warned
 from lakefeed.config import WEATHER_ROLES, Accumulation, ForecastSource, WeatherSource
 from lakefeed.units import is_convertible
@@ -253,21 +253,6 @@ def grid_data_results(
     return out
 
 
-def _scan_times(files: Sequence[Path], coord: str) -> Period | None:
-    """Period over all files from one coordinate (reads that coordinate only)."""
-    periods = []
-    for f in files:
-        with open_lazy(f) as ds:
-            c = find_coord(ds, coord)
-            if c is not None:
-                p = time_period(c.values)
-                if p is not None:
-                    periods.append(p)
-    if not periods:
-        return None
-    return Period(min(p.start for p in periods), max(p.end for p in periods))
-
-
 def _role_variable(ds: xr.Dataset, role: str, variables: Mapping[str, str]) -> str | None:
     names = WEATHER_ROLES[role]
     found = next((str(k) for k, v in ds.data_vars.items() if v.attrs.get("standard_name") in names), None)
@@ -300,10 +285,8 @@ def check_weather(
         temp = _role_variable(ds, "air_temperature", src.variables)
         if temp is not None:
             out += grid_data_results(ds, zones, variable=temp, section="weather", file=files[0])
-    period = _scan_times(files, "time")
-    if period is None:
-        out.append(failed("weather period", "no readable time coordinate in the weather files", "add a CF time axis"))
-    return out, period
+    res, period = scan_files(files, "time", section="weather")
+    return out + res, period
 
 
 def _lead(value: object) -> str:
@@ -361,5 +344,5 @@ def check_forecast(
             required=False,
         )
         out += grid_extent_results(ds, zones, section="forecast", file=files[0])
-    period = _scan_times(files, "forecast_reference_time")
-    return out, period
+    res, period = scan_files(files, "forecast_reference_time", section="forecast")
+    return out + res, period

@@ -111,9 +111,14 @@ def check_network(
         else:
             dangling.setdefault(d, []).append(i)
     for d, froms in sorted(dangling.items()):
+        if lake_id is None:
+            why = " and no subbasins.lake_id is set"
+        elif not any(str(x) == str(lake_id) for x in downstream):
+            why = f" (subbasins.lake_id is {lake_id!r}, which no sub-basin drains into)"
+        else:
+            why = ""
         problems.append(
-            f"dangling downstream id {d!r} (of sub-basin(s) {_short(froms)}): no sub-basin has that id"
-            + ("" if lake_id is not None else " and no subbasins.lake_id is set")
+            f"dangling downstream id {d!r} (of sub-basin(s) {_short(froms)}): no sub-basin has that id{why}"
         )
     listed = [str(x) for x in direct_inflows or []]
     unknown_listed = [x for x in listed if x not in known]

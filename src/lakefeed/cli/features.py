@@ -32,17 +32,17 @@ def store_for(project: Project, store: str | None) -> Store:
 
 
 def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
-    """A rich table of sampling diagnostics (one row per lake and AOI)."""
-    t = Table(title=title, show_lines=False)
-    for col, just in (("lake", "left"), ("aoi", "left"), ("obs", "right"), ("DJF/MAM/JJA/SON", "right"),
-                      ("median gap d", "right"), ("longest gap d", "right"), ("months covered", "right"),
-                      ("warnings", "left")):  # fmt: skip
-        t.add_column(col, justify=just, overflow="fold")
+    """A rich table of sampling diagnostics (one row per lake and AOI); warnings as short codes."""
+    t = Table(title=title, caption="few obs: < min_observations accepted; season: one season under-represented")
+    for col in ("lake", "aoi", "obs", "DJF/MAM/JJA/SON", "median gap d", "longest gap d", "months covered", "warn"):
+        t.add_column(col, justify="left" if col in ("lake", "aoi", "warn") else "right")
     for _, r in diag.iterrows():
         seasons = "/".join(str(int(r[f"n_obs_{s}"])) for s in ("djf", "mam", "jja", "son"))
         gap_max = "-" if pd.isna(r["gap_max_days"]) else f"{r['gap_max_days']:.0f}"
         if pd.notna(r["longest_gap_start"]):
-            gap_max += f" ({pd.Timestamp(r['longest_gap_start']).date()}..{pd.Timestamp(r['longest_gap_end']).date()})"
+            gap_max += f" from {pd.Timestamp(r['longest_gap_start']).date()}"
+        warn = [w for w, on in (("few obs", r["warn_few_observations"]), ("season", r["warn_season_under_represented"]))
+                if on]  # fmt: skip
         t.add_row(
             str(r.get("lake", "")),
             str(r["aoi"]),
@@ -51,7 +51,7 @@ def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
             "-" if pd.isna(r["gap_median_days"]) else f"{r['gap_median_days']:.0f}",
             gap_max,
             f"{r['coverage_fraction']:.0%}",
-            f"[yellow]{r['warnings']}[/]" if r["warnings"] else "ok",
+            f"[yellow]{', '.join(warn)}[/]" if warn else "ok",
         )
     return t
 

@@ -37,4 +37,6 @@ def sample(
         out = generate(folder, seed=seed, years=years, small=small, progress=report)
     parts = ", ".join(f"{k} {v:.1f} s" for k, v in LAST_TIMINGS.items())
     console.print(f"sample scenario written to [bold]{out}[/] in {time.perf_counter() - started:.1f} s ({parts})")
-    console.print(f"configuration: {out / 'config' / 'lake-tallow.yaml'}  (check it with: lakefeed check {out / 'config'})")
+    console.print(
+        f"configuration: {out / 'config' / 'lake-tallow.yaml'}  (check it with: lakefeed check {out / 'config'})"
+    )

@@ -18,6 +18,7 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, T
 
 from lakefeed.cli._app import app, console
 from lakefeed.config.lake import TargetOptions
+from lakefeed.config.sources import SceneSource
 from lakefeed.exceptions import ConfigError
 from lakefeed.sources.scenes import SceneReader, list_scenes
 from lakefeed.sources.vectors import read_layer
@@ -44,6 +45,10 @@ def scenes(
     id_field: str = typer.Option(..., "--id-field", help="Field of the AOI layer holding the AOI ids."),
     out: Path = typer.Option(..., "--out", help="Output Parquet file (target_obs columns)."),
     asset: str | None = typer.Option(None, "--asset", help="Chlorophyll-a asset key [default: first with role data]."),
+    quality_asset: str = typer.Option("quality", "--quality-asset", help="Quality-flag asset key (optional asset)."),
+    uncertainty_asset: str = typer.Option(
+        "uncertainty", "--uncertainty-asset", help="Relative 1-sigma uncertainty asset key (optional asset)."
+    ),
     shore_buffer: float | None = typer.Option(
         None, "--shore-buffer", min=0, help="Inward shore buffer in metres [default: one pixel of each scene]."
     ),
@@ -68,19 +73,33 @@ def scenes(
     layer = read_layer(aois, what="areas of interest", id_field=id_field)
     lake_layer = read_layer(lake, what="lake polygon") if lake is not None else None
     reader = SceneReader(layer, id_field=id_field, lake=lake_layer)
-    table = list_scenes(catalog, asset=asset)
+    source = SceneSource(
+        catalog=str(catalog), asset=asset, quality_asset=quality_asset, uncertainty_asset=uncertainty_asset
+    )
+    table = list_scenes(source)
     label = lake_id or re.sub(r"[^a-z0-9_-]+", "-", aois.stem.lower()).strip("-") or "lake"
     with Progress(
-        TextColumn("[bold]{task.description}"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
-        console=console, transient=False,
-    ) as bar:  # fmt: skip
+        TextColumn("[bold]{task.description}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeRemainingColumn(),
+        console=console,
+        transient=False,
+    ) as bar:
         task = bar.add_task("reading scenes", total=len(table))
 
         def progress(description: str, done: int, total: int) -> None:
             bar.update(task, completed=done, total=total, description=description)
 
-        obs = extract_observations(table, reader, lake=label, timezone=timezone, options=options,
-                                   shore_buffer_m=shore_buffer, progress=progress)  # fmt: skip
+        obs = extract_observations(
+            table,
+            reader,
+            lake=label,
+            timezone=timezone,
+            options=options,
+            shore_buffer_m=shore_buffer,
+            progress=progress,
+        )
     write_parquet(obs, out, OBS_UNITS)
     n_scenes = obs["scene_id"].nunique()
     console.print(

@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+import difflib
+from functools import cache
 from pathlib import Path
+from zoneinfo import available_timezones
 
 from pydantic import BaseModel, ConfigDict
 
@@ -22,3 +25,16 @@ class LayerRef(StrictModel):
 
     path: Path
     layer: str | None = None
+
+
+@cache
+def _zones() -> tuple[str, ...]:
+    return tuple(sorted(available_timezones()))
+
+
+def tz_hint(name: str) -> str:
+    """What to say about an unknown time zone: the closest IANA names, or an example."""
+    guess = difflib.get_close_matches(name, _zones(), n=2, cutoff=0.7)
+    if guess:
+        return "did you mean " + " or ".join(repr(g) for g in guess) + "?"
+    return "use an IANA name such as 'Europe/Berlin' or 'UTC'"

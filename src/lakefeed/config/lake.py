@@ -9,7 +9,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import Field, field_validator, model_validator
 
-from lakefeed.config._base import LayerRef, StrictModel
+from lakefeed.config._base import LayerRef, StrictModel, tz_hint
 
 SLUG = re.compile(r"^[a-z0-9][a-z0-9_-]{0,62}$")
 
@@ -172,7 +172,7 @@ class LakeConfig(StrictModel):
         try:
             ZoneInfo(v)
         except (ZoneInfoNotFoundError, ValueError) as err:
-            raise ValueError(f"unknown time zone {v!r}; use an IANA name such as 'Europe/Berlin' or 'UTC'") from err
+            raise ValueError(f"unknown time zone {v!r}; {tz_hint(v)}") from err
         return v
 
     @model_validator(mode="after")

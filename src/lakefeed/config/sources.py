@@ -13,7 +13,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import Field, field_validator, model_validator
 
-from lakefeed.config._base import StrictModel
+from lakefeed.config._base import StrictModel, tz_hint
 
 #: Roles of the weather grid and the CF standard names that identify them, in order of preference.
 WEATHER_ROLES: dict[str, tuple[str, ...]] = {
@@ -61,7 +61,7 @@ class WeatherSource(StrictModel):
         try:
             ZoneInfo(v)
         except (ZoneInfoNotFoundError, ValueError) as err:
-            raise ValueError(f"unknown time zone {v!r}; use an IANA name such as 'UTC' or 'Europe/Berlin'") from err
+            raise ValueError(f"unknown time zone {v!r}; {tz_hint(v)}") from err
         return v
 
 

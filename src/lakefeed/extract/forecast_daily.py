@@ -140,7 +140,7 @@ def to_daily_by_lead(
     latitude: Mapping[str, float],
     elevation_m: float | Mapping[str, float] = 0.0,
     zone_flags: Mapping[str, Sequence[str]] | None = None,
-    block: int = 32,
+    block: int = 128,
 ) -> pd.DataFrame:
     """Daily drivers per zone, issue and lead from per-step zonal forecast values.
 
@@ -175,16 +175,27 @@ def to_daily_by_lead(
     d1 = first_full_day(issues, tz)
     last = _last_full_day(issues + leads.max(), tz)
     frames = []
+    names = list(steps.data_vars)
+    data = {n: np.asarray(steps[n].transpose(ISSUE, LEAD, "zone").values, dtype=float) for n in names}
+    step = leads[1] - leads[0] if len(leads) > 1 else pd.Timedelta(hours=1)
     for start in range(0, len(issues), block):
-        sel = slice(start, min(start + block, len(issues)))
-        part = steps.isel({ISSUE: sel})
-        pieces = []
-        for k, t in enumerate(issues[sel]):
-            one = part.isel({ISSUE: k}).drop_vars(ISSUE, errors="ignore")
-            one = one.assign_coords({LEAD: (t + leads).values}).rename({LEAD: "time"})
-            one = one.assign_coords(zone=[f"{z}{_SEP}{start + k}" for z in zones])
-            pieces.append(one)
-        hourly = xr.concat(pieces, dim="zone", join="outer", fill_value=np.nan).sortby("time")
+        sel = np.arange(start, min(start + block, len(issues)))
+        t0 = issues[sel].min() + leads.min()
+        # one regular UTC time axis for the block; each (issue, zone) pair is a pseudo-zone of to_daily
+        valid = issues[sel].values.astype("datetime64[ns]")[:, None] + leads.values.astype("timedelta64[ns]")[None, :]
+        pos = ((valid - t0.to_datetime64()) // step.to_timedelta64()).astype(np.int64)  # (issues, leads)
+        nt = int(pos.max()) + 1
+        time = pd.date_range(t0, periods=nt, freq=step)
+        nz = len(zones)
+        cols = np.arange(sel.size)[:, None, None] * nz + np.arange(nz)[None, None, :]  # (issues, 1, zones)
+        arrays = {}
+        for n in names:
+            arr = np.full((nt, sel.size * nz), np.nan)
+            shape = (sel.size, len(leads), nz)
+            arr[np.broadcast_to(pos[:, :, None], shape), np.broadcast_to(cols, shape)] = data[n][sel]
+            arrays[n] = (("time", "zone"), arr)
+        pz_names = [f"{z}{_SEP}{i}" for i in sel for z in zones]
+        hourly = xr.Dataset(arrays, coords={"time": time, "zone": pz_names})
         pz = [str(z) for z in hourly["zone"].values]
         base = [p.split(_SEP)[0] for p in pz]
         lat = {p: float(latitude[b]) for p, b in zip(pz, base, strict=True)}

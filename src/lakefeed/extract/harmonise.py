@@ -32,9 +32,21 @@ __all__ = ["BIAS_COLUMNS", "apply_bias", "fit_bias", "fuse_daily", "inverse_vari
 
 #: Columns of the fitted-bias table (ratio/slope/intercept dimensionless or mg m-3 for intercept).
 BIAS_COLUMNS = [
-    "sensor", "reference", "model", "n", "ratio", "ln_ratio", "ln_ratio_se", "slope", "intercept", "se",
-    "intercept_se", "r2", "adjusted", "note",
-]  # fmt: skip
+    "sensor",
+    "reference",
+    "model",
+    "n",
+    "ratio",
+    "ln_ratio",
+    "ln_ratio_se",
+    "slope",
+    "intercept",
+    "se",
+    "intercept_se",
+    "r2",
+    "adjusted",
+    "note",
+]
 
 
 def _usable(obs: pd.DataFrame, value: str) -> pd.DataFrame:
@@ -115,8 +127,13 @@ def fit_bias(
             row.update(ratio=ratio, ln_ratio=ln_ratio, ln_ratio_se=ln_se, se=ratio * ln_se, r2=r2)
         else:
             fit = stats.linregress(r, x)
-            row.update(slope=float(fit.slope), intercept=float(fit.intercept), se=float(fit.stderr),
-                       intercept_se=float(fit.intercept_stderr), r2=float(fit.rvalue**2))  # fmt: skip
+            row.update(
+                slope=float(fit.slope),
+                intercept=float(fit.intercept),
+                se=float(fit.stderr),
+                intercept_se=float(fit.intercept_stderr),
+                r2=float(fit.rvalue**2),
+            )
             if not fit.slope > 0:
                 row["note"] = f"fitted slope {fit.slope:.3g} is not positive; left unadjusted"
                 rows.append(row)

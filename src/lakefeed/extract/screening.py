@@ -50,10 +50,13 @@ def accept(
     cv = out["cv"].astype(float)
     parts = [
         np.where(n == 0, "no valid pixel (nodata, bad quality or out of range)", ""),
-        np.where((n > 0) & (vf < min_valid_fraction), "valid fraction " + vf.round(3).astype(str)
-                 + f" < {min_valid_fraction:g}", ""),
+        np.where(
+            (n > 0) & (vf < min_valid_fraction),
+            "valid fraction " + vf.round(3).astype(str) + f" < {min_valid_fraction:g}",
+            "",
+        ),
         np.where((n > 0) & (n < min_valid_pixels), "valid pixels " + n.astype(str) + f" < {min_valid_pixels}", ""),
-    ]  # fmt: skip
+    ]
     if max_cv is not None:
         parts.append(np.where(cv > max_cv, "heterogeneous AOI: cv " + cv.round(3).astype(str) + f" > {max_cv:g}", ""))
     found = pd.Series(["; ".join(p for p in row if p) for row in zip(*parts, strict=True)], index=out.index)

@@ -57,10 +57,10 @@ def default_statistics(column: str) -> list[str]:
     Sums for precipitation and loads (amounts accumulate), mean/min/max for temperatures,
     the mean for everything else (radiation, wind, humidity, discharge, concentrations).
     """
-    c = column.lower()
-    if "precip" in c or c.endswith("_load") or c.endswith("_sum"):
+    words = set(column.lower().split("_"))
+    if words & {"precipitation", "precip", "load", "sum"}:
         return ["sum"]
-    if "temperature" in c or "dewpoint" in c:
+    if words & {"temperature", "dewpoint"}:
         return ["mean", "min", "max"]
     return ["mean"]
 

@@ -235,7 +235,7 @@ def trace_catchment(
                 f"lake: {pairs}; remove them from the list or fix their '{downstream_field}'"
             )
         direct = sorted(set(listed))
-        sinks = set(frame.loc[direct, "down"].dropna())
+        sinks = {s for s in frame.loc[direct, "down"] if s is not None and s.upper() not in outside}
         lake_node = lake_id or (sinks.pop() if len(sinks) == 1 else LAKE_NODE)
     elif lake_id is not None:
         rule = "lake_id"
@@ -284,6 +284,13 @@ def trace_catchment(
     lake_sinks = {lake_node} | set(frame.loc[direct, "down"].dropna())
     dangling = terminal[~is_outside.to_numpy() & ~terminal["down"].isin(lake_sinks).to_numpy()]
     dangling = dangling[~dangling["id"].isin(direct)]
+    if len(dangling):
+        pairs = [f"{a} -> {b}" for a, b in zip(dangling["id"], dangling["down"], strict=True)]
+        raise GeometryError(
+            f"{where}: dangling downstream ids in {downstream_field!r} (neither a sub-basin, the lake "
+            f"{lake_node!r}, nor an outside marker {sorted(outside - {''})}): {pairs}; fix the ids or add the "
+            "missing sub-basins"
+        )
     unlisted = sorted(set(terminal.loc[terminal["down"] == lake_node, "id"]) - set(direct))
     if unlisted:
         warnings.warn(
@@ -291,13 +298,6 @@ def trace_catchment(
             "subbasins.direct_inflows; they are left out of the catchment",
             LakefeedWarning,
             stacklevel=2,
-        )
-    if len(dangling):
-        pairs = [f"{a} -> {b}" for a, b in zip(dangling["id"], dangling["down"], strict=True)]
-        raise GeometryError(
-            f"{where}: dangling downstream ids in {downstream_field!r} (neither a sub-basin, the lake "
-            f"{lake_node!r}, nor an outside marker {sorted(outside - {''})}): {pairs}; fix the ids or add the "
-            "missing sub-basins"
         )
     graph.add_node(lake_node, kind="lake")
     graph.add_edges_from((d, lake_node) for d in direct)

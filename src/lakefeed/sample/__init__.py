@@ -8,10 +8,10 @@ gives byte-identical files. Everything is invented: no real place, sensor or dat
 
 from __future__ import annotations
 
+import shutil
 import time
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from lakefeed.sample._chla import PARAMS, lake_truth, spatial_pattern
@@ -32,6 +32,8 @@ LAST_TIMINGS: dict[str, float] = {}
 #: The scenario starts on 1 January of this year (UTC).
 FIRST_YEAR = 2022
 _SPINUP_DAYS = 61
+#: Sub-folders the generator owns; a previous scenario's are removed before writing a new one.
+_FOLDERS = ("config", "geometry", "weather", "hydrology", "samples", "scenes", "forecast", "truth")
 _FORECAST_DAYS = 11
 
 
@@ -48,7 +50,8 @@ def generate(
     Parameters
     ----------
     out : path
-        Folder to write into (created; existing scenario files are overwritten).
+        Folder to write into (created). A scenario generated there before is replaced (its sub-folders
+        are removed first); other files in the folder are left alone.
     seed : int
         Seed of every random draw; the same seed gives byte-identical files.
     years : int
@@ -69,10 +72,13 @@ def generate(
     """
     report = progress or no_progress
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
     years = 1 if small else int(years)
     if years < 1:
         raise ValueError(f"years must be >= 1, got {years}")
+    if (out / "truth" / "truth.json").is_file():  # a previous scenario: no stale months or scenes may remain
+        for name in _FOLDERS:
+            shutil.rmtree(out / name, ignore_errors=True)
+    out.mkdir(parents=True, exist_ok=True)
     start = pd.Timestamp(f"{FIRST_YEAR}-01-01")
     end = pd.Timestamp(f"{FIRST_YEAR + years - 1}-12-31")
     first = start - pd.Timedelta(days=_SPINUP_DAYS)
@@ -119,10 +125,22 @@ def generate(
     )
     lap("scenes")
 
-    biases = write_forecasts(model, out / "forecast", start, end, seed=seed, progress=lambda d, n: report("forecast", d, n))
+    biases = write_forecasts(
+        model, out / "forecast", start, end, seed=seed, progress=lambda d, n: report("forecast", d, n)
+    )
     lap("forecast")
 
-    _write_truth(out / "truth", seed=seed, start=start, end=end, truth=truth, factors=factors, hyd=hyd, scenes=scenes, biases=biases)
+    _write_truth(
+        out / "truth",
+        seed=seed,
+        start=start,
+        end=end,
+        truth=truth,
+        factors=factors,
+        hyd=hyd,
+        scenes=scenes,
+        biases=biases,
+    )
     lap("truth")
     LAST_TIMINGS.clear()
     LAST_TIMINGS.update(timings)
@@ -134,10 +152,24 @@ def _write_truth(folder: Path, *, seed, start, end, truth, factors, hyd, scenes,
     folder.mkdir(parents=True, exist_ok=True)
     rows = []
     for aoi, f in factors.items():
-        part = truth.reset_index().assign(aoi=aoi, chla=truth["chla"].to_numpy() * f, lake_chla=truth["chla"].to_numpy())
+        part = truth.reset_index().assign(
+            aoi=aoi, chla=truth["chla"].to_numpy() * f, lake_chla=truth["chla"].to_numpy()
+        )
         rows.append(part)
     chla = pd.concat(rows, ignore_index=True)
-    cols = ["date", "aoi", "chla", "lake_chla", "water_temperature_proxy", "shortwave", "tp_load_30d", "f_t", "f_i", "f_p", "bloom"]
+    cols = [
+        "date",
+        "aoi",
+        "chla",
+        "lake_chla",
+        "water_temperature_proxy",
+        "shortwave",
+        "tp_load_30d",
+        "f_t",
+        "f_i",
+        "f_p",
+        "bloom",
+    ]
     chla = chla[cols].sort_values(["date", "aoi"])
     chla["date"] = chla["date"].dt.strftime("%Y-%m-%d")
     chla.to_csv(folder / "chla_truth.csv", index=False, float_format="%.6g", lineterminator="\n")
@@ -150,8 +182,15 @@ def _write_truth(folder: Path, *, seed, start, end, truth, factors, hyd, scenes,
         "seed": int(seed),
         "period": {"start": start.strftime("%Y-%m-%d"), "end": end.strftime("%Y-%m-%d")},
         "sensor_bias": {
-            name: {"model": "ratio", "factor": s.bias_ratio, "pixel_noise_sd": s.noise_sd, "pixel_size_m": s.pixel_m,
-                   "revisit_days": s.every_days, "overpass_hour_utc": s.hour_utc, "reference": s.bias_ratio == 1.0}
+            name: {
+                "model": "ratio",
+                "factor": s.bias_ratio,
+                "pixel_noise_sd": s.noise_sd,
+                "pixel_size_m": s.pixel_m,
+                "revisit_days": s.every_days,
+                "overpass_hour_utc": s.hour_utc,
+                "reference": s.bias_ratio == 1.0,
+            }
             for name, s in SENSORS.items()
         },
         "dune_over_kite_ratio": SENSORS["dune"].bias_ratio / SENSORS["kite"].bias_ratio,
@@ -165,7 +204,12 @@ def _write_truth(folder: Path, *, seed, start, end, truth, factors, hyd, scenes,
             "aoi_factor": factors,
             "formula": "chla_aoi = aoi_factor * (C_MAX f_T f_I f_P + BACKGROUND + bloom) * exp(AR1 noise); "
             "f_T = THETA**(Tw-20), f_I = I/(I+I_K), f_P = P/(P+K_P)",
-            "units": {"chla": "mg m-3", "water_temperature_proxy": "degC", "shortwave": "W m-2", "tp_load_30d": "kg d-1"},
+            "units": {
+                "chla": "mg m-3",
+                "water_temperature_proxy": "degC",
+                "shortwave": "W m-2",
+                "tp_load_30d": "kg d-1",
+            },
         },
         "loads": {
             "units": {"discharge": "m3 s-1", "tn_load": "kg d-1", "tp_load": "kg d-1"},
@@ -176,7 +220,8 @@ def _write_truth(folder: Path, *, seed, start, end, truth, factors, hyd, scenes,
         },
         "weather": {"nodata_corner": {"latitude_index": [0, 3], "longitude_index": [12, 16]}},
         "scene_count": {k: int(v) for k, v in scenes.groupby("sensor").size().items()},
-        "mean_cloud_fraction": {k: round(float(v), 4) for k, v in scenes.groupby("sensor")["cloud_fraction"].mean().items()},
+        "mean_cloud_fraction": {
+            k: round(float(v), 4) for k, v in scenes.groupby("sensor")["cloud_fraction"].mean().items()
+        },
     }
     write_json(doc, folder / "truth.json")
-    _ = np

@@ -19,9 +19,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from pyproj import Transformer
 
-from lakefeed.sample._geo import CRS, LAKE_LATLON
+from lakefeed.sample._geo import LAKE_LATLON
 from lakefeed.sample._io import rng_for
 from lakefeed.sample._weather import WeatherModel, recursive_filter
 
@@ -109,8 +108,3 @@ def lake_truth(
     frame["chla"] = (p["C_MAX"] * frame["f_t"] * frame["f_i"] * frame["f_p"] + p["BACKGROUND"] + bloom) * np.exp(noise)
     frame.index.name = "date"
     return frame
-
-
-def lake_centre_lonlat() -> tuple[float, float]:
-    """Lake centre (lon, lat); a helper for STAC footprints."""
-    return Transformer.from_crs("EPSG:4326", CRS, always_xy=True).transform(LAKE_LATLON[1], LAKE_LATLON[0])

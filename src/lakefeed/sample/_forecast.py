@@ -27,12 +27,54 @@ STEP_HOURS = np.arange(6, 241, 6)
 #: Planted forecast errors; ``ld`` is the lead in days (forecast_period / 24 h).
 #: additive: forecast = truth + (slope * ld) + noise; multiplicative: forecast = truth * (a + slope * ld) * noise.
 BIASES: dict[str, dict[str, float | str]] = {
-    "air_temp": {"kind": "additive", "units": "K", "intercept": 0.0, "slope_per_day": 0.3, "noise_sd": 0.5, "noise_sd_per_day": 0.25},
-    "dewpoint": {"kind": "additive", "units": "K", "intercept": 0.0, "slope_per_day": 0.2, "noise_sd": 0.5, "noise_sd_per_day": 0.25},
-    "wind_u": {"kind": "additive", "units": "m s-1", "intercept": 0.0, "slope_per_day": 0.0, "noise_sd": 0.5, "noise_sd_per_day": 0.2},
-    "wind_v": {"kind": "additive", "units": "m s-1", "intercept": 0.0, "slope_per_day": 0.0, "noise_sd": 0.5, "noise_sd_per_day": 0.2},
-    "precip": {"kind": "multiplicative", "units": "1", "intercept": 1.1, "slope_per_day": 0.05, "noise_sd": 0.15, "noise_sd_per_day": 0.06},
-    "sw_down": {"kind": "multiplicative", "units": "1", "intercept": 1.0, "slope_per_day": -0.01, "noise_sd": 0.08, "noise_sd_per_day": 0.03},
+    "air_temp": {
+        "kind": "additive",
+        "units": "K",
+        "intercept": 0.0,
+        "slope_per_day": 0.3,
+        "noise_sd": 0.5,
+        "noise_sd_per_day": 0.25,
+    },
+    "dewpoint": {
+        "kind": "additive",
+        "units": "K",
+        "intercept": 0.0,
+        "slope_per_day": 0.2,
+        "noise_sd": 0.5,
+        "noise_sd_per_day": 0.25,
+    },
+    "wind_u": {
+        "kind": "additive",
+        "units": "m s-1",
+        "intercept": 0.0,
+        "slope_per_day": 0.0,
+        "noise_sd": 0.5,
+        "noise_sd_per_day": 0.2,
+    },
+    "wind_v": {
+        "kind": "additive",
+        "units": "m s-1",
+        "intercept": 0.0,
+        "slope_per_day": 0.0,
+        "noise_sd": 0.5,
+        "noise_sd_per_day": 0.2,
+    },
+    "precip": {
+        "kind": "multiplicative",
+        "units": "1",
+        "intercept": 1.1,
+        "slope_per_day": 0.05,
+        "noise_sd": 0.15,
+        "noise_sd_per_day": 0.06,
+    },
+    "sw_down": {
+        "kind": "multiplicative",
+        "units": "1",
+        "intercept": 1.0,
+        "slope_per_day": -0.01,
+        "noise_sd": 0.08,
+        "noise_sd_per_day": 0.03,
+    },
 }
 
 
@@ -121,10 +163,20 @@ def write_forecasts(
         ds = grid_attrs(ds)
         ds.attrs = {"title": f"Invented forecast archive for the Tallow sample scenario, issues of {month}"}
         enc = {
-            k: {"dtype": "float32", "zlib": True, "complevel": 1, "shuffle": True, "chunksizes": (min(8, int(sel.sum())), ns, len(LATS), len(LONS))}
+            k: {
+                "dtype": "float32",
+                "zlib": True,
+                "complevel": 1,
+                "shuffle": True,
+                "chunksizes": (min(8, int(sel.sum())), ns, len(LATS), len(LONS)),
+            }
             for k in VARIABLES
         }
-        enc["forecast_reference_time"] = {"units": "hours since 1970-01-01 00:00:00", "calendar": "proleptic_gregorian", "dtype": "int64"}
+        enc["forecast_reference_time"] = {
+            "units": "hours since 1970-01-01 00:00:00",
+            "calendar": "proleptic_gregorian",
+            "dtype": "int64",
+        }
         enc["forecast_period"] = {"units": "hours", "dtype": "int32"}
         write_netcdf(ds, folder / f"forecast_{month.strftime('%Y-%m')}.nc", encoding=enc)
         if progress:
@@ -136,7 +188,9 @@ def _attrs(name: str) -> dict[str, str]:
     std, units, long = VARIABLES[name]
     attrs = {"standard_name": std, "units": units, "grid_mapping": "crs"}
     if name in ("precip", "sw_down"):
-        attrs["long_name"] = long.replace("accumulated since 00 UTC", "total over the 6-hour step ending at the lead time")
+        attrs["long_name"] = long.replace(
+            "accumulated since 00 UTC", "total over the 6-hour step ending at the lead time"
+        )
         attrs["cell_methods"] = "forecast_period: sum (interval: 6 hours)"
     else:
         attrs["long_name"] = long

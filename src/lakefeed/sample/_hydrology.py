@@ -109,7 +109,9 @@ def simulate_hydrology(
     doy = dates.dayofyear.to_numpy()[:, None].astype(float)
     conc = {}
     for nut, p in RATING.items():
-        noise = recursive_filter(rng.normal(0, p["noise_sd"], q.shape), p["noise_phi"], np.sqrt(1.0 - p["noise_phi"] ** 2))
+        noise = recursive_filter(
+            rng.normal(0, p["noise_sd"], q.shape), p["noise_phi"], np.sqrt(1.0 - p["noise_phi"] ** 2)
+        )
         level = np.log(p["c50"]) + rng.normal(0.0, 0.12, len(ids))[None, :]
         conc[nut] = np.exp(
             level
@@ -119,7 +121,9 @@ def simulate_hydrology(
             + noise
         )
     frames = {k: pd.DataFrame(v, index=dates, columns=ids) for k, v in {"q": q, **conc}.items()}
-    samples = _samples(rng, frames["q"][SAMPLED_SUBBASIN], frames["tn"][SAMPLED_SUBBASIN], frames["tp"][SAMPLED_SUBBASIN])
+    samples = _samples(
+        rng, frames["q"][SAMPLED_SUBBASIN], frames["tn"][SAMPLED_SUBBASIN], frames["tp"][SAMPLED_SUBBASIN]
+    )
     outlets = pd.DataFrame({"subbasin_id": ids, "lat": lat, "lon": lon, "downstream_id": sub["downstream_id"]})
     loads = _loads(frames, [i for i in ids if downstream[i] == "LAKE"])
     return Hydrology(dates, frames["q"], frames["tn"], frames["tp"], samples, loads, outlets)
@@ -131,7 +135,9 @@ def _samples(rng: np.random.Generator, q: pd.Series, tn: pd.Series, tp: pd.Serie
     for _, qy in q.groupby(q.index.year):
         routine = qy.index[np.arange(int(rng.integers(0, 10)), len(qy), 21)]
         jitter = rng.integers(-3, 4, len(routine))
-        routine = [qy.index[np.clip(qy.index.get_loc(d) + j, 0, len(qy) - 1)] for d, j in zip(routine, jitter, strict=True)]
+        routine = [
+            qy.index[np.clip(qy.index.get_loc(d) + j, 0, len(qy) - 1)] for d, j in zip(routine, jitter, strict=True)
+        ]
         high = qy[qy > qy.quantile(0.85)].index
         n_event = min(len(high), int(rng.integers(8, 14)))
         events = list(rng.choice(high, n_event, replace=False)) if n_event else []
@@ -187,13 +193,27 @@ def write_hydrology(hyd: Hydrology, out: Path) -> list[Path]:
         },
         coords={
             "time": ("time", hyd.dates.to_numpy(), {"standard_name": "time", "axis": "T"}),
-            "station_id": (("station",), np.array(ids, dtype=object), {"cf_role": "timeseries_id", "long_name": "sub-basin id"}),
-            "lat": (("station",), hyd.outlets["lat"].to_numpy(), {"standard_name": "latitude", "units": "degrees_north"}),
-            "lon": (("station",), hyd.outlets["lon"].to_numpy(), {"standard_name": "longitude", "units": "degrees_east"}),
+            "station_id": (
+                ("station",),
+                np.array(ids, dtype=object),
+                {"cf_role": "timeseries_id", "long_name": "sub-basin id"},
+            ),
+            "lat": (
+                ("station",),
+                hyd.outlets["lat"].to_numpy(),
+                {"standard_name": "latitude", "units": "degrees_north"},
+            ),
+            "lon": (
+                ("station",),
+                hyd.outlets["lon"].to_numpy(),
+                {"standard_name": "longitude", "units": "degrees_east"},
+            ),
         },
         attrs={"featureType": "timeSeries", "title": "Invented daily sub-basin model outputs, Tallow sample scenario"},
     )
-    ds["downstream_id"].attrs = {"long_name": "id of the downstream sub-basin (LAKE: the reservoir; OUTSIDE: elsewhere)"}
+    ds["downstream_id"].attrs = {
+        "long_name": "id of the downstream sub-basin (LAKE: the reservoir; OUTSIDE: elsewhere)"
+    }
     enc = {v: {"dtype": "float32", "zlib": True, "complevel": 4} for v in ("discharge", "tn", "tp")}
     enc["time"] = {"units": "days since 1970-01-01", "calendar": "proleptic_gregorian", "dtype": "int32"}
     paths = [write_netcdf(ds, folder / "subbasin_daily.nc", encoding=enc)]
@@ -212,4 +232,8 @@ def write_hydrology(hyd: Hydrology, out: Path) -> list[Path]:
 
 
 def _conc_attrs(what: str) -> dict[str, str]:
-    return {"units": "mg L-1", "long_name": f"{what} concentration at the sub-basin outlet (daily mean)", "coordinates": "lat lon station_id"}
+    return {
+        "units": "mg L-1",
+        "long_name": f"{what} concentration at the sub-basin outlet (daily mean)",
+        "coordinates": "lat lon station_id",
+    }

@@ -26,7 +26,16 @@ from scipy.ndimage import distance_transform_edt
 from lakefeed.sample._geo import CRS
 from lakefeed.sample._io import rng_for, write_json
 
-__all__ = ["SENSORS", "NODATA", "QUALITY_NODATA", "SensorSpec", "write_scenes"]
+__all__ = [
+    "NODATA",
+    "OUTLIER_FACTOR",
+    "QUALITY_NODATA",
+    "SENSORS",
+    "SHORE_FLAG_PROBABILITY",
+    "SensorSpec",
+    "aoi_pattern_means",
+    "write_scenes",
+]
 
 NODATA = -9999.0
 QUALITY_NODATA = 255
@@ -98,7 +107,13 @@ def _grid(spec: SensorSpec, lake: shapely.Polygon, pattern_fn: Callable, to_ll: 
     box = shapely.box(x0, y1 - ny * res, x0 + nx * res, y1)
     footprint = shapely.transform(box, lambda c: np.column_stack(to_ll.transform(c[:, 0], c[:, 1])))
     return _Grid(
-        rasterio.Affine(res, 0.0, x0, 0.0, -res, y1), (ny, nx), xx, yy, np.where(inside, dist, -dist), pattern_fn(xx, yy), kernel,
+        rasterio.Affine(res, 0.0, x0, 0.0, -res, y1),
+        (ny, nx),
+        xx,
+        yy,
+        np.where(inside, dist, -dist),
+        pattern_fn(xx, yy),
+        kernel,
         shapely.set_precision(footprint, 1e-7),
     )
 
@@ -130,7 +145,9 @@ def _scene(rng, spec: SensorSpec, grid: _Grid, truth: float, cloud: float, month
         value *= OUTLIER_FACTOR
     water = np.clip(0.5 + grid.depth / res, 0.0, 1.0)
     shore = grid.depth < res  # within one pixel of the shoreline: mixed / adjacency-affected
-    value = np.where(shore, water * value * (1.0 + 0.8 * (1.0 - np.clip(grid.depth, 0, res) / res)) + (1 - water) * LAND_CHLA, value)
+    value = np.where(
+        shore, water * value * (1.0 + 0.8 * (1.0 - np.clip(grid.depth, 0, res) / res)) + (1 - water) * LAND_CHLA, value
+    )
     value = np.where(glint, value * 1.6, value)
     value = np.where(shadow, value * 0.5, value)
     value = np.where(clouds, value * 2.0 + 25.0, value)
@@ -200,19 +217,32 @@ def _item(spec: SensorSpec, scene_id: str, when: pd.Timestamp, grid: _Grid, cove
             "quality bit flags: bit 0 cloud, bit 1 cloud shadow, bit 2 sun glint, bit 3 adjacency/mixed shore pixel",
             {"nodata": QUALITY_NODATA, "data_type": "uint8"},
         ),
-        "uncertainty": (["quality"], "relative 1-sigma uncertainty of chla", {"nodata": NODATA, "data_type": "float32", "unit": "1"}),
+        "uncertainty": (
+            ["quality"],
+            "relative 1-sigma uncertainty of chla",
+            {"nodata": NODATA, "data_type": "float32", "unit": "1"},
+        ),
     }
     for key, (roles, title, band) in specs.items():
         href = f"../data/{spec.name}/{scene_id}_{key}.tif"
-        item.add_asset(key, pystac.Asset(href, title=title, media_type=_TIFF, roles=roles, extra_fields={"raster:bands": [band]}))
+        item.add_asset(
+            key, pystac.Asset(href, title=title, media_type=_TIFF, roles=roles, extra_fields={"raster:bands": [band]})
+        )
     item.add_link(pystac.Link("root", "../catalog.json", media_type=pystac.MediaType.JSON))
     item.add_link(pystac.Link("parent", "../catalog.json", media_type=pystac.MediaType.JSON))
     return item.to_dict(include_self_link=False, transform_hrefs=False)
 
 
 def _write_scene(
-    folder: Path, spec: SensorSpec, grid: _Grid, when: pd.Timestamp, rng: np.random.Generator, *,
-    truth: float, cloud: float, outlier: bool,
+    folder: Path,
+    spec: SensorSpec,
+    grid: _Grid,
+    when: pd.Timestamp,
+    rng: np.random.Generator,
+    *,
+    truth: float,
+    cloud: float,
+    outlier: bool,
 ) -> dict:
     """Write one scene's three GeoTIFFs and its STAC Item; return its planted facts."""
     scene = _scene(rng, spec, grid, truth, cloud, when.month, outlier)
@@ -223,7 +253,12 @@ def _write_scene(
         _write_tif(data / f"{scene_id}_{key}.tif", scene[key], grid, nodata)
     item = _item(spec, scene_id, when, grid, scene["facts"]["lake_cloud_fraction"])
     write_json(item, folder / "items" / f"{scene_id}.json")
-    return {"scene_id": scene_id, "sensor": spec.name, "datetime": when.strftime("%Y-%m-%dT%H:%M:%SZ"), **scene["facts"]}
+    return {
+        "scene_id": scene_id,
+        "sensor": spec.name,
+        "datetime": when.strftime("%Y-%m-%dT%H:%M:%SZ"),
+        **scene["facts"],
+    }
 
 
 def write_scenes(
@@ -266,8 +301,14 @@ def write_scenes(
             counters[name] += 1
             day = when.normalize()
             facts = _write_scene(
-                folder, SENSORS[name], grids[name], when, rng_for(seed, f"scene-{name}-{idx}"),
-                truth=float(truth[day]), cloud=float(cloud[day]), outlier=idx in outliers[name],
+                folder,
+                SENSORS[name],
+                grids[name],
+                when,
+                rng_for(seed, f"scene-{name}-{idx}"),
+                truth=float(truth[day]),
+                cloud=float(cloud[day]),
+                outlier=idx in outliers[name],
             )
             links.append(pystac.Link("item", f"./items/{facts['scene_id']}.json", media_type=pystac.MediaType.JSON))
             rows.append(facts)

@@ -183,9 +183,11 @@ def accumulate_since_midnight(amounts: np.ndarray, stamps: pd.DatetimeIndex) -> 
     """
     if stamps[0].hour != 1:
         raise ValueError(f"accumulation must start at 01 UTC, got {stamps[0]}")
-    shape = amounts.shape
-    days = amounts.reshape(shape[0] // 24, 24, *shape[1:])
-    return np.cumsum(days, axis=1).reshape(shape)
+    n = amounts.shape[0]
+    pad = (-n) % 24  # a last, partial day
+    padded = np.concatenate([amounts, np.zeros((pad, *amounts.shape[1:]), amounts.dtype)])
+    days = padded.reshape(-1, 24, *amounts.shape[1:])
+    return np.cumsum(days, axis=1).reshape(padded.shape)[:n]
 
 
 def grid_attrs(ds: xr.Dataset) -> xr.Dataset:
@@ -194,7 +196,11 @@ def grid_attrs(ds: xr.Dataset) -> xr.Dataset:
     ds["longitude"].attrs = {"standard_name": "longitude", "units": "degrees_east", "axis": "X"}
     ds["crs"] = xr.DataArray(
         np.int32(0),
-        attrs={"grid_mapping_name": "latitude_longitude", "semi_major_axis": 6378137.0, "inverse_flattening": 298.257223563},
+        attrs={
+            "grid_mapping_name": "latitude_longitude",
+            "semi_major_axis": 6378137.0,
+            "inverse_flattening": 298.257223563,
+        },
     )
     return ds
 

@@ -18,6 +18,7 @@ from __future__ import annotations
 import json
 import re
 from collections.abc import Iterator, Mapping
+from contextlib import ExitStack
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -126,8 +127,15 @@ def _walk(cat: pystac.Catalog, source: SceneSource, asset: str | None, seen: set
 
 
 def _rejected(scene_id: str, reason: str, sensor: str = "", time: Any = None) -> dict[str, Any]:
-    return dict(scene_id=scene_id, sensor=sensor, time=time, value_href=None, quality_href=None,
-                uncertainty_href=None, reason=reason)  # fmt: skip
+    return dict(
+        scene_id=scene_id,
+        sensor=sensor,
+        time=time,
+        value_href=None,
+        quality_href=None,
+        uncertainty_href=None,
+        reason=reason,
+    )
 
 
 def _item_row(path: Path, source: SceneSource, asset: str | None) -> dict[str, Any]:
@@ -244,16 +252,21 @@ class AoiPixels:
 
 @dataclass
 class SceneWindow:
-    """What was read from one scene: the window (full scene rows/cols), per-AOI pixels, skips."""
+    """What was read from one scene: the windows read (scene rows/cols), per-AOI pixels, skips."""
 
     scene_id: str
-    window: Window
+    windows: list[Window]
     shape: tuple[int, int]
     nodata: float | None
     pixel_size_m: float
     shore_buffer_m: float
     pixels: dict[str, AoiPixels] = field(default_factory=dict)
     skipped: dict[str, str] = field(default_factory=dict)
+
+    @property
+    def pixels_read(self) -> int:
+        """Pixels read per band (sum over the windows)."""
+        return int(sum(w.width * w.height for w in self.windows))
 
 
 def _metric_crs(gdf: gpd.GeoDataFrame) -> CRS:
@@ -292,11 +305,20 @@ class SceneReader:
             self._cache[key] = shore_buffered(self.aois, self.lake, buffer_m).to_crs(crs)
         return self._cache[key]
 
-    def read(self, scene_id: str, value_href: str, quality_href: str | None = None,
-             uncertainty_href: str | None = None, *, shore_buffer_m: float | None = None) -> SceneWindow:  # fmt: skip
-        """Read the AOI window of one scene.
+    def read(
+        self,
+        scene_id: str,
+        value_href: str,
+        quality_href: str | None = None,
+        uncertainty_href: str | None = None,
+        *,
+        shore_buffer_m: float | None = None,
+    ) -> SceneWindow:
+        """Read the AOI window(s) of one scene.
 
-        ``shore_buffer_m`` (metres): inward shoreline buffer; None: one pixel of the scene.
+        One window covers all AOIs; when the AOIs lie far apart (their own windows cover less than
+        half of the common one) each AOI gets its own window instead. ``shore_buffer_m`` (metres):
+        inward shoreline buffer; None: one pixel of the scene.
 
         Raises
         ------
@@ -304,15 +326,17 @@ class SceneReader:
             Missing, truncated or corrupt file; scene without CRS; a quality/uncertainty band whose
             shape or grid differs from the value band.
         """
-        src = _open(value_href, scene_id, "chlorophyll-a")
-        with src:
+        with ExitStack() as stack:
+            src = stack.enter_context(_open(value_href, scene_id, "chlorophyll-a"))
             if src.crs is None:
-                raise SourceError(f"scene {scene_id}: {value_href} has no CRS; write one into the file (e.g. gdal_edit)")
+                raise SourceError(
+                    f"scene {scene_id}: {value_href} has no CRS; write one into the file (e.g. gdal_edit)"
+                )
             crs = CRS.from_user_input(src.crs)
             pixel_m = _pixel_size_m(src, crs)
             buffer_m = pixel_m if shore_buffer_m is None else float(shore_buffer_m)
             geoms = self._aois_in(crs, buffer_m)
-            out = SceneWindow(scene_id, Window(0, 0, 0, 0), src.shape, src.nodata, pixel_m, buffer_m)
+            out = SceneWindow(scene_id, [], src.shape, src.nodata, pixel_m, buffer_m)
             scene_box = shapely.box(*src.bounds)
             keep = []
             for aoi, geom in geoms.items():
@@ -324,22 +348,32 @@ class SceneReader:
                     keep.append(str(aoi))
             if not keep:
                 return out
-            union = shapely.union_all(geoms.loc[keep].values)
-            full = rasterio.features.geometry_window(src, [union], boundless=True)
-            try:
-                inner = full.intersection(Window(0, 0, src.width, src.height))
-            except rasterio.errors.WindowError:
-                out.skipped.update({a: "AOI does not intersect the scene footprint" for a in keep})
-                return out
-            out.window = full
-            values = _read(src, inner, full, scene_id, value_href, fill=np.nan)
-            transform = rasterio.windows.transform(full, src.transform)
-            quality = _read_other(quality_href, scene_id, "quality", src, inner, full)
-            uncertainty = _read_other(uncertainty_href, scene_id, "uncertainty", src, inner, full)
+            others = {
+                what: stack.enter_context(_open_matching(href, scene_id, what, src))
+                for what, href in (("quality", quality_href), ("uncertainty", uncertainty_href))
+                if href
+            }
+            for group in _window_groups(src, geoms, keep):
+                self._read_group(src, others, geoms, group, out)
+        return out
+
+    @staticmethod
+    def _read_group(src: Any, others: dict[str, Any], geoms: gpd.GeoSeries, group: list[str], out: SceneWindow) -> None:
+        """Read the window of ``group``'s AOIs from every band; fill ``out.pixels`` / ``out.skipped``."""
+        full = rasterio.features.geometry_window(src, list(geoms.loc[group].values), boundless=True)
+        try:
+            inner = full.intersection(Window(0, 0, src.width, src.height))
+        except rasterio.errors.WindowError:
+            out.skipped.update(dict.fromkeys(group, "AOI does not intersect the scene footprint"))
+            return
+        out.windows.append(full)
+        values = _read(src, inner, full, out.scene_id, src.name, fill=np.nan)
+        bands = {what: _read_band(o, inner, full, out.scene_id) for what, o in others.items()}
+        transform = rasterio.windows.transform(full, src.transform)
         inside = np.zeros(values.shape, dtype=bool)
-        inside[inner.row_off - full.row_off : inner.row_off - full.row_off + inner.height,
-               inner.col_off - full.col_off : inner.col_off - full.col_off + inner.width] = True  # fmt: skip
-        for aoi in keep:
+        r, c = inner.row_off - full.row_off, inner.col_off - full.col_off
+        inside[r : r + inner.height, c : c + inner.width] = True
+        for aoi in group:
             mask = rasterio.features.geometry_mask(
                 [geoms[aoi]], out_shape=values.shape, transform=transform, all_touched=False, invert=True
             )
@@ -349,11 +383,21 @@ class SceneReader:
             sel = mask & inside
             out.pixels[aoi] = AoiPixels(
                 values=values[sel],
-                quality=None if quality is None else quality[sel],
-                uncertainty=None if uncertainty is None else uncertainty[sel],
+                quality=bands["quality"][sel] if "quality" in bands else None,
+                uncertainty=bands["uncertainty"][sel] if "uncertainty" in bands else None,
                 n_outside=int(mask.sum() - sel.sum()),
             )
-        return out
+
+
+def _window_groups(src: Any, geoms: gpd.GeoSeries, keep: list[str]) -> list[list[str]]:
+    """One group of all AOIs, or one group per AOI when their common window is mostly empty."""
+    if len(keep) == 1:
+        return [keep]
+    union = rasterio.features.geometry_window(src, list(geoms.loc[keep].values), boundless=True)
+    own = [rasterio.features.geometry_window(src, [geoms[a]], boundless=True) for a in keep]
+    if 2 * sum(w.width * w.height for w in own) < union.width * union.height:
+        return [[a] for a in keep]
+    return [keep]
 
 
 def _open(href: str, scene_id: str, what: str) -> rasterio.io.DatasetReader:
@@ -363,6 +407,18 @@ def _open(href: str, scene_id: str, what: str) -> rasterio.io.DatasetReader:
         return rasterio.open(href)
     except (RasterioError, OSError) as err:
         raise SourceError(f"scene {scene_id}: {what} file {href} is unreadable or corrupt ({err})") from err
+
+
+def _open_matching(href: str, scene_id: str, what: str, ref: Any) -> rasterio.io.DatasetReader:
+    """Open a quality/uncertainty band and check that it shares the value band's grid."""
+    src = _open(href, scene_id, what)
+    if src.shape != ref.shape or not src.transform.almost_equals(ref.transform):
+        src.close()
+        raise SourceError(
+            f"scene {scene_id}: {what} band {href} has shape {src.shape} / transform {tuple(src.transform)[:6]}, "
+            f"the chlorophyll-a band {ref.shape} / {tuple(ref.transform)[:6]}; both must share one grid"
+        )
+    return src
 
 
 def _pixel_size_m(src: rasterio.io.DatasetReader, crs: CRS) -> float:
@@ -387,20 +443,12 @@ def _read(src: Any, inner: Window, full: Window, scene_id: str, href: str, *, fi
     return out
 
 
-def _read_other(href: str | None, scene_id: str, what: str, ref: Any, inner: Window, full: Window) -> np.ndarray | None:
-    if not href:
-        return None
-    src = _open(href, scene_id, what)
-    with src:
-        if src.shape != ref.shape or not src.transform.almost_equals(ref.transform):
-            raise SourceError(
-                f"scene {scene_id}: {what} band {href} has shape {src.shape} / transform {tuple(src.transform)[:6]}, "
-                f"the chlorophyll-a band {ref.shape} / {tuple(ref.transform)[:6]}; both must share one grid"
-            )
-        data = _read(src, inner, full, scene_id, href, fill=np.nan)
-        if src.nodata is not None and np.isfinite(src.nodata):  # the band's own no-data: unknown (NaN)
-            data = np.where(data == src.nodata, np.nan, data.astype(np.float32, copy=False))
-        return data
+def _read_band(src: Any, inner: Window, full: Window, scene_id: str) -> np.ndarray:
+    """A quality/uncertainty window with the band's own no-data as NaN (unknown)."""
+    data = _read(src, inner, full, scene_id, src.name, fill=np.nan)
+    if src.nodata is not None and np.isfinite(src.nodata):
+        data = np.where(data == src.nodata, np.nan, data.astype(np.float32, copy=False))
+    return data
 
 
 def read_scenes(
@@ -425,9 +473,12 @@ def read_scenes(
         else:
             try:
                 win = reader.read(
-                    row["scene_id"], row["value_href"], row["quality_href"], row["uncertainty_href"],
+                    row["scene_id"],
+                    row["value_href"],
+                    row["quality_href"],
+                    row["uncertainty_href"],
                     shore_buffer_m=buffers.get(row["sensor"]),
-                )  # fmt: skip
+                )
                 yield row, win, ""
             except SourceError as err:
                 yield row, None, str(err)

@@ -37,6 +37,7 @@ from lakefeed.extract.forecast_evaluation import bias_table, expanding_adjustmen
 from lakefeed.extract.quantile_mapping import DEFAULT_KINDS, fit_quantile_mapping
 from lakefeed.features import assign_folds
 from lakefeed.features.reforecast import reforecast_rows
+from lakefeed.geometry.weights import ZoneWeights
 from lakefeed.geometry.zones import build_zones, zone_latitudes
 from lakefeed.sources.forecasts import ISSUE, LEAD, ForecastArchive, open_forecasts
 from lakefeed.sources.grids import find_variable
@@ -46,7 +47,7 @@ from lakefeed.stages.weather import get_weights, hourly_drivers
 from lakefeed.store import Store
 from lakefeed.units import convert
 
-__all__ = ["adjust_forecasts", "build_forecast", "daily_forecasts", "fit_options"]
+__all__ = ["adjust_forecasts", "build_forecast", "daily_forecasts", "fit_options", "forecast_steps"]
 
 ADJUSTED = "quantile_mapping"
 _AMOUNTS = ("precipitation", "shortwave_radiation")
@@ -69,21 +70,46 @@ def _settings_hash(src: ForecastSource, variables: list[str]) -> str:
     return hashlib.sha256(json.dumps(payload, sort_keys=True, default=str).encode()).hexdigest()[:16]
 
 
-def daily_forecasts(
-    archive: ForecastArchive, project: Project, *, cache_dir: Path | None = None, progress: Progress | None = None
-) -> tuple[pd.DataFrame, list[str]]:
-    """Raw daily forecast drivers per zone, issue and lead (``drivers_daily`` columns and units) and warnings."""
-    lake, src = project.lake, project.sources.forecast or ForecastSource(paths=[])
+def forecast_steps(
+    archive: ForecastArchive,
+    weights: ZoneWeights,
+    *,
+    source: ForecastSource | None = None,
+    progress: Progress | None = None,
+) -> tuple[xr.Dataset, list[str]]:
+    """Per-step zonal forecast values in canonical units, dims (forecast_reference_time, forecast_period, zone).
+
+    De-accumulates along the lead per ``source.accumulation`` (keyed by role or by the file's variable
+    name), then reuses the reanalysis path (:func:`lakefeed.stages.weather.hourly_drivers`): units are
+    converted to the canonical ones (an unconvertible unit is a :class:`~lakefeed.exceptions.SourceError`).
+    """
+    src = source or ForecastSource(paths=[])
     ds = archive.dataset
-    warnings: list[str] = []
     for role in _AMOUNTS:
         name = find_variable(ds, role, mapping=src.variables, where=archive.label)
-        # keyed by role (as WEATHER_ROLES) or by the file's variable name
         acc = src.accumulation.get(role) or src.accumulation.get(name) or Accumulation()
         inc, bad = deaccumulate_forecast(ds[name], kind=acc.kind, name=name)
         check_increments(bad.values, ds[ISSUE].values, ds[LEAD].values, name=name)
         ds = ds.assign({name: inc})
     grid = archive.as_grid(ds)
+    as_is = {role: Accumulation(kind="none") for role in _AMOUNTS}  # de-accumulated above, along the lead
+    wsrc = WeatherSource(paths=[], variables=src.variables, units=src.units)
+    steps, clipped = hourly_drivers(grid, weights, source=wsrc, accumulation=as_is, progress=progress)
+    warnings = [f"{k}: {n} forecast value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
+    shape = (ds.sizes[ISSUE], ds.sizes[LEAD], len(weights.zones))
+    cube = xr.Dataset(
+        {k: ((ISSUE, LEAD, "zone"), np.asarray(v.values).reshape(shape)) for k, v in steps.data_vars.items()},
+        coords={ISSUE: ds[ISSUE].values, LEAD: ds[LEAD].values, "zone": list(weights.zones)},
+    )
+    return cube, warnings
+
+
+def daily_forecasts(
+    archive: ForecastArchive, project: Project, *, cache_dir: Path | None = None, progress: Progress | None = None
+) -> tuple[pd.DataFrame, list[str]]:
+    """Raw daily forecast drivers per zone, issue and lead (``drivers_daily`` columns and units) and warnings."""
+    lake = project.lake
+    grid = archive.as_grid()
     lake_g = read_layer(lake.lake, what="lake polygon")
     aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
     subs = None
@@ -92,15 +118,7 @@ def daily_forecasts(
     zones = build_zones(lake_g, aois=aois, aoi_id_field=lake.aois.id_field, subbasins=subs,
                         subbasin_layer=lake.subbasins, options=lake.zones, crs=grid.crs)  # fmt: skip
     weights, _ = get_weights(zones, grid, cache_dir=cache_dir, allow_partial_coverage=lake.zones.allow_partial_coverage)
-    as_is = {role: Accumulation(kind="none") for role in _AMOUNTS}  # de-accumulated above, along the lead
-    wsrc = WeatherSource(paths=[], variables=src.variables, units=src.units)
-    steps, clipped = hourly_drivers(grid, weights, source=wsrc, accumulation=as_is, progress=progress)
-    warnings += [f"{k}: {n} forecast value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
-    shape = (ds.sizes[ISSUE], ds.sizes[LEAD], len(weights.zones))
-    cube = xr.Dataset(
-        {k: ((ISSUE, LEAD, "zone"), np.asarray(v.values).reshape(shape)) for k, v in steps.data_vars.items()},
-        coords={ISSUE: ds[ISSUE].values, LEAD: ds[LEAD].values, "zone": list(weights.zones)},
-    )
+    cube, warnings = forecast_steps(archive, weights, source=project.sources.forecast, progress=progress)
     flags = {z: weights.flags(z) for z in weights.zones}
     daily = to_daily_by_lead(cube, tz=lake.timezone, latitude=zone_latitudes(zones), zone_flags=flags)
     return daily, warnings

@@ -56,6 +56,7 @@ def catchment_of(project: Project) -> Catchment:
         downstream_field=cfg.downstream_field,
         lake_id=cfg.lake_id,
         direct_inflows=cfg.direct_inflows,
+        outside_ids=["", *cfg.outside_ids],
     )
 
 
@@ -147,7 +148,7 @@ def build_hydrology(project: Project, store: Store, *, progress: Progress | None
                     frame = est.daily.rename_axis("date").reset_index()
                     frame.insert(0, "station", station.id)
                     frame.insert(1, "nutrient", nutrient)
-                    frame.insert(2, "method", est.method if name != "rating_curve" else "rating_curve")
+                    frame.insert(2, "method", name)
                     frame.insert(3, "selected", name == chosen)
                     frame["warnings"] = "; ".join(est.warnings)
                     estimates.append(frame)

@@ -28,9 +28,16 @@ __all__ = ["OBS_COLUMNS", "OBS_UNITS", "build_target", "daily_target", "extract_
 
 OBS_COLUMNS = ["lake", "aoi", "scene_id", "sensor", "time", "date", *STAT_COLUMNS, "accepted", "reason", "outlier"]
 OBS_UNITS = {
-    "median": "mg m-3", "mean": "mg m-3", "p10": "mg m-3", "p90": "mg m-3", "std": "mg m-3", "cv": "1",
-    "n_valid": "1", "valid_fraction": "1", "uncertainty": "1",
-}  # fmt: skip
+    "median": "mg m-3",
+    "mean": "mg m-3",
+    "p10": "mg m-3",
+    "p90": "mg m-3",
+    "std": "mg m-3",
+    "cv": "1",
+    "n_valid": "1",
+    "valid_fraction": "1",
+    "uncertainty": "1",
+}
 DAILY_UNITS = {"chla": "mg m-3", "chla_uncertainty": "mg m-3", "n_obs": "1", "tsi": "1"}
 _DESCRIPTIONS = {
     "uncertainty": "mean relative 1-sigma uncertainty of the valid pixels (fraction), NaN without a band",
@@ -89,8 +96,12 @@ def extract_observations(
     obs["time"] = pd.to_datetime(obs["time"], utc=True)
     obs["date"] = obs["time"].dt.tz_convert(timezone).dt.date
     obs["lake"] = lake
-    obs = accept(obs, min_valid_fraction=options.min_valid_fraction, min_valid_pixels=options.min_valid_pixels,
-                 max_cv=options.max_cv)  # fmt: skip
+    obs = accept(
+        obs,
+        min_valid_fraction=options.min_valid_fraction,
+        min_valid_pixels=options.min_valid_pixels,
+        max_cv=options.max_cv,
+    )
     obs["outlier"] = flag_outliers(obs, window_days=options.outlier_window_days, threshold=options.outlier_threshold)
     obs["n_valid"] = obs["n_valid"].astype("int64")
     return obs[OBS_COLUMNS].sort_values(["aoi", "time", "scene_id"]).reset_index(drop=True)
@@ -113,12 +124,21 @@ def daily_target(
     sensors = dict(sensors or {})
     options = options or TargetOptions()
     use = obs[obs["accepted"].astype(bool) & ~obs["outlier"].astype(bool) & (obs["median"] > 0)].copy()
-    default_rel = use["sensor"].map({s: c.uncertainty for s, c in sensors.items()}).fillna(SensorConfig.model_fields["uncertainty"].default)
+    default_rel = (
+        use["sensor"]
+        .map({s: c.uncertainty for s, c in sensors.items()})
+        .fillna(SensorConfig.model_fields["uncertainty"].default)
+    )
     use["relative_sigma"] = use["uncertainty"].where(use["uncertainty"] > 0, default_rel)
     if reference is not None:
         pairs = matchups(use, reference=reference, window_days=options.matchup_window_days)
-        fits = fit_bias(pairs, reference=reference, sensors=sorted(set(use["sensor"])), model=options.bias_model,
-                        min_matchups=options.min_matchups)  # fmt: skip
+        fits = fit_bias(
+            pairs,
+            reference=reference,
+            sensors=sorted(set(use["sensor"])),
+            model=options.bias_model,
+            min_matchups=options.min_matchups,
+        )
     else:
         fits = pd.DataFrame(columns=BIAS_COLUMNS)
     if len(fits):
@@ -153,24 +173,35 @@ def build_target(project: Project, store: Store, *, progress: Progress | None = 
     lake_poly = read_layer(lake.lake, what="lake polygon")
     reader = SceneReader(aois, id_field=lake.aois.id_field, lake=lake_poly)
     scenes = list_scenes(source)
-    obs = extract_observations(scenes, reader, lake=lake.id, timezone=lake.timezone, sensors=lake.sensors,
-                               options=lake.target, progress=progress)  # fmt: skip
+    obs = extract_observations(
+        scenes,
+        reader,
+        lake=lake.id,
+        timezone=lake.timezone,
+        sensors=lake.sensors,
+        options=lake.target,
+        progress=progress,
+    )
     reference = lake.reference_sensor
     if reference is None and obs["sensor"].nunique() > 1:
         result.warnings.append("no reference sensor configured: sensors are fused without harmonisation")
-    daily, fits = daily_target(obs, sensors=lake.sensors, reference=reference, options=lake.target,
-                               thresholds=lake.thresholds)  # fmt: skip
+    daily, fits = daily_target(
+        obs, sensors=lake.sensors, reference=reference, options=lake.target, thresholds=lake.thresholds
+    )
     for _, f in fits[fits["note"].str.startswith("too few") | fits["note"].str.startswith("fitted")].iterrows():
         result.warnings.append(f"sensor {f['sensor']}: {f['note']}")
     bad = obs.loc[obs["reason"] != "", ["scene_id", "reason"]].drop_duplicates("scene_id")
     unreadable = bad[bad["reason"].str.startswith("scene ") | bad["reason"].str.startswith("STAC")]
     if len(unreadable):
-        result.warnings.append(f"{len(unreadable)} scene(s) rejected as unreadable, e.g. {unreadable['reason'].iloc[0]}")
+        result.warnings.append(
+            f"{len(unreadable)} scene(s) rejected as unreadable, e.g. {unreadable['reason'].iloc[0]}"
+        )
     meta = {"caution": CAUTION}
     fit_meta = {"sensor_bias": fits.to_json(orient="records")}
     store.write_table("target_obs", lake.id, obs, units=OBS_UNITS, descriptions=_DESCRIPTIONS, metadata=meta)
-    store.write_table("target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=_DESCRIPTIONS,
-                      metadata=meta | fit_meta)  # fmt: skip
+    store.write_table(
+        "target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=_DESCRIPTIONS, metadata=meta | fit_meta
+    )
     bias_units = {"ratio": "1", "ln_ratio": "1", "ln_ratio_se": "1", "slope": "1", "intercept": "mg m-3", "r2": "1"}
     store.write_table("sensor_bias", lake.id, fits.assign(lake=lake.id), units=bias_units)
     result.tables = {"target_obs": len(obs), "target_daily": len(daily), "sensor_bias": len(fits)}

@@ -59,6 +59,19 @@ def _schema_with_units(
     return pa.schema(fields, metadata=meta)
 
 
+def _write_options(schema: pa.Schema) -> dict[str, Any]:
+    """Parquet options: microsecond timestamps (readable by Spark, which rejects nanoseconds);
+    dictionary encoding and statistics for keys, dates and labels, not for float measurements
+    (wide feature tables write several times faster; predicate pushdown works on keys and dates)."""
+    other = [f.name for f in schema if not pa.types.is_floating(f.type)]
+    return {
+        "coerce_timestamps": "us",
+        "allow_truncated_timestamps": True,
+        "use_dictionary": other,
+        "write_statistics": other,
+    }
+
+
 def read_units(schema: pa.Schema) -> dict[str, str]:
     """Per-column units stored in a schema (field metadata ``unit``)."""
     out = {}
@@ -194,7 +207,7 @@ class Store:
             try:
                 self.fs.makedirs(part_dir, exist_ok=True)
                 with self.fs.open(tmp, "wb") as f:
-                    pq.write_table(arrow, f)
+                    pq.write_table(arrow, f, **_write_options(arrow.schema))
                 digest = self._digest(tmp)
                 if self.local:
                     os.replace(tmp, final)
@@ -284,7 +297,7 @@ class Store:
             t = self.read_arrow(table, lk, columns=columns)
             units.update(read_units(t.schema))
             descr.update(read_descriptions(t.schema))
-            f = t.to_pandas()
+            f = t.to_pandas(coerce_temporal_nanoseconds=True)
             f.insert(0, "lake", lk)
             frames.append(f)
         frame = frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)

@@ -77,10 +77,10 @@ def interpolation_load(
     daily = conc * a.flow * k
     warnings = standard_warnings(a, "interpolation", min_samples)
     before, after = int(a.sample_pos[0]), int(len(a.days) - 1 - a.sample_pos[-1])
-    if before or after:
-        warnings.append(
-            f"concentration held constant for {before} day(s) before the first and {after} after the last sample"
-        )
+    held = [f"{before} day(s) before the first sample"] if before else []
+    held += [f"{after} day(s) after the last sample"] if after else []
+    if held:
+        warnings.append(f"concentration held constant for {' and '.join(held)}")
     idx = _bootstrap_indices(a.n, n_boot, seed)
     boot_conc = np.stack([np.interp(t, xp[i], a.conc[i]) for i in idx])  # loop over replicates, not days
     boot = boot_conc * a.flow * k

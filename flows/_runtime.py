@@ -1,0 +1,207 @@
+"""Runtime plumbing shared by the flows: stage lookup, Prefect API, Dask task runner, store lock.
+
+Takes lake config paths and store folders; returns stage callables, task runners and locks. Must not
+hold any science: every stage is one call into :mod:`lakefeed.stages`.
+
+Prefect's local mode (no server to start) is used for ad-hoc runs. When tasks run in Dask worker
+processes, those processes must reach the same Prefect API as the flow; :func:`prefect_api` starts
+Prefect's own temporary local server once and passes its address in the settings context that Prefect
+ships with every task, so workers do not each try to start a server of their own.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import fcntl
+import importlib
+import json
+import os
+import socket
+import time
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+from lakefeed.exceptions import StoreError
+from lakefeed.stages._result import Progress, StageResult
+
+__all__ = [
+    "STAGES",
+    "available_stages",
+    "dask_task_runner",
+    "get_progress",
+    "prefect_api",
+    "run_stage",
+    "set_progress",
+    "store_lock",
+]
+
+#: Stage name -> (module, function), in the order the flows run them (features after the inputs it joins).
+STAGES: dict[str, tuple[str, str]] = {
+    "weather": ("lakefeed.stages.weather", "build_weather"),
+    "hydrology": ("lakefeed.stages.hydrology", "build_hydrology"),
+    "target": ("lakefeed.stages.target", "build_target"),
+    "features": ("lakefeed.stages.features", "build_features"),
+    "forecast": ("lakefeed.stages.forecast", "build_forecast"),
+}
+
+StageFn = Callable[..., StageResult]
+
+
+def available_stages() -> tuple[dict[str, StageFn], dict[str, str]]:
+    """Stages whose module exists, and a note for each one that does not (it is skipped)."""
+    found: dict[str, StageFn] = {}
+    missing: dict[str, str] = {}
+    for name, (module, func) in STAGES.items():
+        try:
+            mod = importlib.import_module(module)
+        except ModuleNotFoundError as err:
+            if err.name is not None and module.startswith(err.name):
+                missing[name] = f"stage {name!r} is not available yet ({module} does not exist); skipped"
+                continue
+            raise
+        fn = getattr(mod, func, None)
+        if fn is None:
+            missing[name] = f"stage {name!r}: {module} has no {func}(); skipped"
+        else:
+            found[name] = fn
+    return found, missing
+
+
+# --- progress: the CLI installs a callback; tasks running in this process use it -------------------------
+
+_PROGRESS: list[Progress] = []
+
+
+def set_progress(progress: Progress | None) -> None:
+    """Install (or remove, with None) the progress callback used by tasks running in this process."""
+    _PROGRESS.clear()
+    if progress is not None:
+        _PROGRESS.append(progress)
+
+
+def get_progress() -> Progress | None:
+    """The installed progress callback, or None (tasks in other processes only log)."""
+    return _PROGRESS[0] if _PROGRESS else None
+
+
+def run_stage(stage: str, lake_file: str, store_root: str, *, progress: Progress | None = None) -> StageResult:
+    """Load the lake config and run one stage for it (the single library call a task makes)."""
+    from lakefeed.config import load_project
+    from lakefeed.store import Store
+
+    stages, missing = available_stages()
+    project = load_project(lake_file)
+    if stage not in stages:
+        return StageResult(stage, project.id, skipped=True, reason=missing.get(stage, f"unknown stage {stage!r}"))
+    return stages[stage](project, Store(store_root), progress=progress)
+
+
+# --- Prefect API for local mode ---------------------------------------------------------------------------
+
+
+@contextlib.contextmanager
+def prefect_api() -> Iterator[str | None]:
+    """Make sure flows and any Dask workers talk to one Prefect API; yields its URL.
+
+    With ``PREFECT_API_URL`` set (a running server), nothing is started. Otherwise Prefect's temporary
+    local server (the one its local mode starts by itself) is started here, once, and its address is put
+    in the settings, which Prefect serialises with each task for the workers.
+    """
+    from prefect.settings import PREFECT_API_URL, temporary_settings
+
+    current = PREFECT_API_URL.value()
+    if current:
+        yield current
+        return
+    from prefect.server.api.server import SubprocessASGIServer
+
+    os.environ.setdefault("PREFECT_SERVER_ANALYTICS_ENABLED", "false")
+    server = SubprocessASGIServer()  # the same instance Prefect's local mode uses (a singleton)
+    if not server.running:
+        server.start(timeout=180)
+    with temporary_settings(updates={PREFECT_API_URL: server.api_url}):
+        yield server.api_url
+
+
+def dask_task_runner(address: str | None = None, *, n_workers: int | None = None) -> Any:
+    """A prefect-dask ``DaskTaskRunner``: an existing cluster at ``address``, else a local one.
+
+    The local cluster is sized to the machine: one single-threaded worker process per CPU core (stages
+    release the GIL little in pandas code, so processes beat threads), on loopback, no dashboard.
+    """
+    from prefect_dask import DaskTaskRunner
+
+    if address:
+        return DaskTaskRunner(address=address)
+    workers = n_workers or max(1, os.cpu_count() or 1)
+    return DaskTaskRunner(
+        cluster_class="distributed.LocalCluster",
+        cluster_kwargs={
+            "n_workers": workers,
+            "threads_per_worker": 1,
+            "processes": True,
+            "host": "127.0.0.1",
+            "dashboard_address": None,
+        },
+    )
+
+
+# --- one refresh at a time per store ------------------------------------------------------------------------
+
+
+@dataclass
+class _Holder:
+    pid: int
+    host: str
+    started: str
+
+
+@contextlib.contextmanager
+def store_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "refresh") -> Iterator[Path]:
+    """Hold the store's write lock (``<store>/.run.lock``) for the duration of a run.
+
+    A second run on the same store waits up to ``wait`` seconds, then refuses with :class:`StoreError`
+    naming the holder. The lock is an OS file lock: it is released when the holding process dies.
+    """
+    root = Path(root)
+    root.mkdir(parents=True, exist_ok=True)
+    path = root / ".run.lock"
+    fh = open(path, "a+")  # noqa: SIM115 - kept open for the whole run
+    deadline = time.monotonic() + max(0.0, wait)
+    try:
+        while True:
+            try:
+                fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+                break
+            except BlockingIOError:
+                if time.monotonic() >= deadline:
+                    fh.seek(0)
+                    holder = fh.read().strip() or "unknown process"
+                    raise StoreError(
+                        f"store {root} is in use by another run ({holder}); two runs must not write one store at "
+                        f"once. Wait for it to finish, or pass a longer --wait (waited {wait:g} s)."
+                    ) from None
+                time.sleep(0.2)
+        fh.seek(0)
+        fh.truncate()
+        info = _Holder(os.getpid(), socket.gethostname(), datetime.now(UTC).isoformat(timespec="seconds"))
+        fh.write(f"{what}: pid {info.pid} on {info.host} since {info.started}")
+        fh.flush()
+        yield path
+    finally:
+        with contextlib.suppress(OSError):
+            fh.seek(0)
+            fh.truncate()
+            fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
+        fh.close()
+
+
+def write_json_atomic(path: Path, data: Any) -> None:
+    """Write JSON aside and move it into place (a crash leaves the previous file intact)."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    tmp.write_text(json.dumps(data, indent=1, sort_keys=True, default=str), encoding="utf-8")
+    os.replace(tmp, path)

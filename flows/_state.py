@@ -1,0 +1,149 @@
+"""What changed since the last run: content hashes of each lake's sources, by kind and month.
+
+Takes a loaded :class:`~lakefeed.config.Project` and the store root; returns fingerprints
+(``{kind: {month: sha256}}``), the stages a lake needs, and reads/writes the per-lake record
+``<store>/_state/source_state/lake=<id>.json``. Months come from ``YYYY-MM`` / ``YYYYMM`` in file names
+(files without one count as ``all``). Must not run any stage.
+
+The record is written only after every stage of the lake succeeded, so an interrupted or failed run
+leaves the previous record and the next run redoes the same work.
+"""
+
+from __future__ import annotations
+
+import glob
+import hashlib
+import json
+import re
+from collections.abc import Iterable
+from pathlib import Path
+from typing import Any
+
+from lakefeed.config import Project
+from lakefeed.exceptions import SourceError
+
+__all__ = ["STAGE_INPUTS", "changes", "fingerprint", "plan_stages", "read_state", "state_path"]
+
+_MONTH = re.compile(r"(?<!\d)(\d{4})-?(0[1-9]|1[0-2])(?:-?\d{2})?(?!\d)")
+
+#: Source kinds each stage reads ("config" = lake YAML, sources YAML and geometry layers).
+STAGE_INPUTS: dict[str, tuple[str, ...]] = {
+    "weather": ("config", "weather"),
+    "hydrology": ("config", "hydrology", "samples"),
+    "target": ("config", "scenes"),
+    "features": ("config", "weather", "hydrology", "samples", "scenes"),
+    "forecast": ("config", "forecast", "weather"),
+}
+
+
+def _hash_file(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _month(path: Path) -> str:
+    m = _MONTH.search(path.name)
+    return f"{m.group(1)}-{m.group(2)}" if m else "all"
+
+
+def _expand(patterns: Iterable[str], what: str) -> list[Path]:
+    files: list[Path] = []
+    for pat in patterns:
+        hits = sorted(glob.glob(str(pat), recursive=True))
+        if not hits:
+            raise SourceError(f"{what}: no file matches {pat!r}; check the path in sources.yaml or restore the files")
+        files += [Path(h) for h in hits if Path(h).is_file()]
+    return files
+
+
+def _by_month(files: Iterable[Path], base: Path | None = None) -> dict[str, str]:
+    groups: dict[str, list[tuple[str, str]]] = {}
+    for f in files:
+        name = str(f.relative_to(base)) if base is not None else f.name
+        groups.setdefault(_month(f), []).append((name, _hash_file(f)))
+    return {m: hashlib.sha256(json.dumps(sorted(v)).encode()).hexdigest() for m, v in sorted(groups.items())}
+
+
+def fingerprint(project: Project) -> dict[str, dict[str, str]]:
+    """Content hashes of every input of a lake, by source kind and month.
+
+    Raises :class:`SourceError` naming the source when a configured file is missing.
+    """
+    lake, src = project.lake, project.sources
+    config_files = [project.lake_file, project.sources_file, lake.lake.path, lake.aois.path, lake.subbasins.path]
+    out: dict[str, dict[str, str]] = {
+        "config": {"all": hashlib.sha256("".join(_hash_file(Path(f)) for f in config_files).encode()).hexdigest()}
+    }
+    if src.weather is not None:
+        out["weather"] = _by_month(_expand(src.weather.paths, "weather"))
+    if src.hydrology is not None:
+        hyd = [src.hydrology.path] if src.hydrology.path else list(src.hydrology.files.values())
+        out["hydrology"] = _by_month(_expand(hyd, "hydrology"))
+    if src.samples:
+        out["samples"] = _by_month(_expand([s.path for s in src.samples], "samples"))
+    if src.scenes is not None:
+        if src.scenes.catalog:
+            cat = _expand([src.scenes.catalog], "scenes catalog")[0]
+            base = cat.parent
+        else:
+            base = Path(str(src.scenes.folder))
+        if not base.is_dir():
+            raise SourceError(f"scenes: folder {base} does not exist; check sources.yaml scenes")
+        out["scenes"] = _by_month((p for p in base.rglob("*") if p.is_file()), base)
+    if src.forecast is not None:
+        out["forecast"] = _by_month(_expand(src.forecast.paths, "forecast"))
+    return out
+
+
+def changes(old: dict[str, dict[str, str]], new: dict[str, dict[str, str]]) -> dict[str, list[str]]:
+    """Months new or changed per kind (a removed month counts as a change of ``removed:<month>``)."""
+    out: dict[str, list[str]] = {}
+    for kind in sorted(set(old) | set(new)):
+        o, n = old.get(kind, {}), new.get(kind, {})
+        changed = [m for m in n if o.get(m) != n[m]] + [f"removed:{m}" for m in o if m not in n]
+        if changed:
+            out[kind] = sorted(changed)
+    return out
+
+
+def state_path(store_root: str | Path, lake: str) -> Path:
+    """Where the record of a lake's last successful inputs lives."""
+    return Path(store_root) / "_state" / "source_state" / f"lake={lake}.json"
+
+
+def read_state(store_root: str | Path, lake: str) -> dict[str, Any]:
+    """The last record (``{"sources": {kind: {month: hash}}, "stages": {stage: [tables]}}``), or an empty one."""
+    path = state_path(store_root, lake)
+    if not path.exists():
+        return {"sources": {}, "stages": {}}
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return {"sources": {}, "stages": {}}  # unreadable record: rebuild everything
+
+
+def plan_stages(
+    stages: Iterable[str], changed: dict[str, list[str]], *, recorded: dict[str, list[str]], has_table: Any
+) -> list[str]:
+    """Stages to run for one lake.
+
+    A stage runs when one of its inputs changed, when it has no record of a successful run, or when a
+    table it wrote last time is missing from the store. ``features`` runs when any earlier stage runs,
+    and ``forecast`` (which extends the feature table with forecast leads) when ``features`` runs.
+    """
+    order = list(stages)
+    plan = {
+        s
+        for s in order
+        if any(k in changed for k in STAGE_INPUTS.get(s, ("config",)))
+        or s not in recorded
+        or not all(has_table(t) for t in recorded[s])
+    }
+    if "features" in order and any(order.index(s) < order.index("features") for s in plan):
+        plan.add("features")
+    if "forecast" in order and "features" in plan:
+        plan.add("forecast")
+    return sorted(plan, key=order.index)

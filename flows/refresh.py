@@ -1,0 +1,292 @@
+"""Prefect flows over many lakes: ``refresh`` (incremental) and ``build_lake`` / ``onboard_lake`` (full backfill).
+
+Takes lake config files or folders of them and a store folder; returns one summary dict per lake and
+stores them in the ``run_summary`` table. Lakes fan out as coarse tasks (one per lake per stage) on a
+Dask cluster: a local one sized to the machine by default, or an existing one (``dask_address`` argument
+or ``dask_address:`` in sources.yaml). Each lake is isolated: its failure is recorded with the reason,
+its later stages are not run, and the other lakes go on. Only one run writes a store at a time
+(:func:`lakefeed.flows._runtime.store_lock`). Must not hold any science.
+"""
+
+from __future__ import annotations
+
+import time
+import uuid
+from collections.abc import Sequence
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+import pyarrow.parquet as pq
+from prefect import flow, get_run_logger
+from prefect.task_runners import ThreadPoolTaskRunner
+
+from lakefeed.config import Project, find_lake_files, load_project
+from lakefeed.exceptions import ConfigError, LakefeedError
+from lakefeed.flows._runtime import (
+    STAGES,
+    available_stages,
+    dask_task_runner,
+    prefect_api,
+    store_lock,
+    write_json_atomic,
+)
+from lakefeed.flows._state import state_path
+from lakefeed.flows.tasks import plan_task, stage_task
+from lakefeed.store import Store
+
+__all__ = ["SUMMARY_UNITS", "build_lake", "format_summary", "onboard_lake", "process_lakes", "refresh"]
+
+SUMMARY_UNITS = {"new_rows": "1", "rows_written": "1", "seconds": "s"}
+
+
+def _row_counts(store: Store, lake: str) -> dict[str, int]:
+    out = {}
+    for table in store.tables():
+        if store.has_table(table, lake):
+            out[table] = pq.ParquetFile(store.part_file(table, lake)).metadata.num_rows
+    return out
+
+
+def _error_text(err: BaseException) -> str:
+    return f"{type(err).__name__}: {err}".strip()
+
+
+@flow(name="process-lakes", log_prints=True)
+def process_lakes(lakes: dict[str, str], store_root: str, *, full: bool = False) -> list[dict[str, Any]]:
+    """Run the stages each lake needs, stage by stage across lakes; one summary dict per lake."""
+    logger = get_run_logger()
+    found, missing = available_stages()
+    order = [s for s in STAGES if s in found]
+    for note in missing.values():
+        logger.warning(note)
+    store = Store(store_root)
+    clock = {lake: time.perf_counter() for lake in lakes}
+    rec: dict[str, dict[str, Any]] = {
+        lake: {"lake": lake, "status": "ok", "stages_run": [], "tables": {}, "skipped": [], "error": "", "changed": ""}
+        for lake in lakes
+    }
+    plans: dict[str, dict[str, Any]] = {}
+    futures = {lake: plan_task.submit(lake, lf, store_root, order, full) for lake, lf in lakes.items()}
+    for lake, fut in futures.items():
+        try:
+            plans[lake] = fut.result()
+        except Exception as err:
+            rec[lake].update(status="failed", error=f"plan: {_error_text(err)}")
+            logger.error("lake %s failed while hashing its sources: %s", lake, _error_text(err))
+    for lake, plan in plans.items():
+        rec[lake]["changed"] = "; ".join(f"{k}: {','.join(v)}" for k, v in plan["changed"].items())
+    before = {lake: _row_counts(store, lake) for lake in plans}
+    alive = {lake for lake in plans if plans[lake]["stages"]}
+    for lake in set(plans) - alive:
+        rec[lake].update(status="unchanged", skipped=["no new or changed source months"])
+    for stage in order:
+        running = {
+            lake: stage_task.submit(stage, lake, lakes[lake], store_root)
+            for lake in sorted(alive)
+            if stage in plans[lake]["stages"]
+        }
+        for lake, fut in running.items():
+            try:
+                result = fut.result()
+            except Exception as err:
+                rec[lake].update(status="failed", error=f"{stage}: {_error_text(err)}")
+                alive.discard(lake)
+                logger.error("lake %s failed in stage %s: %s (other lakes continue)", lake, stage, _error_text(err))
+                continue
+            rec[lake]["stages_run"].append(stage)
+            rec[lake]["tables"].update(result["tables"])
+            if result["skipped"]:
+                rec[lake]["skipped"].append(f"{stage}: {result['reason']}")
+            plans[lake]["recorded"][stage] = sorted(result["tables"])
+    for lake in alive:  # every stage of the lake succeeded: remember what its store now reflects
+        write_json_atomic(
+            state_path(store_root, lake), {"sources": plans[lake]["sources"], "stages": plans[lake]["recorded"]}
+        )
+    summaries = []
+    for lake, r in rec.items():
+        after = _row_counts(store, lake) if lake in before else {}
+        new = sum(max(0, n - before.get(lake, {}).get(t, 0)) for t, n in after.items() if t in r["tables"])
+        summaries.append(
+            {
+                "lake": lake,
+                "status": r["status"],
+                "stages_run": ",".join(r["stages_run"]),
+                "new_rows": int(new),
+                "rows_written": int(sum(r["tables"].values())),
+                "changed": r["changed"],
+                "skipped": "; ".join(r["skipped"]),
+                "error": r["error"],
+                "seconds": round(time.perf_counter() - clock[lake], 3),
+            }
+        )
+    return summaries
+
+
+def _load(configs: Sequence[str | Path]) -> tuple[dict[str, Project], list[dict[str, Any]]]:
+    files = find_lake_files([Path(c) for c in configs])
+    if not files:
+        raise ConfigError(f"no lake configuration found in {[str(c) for c in configs]}")
+    projects: dict[str, Project] = {}
+    failed = []
+    for f in files:
+        try:
+            p = load_project(f)
+        except LakefeedError as err:
+            failed.append({"lake": Path(f).stem.removeprefix("lake-"), "status": "failed", "error": str(err)})
+            continue
+        if p.id in projects:
+            failed.append({"lake": p.id, "status": "failed", "error": f"{f}: lake id {p.id!r} is used twice"})
+            continue
+        projects[p.id] = p
+    return projects, failed
+
+
+def _store_root(store: str | None, projects: dict[str, Project]) -> str:
+    if store:
+        return str(Path(store).resolve())
+    roots = {p.sources.store for p in projects.values() if p.sources.store}
+    if len(roots) == 1:
+        return str(Path(roots.pop()).resolve())
+    raise ConfigError(
+        "no store folder: pass --store DIR or set 'store:' in sources.yaml"
+        + (f" (the lakes name different stores: {sorted(roots)})" if roots else "")
+    )
+
+
+def _task_runner(dask_address: str | None, sequential: bool, projects: dict[str, Project]) -> Any:
+    if sequential:
+        return ThreadPoolTaskRunner(max_workers=1)
+    address = dask_address or next((p.sources.dask_address for p in projects.values() if p.sources.dask_address), None)
+    return dask_task_runner(address)
+
+
+def _write_summary(store_root: str, summaries: list[dict[str, Any]], run_id: str, started: datetime) -> None:
+    store = Store(store_root)
+    for s in summaries:
+        row = pd.DataFrame([{"run_id": run_id, "started": pd.Timestamp(started), **s}]).drop(columns=["lake"])
+        for col in ("new_rows", "rows_written", "seconds"):
+            row[col] = row[col] if col in row else 0
+        row = row.astype({"new_rows": "int64", "rows_written": "int64", "seconds": "float64"}).fillna("")
+        if store.has_table("run_summary", s["lake"]):
+            old = store.read_table("run_summary", s["lake"]).drop(columns=["lake"])
+            row = pd.concat([old, row], ignore_index=True)
+        store.write_table("run_summary", s["lake"], row, units=SUMMARY_UNITS, time_column="started")
+
+
+def format_summary(summaries: list[dict[str, Any]]) -> str:
+    """Plain-text run summary, one line per lake (new rows, stages run, skipped, failed and why)."""
+    lines = [f"{'lake':<20} {'status':<10} {'new rows':>9}  stages / reason"]
+    for s in summaries:
+        why = s.get("error") or s.get("skipped") or s.get("stages_run", "")
+        lines.append(f"{s['lake']:<20} {s['status']:<10} {s.get('new_rows', 0):>9}  {why}")
+    return "\n".join(lines)
+
+
+def _run(
+    configs: Sequence[str | Path],
+    *,
+    store: str | None,
+    dask_address: str | None,
+    sequential: bool,
+    full: bool,
+    wait: float,
+    what: str,
+) -> list[dict[str, Any]]:
+    started = datetime.now(UTC)
+    run_id = uuid.uuid4().hex[:12]
+    projects, failed = _load(configs)
+    if not projects:
+        raise ConfigError("no lake configuration could be loaded:\n" + "\n".join(f["error"] for f in failed))
+    root = _store_root(store, projects)
+    lakes = {lake: str(p.lake_file) for lake, p in projects.items()}
+    with store_lock(root, wait=wait, what=what), prefect_api():
+        runner = _task_runner(dask_address, sequential, projects)
+        summaries = process_lakes.with_options(task_runner=runner)(lakes, root, full=full)
+        summaries += failed
+        _write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
+    print(format_summary(summaries))
+    return summaries
+
+
+@flow(name="refresh", log_prints=True)
+def refresh(
+    configs: list[str],
+    store: str | None = None,
+    dask_address: str | None = None,
+    sequential: bool = False,
+    wait: float = 0.0,
+) -> list[dict[str, Any]]:
+    """Monthly refresh: for every lake in ``configs`` (files or folders), process what is new or changed.
+
+    Parameters
+    ----------
+    configs
+        Lake YAML files or folders holding them.
+    store
+        Store folder; default ``store:`` of sources.yaml.
+    dask_address
+        Address of an existing Dask scheduler; default ``dask_address:`` of sources.yaml, else a local
+        cluster sized to the machine.
+    sequential
+        Run lakes one after the other in this process (no Dask).
+    wait
+        Seconds to wait for another run holding the store before refusing.
+
+    Returns
+    -------
+    list of dict
+        Per lake: status (ok, unchanged, failed), stages_run, new_rows, rows_written, changed, skipped,
+        error, seconds. Also appended to the store's ``run_summary`` table.
+    """
+    return _run(configs, store=store, dask_address=dask_address, sequential=sequential, full=False, wait=wait,
+                what="refresh")
+
+
+@flow(name="build-lake", log_prints=True)
+def build_lake(
+    configs: list[str],
+    store: str | None = None,
+    dask_address: str | None = None,
+    sequential: bool = False,
+    wait: float = 0.0,
+    report: bool = True,
+) -> list[dict[str, Any]]:
+    """Full build of lakes: validate, backfill the whole record (all stages), write each lake's report.
+
+    Geometry (zones, catchment) and exact grid-cell weights are derived by the weather stage and cached
+    in the store; the run records its source hashes, so the next :func:`refresh` is incremental.
+    Lakes whose checks fail are not built (reported as failed with the problems).
+    """
+    from lakefeed.checks import check_project
+
+    projects, _ = _load(configs)
+    good = []
+    for lake, p in projects.items():
+        problems = [f"{r.name}: {r.message}" for r in check_project(p) if r.status == "problem"]
+        if problems:
+            get_run_logger().error("lake %s: checks failed: %s", lake, "; ".join(problems))
+        else:
+            good.append(str(p.lake_file))
+    if not good:
+        raise ConfigError("no lake passed the checks; run `lakefeed check` for details")
+    summaries = _run(good, store=store, dask_address=dask_address, sequential=sequential, full=True, wait=wait,
+                     what="build")
+    if report:
+        from lakefeed.report import write_report
+
+        root = _store_root(store, projects)
+        for s in summaries:
+            if s["status"] != "failed":
+                path = write_report(projects[s["lake"]], Store(root), Path(root) / "reports" / f"{s['lake']}.html")
+                print(f"report for {s['lake']}: {path}")
+    return summaries
+
+
+@flow(name="onboard-lake", log_prints=True)
+def onboard_lake(
+    lake_file: str, store: str | None = None, dask_address: str | None = None, sequential: bool = False
+) -> list[dict[str, Any]]:
+    """First full build of one new lake (validate, geometry and weights, whole record, report)."""
+    return build_lake([lake_file], store=store, dask_address=dask_address, sequential=sequential)

@@ -1,0 +1,116 @@
+"""End to end: the weather stage and the `lakefeed zonal` command on the reduced sample scenario."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyproj
+import pytest
+import xarray as xr
+from typer.testing import CliRunner
+
+from lakefeed.config import load_project
+from lakefeed.exceptions import SourceError
+from lakefeed.extract.daily import DAILY_COLUMNS, DAILY_UNITS
+from lakefeed.sources.grids import open_grid
+from lakefeed.stages.weather import _to_mm_per_step, build_weather, get_weights
+from lakefeed.store import Store
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def built(small_sample, tmp_path_factory):
+    project = load_project(next((small_sample / "config").glob("lake-*.yaml")))
+    store = Store(tmp_path_factory.mktemp("store"))
+    result = build_weather(project, store)
+    return project, store, result
+
+
+def test_drivers_daily_table_columns_units_and_cache(built):
+    project, store, result = built
+    assert result.tables["drivers_daily"] > 0 and not result.skipped
+    frame = store.read_table("drivers_daily", project.id)
+    assert list(frame.columns) == ["lake", *DAILY_COLUMNS]
+    assert frame.attrs["units"] == {k: v for k, v in DAILY_UNITS.items()}
+    assert set(frame["zone"]) >= {"lake", "catchment", "aoi:intake", "aoi:bathing_bay", "aoi:open_water"}
+    inner = frame[~frame["flags"].str.contains("missing_hours")]
+    assert inner["air_temperature_mean"].notna().all()
+    assert (inner["precipitation_sum"] >= 0).all()
+    assert list(Path(store.root, "_cache", "weights").glob("*.npz"))
+
+
+def test_catchment_temperature_matches_an_independent_computation(built, small_sample):
+    """Independent check: exactextract (spherical areas) per hour on the raw grid, then local-day means."""
+    import geopandas as gpd
+    from exactextract import exact_extract
+    from exactextract.raster import NumPyRasterSource
+
+    from lakefeed.geometry.network import trace_catchment
+
+    project, store, _ = built
+    frame = store.read_table("drivers_daily", project.id)
+    day = frame[(frame.zone == "catchment") & (frame["flags"] == "")]["date"].iloc[40]
+    subs = gpd.read_file(project.lake.subbasins.path)
+    lake = gpd.read_file(project.lake.lake.path)
+    catch = trace_catchment(subs, lake, id_field="subbasin_id", downstream_field="downstream_id", lake_id="LAKE")
+    poly = gpd.GeoDataFrame(geometry=[catch.polygon], crs=subs.crs).to_crs(4326)
+    start = pd.Timestamp(day).tz_localize(project.lake.timezone).tz_convert("UTC").tz_localize(None)
+    files = sorted((small_sample / "weather").glob("reanalysis_*.nc"))
+    ds = xr.open_mfdataset(files).sel(time=slice(start, start + pd.Timedelta("23h")))
+    lat, lon = ds["latitude"].values, ds["longitude"].values
+    res = abs(float(lon[1] - lon[0]))
+    wkt = pyproj.CRS("EPSG:4326").to_wkt()
+    hourly = []
+    for t in range(ds.sizes["time"]):
+        v = ds["air_temp"].isel(time=t).values
+        v = v if lat[0] > lat[-1] else v[::-1]
+        src = NumPyRasterSource(v, lon.min() - res / 2, lat.min() - res / 2, lon.max() + res / 2, lat.max() + res / 2,
+                                srs_wkt=wkt)
+        hourly.append(exact_extract(src, poly, "mean(coverage_weight=area_spherical_m2)", output="pandas")["mean"][0])
+    expected = np.mean(hourly) - 273.15
+    got = frame[(frame.zone == "catchment") & (frame.date == day)]["air_temperature_mean"].item()
+    assert got == pytest.approx(expected, abs=2e-3)  # sphere vs ellipsoid cell areas: ~1e-5 relative in K
+
+
+def test_zonal_command_long_and_daily(small_sample, tmp_path):
+    from lakefeed.cli import app
+
+    files = sorted((small_sample / "weather").glob("reanalysis_*.nc"))[:1]
+    runner = CliRunner()
+    out = tmp_path / "long.parquet"
+    args = ["zonal", str(files[0]), "--zones", str(small_sample / "geometry" / "aois.gpkg"), "--id-field", "aoi_id"]
+    r = runner.invoke(app, [*args, "--out", str(out), "--weights-cache", str(tmp_path / "w")])
+    assert r.exit_code == 0, r.output
+    long = pd.read_parquet(out)
+    assert list(long.columns) == ["zone", "time", "variable", "value", "unit", "valid_fraction"]
+    assert {"air_temperature", "lwe_thickness_of_precipitation_amount"} <= set(long["variable"])
+    t = long[long.variable == "air_temperature"]
+    assert set(t["unit"]) == {"degC"} and t["value"].between(-40, 45).all()
+    r = runner.invoke(app, [*args, "--out", str(tmp_path / "d.parquet"), "--daily", "--tz", "Europe/Berlin",
+                            "--weights-cache", str(tmp_path / "w")])
+    assert r.exit_code == 0, r.output
+    assert "weights from cache" in r.output
+    daily = pd.read_parquet(tmp_path / "d.parquet")
+    assert list(daily.columns) == DAILY_COLUMNS
+
+
+def test_unconvertible_units_and_precipitation_units(small_sample):
+    grid = open_grid(sorted((small_sample / "weather").glob("reanalysis_*.nc"))[0])
+    x = xr.DataArray([1.0])
+    assert _to_mm_per_step(x, "m", 3600).item() == pytest.approx(1000.0)
+    assert _to_mm_per_step(x, "kg m-2", 3600).item() == pytest.approx(1.0)
+    assert _to_mm_per_step(x, "kg m-2 s-1", 3600).item() == pytest.approx(3600.0)
+    with pytest.raises(SourceError, match="not an amount"):
+        _to_mm_per_step(x, "K", 3600)
+    from lakefeed.config.sources import WeatherSource
+    from lakefeed.stages.weather import hourly_drivers
+
+    zones = __import__("geopandas").GeoDataFrame(
+        {"zone": ["z"]}, geometry=[__import__("shapely").Point(grid.lon[3], grid.lat[3]).buffer(0.01)], crs=4326
+    )
+    w, _ = get_weights(zones, grid)
+    with pytest.raises(SourceError, match="cannot convert 'm s-1' to 'degC'"):
+        hourly_drivers(grid, w, source=WeatherSource(paths=[], units={"air_temperature": "m s-1"}))
