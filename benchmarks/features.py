@@ -12,9 +12,10 @@ missing days is missing.
 - lakefeed: :func:`lakefeed.features.window_features` (gather each target's window, reduce).
 
 Refresh: per lake, one more month of drivers and targets; ``refresh_feature_rows`` (only the
-new dates plus the longest window's spill-over) + folds vs ``build_feature_rows`` on the whole
-record + folds (compute), and the same through the Parquet store (read, compute, write) for
-a subset of lakes, timing I/O and compute separately.
+new dates plus the longest window's spill-over, merged with the previous rows) + folds vs
+``build_feature_rows`` on the whole record + folds (compute only, in memory), and the same through
+the features stage and the Parquet store (``build_features``: read inputs, compute, merge, write
+with manifest and lock) for a subset of lakes.
 
 Run: ``.venv/bin/python benchmarks/features.py [--lakes 200 --years 10 --store-lakes 20]``.
 Not part of the test suite; prints ratios.
@@ -30,6 +31,7 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.features import assign_folds, build_feature_rows, feature_name, refresh_feature_rows, window_features
+from lakefeed.features.incremental import _sorted
 from lakefeed.store import Store
 
 WINDOWS = [1, 3, 5, 7, 10, 15, 30]
@@ -37,7 +39,7 @@ STATS = ["mean", "sum", "min", "max"]
 FRAC = 0.2
 
 
-def make_lake(seed: int, years: int, n_drivers: int) -> tuple[pd.DataFrame, pd.DataFrame]:
+def make_lake(seed: int, years: int, n_drivers: int, fraction: float = 0.25) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Daily drivers (5 % missing) and irregular targets for one synthetic lake."""
     rng = np.random.default_rng(seed)
     days = pd.date_range("2014-01-01", periods=int(365.25 * years), freq="D")
@@ -45,7 +47,7 @@ def make_lake(seed: int, years: int, n_drivers: int) -> tuple[pd.DataFrame, pd.D
     values = rng.gamma(1.5, 2.0, (n, n_drivers))
     values[rng.random(values.shape) < 0.05] = np.nan
     drivers = pd.DataFrame(values, index=days, columns=[f"driver_{i:02d}" for i in range(n_drivers)])
-    tdays = days[rng.random(n) < 0.25]
+    tdays = days[rng.random(n) < fraction]
     targets = pd.DataFrame({"aoi": "open_water", "date": tdays, "chla": rng.gamma(2.0, 5.0, len(tdays))})
     return drivers, targets
 
@@ -87,7 +89,7 @@ def bench_windows(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[float
 
 
 def _with_folds(rows: pd.DataFrame) -> pd.DataFrame:
-    rows = rows.sort_values(["aoi", "target_date"], kind="stable").reset_index(drop=True)
+    rows = _sorted(rows, ["aoi", "target_date"])  # no copy when already sorted
     rows["fold"] = assign_folds(rows["target_date"], k=5)
     return rows
 
@@ -108,49 +110,48 @@ def bench_refresh(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[float
     return t_full, t_inc
 
 
-def bench_store(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> dict[str, float]:
-    """Through the store: read inputs, compute, write; full rebuild vs monthly refresh."""
-    stats = {c: STATS for c in lakes[0][0].columns}
-    kw = dict(lead=0, windows=WINDOWS, stats=stats, max_missing_fraction=FRAC)
-    times = dict.fromkeys(["full_read", "full_compute", "full_write", "inc_read", "inc_compute", "inc_write"], 0.0)
+def _project(lake: str, columns: list[str], root: str):
+    from pathlib import Path
+
+    from lakefeed.config import Project
+    from lakefeed.config._base import LayerRef
+    from lakefeed.config.lake import AoiLayer, FeatureOptions, LakeConfig, SubbasinLayer
+    from lakefeed.config.sources import SourcesConfig
+
+    here = Path(root)
+    cfg = LakeConfig(
+        id=lake, name=lake, timezone="UTC", sources=here / "sources.yaml", lake=LayerRef(path=here / "lake.gpkg"),
+        aois=AoiLayer(path=here / "aois.gpkg"), subbasins=SubbasinLayer(path=here / "subbasins.gpkg"),
+        features=FeatureOptions(windows=WINDOWS, max_missing_fraction=FRAC, drivers={c: STATS for c in columns}),
+    )  # fmt: skip
+    return Project(lake=cfg, sources=SourcesConfig(), lake_file=here / "lake.yaml", sources_file=here / "s.yaml")
+
+
+def bench_store(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[float, float]:
+    """Through the features stage and the store (read inputs, compute, merge, write with manifest and
+    lock): the monthly refresh (incremental) vs a full rebuild on the same inputs."""
+    from lakefeed.stages.features import build_features
+
+    t_inc = t_full = 0.0
     with tempfile.TemporaryDirectory() as tmp:
-        store = Store(tmp)
+        store = Store(f"{tmp}/store")
         for i, (drivers, targets) in enumerate(lakes):
             lake = f"lake-{i:03d}"
-            store.write_table("drivers_daily", lake, drivers.rename_axis("date").reset_index())
-            store.write_table("target_daily", lake, targets)
+            project = _project(lake, list(drivers.columns), tmp)
             cut = drivers.index[-1] - pd.offsets.MonthBegin(1)
-            old = _with_folds(build_feature_rows(targets[targets["date"] < cut], drivers[drivers.index < cut], **kw))
-            store.write_table("features", lake, old)
-        for i in range(len(lakes)):
-            lake = f"lake-{i:03d}"
-            # full rebuild
-            t0 = time.perf_counter()
-            d = store.read_table("drivers_daily", lake).drop(columns="lake").set_index("date")
-            t = store.read_table("target_daily", lake).drop(columns="lake")
-            t1 = time.perf_counter()
-            rows = _with_folds(build_feature_rows(t, d, **kw))
-            t2 = time.perf_counter()
-            store.write_table("features_full", lake, rows)
-            t3 = time.perf_counter()
-            times["full_read"] += t1 - t0
-            times["full_compute"] += t2 - t1
-            times["full_write"] += t3 - t2
-            # monthly refresh: existing rows, only the new month's inputs (plus spill-over) read
-            cut = d.index[-1] - pd.offsets.MonthBegin(1)
-            t0 = time.perf_counter()
-            old = store.read_table("features", lake).drop(columns=["lake", "fold"])
-            recent = d.index >= cut - pd.Timedelta(days=max(WINDOWS) + 1)
-            d_new = d[recent]
-            t1 = time.perf_counter()
-            rows_inc = _with_folds(refresh_feature_rows(old, t, d_new, since=cut, **kw))
-            t2 = time.perf_counter()
-            store.write_table("features", lake, rows_inc)
-            t3 = time.perf_counter()
-            times["inc_read"] += t1 - t0
-            times["inc_compute"] += t2 - t1
-            times["inc_write"] += t3 - t2
-    return times
+            d = drivers.rename_axis("date").reset_index().assign(zone="lake")
+            store.write_table("drivers_daily", lake, d[d["date"] < cut])
+            store.write_table("target_daily", lake, targets[targets["date"] < cut])
+            build_features(project, store)  # last month's state
+            store.write_table("drivers_daily", lake, d)  # the new month arrives
+            store.write_table("target_daily", lake, targets)
+            _, dt = timed(build_features, project, store)
+            t_inc += dt
+            inc = store.read_table("features", lake)
+            _, dt = timed(build_features, project, store, full=True)
+            t_full += dt
+            pd.testing.assert_frame_equal(store.read_table("features", lake), inc)
+    return t_full, t_inc
 
 
 def main() -> None:
@@ -159,8 +160,9 @@ def main() -> None:
     ap.add_argument("--years", type=int, default=10)
     ap.add_argument("--drivers", type=int, default=20)
     ap.add_argument("--store-lakes", type=int, default=20)
+    ap.add_argument("--target-fraction", type=float, default=0.25, help="share of days with a target")
     args = ap.parse_args()
-    lakes = [make_lake(s, args.years, args.drivers) for s in range(args.lakes)]
+    lakes = [make_lake(s, args.years, args.drivers, args.target_fraction) for s in range(args.lakes)]
     n_t = sum(len(t) for _, t in lakes)
     print(f"workload: {args.lakes} lakes x {len(lakes[0][0])} days x {args.drivers} drivers x {len(WINDOWS)} windows "
           f"x {len(STATS)} statistics; {n_t} target rows; "
@@ -171,13 +173,9 @@ def main() -> None:
     t_full, t_inc = bench_refresh(lakes)
     print(f"refresh  full rebuild {t_full:8.2f} s | monthly incremental {t_inc:8.2f} s | ratio {t_full / t_inc:5.1f}x "
           "(compute; goal >= 10x; results identical)")  # fmt: skip
-    st = bench_store(lakes[: args.store_lakes])
-    full = st["full_read"] + st["full_compute"] + st["full_write"]
-    inc = st["inc_read"] + st["inc_compute"] + st["inc_write"]
-    print(f"store ({args.store_lakes} lakes): full read {st['full_read']:.2f} + compute {st['full_compute']:.2f} "
-          f"+ write {st['full_write']:.2f} = {full:.2f} s | incremental read {st['inc_read']:.2f} + compute "
-          f"{st['inc_compute']:.2f} + write {st['inc_write']:.2f} = {inc:.2f} s | "
-          f"ratio {full / inc:4.1f}x end to end")  # fmt: skip
+    full, inc = bench_store(lakes[: args.store_lakes])
+    print(f"stage+store ({args.store_lakes} lakes: read, compute, merge, write)  full rebuild {full:8.2f} s | "
+          f"monthly incremental {inc:8.2f} s | ratio {full / inc:5.1f}x (results identical)")  # fmt: skip
 
 
 if __name__ == "__main__":

@@ -83,8 +83,14 @@ def generate(years: int, seed: int = 1) -> list[Path]:
             v.units, v.standard_name = "degrees_east", "longitude"
             v[:] = lon
             v = nc.createVariable(
-                "t2m", "i2", ("time", "latitude", "longitude"), zlib=True, complevel=1, shuffle=True,
-                chunksizes=(24, 60, 60), fill_value=np.int16(-32767),
+                "t2m",
+                "i2",
+                ("time", "latitude", "longitude"),
+                zlib=True,
+                complevel=1,
+                shuffle=True,
+                chunksizes=(24, 60, 60),
+                fill_value=np.int16(-32767),
             )
             v.units, v.standard_name = "K", "air_temperature"
             v.scale_factor, v.add_offset = np.float64(0.002), np.float64(280.0)
@@ -137,8 +143,12 @@ def child(tool: str, files: list[Path]) -> dict:
         w, cached = get_weights(_zones(), grid, cache_dir=CACHE)
         t1 = time.perf_counter()
         res = zonal_mean(grid.dataset["t2m"], w).compute()
-        out = {"cached": cached, "weights_s": t1 - t0, "sum": float(np.nansum(res["mean"].values)),
-               "first": res["mean"].values[0].tolist()}
+        out = {
+            "cached": cached,
+            "weights_s": t1 - t0,
+            "sum": float(np.nansum(res["mean"].values)),
+            "first": res["mean"].values[0].tolist(),
+        }
     elif tool == "exactextract":
         import rasterio
         from exactextract import exact_extract
@@ -227,8 +237,10 @@ def main() -> None:
             if tool in med:
                 print(f"  {tool:16s} {med[tool]['wall_s'] / lf['wall_s']:6.2f}x")
         if "floor" in med:
-            print(f"  lakefeed / read floor: {lf['wall_s'] / med['floor']['wall_s']:.2f} (whole process), "
-                  f"{lf['inner_s'] / med['floor']['inner_s']:.2f} (in-process)")
+            print(
+                f"  lakefeed / read floor: {lf['wall_s'] / med['floor']['wall_s']:.2f} (whole process), "
+                f"{lf['inner_s'] / med['floor']['inner_s']:.2f} (in-process)"
+            )
         if "lakefeed-1y" in med:
             print(f"  peak memory 1 year / 2 years: {med['lakefeed-1y']['maxrss_mb']:.0f} / {lf['maxrss_mb']:.0f} MiB")
         record = sum(1 for _ in files) * 730 * N * N * 8 / 2**20

@@ -54,11 +54,16 @@ def _error_text(err: BaseException) -> str:
 
 
 @flow(name="process-lakes", log_prints=True)
-def process_lakes(lakes: dict[str, str], store_root: str, *, full: bool = False) -> list[dict[str, Any]]:
-    """Run the stages each lake needs, stage by stage across lakes; one summary dict per lake."""
+def process_lakes(
+    lakes: dict[str, str], store_root: str, *, full: bool = False, stages: list[str] | None = None
+) -> list[dict[str, Any]]:
+    """Run the stages each lake needs, stage by stage across lakes; one summary dict per lake.
+
+    ``lakes`` maps lake id to its config file; ``stages`` limits the stages (default: all that exist).
+    """
     logger = get_run_logger()
     found, missing = available_stages()
-    order = [s for s in STAGES if s in found]
+    order = [s for s in STAGES if s in found and (stages is None or s in stages)]
     for note in missing.values():
         logger.warning(note)
     store = Store(store_root)
@@ -193,6 +198,7 @@ def _run(
     full: bool,
     wait: float,
     what: str,
+    stages: list[str] | None = None,
 ) -> list[dict[str, Any]]:
     started = datetime.now(UTC)
     run_id = uuid.uuid4().hex[:12]
@@ -203,7 +209,7 @@ def _run(
     lakes = {lake: str(p.lake_file) for lake, p in projects.items()}
     with store_lock(root, wait=wait, what=what), prefect_api():
         runner = _task_runner(dask_address, sequential, projects)
-        summaries = process_lakes.with_options(task_runner=runner)(lakes, root, full=full)
+        summaries = process_lakes.with_options(task_runner=runner)(lakes, root, full=full, stages=stages)
         summaries += failed
         _write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
     print(format_summary(summaries))
@@ -217,6 +223,7 @@ def refresh(
     dask_address: str | None = None,
     sequential: bool = False,
     wait: float = 0.0,
+    stages: list[str] | None = None,
 ) -> list[dict[str, Any]]:
     """Monthly refresh: for every lake in ``configs`` (files or folders), process what is new or changed.
 
@@ -233,6 +240,8 @@ def refresh(
         Run lakes one after the other in this process (no Dask).
     wait
         Seconds to wait for another run holding the store before refusing.
+    stages
+        Run only these stages (default: every stage that exists).
 
     Returns
     -------
@@ -241,7 +250,7 @@ def refresh(
         error, seconds. Also appended to the store's ``run_summary`` table.
     """
     return _run(configs, store=store, dask_address=dask_address, sequential=sequential, full=False, wait=wait,
-                what="refresh")
+                what="refresh", stages=stages)
 
 
 @flow(name="build-lake", log_prints=True)
@@ -252,6 +261,7 @@ def build_lake(
     sequential: bool = False,
     wait: float = 0.0,
     report: bool = True,
+    stages: list[str] | None = None,
 ) -> list[dict[str, Any]]:
     """Full build of lakes: validate, backfill the whole record (all stages), write each lake's report.
 
@@ -272,7 +282,7 @@ def build_lake(
     if not good:
         raise ConfigError("no lake passed the checks; run `lakefeed check` for details")
     summaries = _run(good, store=store, dask_address=dask_address, sequential=sequential, full=True, wait=wait,
-                     what="build")
+                     what="build", stages=stages)
     if report:
         from lakefeed.report import write_report
 

@@ -257,3 +257,8 @@ def test_several_lakes_in_a_folder(mini: Path) -> None:
     second.write_text(yaml.safe_dump(data))  # same id as lake-mini.yaml
     code, out = check(str(mini.parent))
     assert code == 1 and "lake id 'mini' is also used by" in out
+
+
+def test_sources_file_given_instead_of_the_lake_file(mini: Path) -> None:
+    code, out = check(str(mini.parent / "sources.yaml"))
+    assert code == 1 and "sources.yaml is a sources config, not a lake config" in out

@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import pytest
 import yaml
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from lakefeed.config import LakeConfig, find_lake_files, load_lake, load_project, load_projects, load_sources
 from lakefeed.exceptions import ConfigError
@@ -198,3 +201,34 @@ def test_folder_skips_other_yaml_but_keeps_broken_lake_files(tmp_path: Path) -> 
     (path.parent / "reservoir.yml").write_text(yaml.safe_dump({**LAKE, "id": "res"}))
     found = [f.name for f in find_lake_files([path.parent])]
     assert found == ["lake-broken.yaml", "lake-mini.yaml", "reservoir.yml"]
+
+
+_values = st.recursive(
+    st.none() | st.booleans() | st.integers() | st.floats(allow_nan=False) | st.text(max_size=12),
+    lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=8), inner, max_size=3),
+    max_leaves=8,
+)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(extra=st.dictionaries(st.sampled_from([*LAKE, "zones", "sensors", "features", "junk"]), _values, max_size=4))
+def test_any_content_gives_a_model_or_a_config_error(tmp_path: Path, extra: dict) -> None:
+    """Property: whatever the YAML holds, the loader returns a model or raises ConfigError (never a crash)."""
+    try:
+        load_lake(write(tmp_path, {**LAKE, **extra}))
+    except ConfigError as err:
+        assert err.problems or str(err)
+
+
+@given(st.text(max_size=20))
+def test_slug_rule(text: str) -> None:
+    """Property: an id is accepted exactly when it is a plain slug (no '/', '.', spaces, upper case)."""
+    from pydantic import ValidationError
+
+    ok = bool(re.fullmatch(r"[a-z0-9][a-z0-9_-]{0,62}", text))
+    try:
+        LakeConfig.model_validate({**LAKE, "id": text})
+        accepted = True
+    except ValidationError:
+        accepted = False
+    assert accepted == ok

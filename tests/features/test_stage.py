@@ -107,8 +107,8 @@ def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: py
     calls = []
     import lakefeed.stages.features as stage
 
-    real = stage.refresh_feature_rows
-    monkeypatch.setattr(stage, "refresh_feature_rows", lambda *a, **k: calls.append(k["since"]) or real(*a, **k))
+    real = stage.new_feature_rows
+    monkeypatch.setattr(stage, "new_feature_rows", lambda *a, **k: calls.append(k["since"]) or real(*a, **k))
     build_features(project, inc)
     # the refresh starts the day after the last old target (the old drivers reach further)
     assert calls and calls[0] == old[2]["date"].max() + pd.Timedelta(days=1)
@@ -133,7 +133,7 @@ def test_changed_old_data_triggers_full_rebuild(tmp_path: Path, monkeypatch: pyt
     _write(store, drivers, hyd, target)
     import lakefeed.stages.features as stage
 
-    monkeypatch.setattr(stage, "refresh_feature_rows", lambda *a, **k: pytest.fail("must rebuild in full"))
+    monkeypatch.setattr(stage, "new_feature_rows", lambda *a, **k: pytest.fail("must rebuild in full"))
     build_features(project, store)
 
 

@@ -19,7 +19,10 @@ def _layers():
     lake = gpd.GeoDataFrame({"name": ["L"]}, geometry=[shapely.box(X0, Y0, X0 + 2000, Y0 + 1000)], crs=UTM)
     aois = gpd.GeoDataFrame(
         {"aoi_id": ["intake", "bay"]},
-        geometry=[shapely.box(X0 + 100, Y0 + 100, X0 + 400, Y0 + 400), shapely.box(X0 + 1500, Y0 + 500, X0 + 1900, Y0 + 900)],
+        geometry=[
+            shapely.box(X0 + 100, Y0 + 100, X0 + 400, Y0 + 400),
+            shapely.box(X0 + 1500, Y0 + 500, X0 + 1900, Y0 + 900),
+        ],
         crs=UTM,
     )
     subs = gpd.GeoDataFrame(
@@ -47,10 +50,23 @@ def test_crs_compared_semantically_not_by_wkt_text():
 
 def test_build_zones_names_and_reprojection():
     lake, aois, subs = _layers()
-    zones = build_zones(lake, aois=aois, subbasins=subs, subbasin_layer=SubbasinLayer(path="x", lake_id="LAKE"),
-                        options=ZoneOptions(subbasins=True), crs="EPSG:4326")
-    assert list(zones["zone"]) == ["lake", "aoi:intake", "aoi:bay", "catchment", "subbasin:S1", "subbasin:S2",
-                                   "subbasin:S3"]
+    zones = build_zones(
+        lake,
+        aois=aois,
+        subbasins=subs,
+        subbasin_layer=SubbasinLayer(path="x", lake_id="LAKE"),
+        options=ZoneOptions(subbasins=True),
+        crs="EPSG:4326",
+    )
+    assert list(zones["zone"]) == [
+        "lake",
+        "aoi:intake",
+        "aoi:bay",
+        "catchment",
+        "subbasin:S1",
+        "subbasin:S2",
+        "subbasin:S3",
+    ]
     assert same_crs(zones.crs, "EPSG:4326")
     catchment = zones.set_index("zone").geometry["catchment"]
     s4 = to_crs(subs[subs.subbasin_id == "S4"], "EPSG:4326").geometry.values[0]

@@ -67,8 +67,9 @@ def test_catchment_temperature_matches_an_independent_computation(built, small_s
     for t in range(ds.sizes["time"]):
         v = ds["air_temp"].isel(time=t).values
         v = v if lat[0] > lat[-1] else v[::-1]
-        src = NumPyRasterSource(v, lon.min() - res / 2, lat.min() - res / 2, lon.max() + res / 2, lat.max() + res / 2,
-                                srs_wkt=wkt)
+        src = NumPyRasterSource(
+            v, lon.min() - res / 2, lat.min() - res / 2, lon.max() + res / 2, lat.max() + res / 2, srs_wkt=wkt
+        )
         hourly.append(exact_extract(src, poly, "mean(coverage_weight=area_spherical_m2)", output="pandas")["mean"][0])
     expected = np.mean(hourly) - 273.15
     got = frame[(frame.zone == "catchment") & (frame.date == day)]["air_temperature_mean"].item()
@@ -89,8 +90,19 @@ def test_zonal_command_long_and_daily(small_sample, tmp_path):
     assert {"air_temperature", "lwe_thickness_of_precipitation_amount"} <= set(long["variable"])
     t = long[long.variable == "air_temperature"]
     assert set(t["unit"]) == {"degC"} and t["value"].between(-40, 45).all()
-    r = runner.invoke(app, [*args, "--out", str(tmp_path / "d.parquet"), "--daily", "--tz", "Europe/Berlin",
-                            "--weights-cache", str(tmp_path / "w")])
+    r = runner.invoke(
+        app,
+        [
+            *args,
+            "--out",
+            str(tmp_path / "d.parquet"),
+            "--daily",
+            "--tz",
+            "Europe/Berlin",
+            "--weights-cache",
+            str(tmp_path / "w"),
+        ],
+    )
     assert r.exit_code == 0, r.output
     assert "weights from cache" in r.output
     daily = pd.read_parquet(tmp_path / "d.parquet")

@@ -233,3 +233,33 @@ def test_load_features_with_units(tmp_path: Path) -> None:
         load_features(store, "tallow", aoi="nope")
     with pytest.raises(StoreError, match="run the stage first"):
         load_features(store, "other")
+
+
+def test_timestamps_written_as_microseconds_for_spark(tmp_path: Path) -> None:
+    """Spark rejects Parquet TIMESTAMP(NANOS); the store writes microseconds (Spark SQL guide,
+    Parquet data source: INT96/TIMESTAMP_MICROS/TIMESTAMP_MILLIS only; from memory)."""
+    import pyarrow as pa
+
+    path = Store(tmp_path).write_table("features", "tallow", _frame())
+    assert pq.read_schema(path).field("target_date").type == pa.timestamp("us")
+    back = Store(tmp_path).read_table("features", "tallow")
+    assert back["target_date"].dtype == "datetime64[ns]"
+
+
+def test_write_arrow_and_listing_ignores_private_folders(tmp_path: Path) -> None:
+    import pyarrow as pa
+
+    store = Store(tmp_path)
+    (tmp_path / "_cache" / "weights").mkdir(parents=True)
+    arrow = pa.Table.from_pandas(_frame(), preserve_index=False)
+    store.write_arrow("features", "tallow", arrow, units={"chla": "mg m-3"}, time_column="target_date")
+    assert store.tables() == ["features"] and store.lakes("features") == ["tallow"]
+    assert store.entry("features", "tallow")["time_range"][0] == "2024-05-01T00:00:00"
+    pd.testing.assert_frame_equal(store.read_table("features", "tallow").drop(columns="lake"), _frame())
+
+
+def test_bad_sql_is_a_store_error(tmp_path: Path) -> None:
+    store = Store(tmp_path)
+    store.write_table("features", "tallow", _frame())
+    with pytest.raises(StoreError, match="tables in"):
+        query(store, "SELECT nope FROM features")

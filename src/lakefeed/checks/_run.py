@@ -12,13 +12,15 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import yaml
+
 from lakefeed.checks._open import Period
 from lakefeed.checks._result import CheckResult, failed, guarded, passed, skipped
 from lakefeed.checks.coverage import check_coverage
 from lakefeed.checks.geometry import Layers, check_geometry
 from lakefeed.checks.grids import check_forecast, check_weather
 from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
-from lakefeed.config import Project, find_lake_files, load_project
+from lakefeed.config import Project, SourcesConfig, find_lake_files, load_project
 from lakefeed.exceptions import ConfigError
 
 __all__ = ["LakeReport", "check_paths", "check_project"]
@@ -81,8 +83,25 @@ def check_project(project: Project) -> list[CheckResult]:
     return results
 
 
+def _is_sources_file(path: Path) -> bool:
+    try:
+        data = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, yaml.YAMLError):
+        return False
+    return isinstance(data, dict) and bool(data) and set(map(str, data)) <= set(SourcesConfig.model_fields)
+
+
 def _check_file(lake_file: Path) -> LakeReport:
     report = LakeReport(lake_file=lake_file)
+    if lake_file.is_file() and _is_sources_file(lake_file):
+        report.results = [
+            failed(
+                "config",
+                f"{lake_file} is a sources config, not a lake config",
+                "give the lake config (e.g. lake-<id>.yaml) that names it under 'sources', or its folder",
+            )
+        ]
+        return report
     try:
         project = load_project(lake_file)
     except ConfigError as err:

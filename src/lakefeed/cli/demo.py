@@ -1,1 +1,129 @@
-"""`lakefeed demo` (not yet implemented)."""
+"""`lakefeed demo [DIR]`: the sample scenario end to end, through the Prefect demo flow (local mode).
+
+Generates the scenario into ``DIR/sample`` (or reuses it), runs every existing stage through
+:func:`lakefeed.flows.demo.demo` (no server to start), writes ``DIR/store`` and ``DIR/report-<lake>.html``,
+and prints a summary: tables, rows, columns, paths; then the diagnostics and the forecast bias tables when
+present. Also provides :func:`progress_bars`, the rich progress callback the other run commands share.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+from collections.abc import Iterator
+from pathlib import Path
+
+import typer
+from rich.markup import escape
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
+from rich.table import Table
+
+from lakefeed.cli._app import app, console
+from lakefeed.stages._result import Progress as ProgressFn
+
+__all__ = ["demo_command", "print_store_summary", "progress_bars"]
+
+
+@contextlib.contextmanager
+def progress_bars() -> Iterator[ProgressFn]:
+    """A ``progress(description, done, total)`` callback drawing one rich bar per step (text before ':')."""
+    columns = (SpinnerColumn(), TextColumn("{task.description:<34}"), BarColumn(), MofNCompleteColumn(),
+               TimeElapsedColumn())
+    with Progress(*columns, console=console, transient=False) as bars:
+        ids: dict[str, int] = {}
+
+        def update(description: str, done: int, total: int) -> None:
+            key = description.split(":", 1)[0]
+            if key not in ids:
+                ids[key] = bars.add_task(description, total=max(total, 1))
+            bars.update(ids[key], description=description, completed=done, total=max(total, 1))
+
+        yield update
+
+
+def print_store_summary(store_root: str | Path, lake: str | None = None) -> None:
+    """Table of the store's tables: rows, columns, units recorded, path of each Parquet file."""
+    import pyarrow.parquet as pq
+
+    from lakefeed.store import Store, read_units
+
+    store = Store(store_root)
+    table = Table(title=f"store {store_root}", show_lines=False)
+    for col in ("table", "lake", "rows", "columns", "with units", "file"):
+        table.add_column(col, justify="right" if col in ("rows", "columns", "with units") else "left")
+    for name in store.tables():
+        for lk in store.lakes(name):
+            if lake is not None and lk != lake:
+                continue
+            path = store.part_file(name, lk)
+            meta = pq.ParquetFile(path)
+            schema = meta.schema_arrow
+            table.add_row(name, lk, str(meta.metadata.num_rows), str(len(schema)), str(len(read_units(schema))),
+                          escape(str(path)))
+    console.print(table)
+
+
+def _print_frame(title: str, frame: object, columns: list[str]) -> None:
+    import pandas as pd
+
+    assert isinstance(frame, pd.DataFrame)
+    cols = [c for c in columns if c in frame.columns] or list(frame.columns)[:8]
+    table = Table(title=title)
+    for c in cols:
+        table.add_column(c)
+    for _, row in frame[cols].head(40).iterrows():
+        table.add_row(*(f"{v:.3g}" if isinstance(v, float) else escape(str(v)) for v in row))
+    console.print(table)
+
+
+@app.command("demo")
+def demo_command(
+    directory: Path = typer.Argument(Path("demo"), help="Folder for the sample scenario, the store and the report."),
+    seed: int = typer.Option(42, help="Seed of the sample scenario (used when generating it)."),
+    small: bool = typer.Option(False, "--small", help="Reduced scenario (one year, fewer scenes) for a quick look."),
+) -> None:
+    """Generate (or reuse) the sample scenario, run every pipeline stage on it and summarise the store."""
+    os.environ.setdefault("PREFECT_LOGGING_LEVEL", "WARNING")  # the bars show progress; warnings still print
+    from lakefeed.flows.demo import demo, demo_lake_file  # after the setting above (Prefect reads it on import)
+    from lakefeed.flows._runtime import set_progress
+    from lakefeed.sample import generate
+    from lakefeed.store import Store
+
+    sample = directory / "sample"
+    store = directory / "store"
+    if (sample / "config" / "lake-tallow.yaml").exists():
+        console.print(f"reusing the sample scenario in {escape(str(sample))} (delete it to regenerate)")
+    else:
+        console.print(f"generating the sample scenario into {escape(str(sample))} (seed {seed})")
+        with progress_bars() as bar:
+            generate(sample, seed=seed, small=small, progress=bar)
+    lake_file = demo_lake_file(sample)
+    console.print(f"running the pipeline for {escape(str(lake_file))} into {escape(str(store))} (Prefect local mode)")
+    with progress_bars() as bar:
+        set_progress(bar)
+        try:
+            result = demo(str(sample.resolve()), str(store.resolve()))
+        finally:
+            set_progress(None)
+    summary = result["summary"]
+    print_store_summary(store)
+    s = Store(store)
+    lake = summary["lake"]
+    if s.has_table("diagnostics", lake):
+        _print_frame("diagnostics (accepted chlorophyll-a observations per AOI)", s.read_table("diagnostics", lake),
+                     ["aoi", "n_obs", "obs_per_year", "gap_median_days", "gap_max_days", "warnings"])
+    if s.has_table("forecast_evaluation", lake):
+        _print_frame("forecast bias by lead time", s.read_table("forecast_evaluation", lake), [])
+    status = summary["status"]
+    colour = {"failed": "red", "ok": "green"}.get(status, "yellow")
+    console.print(f"lake [bold]{lake}[/]: [{colour}]{status}[/]; stages run: {summary['stages_run'] or 'none'}; "
+                  f"{summary['rows_written']} rows written")
+    for key in ("skipped", "error"):
+        if summary.get(key):
+            console.print(f"  {key}: {escape(summary[key])}")
+    if result.get("report"):
+        console.print(f"quality report: {escape(result['report'])}")
+    console.print("read it with pandas (pd.read_parquet) or DuckDB: "
+                  f"SELECT * FROM read_parquet('{escape(str(store))}/features/*/*.parquet', hive_partitioning=true)")
+    console.print("[dim]Trophic classes and chlorophyll-a thresholds inform only; bathing and drinking-water "
+                  "decisions follow local regulations and the responsible authority.[/]")

@@ -1,1 +1,32 @@
-"""`lakefeed report` (not yet implemented)."""
+"""`lakefeed report CONFIG [--store DIR] [--out FILE.html]`: the lake's self-contained quality report."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import typer
+from rich.markup import escape
+
+from lakefeed.cli._app import app, console
+
+__all__ = ["report_command"]
+
+
+@app.command("report")
+def report_command(
+    config: Path = typer.Argument(..., help="Lake YAML file."),
+    store: Path | None = typer.Option(None, "--store", help="Store folder; default 'store:' of sources.yaml."),
+    out: Path | None = typer.Option(None, "--out", help="HTML file; default <store>/reports/<lake>.html."),
+) -> None:
+    """Write the quality report of one lake (map, drivers, targets, sampling, diagnostics, forecast bias)."""
+    from lakefeed.config import load_project
+    from lakefeed.exceptions import ConfigError
+    from lakefeed.report import write_report
+    from lakefeed.store import Store
+
+    project = load_project(config)
+    root = store or (Path(project.sources.store) if project.sources.store else None)
+    if root is None:
+        raise ConfigError("no store folder: pass --store DIR or set 'store:' in sources.yaml")
+    path = write_report(project, Store(root), out or Path(root) / "reports" / f"{project.id}.html")
+    console.print(f"report written: {escape(str(path))}")

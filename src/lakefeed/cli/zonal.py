@@ -38,11 +38,11 @@ def zonal(
     skip_bad_files: bool = typer.Option(False, "--skip-bad-files", help="Leave out unreadable files (warn)."),
 ) -> None:
     """Area-weighted means of every grid variable over every polygon (exact coverage x cell area)."""
+    import geopandas as gpd
+
     from lakefeed.config.sources import Accumulation, WeatherSource
     from lakefeed.exceptions import ConfigError
     from lakefeed.extract.daily import DAILY_UNITS, to_daily
-    import geopandas as gpd
-
     from lakefeed.geometry.zones import to_crs, zone_latitudes
     from lakefeed.sources.grids import open_grid
     from lakefeed.sources.vectors import read_layer
@@ -60,8 +60,14 @@ def zonal(
     zgdf = gpd.GeoDataFrame({"zone": layer[id_field].astype(str).to_numpy()}, geometry=layer.geometry.values, crs=g.crs)
     weights, cached = get_weights(zgdf, g, cache_dir=weights_cache, allow_partial_coverage=allow_partial)
     console.print(f"{len(zgdf)} zones, {len(g.files)} file(s), weights {'from cache' if cached else 'computed'}")
-    with Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
-                  TimeElapsedColumn(), console=console, transient=True) as bar:
+    with Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        TextColumn("{task.completed}/{task.total}"),
+        TimeElapsedColumn(),
+        console=console,
+        transient=True,
+    ) as bar:
         task = bar.add_task("reading", total=None)
 
         def progress(description: str, done: int, total: int) -> None:

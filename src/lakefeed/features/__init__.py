@@ -7,7 +7,7 @@ Pure: takes pandas/numpy, returns pandas/numpy; no file I/O, no Prefect. The sto
 
 from lakefeed.features.diagnostics import sampling_diagnostics
 from lakefeed.features.folds import EMBARGOED, assign_folds, blocked_folds, random_folds
-from lakefeed.features.incremental import refresh_feature_rows, refresh_start
+from lakefeed.features.incremental import new_feature_rows, refresh_feature_rows, refresh_start
 from lakefeed.features.pit import FLAG_CODES, build_feature_rows, calendar_features, forecast_array, persistence
 from lakefeed.features.windows import (
     STATISTICS,
@@ -33,6 +33,7 @@ __all__ = [
     "feature_name",
     "forecast_array",
     "gather_windows",
+    "new_feature_rows",
     "persistence",
     "random_folds",
     "reduce_windows",

@@ -22,14 +22,13 @@ import pandas as pd
 from lakefeed.features.pit import build_feature_rows
 from lakefeed.features.windows import as_dates
 
-__all__ = ["prefix_digest", "refresh_feature_rows", "refresh_start"]
+__all__ = ["new_feature_rows", "prefix_digest", "refresh_feature_rows", "refresh_start"]
 
 
 def prefix_digest(frame: pd.DataFrame, *, date_column: str, through: object) -> str:
-    """SHA-256 of the rows dated on or before ``through`` (content only, order-independent)."""
+    """SHA-256 of the rows dated on or before ``through`` (content and row order; pass sorted frames)."""
     dates = as_dates(frame[date_column])
     part = frame[dates <= pd.Timestamp(through)]
-    part = part.sort_values(list(part.columns)).reset_index(drop=True) if len(part) else part
     hashed = pd.util.hash_pandas_object(part, index=False).to_numpy()
     h = hashlib.sha256(np.ascontiguousarray(hashed).tobytes())
     h.update(",".join(map(str, part.columns)).encode())
@@ -41,8 +40,7 @@ def refresh_start(*throughs: object) -> pd.Timestamp:
     return min(pd.Timestamp(t) for t in throughs) + pd.Timedelta(days=1)
 
 
-def refresh_feature_rows(
-    existing: pd.DataFrame,
+def new_feature_rows(
     targets: pd.DataFrame,
     drivers: pd.DataFrame,
     *,
@@ -56,26 +54,18 @@ def refresh_feature_rows(
     by: str | None = "aoi",
     value: str = "chla",
 ) -> pd.DataFrame:
-    """Previous rows before ``since`` plus rows recomputed from ``since`` on, sorted by (by, target_date).
+    """Feature rows of the targets dated on or after ``since`` only.
 
-    Parameters
-    ----------
-    existing
-        Rows of the previous build for this lead (as returned by :func:`build_feature_rows`).
-    targets
-        All current targets (``date`` or ``target_date``, ``value``, ``by``); the persistence
-        baseline may reach back before ``since``.
-    drivers
-        Current daily drivers; only ``since - max(windows) - 1`` onwards is used.
-    since
-        First date whose inputs may differ from the previous build.
+    Uses the drivers from ``since`` minus the longest window and the lead (the spill-over) and
+    all targets for the persistence baseline; the rows equal those of a full
+    :func:`build_feature_rows` on the same inputs.
     """
     since = pd.Timestamp(since)
     tcol = "target_date" if "target_date" in targets.columns else "date"
     new_targets = targets[as_dates(targets[tcol]) >= since]
     spill = since - pd.Timedelta(days=max(windows) + 1 + lead)
     window_drivers = drivers[as_dates(drivers.index) >= spill]
-    fresh = build_feature_rows(
+    return build_feature_rows(
         new_targets,
         window_drivers,
         lead=lead,
@@ -88,6 +78,35 @@ def refresh_feature_rows(
         by=by,
         value=value,
     )
+
+
+def refresh_feature_rows(
+    existing: pd.DataFrame,
+    targets: pd.DataFrame,
+    drivers: pd.DataFrame,
+    *,
+    since: object,
+    by: str | None = "aoi",
+    **options: object,
+) -> pd.DataFrame:
+    """Previous rows before ``since`` plus rows recomputed from ``since`` on, sorted by (by, target_date).
+
+    Parameters
+    ----------
+    existing
+        Rows of the previous build for this lead (as returned by :func:`build_feature_rows`).
+    targets
+        All current targets (``date`` or ``target_date``, ``value``, ``by``); the persistence
+        baseline may reach back before ``since``.
+    drivers
+        Current daily drivers; only ``since - max(windows) - lead - 1`` onwards is used.
+    since
+        First date whose inputs may differ from the previous build.
+    options
+        ``lead``, ``windows``, ``stats``, ... as for :func:`new_feature_rows`.
+    """
+    since = pd.Timestamp(since)
+    fresh = new_feature_rows(targets, drivers, since=since, by=by, **options)  # type: ignore[arg-type]
     keep = np.flatnonzero(as_dates(existing["target_date"]) < since)
     if len(keep) == 0:
         merged = fresh.reset_index(drop=True)

@@ -111,9 +111,7 @@ class ZoneWeights:
         """Rebuild from :meth:`to_arrays` output."""
         shape = tuple(int(v) for v in arrays["shape"])
         zones = tuple(str(z) for z in arrays["zones"])
-        m = sp.csr_matrix(
-            (arrays["weight"], (arrays["row"], arrays["col"])), shape=(len(zones), shape[0] * shape[1])
-        )
+        m = sp.csr_matrix((arrays["weight"], (arrays["row"], arrays["col"])), shape=(len(zones), shape[0] * shape[1]))
         return cls(
             matrix=m,
             zones=zones,
@@ -190,9 +188,7 @@ def _authalic_band(lat_deg: np.ndarray, a: float, f: float) -> np.ndarray:
     return b2 / 2 * q
 
 
-def cell_areas(
-    lat: np.ndarray, lon: np.ndarray, *, a: float = WGS84_A, f: float = WGS84_F
-) -> np.ndarray:
+def cell_areas(lat: np.ndarray, lon: np.ndarray, *, a: float = WGS84_A, f: float = WGS84_F) -> np.ndarray:
     """True area (m2) of each lat/lon cell, shape (n_lat, n_lon).
 
     Ellipsoidal by default (WGS84); ``f=0`` gives a sphere of radius ``a``. Matches

@@ -38,6 +38,13 @@ table{border-collapse:collapse;font-size:.8em}td,th{border:1px solid #ccc;paddin
 .caution{background:#fff4e0;border-left:4px solid #e69500;padding:.6em 1em}
 .missing{color:#888;font-style:italic}.warn{color:#a33}img{max-width:100%}
 """
+# Marks on <body> how many figures decoded once the page has loaded (checked by the browser test).
+_LOADED = (
+    "<script>window.addEventListener('load',function(){var i=document.images,n=0;"
+    "for(var k=0;k<i.length;k++){if(i[k].complete&&i[k].naturalWidth>0){n++;}}"
+    "document.body.setAttribute('data-figures-loaded',n);document.body.setAttribute('data-figures-total',i.length);"
+    "});</script>"
+)
 
 
 def _read(store: Store, table: str, lake: str) -> pd.DataFrame | None:
@@ -172,7 +179,7 @@ def render_report(project: Project, store: Store) -> str:
     parts.append(f'<p class="caution">{html.escape(CAUTION)}</p>')
     body = "\n".join(parts)
     return (f"<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"/><title>lakefeed report "
-            f"{html.escape(lake.id)}</title><style>{_CSS}</style></head><body>\n{body}\n</body></html>\n")
+            f"{html.escape(lake.id)}</title><style>{_CSS}</style>{_LOADED}</head><body>\n{body}\n</body></html>\n")
 
 
 def write_report(project: Project, store: Store, out: str | Path) -> Path:

@@ -77,6 +77,12 @@ def map_figure(
         matplotlib.patches.Patch(color="tab:orange", alpha=0.35, label="direct inflows"),
     ]
     ax.legend(handles=handles, loc="upper left", fontsize=7)
+    frame = next((layers[k] for k in ("subbasins", "catchment", "lake") if layers.get(k) is not None), None)
+    if frame is not None:
+        x0, y0, x1, y1 = frame.total_bounds
+        pad = 0.15 * max(x1 - x0, y1 - y0, 0.05)
+        ax.set_xlim(x0 - pad, x1 + pad)
+        ax.set_ylim(y0 - pad, y1 + pad)
     ax.set_xlabel("longitude (degrees east)")
     ax.set_ylabel("latitude (degrees north)")
     ax.set_aspect(1 / np.cos(np.deg2rad(np.mean(ax.get_ylim()))))

@@ -19,6 +19,7 @@ aggregation are in :mod:`lakefeed.extract.forecast_daily`).
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -90,9 +91,9 @@ class ForecastArchive:
         """
         ds = self.dataset if data is None else data
         flat = ds.stack(time=(ISSUE, LEAD)).transpose("time", "latitude", "longitude")
-        valid = (
-            pd.DatetimeIndex(flat[ISSUE].values) + pd.TimedeltaIndex(flat[LEAD].values)
-        ).values.astype("datetime64[ns]")
+        valid = (pd.DatetimeIndex(flat[ISSUE].values) + pd.TimedeltaIndex(flat[LEAD].values)).values.astype(
+            "datetime64[ns]"
+        )
         flat = flat.drop_vars(["time", ISSUE, LEAD]).assign_coords(time=("time", valid))
         return Grid(dataset=flat, files=self.files, crs=self.crs)
 
@@ -106,8 +107,9 @@ def _regular_step(values: pd.Index, *, what: str, where: str) -> pd.Timedelta:
     steps, counts = np.unique(d, return_counts=True)
     step = pd.Timedelta(int(steps[np.argmax(counts)]), unit="ns")
     if what == LEAD and len(steps) > 1:
+        found = sorted({str(pd.Timedelta(int(s))) for s in steps})
         raise SourceError(
-            f"forecast archive {where}: forecast_period steps are irregular ({sorted({str(pd.Timedelta(int(s))) for s in steps})}); "
+            f"forecast archive {where}: forecast_period steps are irregular ({found}); "
             "lakefeed needs one regular step per archive (hourly, 6-hourly or daily); split the archive"
         )
     return step
@@ -134,7 +136,7 @@ def _lead_to_timedelta(coord: xr.DataArray, path: Path) -> np.ndarray:
 
 
 def _find_dim(ds: xr.Dataset, standard_name: str, names: tuple[str, ...]) -> str | None:
-    for name, var in ds.variables.items():
+    for var in ds.variables.values():
         if var.attrs.get("standard_name") == standard_name and var.ndim == 1:
             return str(var.dims[0])
     for name in names:
@@ -182,7 +184,7 @@ def find_issue_gaps(issue_times: pd.DatetimeIndex, step: pd.Timedelta) -> list[s
     """Messages for each gap of ``issue_times`` longer than ``step`` (e.g. one missing daily issue)."""
     t = pd.DatetimeIndex(issue_times)
     out = []
-    for a, b in zip(t[:-1], t[1:], strict=True):
+    for a, b in itertools.pairwise(t):
         if b - a > step:
             n = int((b - a) / step) - 1
             out.append(f"{n} issue(s) missing between {a:%Y-%m-%d %H:%M} and {b:%Y-%m-%d %H:%M} UTC")
@@ -221,7 +223,9 @@ def open_forecasts(paths: str | Path | Iterable[str | Path]) -> ForecastArchive:
     issues = pd.DatetimeIndex(ds[ISSUE].values)
     if issues.has_duplicates:
         dup = issues[issues.duplicated()][0]
-        raise SourceError(f"forecast archive: issue time {dup} appears twice (overlapping files?); remove the duplicate")
+        raise SourceError(
+            f"forecast archive: issue time {dup} appears twice (overlapping files?); remove the duplicate"
+        )
     label = str(files[0]) if len(files) == 1 else f"{files[0].name}..{files[-1].name}"
     _regular_step(pd.TimedeltaIndex(ds[LEAD].values), what=LEAD, where=label)
     step = _regular_step(issues, what=ISSUE, where=label)

@@ -28,10 +28,8 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from lakefeed.config.sources import WEATHER_ROLES
 from lakefeed.exceptions import SourceError
 from lakefeed.geometry.weights import grid_signature
-from lakefeed.units import parse_unit
 
 __all__ = ["Grid", "decode", "expand_paths", "find_variable", "open_grid", "select_roles"]
 
@@ -153,8 +151,10 @@ def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
         else:
             ds = xr.open_dataset(path, engine=engine, chunks=None, cache=False, mask_and_scale=False)
     except Exception as err:  # netCDF4/HDF5/zarr raise many types
-        raise SourceError(f"weather grid {path}: cannot open ({type(err).__name__}: {err}); the file may be corrupt "
-                          "or truncated: download it again") from err
+        raise SourceError(
+            f"weather grid {path}: cannot open ({type(err).__name__}: {err}); the file may be corrupt "
+            "or truncated: download it again"
+        ) from err
     if "time" not in ds.dims:
         cand = [n for n, v in ds.variables.items() if v.ndim == 1 and np.issubdtype(v.dtype, np.datetime64)]
         if not cand:
@@ -256,9 +256,18 @@ def open_grid(
             if ds.sizes[c] != ref.sizes[c] or not np.allclose(ds[c].values, ref[c].values):
                 raise SourceError(f"weather grid {f}: its {c} differs from {ref_f}'s; all files must share one grid")
     dsets = [ds for _, ds in opened]
-    ds = dsets[0] if len(dsets) == 1 else xr.concat(
-        dsets, dim="time", data_vars="minimal", coords="minimal", compat="override", join="override",
-        combine_attrs="override",
+    ds = (
+        dsets[0]
+        if len(dsets) == 1
+        else xr.concat(
+            dsets,
+            dim="time",
+            data_vars="minimal",
+            coords="minimal",
+            compat="override",
+            join="override",
+            combine_attrs="override",
+        )
     )
     starts = list(np.cumsum([0] + [d.sizes["time"] for d in dsets[:-1]]))
     _check_time(ds, [f for f, _ in opened], starts)
@@ -271,6 +280,8 @@ def open_grid(
 
 def find_variable(ds: xr.Dataset, role: str, *, mapping: Mapping[str, str] | None = None, where: str = "") -> str:
     """Name of the variable playing ``role``: by CF standard_name first, else by the config mapping."""
+    from lakefeed.config.sources import WEATHER_ROLES  # imported here: keeps `lakefeed zonal` start-up short
+
     wanted = WEATHER_ROLES.get(role, (role,))
     for sn in wanted:
         for name, var in ds.data_vars.items():
@@ -300,7 +311,9 @@ def decode(var: xr.DataArray) -> xr.DataArray:
     fills = [a for k in ("_FillValue", "missing_value") if k in var.attrs for a in np.atleast_1d(var.attrs[k])]
     scale = float(var.attrs.get("scale_factor", 1.0))
     offset = float(var.attrs.get("add_offset", 0.0))
-    attrs = {k: v for k, v in var.attrs.items() if k not in ("_FillValue", "missing_value", "scale_factor", "add_offset")}
+    attrs = {
+        k: v for k, v in var.attrs.items() if k not in ("_FillValue", "missing_value", "scale_factor", "add_offset")
+    }
     out = var.astype(np.float64)
     for f in fills:
         out = out.where(var != f)
@@ -324,6 +337,8 @@ def select_roles(
     ``packing_step`` (scale_factor of packed data, else 0) for noise clipping. Values are decoded
     (:func:`decode`) unless ``packed`` (then CF packing attributes stay for :func:`zonal_mean`).
     """
+    from lakefeed.units import parse_unit
+
     out = {}
     for role in roles:
         name = find_variable(grid.dataset, role, mapping=mapping, where=grid.label)

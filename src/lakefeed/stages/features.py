@@ -17,14 +17,17 @@ import json
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from lakefeed.config import Project
+from lakefeed.config.lake import FeatureOptions
 from lakefeed.exceptions import FeatureError
 from lakefeed.features import (
     WindowPlan,
     assign_folds,
     build_feature_rows,
-    refresh_feature_rows,
+    new_feature_rows,
     refresh_start,
     sampling_diagnostics,
 )
@@ -135,8 +138,32 @@ def _digests(frames: dict[str | None, pd.DataFrame], targets: pd.DataFrame, thro
     )
 
 
-def build_features(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+def _folds(arrow: pa.Table, opts: FeatureOptions) -> np.ndarray:
+    """Fold per row: per AOI over its target dates (the same target date shares a fold across leads)."""
+    aoi = np.asarray(arrow["aoi"].to_numpy(zero_copy_only=False)).astype(str)
+    dates = arrow["target_date"].to_numpy()
+    fold = np.zeros(len(aoi), dtype=np.int16)
+    for a in np.unique(aoi):
+        sel = aoi == a
+        fold[sel] = assign_folds(dates[sel], k=opts.folds, kind=opts.fold_kind, embargo_days=opts.embargo_days)
+    return fold
+
+
+def _full_again(project: Project, store: Store, progress: Progress, result: StageResult) -> StageResult:
+    """Rebuild in full (the previous table cannot be extended)."""
+    out = build_features(project, store, progress=progress, full=True)
+    out.warnings = result.warnings + out.warnings
+    return out
+
+
+def build_features(
+    project: Project, store: Store, *, progress: Progress | None = None, full: bool = False
+) -> StageResult:
     """Build ``features`` and ``diagnostics`` for one lake from the store's driver and target tables.
+
+    Incremental when possible: with the same configuration and unchanged old inputs, only rows from
+    the first new date on are recomputed and merged with the stored ones (``full=True`` forces a
+    full rebuild). The result equals a full rebuild.
 
     Examples
     --------
@@ -178,12 +205,11 @@ def build_features(project: Project, store: Store, *, progress: Progress | None 
 
     since = None
     prev = store.entry("features", lake.id)
-    if prev and prev.get("config_hash") == cfg and store.has_table("features", lake.id):
+    if not full and prev and prev.get("config_hash") == cfg and store.has_table("features", lake.id):
         md = prev.get("metadata", {})
         old = (md.get("drivers_through"), md.get("targets_through"))
         if all(old) and _digests(frames, targets, old) == md.get("inputs_digest_at_through"):
             since = refresh_start(*old)
-    existing = store.read_table("features", lake.id) if since is not None else None
 
     progress("features: computing", 1, 3)
     blocks = []
@@ -192,23 +218,26 @@ def build_features(project: Project, store: Store, *, progress: Progress | None 
         for h in opts.leads:
             kw = dict(lead=h, windows=plan.windows, stats=plan.stats, include_target_day=opts.include_target_day,
                       max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
-            if existing is not None:
-                old_rows = existing[(existing["lead_days"] == h) & (key is None or existing["aoi"] == key)]
-                old_rows = old_rows.drop(columns=["lake", "fold", "fold_kind"], errors="ignore")
-                blocks.append(refresh_feature_rows(old_rows, tg, drivers, since=since, **kw))
+            if since is not None:
+                blocks.append(new_feature_rows(tg, drivers, since=since, **kw))
             else:
                 blocks.append(build_feature_rows(tg, drivers, **kw))
-    rows = pd.concat(blocks, ignore_index=True).sort_values(KEYS, kind="stable").reset_index(drop=True)
-    rows["target_date"] = pd.to_datetime(rows["target_date"])
-    rows["issue_date"] = pd.to_datetime(rows["issue_date"])
-    fold = pd.Series(0, index=rows.index, dtype=np.int16)
-    for aoi, idx in rows.groupby("aoi").groups.items():
-        fold.loc[idx] = assign_folds(rows.loc[idx, "target_date"], k=opts.folds, kind=opts.fold_kind,
-                                     embargo_days=opts.embargo_days)  # fmt: skip
-        _ = aoi
-    rows.insert(rows.columns.get_loc("doy_cos") + 1, "fold", fold.astype(np.int16))
+    rows = pd.concat(blocks, ignore_index=True)
+    rows.insert(rows.columns.get_loc("doy_cos") + 1, "fold", np.zeros(len(rows), dtype=np.int16))
     rows.insert(rows.columns.get_loc("fold") + 1, "fold_kind", opts.fold_kind)
-    n_outside = int(rows["outside_driver_record"].sum())
+    arrow = pa.Table.from_pandas(rows, preserve_index=False)
+    if since is not None:
+        old = store.read_arrow("features", lake.id)
+        if old.column_names != arrow.column_names:  # e.g. a driver table gained a column: rebuild in full
+            result.warnings.append("features: columns changed since the last build; rebuilt in full")
+            return _full_again(project, store, progress, result)
+        kept = old.filter(
+            pc.less(old["target_date"], pa.scalar(since.to_pydatetime(), old.schema.field("target_date").type))
+        )
+        arrow = pa.concat_tables([kept, arrow.cast(old.schema)])
+    arrow = arrow.sort_by([(k, "ascending") for k in KEYS])
+    arrow = arrow.set_column(arrow.column_names.index("fold"), "fold", pa.array(_folds(arrow, opts), pa.int16()))
+    n_outside = int(pc.sum(arrow["outside_driver_record"]).as_py() or 0)
     if n_outside and columns:
         result.warnings.append(
             f"{n_outside} feature row(s) have target dates outside the driver record (kept, flagged)"
@@ -239,12 +268,12 @@ def build_features(project: Project, store: Store, *, progress: Progress | None 
         "fold_kind": opts.fold_kind,
         "tables_read": "; ".join(["target_daily", *read]),
     }
-    store.write_table("features", lake.id, rows, units=units, descriptions=descr, metadata=meta, inputs=inputs,
+    store.write_arrow("features", lake.id, arrow, units=units, descriptions=descr, metadata=meta, inputs=inputs,
                       config_hash=cfg, time_column="target_date")  # fmt: skip
     dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")} | {"coverage_fraction": "1"}
     store.write_table(
         "diagnostics", lake.id, diag, units=dunits, inputs=inputs, config_hash=cfg, time_column="first_date"
     )
     progress("features: done", 3, 3)
-    result.tables = {"features": len(rows), "diagnostics": len(diag)}
+    result.tables = {"features": arrow.num_rows, "diagnostics": len(diag)}
     return result

@@ -160,7 +160,7 @@ def adjust_forecasts(
         if stored is None or stored.empty or start != end + pd.Timedelta(days=1):
             return None
         same = stored["settings"].iat[0] == settings and pd.Timestamp(stored["fitted_through"].iat[0]) == end
-        return stored.drop(columns=["settings", "fitted_through"]) if same else None
+        return stored.drop(columns=["settings", "fitted_through", "unit"], errors="ignore") if same else None
 
     res = expanding_adjustment(raw, reference, variables=variables, min_overlap_days=src.min_overlap_days,
                                options=options, reuse=reuse)  # fmt: skip
@@ -219,9 +219,16 @@ def _reforecast(
         )
         tg = targets if key is None else targets[targets["aoi"] == key]
         blocks.append(
-            reforecast_rows(tg, drivers, fc, leads=opts.forecast_leads, windows=opts.windows, stats=stats or None,
-                            include_target_day=opts.include_target_day,
-                            max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
+            reforecast_rows(
+                tg,
+                drivers,
+                fc,
+                leads=opts.forecast_leads,
+                windows=opts.windows,
+                stats=stats or None,
+                include_target_day=opts.include_target_day,
+                max_missing_fraction=opts.max_missing_fraction,
+            )
         )
     rows = pd.concat(blocks, ignore_index=True)
     mine = existing["forecast_days"].notna() if "forecast_days" in existing else pd.Series(False, index=existing.index)
@@ -240,9 +247,12 @@ def _reforecast(
         folds = folds.assign(target_date=pd.to_datetime(folds["target_date"]))
         rows = rows.merge(folds, on=["aoi", "target_date"], how="left")
     if "fold" not in rows or rows["fold"].isna().any():
-        fresh = np.concatenate([assign_folds(g["target_date"], k=opts.folds, kind=opts.fold_kind,
-                                             embargo_days=opts.embargo_days) for _, g in rows.groupby("aoi")])  # fmt: skip
-        order = np.concatenate([g.index.to_numpy() for _, g in rows.groupby("aoi")])
+        groups = list(rows.groupby("aoi"))
+        fresh = np.concatenate(
+            [assign_folds(g["target_date"], k=opts.folds, kind=opts.fold_kind, embargo_days=opts.embargo_days)
+             for _, g in groups]
+        )  # fmt: skip
+        order = np.concatenate([g.index.to_numpy() for _, g in groups])
         filled = pd.Series(fresh, index=order).reindex(rows.index)
         rows["fold"] = rows["fold"].fillna(filled) if "fold" in rows else filled
     rows["fold"] = rows["fold"].astype(np.int16)
@@ -300,9 +310,12 @@ def build_forecast(project: Project, store: Store, *, progress: Progress | None 
     meta = {"settings": str(table["settings"].iat[0]), "overlap_days": str(info["overlap_days"]),
             "bias_table_reused": str(info["reused"])}  # fmt: skip
     store.write_table("forecast_drivers_daily", lake.id, both, units=units, metadata=meta, time_column="date")
-    tunits = {c: "see variable" for c in ("hist", "ref")} | {"quantile": "1", "lead_min": "d", "lead_max": "d"}
-    store.write_table("bias_adjustment", lake.id, table.assign(fitted_through=pd.Timestamp(table["fitted_through"].iat[0]).date()),
-                      units=tunits, metadata=meta, time_column=None)  # fmt: skip
+    tunits = {"quantile": "1", "lead_min": "d", "lead_max": "d", "factor": "1 (multiplicative) or unit (additive)"}
+    through = pd.Timestamp(table["fitted_through"].iat[0]).date()
+    stored_table = table.assign(fitted_through=through, unit=table["variable"].map(DAILY_UNITS))
+    descr = {"hist": "forecast quantile (in the row's unit)", "ref": "reanalysis quantile (in the row's unit)"}
+    store.write_table("bias_adjustment", lake.id, stored_table, units=tunits, metadata=meta, time_column=None,
+                      descriptions=descr)  # fmt: skip
     store.write_table("forecast_evaluation", lake.id, evaluation, units={"lead_days": "d", "ks_raw": "1",
                       "ks_adjusted": "1"}, metadata=meta, time_column=None)  # fmt: skip
     result.tables = {"forecast_drivers_daily": len(both), "bias_adjustment": len(table),

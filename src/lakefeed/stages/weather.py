@@ -15,38 +15,49 @@ with the ``lakefeed zonal`` command and the benchmark. Must not: hold science (t
 from __future__ import annotations
 
 import hashlib
+import os
 from collections.abc import Mapping
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import dask
-import geopandas as gpd
 import numpy as np
 import pandas as pd
 import xarray as xr
 from dask.callbacks import Callback
 
-from lakefeed.config import Project
-from lakefeed.config.sources import Accumulation, WeatherSource
 from lakefeed.exceptions import SourceError
 from lakefeed.extract.accumulation import Deaccumulated, deaccumulate, step_of
-from lakefeed.extract.daily import DAILY_UNITS, to_daily
 from lakefeed.extract.meteo import wind_speed
 from lakefeed.extract.zonal import zonal_mean
-from lakefeed.geometry.weights import ZoneWeights, zone_weights
-from lakefeed.geometry.zones import build_zones, zone_latitudes
+from lakefeed.geometry.weights import ZoneWeights, zone_hash, zone_weights
 from lakefeed.sources.grids import Grid, decode, open_grid, select_roles
-from lakefeed.sources.vectors import read_layer
 from lakefeed.stages._result import Progress, StageResult, no_progress
-from lakefeed.store import Store
-from lakefeed.units import convert, parse_unit, ureg
+
+if TYPE_CHECKING:  # heavy imports (geopandas, pint, pydantic, pyarrow) are deferred to keep start-up short
+    import geopandas as gpd
+
+    from lakefeed.config import Project
+    from lakefeed.config.sources import Accumulation, WeatherSource
+    from lakefeed.store import Store
 
 __all__ = ["build_weather", "get_weights", "hourly_drivers", "zonal_long"]
 
-ROLES = ("air_temperature", "dewpoint_temperature", "eastward_wind", "northward_wind", "shortwave_radiation",
-         "precipitation")
-_AMOUNT_NAMES = {"integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air",
-                 "lwe_thickness_of_precipitation_amount", "precipitation_amount"}
-WATER_DENSITY = ureg.Quantity(1000.0, "kg m-3")  # common practice for liquid water equivalent
+ROLES = (
+    "air_temperature",
+    "dewpoint_temperature",
+    "eastward_wind",
+    "northward_wind",
+    "shortwave_radiation",
+    "precipitation",
+)
+_AMOUNT_NAMES = {
+    "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air",
+    "lwe_thickness_of_precipitation_amount",
+    "precipitation_amount",
+}
+#: Density of liquid water for precipitation mass -> depth, kg m-3 (common practice).
+WATER_DENSITY_KG_M3 = 1000.0
 
 
 class _DaskProgress(Callback):
@@ -54,10 +65,10 @@ class _DaskProgress(Callback):
         super().__init__()
         self._p, self._d, self._n, self._done = progress, description, 0, 0
 
-    def _start_state(self, dsk, state) -> None:  # noqa: ANN001
+    def _start_state(self, dsk, state) -> None:
         self._n = len(state["ready"]) + len(state["waiting"]) + len(state["running"])
 
-    def _posttask(self, key, result, dsk, state, worker_id) -> None:  # noqa: ANN001
+    def _posttask(self, key, result, dsk, state, worker_id) -> None:
         self._done += 1
         self._p(self._d, self._done, max(self._n, self._done))
 
@@ -70,11 +81,10 @@ def get_weights(
     ``zones``: GeoDataFrame with ``zone`` and geometry in the grid's CRS.
     """
     geoms = {str(z): g for z, g in zip(zones["zone"], zones.geometry.values, strict=True)}
-    from lakefeed.geometry.weights import zone_hash
-
     key = hashlib.sha256(
-        "|".join([grid.signature, str(allow_partial_coverage), *(f"{z}={zone_hash(g)}" for z, g in geoms.items())])
-        .encode()
+        "|".join(
+            [grid.signature, str(allow_partial_coverage), *(f"{z}={zone_hash(g)}" for z, g in geoms.items())]
+        ).encode()
     ).hexdigest()[:24]
     path = Path(cache_dir) / f"{grid.signature}-{key}.npz" if cache_dir else None
     if path is not None and path.exists():
@@ -83,16 +93,18 @@ def get_weights(
     w = zone_weights(geoms, grid.lat, grid.lon, allow_partial_coverage=allow_partial_coverage, crs=grid.crs)
     if path is not None:
         path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_suffix(f".tmp{np.random.randint(1 << 30)}.npz")
+        tmp = path.with_suffix(f".tmp{os.getpid()}.npz")
         np.savez(tmp, **w.to_arrays())
         tmp.replace(path)
     return w, False
 
 
 def _to_mm_per_step(values: xr.DataArray, unit: str, step_s: float) -> xr.DataArray:
+    from lakefeed.units import parse_unit, ureg
+
     q = ureg.Quantity(1.0, parse_unit(unit))
     if q.check("[mass] / [length] ** 2") or q.check("[mass] / [length] ** 2 / [time]"):
-        q = q / WATER_DENSITY
+        q = q / ureg.Quantity(WATER_DENSITY_KG_M3, "kg m-3")
     if q.check("[length] / [time]"):
         q = q * ureg.Quantity(step_s, "s")
     if not q.check("[length]"):
@@ -101,6 +113,8 @@ def _to_mm_per_step(values: xr.DataArray, unit: str, step_s: float) -> xr.DataAr
 
 
 def _to_watts(values: xr.DataArray, unit: str, step_s: float) -> xr.DataArray:
+    from lakefeed.units import parse_unit, ureg
+
     q = ureg.Quantity(1.0, parse_unit(unit))
     if q.check("[mass] / [time] ** 2"):  # J m-2 per step
         q = q / ureg.Quantity(step_s, "s")
@@ -123,6 +137,9 @@ def hourly_drivers(
     of cell speeds), ``precipitation`` (mm per step), ``shortwave_radiation`` (W m-2, step mean),
     ``valid_fraction`` (lowest of the variables; fraction of the whole zone).
     """
+    from lakefeed.config.sources import Accumulation, WeatherSource
+    from lakefeed.units import convert
+
     src = source or WeatherSource(paths=[])
     acc = dict(src.accumulation) | dict(accumulation or {})
     var = select_roles(grid, ROLES, mapping=src.variables, units=src.units, packed=True)
@@ -132,7 +149,9 @@ def hourly_drivers(
     deacc: dict[str, Deaccumulated] = {}
     for role in ("precipitation", "shortwave_radiation"):
         a = acc.get(role) or acc.get(var[role].attrs["source_name"]) or Accumulation()
-        deacc[role] = deaccumulate(decode(var[role]), kind=a.kind, reset_hour=a.reset_hour, name=var[role].attrs["source_name"])
+        deacc[role] = deaccumulate(
+            decode(var[role]), kind=a.kind, reset_hour=a.reset_hour, name=var[role].attrs["source_name"]
+        )
     fields = {
         "air_temperature": var["air_temperature"],
         "dewpoint": var["dewpoint_temperature"],
@@ -146,15 +165,19 @@ def hourly_drivers(
     with cb if cb else _Null():
         zonal, checks = dask.compute(zonal, checks)
     clipped = {k: deacc[k].check(bad_steps=b, n_clipped=n) for k, (b, n) in checks.items()}
-    out = xr.Dataset({
-        "air_temperature": convert(zonal["air_temperature"]["mean"], var["air_temperature"].attrs["units"], "degC"),
-        "dewpoint": convert(zonal["dewpoint"]["mean"], var["dewpoint_temperature"].attrs["units"], "degC"),
-        "wind_speed": zonal["wind_speed"]["mean"],
-        "precipitation": _to_mm_per_step(zonal["precipitation"]["mean"], var["precipitation"].attrs["units"], step_s),
-        "shortwave_radiation": _to_watts(
-            zonal["shortwave_radiation"]["mean"], var["shortwave_radiation"].attrs["units"], step_s
-        ),
-    })
+    out = xr.Dataset(
+        {
+            "air_temperature": convert(zonal["air_temperature"]["mean"], var["air_temperature"].attrs["units"], "degC"),
+            "dewpoint": convert(zonal["dewpoint"]["mean"], var["dewpoint_temperature"].attrs["units"], "degC"),
+            "wind_speed": zonal["wind_speed"]["mean"],
+            "precipitation": _to_mm_per_step(
+                zonal["precipitation"]["mean"], var["precipitation"].attrs["units"], step_s
+            ),
+            "shortwave_radiation": _to_watts(
+                zonal["shortwave_radiation"]["mean"], var["shortwave_radiation"].attrs["units"], step_s
+            ),
+        }
+    )
     vf = xr.concat([z["valid_fraction"] for z in zonal.values()], dim="v").min("v")
     cov = xr.DataArray(weights.grid_coverage, dims="zone", coords={"zone": list(weights.zones)})
     out["valid_fraction"] = vf * cov
@@ -171,8 +194,9 @@ class _Null:
         return None
 
 
-def zonal_long(grid: Grid, weights: ZoneWeights, *, accumulation: Accumulation | None = None,
-               progress: Progress | None = None) -> pd.DataFrame:
+def zonal_long(
+    grid: Grid, weights: ZoneWeights, *, accumulation: Accumulation | None = None, progress: Progress | None = None
+) -> pd.DataFrame:
     """Long table (zone, time, variable, value, unit, valid_fraction) of every (time, lat, lon) variable.
 
     ``variable`` is the CF standard_name where the file has one, else the variable name. Known roles
@@ -180,6 +204,7 @@ def zonal_long(grid: Grid, weights: ZoneWeights, *, accumulation: Accumulation |
     shortwave W m-2); accumulated amounts (by standard_name) are de-accumulated per ``accumulation``.
     """
     from lakefeed.config.sources import WEATHER_ROLES
+    from lakefeed.units import convert, parse_unit
 
     by_sn = {sn: role for role, sns in WEATHER_ROLES.items() for sn in sns}
     ds = grid.dataset
@@ -197,8 +222,9 @@ def zonal_long(grid: Grid, weights: ZoneWeights, *, accumulation: Accumulation |
         meta[str(name)] = (sn or str(name), by_sn.get(sn or ""), unit)
     cb = _DaskProgress(progress, "zonal: reading grid") if progress else None
     with cb if cb else _Null():
-        (res,) = dask.compute({k: (v[0], getattr(v[1], "bad_steps", None), getattr(v[1], "n_clipped", None))
-                               for k, v in lazy.items()})
+        (res,) = dask.compute(
+            {k: (v[0], getattr(v[1], "bad_steps", None), getattr(v[1], "n_clipped", None)) for k, v in lazy.items()}
+        )
     frames = []
     for name, (z, bad, ncl) in res.items():
         src = lazy[name][1]
@@ -230,6 +256,10 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
     >>> build_weather(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
     StageResult(stage='weather', lake='tallow', tables={'drivers_daily': 1098}, ...)
     """
+    from lakefeed.extract.daily import DAILY_UNITS, to_daily
+    from lakefeed.geometry.zones import build_zones, zone_latitudes
+    from lakefeed.sources.vectors import read_layer
+
     p = progress or no_progress
     lake = project.lake
     src = project.sources.weather
@@ -243,11 +273,22 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
     subs = None
     if lake.zones.catchment or lake.zones.subbasins:
         subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
-    zones = build_zones(lake_g, aois=aois, aoi_id_field=lake.aois.id_field, subbasins=subs,
-                        subbasin_layer=lake.subbasins, options=lake.zones, crs=grid.crs)
+    zones = build_zones(
+        lake_g,
+        aois=aois,
+        aoi_id_field=lake.aois.id_field,
+        subbasins=subs,
+        subbasin_layer=lake.subbasins,
+        options=lake.zones,
+        crs=grid.crs,
+    )
     p("weather: weights", 1, 3)
-    weights, _ = get_weights(zones, grid, cache_dir=Path(store.root) / "_cache" / "weights",
-                             allow_partial_coverage=lake.zones.allow_partial_coverage)
+    weights, _ = get_weights(
+        zones,
+        grid,
+        cache_dir=Path(store.root) / "_cache" / "weights",
+        allow_partial_coverage=lake.zones.allow_partial_coverage,
+    )
     p("weather: weights", 2, 3)
     hourly, clipped = hourly_drivers(grid, weights, source=src, progress=progress)
     warn += [f"{k}: {n} value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
@@ -255,7 +296,12 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
     daily = to_daily(hourly, tz=lake.timezone, latitude=zone_latitudes(zones), zone_flags=flags)
     daily.insert(0, "lake", lake.id)
     daily["date"] = daily["date"].dt.date
-    store.write_table("drivers_daily", lake.id, daily, units=DAILY_UNITS,
-                      metadata={"grid_signature": weights.signature, "files": str(len(grid.files))})
+    store.write_table(
+        "drivers_daily",
+        lake.id,
+        daily,
+        units=DAILY_UNITS,
+        metadata={"grid_signature": weights.signature, "files": str(len(grid.files))},
+    )
     p("weather: done", 3, 3)
     return StageResult("weather", lake.id, tables={"drivers_daily": len(daily)}, warnings=warn)

@@ -1,0 +1,64 @@
+"""Change detection of the refresh: content hashes by source kind and month, and the stages they select."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from lakefeed.flows._runtime import available_stages, store_lock
+from lakefeed.flows._state import changes, plan_stages
+from lakefeed.flows.tasks import is_transient
+from lakefeed.exceptions import SourceError, StoreError
+
+ORDER = ["weather", "hydrology", "target", "features", "forecast"]
+
+
+def test_changes_by_month() -> None:
+    old = {"weather": {"2022-01": "a", "2022-02": "b"}, "config": {"all": "c"}}
+    new = {"weather": {"2022-01": "a", "2022-02": "B", "2022-03": "d"}, "config": {"all": "c"}}
+    assert changes(old, new) == {"weather": ["2022-02", "2022-03"]}
+    assert changes(new, new) == {}
+    assert changes({"scenes": {"2022-01": "x"}}, {}) == {"scenes": ["removed:2022-01"]}
+
+
+def test_plan_only_what_changed() -> None:
+    recorded = {s: [] for s in ORDER}
+    have = lambda table: True  # noqa: E731
+    assert plan_stages(ORDER, {}, recorded=recorded, has_table=have) == []
+    # new scenes: target, then features and forecast (which extends the feature table); not weather
+    assert plan_stages(ORDER, {"scenes": ["2022-03"]}, recorded=recorded, has_table=have) == [
+        "target", "features", "forecast"]
+    assert plan_stages(ORDER, {"forecast": ["2022-03"]}, recorded=recorded, has_table=have) == ["forecast"]
+    assert plan_stages(ORDER, {"config": ["all"]}, recorded=recorded, has_table=have) == ORDER
+
+
+def test_plan_reruns_a_stage_whose_table_vanished() -> None:
+    recorded = {s: [] for s in ORDER} | {"weather": ["drivers_daily"]}
+    plan = plan_stages(ORDER, {}, recorded=recorded, has_table=lambda t: t != "drivers_daily")
+    assert plan == ["weather", "features", "forecast"]
+    assert plan_stages(ORDER, {}, recorded={}, has_table=lambda t: True) == ORDER  # never ran
+
+
+def test_transient_errors_only() -> None:
+    assert is_transient(TimeoutError("slow disk"))
+    assert is_transient(OSError(5, "Input/output error"))
+    assert not is_transient(FileNotFoundError(2, "No such file"))
+    assert not is_transient(SourceError("weather: no file matches"))
+    wrapped = SourceError("cannot read")
+    wrapped.__cause__ = ConnectionResetError(104, "reset")
+    assert is_transient(wrapped)
+
+
+def test_store_lock_refuses_a_second_run(tmp_path: Path) -> None:
+    with store_lock(tmp_path, what="refresh"):
+        with pytest.raises(StoreError, match="in use by another run .*refresh: pid"):
+            with store_lock(tmp_path, wait=0.3):
+                pass
+    with store_lock(tmp_path):  # released: the next run gets it
+        pass
+
+
+def test_all_stages_are_found() -> None:
+    found, missing = available_stages()
+    assert set(found) | set(missing) == set(ORDER)

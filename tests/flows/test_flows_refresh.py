@@ -1,0 +1,118 @@
+"""The refresh flow on several variants of the sample lake: Dask vs sequential, isolation, locking, deployment.
+
+End-to-end on the reduced sample scenario against a Prefect server the session starts on loopback. Stages
+are limited to weather and hydrology to keep the run short; the other stages go through the same tasks.
+"""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+import pytest
+from conftest import write_variants
+
+from lakefeed.exceptions import StoreError
+from lakefeed.flows._runtime import store_lock
+from lakefeed.flows._state import state_path
+from lakefeed.store import Store
+
+pytestmark = pytest.mark.slow
+STAGES = ["weather", "hydrology"]
+LAKES = ["alder", "birch", "cedar"]
+
+
+def _content(root: str, lakes: list[str]) -> dict[tuple[str, str], pd.DataFrame]:
+    store = Store(root)
+    return {(t, lk): store.read_table(t, lk) for t in ("drivers_daily", "hydrology_daily") for lk in lakes}
+
+
+@pytest.fixture(scope="module")
+def sequential_run(small_sample, prefect_server, tmp_path_factory):
+    from lakefeed.flows.refresh import refresh
+
+    cfg = write_variants(small_sample, tmp_path_factory.mktemp("seq") / "config", LAKES)
+    summary = refresh([str(cfg)], sequential=True, stages=STAGES)
+    return cfg, summary
+
+
+def test_sequential_refresh_builds_every_lake(sequential_run) -> None:
+    cfg, summary = sequential_run
+    assert [s["status"] for s in summary] == ["ok"] * 3, summary
+    root = str(cfg.parent / "store")
+    store = Store(root)
+    runs = store.read_table("run_summary")
+    assert sorted(runs["lake"]) == LAKES and (runs["new_rows"] > 0).all()
+    assert runs.attrs["units"]["new_rows"] == "1"
+    state = json.loads(state_path(root, "alder").read_text())
+    assert set(state["stages"]) == set(STAGES) and "2022-06" in state["sources"]["weather"]
+
+
+def test_second_refresh_finds_nothing_new(sequential_run) -> None:
+    from lakefeed.flows.refresh import refresh
+
+    cfg, _ = sequential_run
+    again = refresh([str(cfg)], sequential=True, stages=STAGES)
+    assert [s["status"] for s in again] == ["unchanged"] * 3
+    assert all(s["new_rows"] == 0 and s["stages_run"] == "" for s in again)
+    runs = Store(str(cfg.parent / "store")).read_table("run_summary", "birch")
+    assert list(runs["status"]) == ["ok", "unchanged"]  # the summary table keeps the history
+
+
+def test_dask_local_cluster_matches_sequential(sequential_run, small_sample, tmp_path_factory) -> None:
+    from distributed import LocalCluster
+
+    from lakefeed.flows.refresh import refresh
+
+    cfg_seq, _ = sequential_run
+    cfg = write_variants(small_sample, tmp_path_factory.mktemp("dask") / "config", LAKES)
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                      dashboard_address=None) as cluster:
+        assert cluster.scheduler_address.startswith("tcp://127.0.0.1:")
+        summary = refresh([str(cfg)], dask_address=cluster.scheduler_address, stages=STAGES)
+    assert [s["status"] for s in summary] == ["ok"] * 3, summary
+    seq = _content(str(cfg_seq.parent / "store"), LAKES)
+    par = _content(str(cfg.parent / "store"), LAKES)
+    for key, frame in seq.items():
+        pd.testing.assert_frame_equal(frame, par[key], check_exact=True)
+
+
+def test_lake_with_missing_files_fails_alone(small_sample, prefect_server, tmp_path) -> None:
+    from lakefeed.flows.refresh import refresh
+
+    missing = str(tmp_path / "nowhere" / "reanalysis_*.nc")
+    cfg = write_variants(small_sample, tmp_path / "config", ["good", "lost"], broken={"lost": missing})
+    summary = {s["lake"]: s for s in refresh([str(cfg)], sequential=True, stages=["weather"])}
+    assert summary["good"]["status"] == "ok" and summary["good"]["new_rows"] > 0
+    assert summary["lost"]["status"] == "failed"
+    assert "no file matches" in summary["lost"]["error"] and "nowhere" in summary["lost"]["error"]
+    store = Store(str(tmp_path / "store"))
+    assert store.has_table("drivers_daily", "good") and not store.has_table("drivers_daily", "lost")
+    assert not state_path(tmp_path / "store", "lost").exists()  # nothing recorded: the next run retries it
+    failed = store.read_table("run_summary", "lost")
+    assert "no file matches" in failed["error"].iloc[-1]
+
+
+def test_second_refresh_on_one_store_refuses(sequential_run) -> None:
+    from lakefeed.flows.refresh import refresh
+
+    cfg, _ = sequential_run
+    with store_lock(cfg.parent / "store", what="refresh"):
+        with pytest.raises(StoreError, match="in use by another run"):
+            refresh([str(cfg)], sequential=True, stages=STAGES, wait=0.5)
+
+
+def test_deployment_registered_with_monthly_cron(sequential_run, prefect_server) -> None:
+    from prefect.client.orchestration import get_client
+
+    from lakefeed.flows.deployments import register
+
+    cfg, _ = sequential_run
+    register(cfg, store=str(cfg.parent / "store"))
+    with get_client(sync_client=True) as client:
+        dep = client.read_deployment_by_name("refresh/monthly-refresh")
+    assert len(dep.schedules) == 1
+    schedule = dep.schedules[0].schedule
+    assert schedule.cron == "0 3 5 * *"  # 03:00 on the 5th of each month
+    assert schedule.timezone == "Europe/Berlin"  # the lakes' own time zone
+    assert dep.parameters["configs"] == [str(cfg.resolve())]
