@@ -169,7 +169,7 @@ def store_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "
     root = Path(root)
     root.mkdir(parents=True, exist_ok=True)
     path = root / ".run.lock"
-    fh = open(path, "a+")  # noqa: SIM115 - kept open for the whole run
+    fh = open(path, "a+")
     deadline = time.monotonic() + max(0.0, wait)
     try:
         while True:

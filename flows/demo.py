@@ -54,7 +54,7 @@ def demo(sample_dir: str, store: str, report: bool = True) -> dict[str, Any]:
         summary = process_lakes.with_options(task_runner=runner)({project.id: str(lake_file)}, store, full=True)[0]
         _write_summary(store, [summary], "demo", started)
     path = None
-    if report and summary["status"] != "failed":
+    if report:  # also after a failed stage: the report shows what exists and the run's errors
         from lakefeed.report import write_report
 
         path = str(write_report(project, Store(store), Path(store).parent / f"report-{project.id}.html"))

@@ -69,7 +69,7 @@ def process_lakes(
     store = Store(store_root)
     clock = {lake: time.perf_counter() for lake in lakes}
     rec: dict[str, dict[str, Any]] = {
-        lake: {"lake": lake, "status": "ok", "stages_run": [], "tables": {}, "skipped": [], "error": "", "changed": ""}
+        lake: {"lake": lake, "status": "ok", "stages_run": [], "tables": {}, "skipped": [], "error": "", "changed": "", "warnings": []}
         for lake in lakes
     }
     plans: dict[str, dict[str, Any]] = {}
@@ -104,6 +104,7 @@ def process_lakes(
             rec[lake]["tables"].update(result["tables"])
             if result["skipped"]:
                 rec[lake]["skipped"].append(f"{stage}: {result['reason']}")
+            rec[lake]["warnings"] += [f"{stage}: {w}" for w in result["warnings"]]
             plans[lake]["recorded"][stage] = sorted(result["tables"])
     for lake in alive:  # every stage of the lake succeeded: remember what its store now reflects
         write_json_atomic(
@@ -123,6 +124,7 @@ def process_lakes(
                 "changed": r["changed"],
                 "skipped": "; ".join(r["skipped"]),
                 "error": r["error"],
+                "warnings": "; ".join(r["warnings"]),
                 "seconds": round(time.perf_counter() - clock[lake], 3),
             }
         )
@@ -249,8 +251,16 @@ def refresh(
         Per lake: status (ok, unchanged, failed), stages_run, new_rows, rows_written, changed, skipped,
         error, seconds. Also appended to the store's ``run_summary`` table.
     """
-    return _run(configs, store=store, dask_address=dask_address, sequential=sequential, full=False, wait=wait,
-                what="refresh", stages=stages)
+    return _run(
+        configs,
+        store=store,
+        dask_address=dask_address,
+        sequential=sequential,
+        full=False,
+        wait=wait,
+        what="refresh",
+        stages=stages,
+    )
 
 
 @flow(name="build-lake", log_prints=True)
@@ -281,14 +291,22 @@ def build_lake(
             good.append(str(p.lake_file))
     if not good:
         raise ConfigError("no lake passed the checks; run `lakefeed check` for details")
-    summaries = _run(good, store=store, dask_address=dask_address, sequential=sequential, full=True, wait=wait,
-                     what="build", stages=stages)
+    summaries = _run(
+        good,
+        store=store,
+        dask_address=dask_address,
+        sequential=sequential,
+        full=True,
+        wait=wait,
+        what="build",
+        stages=stages,
+    )
     if report:
         from lakefeed.report import write_report
 
         root = _store_root(store, projects)
         for s in summaries:
-            if s["status"] != "failed":
+            if s["lake"] in projects and (s["status"] != "failed" or s.get("stages_run")):
                 path = write_report(projects[s["lake"]], Store(root), Path(root) / "reports" / f"{s['lake']}.html")
                 print(f"report for {s['lake']}: {path}")
     return summaries

@@ -6,10 +6,10 @@ from pathlib import Path
 
 import pytest
 
+from lakefeed.exceptions import SourceError, StoreError
 from lakefeed.flows._runtime import available_stages, store_lock
 from lakefeed.flows._state import changes, plan_stages
 from lakefeed.flows.tasks import is_transient
-from lakefeed.exceptions import SourceError, StoreError
 
 ORDER = ["weather", "hydrology", "target", "features", "forecast"]
 
@@ -28,7 +28,10 @@ def test_plan_only_what_changed() -> None:
     assert plan_stages(ORDER, {}, recorded=recorded, has_table=have) == []
     # new scenes: target, then features and forecast (which extends the feature table); not weather
     assert plan_stages(ORDER, {"scenes": ["2022-03"]}, recorded=recorded, has_table=have) == [
-        "target", "features", "forecast"]
+        "target",
+        "features",
+        "forecast",
+    ]
     assert plan_stages(ORDER, {"forecast": ["2022-03"]}, recorded=recorded, has_table=have) == ["forecast"]
     assert plan_stages(ORDER, {"config": ["all"]}, recorded=recorded, has_table=have) == ORDER
 
@@ -52,7 +55,7 @@ def test_transient_errors_only() -> None:
 
 def test_store_lock_refuses_a_second_run(tmp_path: Path) -> None:
     with store_lock(tmp_path, what="refresh"):
-        with pytest.raises(StoreError, match="in use by another run .*refresh: pid"):
+        with pytest.raises(StoreError, match=r"in use by another run .*refresh: pid"):
             with store_lock(tmp_path, wait=0.3):
                 pass
     with store_lock(tmp_path):  # released: the next run gets it

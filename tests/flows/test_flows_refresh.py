@@ -10,7 +10,7 @@ import json
 
 import pandas as pd
 import pytest
-from conftest import write_variants
+from _variants import write_variants
 
 from lakefeed.exceptions import StoreError
 from lakefeed.flows._runtime import store_lock
@@ -66,8 +66,9 @@ def test_dask_local_cluster_matches_sequential(sequential_run, small_sample, tmp
 
     cfg_seq, _ = sequential_run
     cfg = write_variants(small_sample, tmp_path_factory.mktemp("dask") / "config", LAKES)
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                      dashboard_address=None) as cluster:
+    with LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None
+    ) as cluster:
         assert cluster.scheduler_address.startswith("tcp://127.0.0.1:")
         summary = refresh([str(cfg)], dask_address=cluster.scheduler_address, stages=STAGES)
     assert [s["status"] for s in summary] == ["ok"] * 3, summary
@@ -78,14 +79,24 @@ def test_dask_local_cluster_matches_sequential(sequential_run, small_sample, tmp
 
 
 def test_lake_with_missing_files_fails_alone(small_sample, prefect_server, tmp_path) -> None:
+    import shutil
+
     from lakefeed.flows.refresh import refresh
 
     missing = str(tmp_path / "nowhere" / "reanalysis_*.nc")
-    cfg = write_variants(small_sample, tmp_path / "config", ["good", "lost"], broken={"lost": missing})
+    corrupt = tmp_path / "weather"
+    shutil.copytree(small_sample / "weather", corrupt)
+    victim = corrupt / "reanalysis_2022-06.nc"
+    victim.write_bytes(victim.read_bytes()[:5000])  # a file cut short in the middle of the record
+    broken = {"lost": missing, "torn": str(corrupt / "reanalysis_*.nc")}
+    cfg = write_variants(small_sample, tmp_path / "config", ["good", "lost", "torn"], broken=broken)
     summary = {s["lake"]: s for s in refresh([str(cfg)], sequential=True, stages=["weather"])}
     assert summary["good"]["status"] == "ok" and summary["good"]["new_rows"] > 0
     assert summary["lost"]["status"] == "failed"
     assert "no file matches" in summary["lost"]["error"] and "nowhere" in summary["lost"]["error"]
+    # the torn file is left out with a warning naming it, or the lake fails naming it; never a crash
+    torn = summary["torn"]
+    assert "reanalysis_2022-06.nc" in torn["warnings"] + torn["error"], torn
     store = Store(str(tmp_path / "store"))
     assert store.has_table("drivers_daily", "good") and not store.has_table("drivers_daily", "lost")
     assert not state_path(tmp_path / "store", "lost").exists()  # nothing recorded: the next run retries it

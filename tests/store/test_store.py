@@ -211,17 +211,18 @@ def test_lock_across_processes(tmp_path: Path) -> None:
     import sys
 
     code = (
-        "import sys, time; from lakefeed.store import Store\n"
+        "import sys; from lakefeed.store import Store\n"
         f"s = Store({str(tmp_path)!r})\n"
-        "with s.lock():\n    print('held', flush=True); time.sleep(3)\n"
+        "with s.lock():\n    print('held', flush=True); sys.stdin.readline()\n"
     )
-    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    proc = subprocess.Popen([sys.executable, "-c", code], stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
     try:
         assert proc.stdout.readline().strip() == "held"
         with pytest.raises(StoreError, match=r"pid \d+"):
             Store(tmp_path, lock_timeout=0.2).write_table("features", "tallow", _frame())
     finally:
-        proc.wait(10)
+        proc.communicate("\n", timeout=30)
+    Store(tmp_path, lock_timeout=5).write_table("features", "tallow", _frame())  # released with the process
 
 
 def test_load_features_with_units(tmp_path: Path) -> None:

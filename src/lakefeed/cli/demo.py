@@ -27,8 +27,13 @@ __all__ = ["demo_command", "print_store_summary", "progress_bars"]
 @contextlib.contextmanager
 def progress_bars() -> Iterator[ProgressFn]:
     """A ``progress(description, done, total)`` callback drawing one rich bar per step (text before ':')."""
-    columns = (SpinnerColumn(), TextColumn("{task.description:<34}"), BarColumn(), MofNCompleteColumn(),
-               TimeElapsedColumn())
+    columns = (
+        SpinnerColumn(),
+        TextColumn("{task.description:<34}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeElapsedColumn(),
+    )
     with Progress(*columns, console=console, transient=False) as bars:
         ids: dict[str, int] = {}
 
@@ -58,8 +63,9 @@ def print_store_summary(store_root: str | Path, lake: str | None = None) -> None
             path = store.part_file(name, lk)
             meta = pq.ParquetFile(path)
             schema = meta.schema_arrow
-            table.add_row(name, lk, str(meta.metadata.num_rows), str(len(schema)), str(len(read_units(schema))),
-                          escape(str(path)))
+            table.add_row(
+                name, lk, str(meta.metadata.num_rows), str(len(schema)), str(len(read_units(schema))), escape(str(path))
+            )
     console.print(table)
 
 
@@ -84,8 +90,8 @@ def demo_command(
 ) -> None:
     """Generate (or reuse) the sample scenario, run every pipeline stage on it and summarise the store."""
     os.environ.setdefault("PREFECT_LOGGING_LEVEL", "WARNING")  # the bars show progress; warnings still print
-    from lakefeed.flows.demo import demo, demo_lake_file  # after the setting above (Prefect reads it on import)
     from lakefeed.flows._runtime import set_progress
+    from lakefeed.flows.demo import demo, demo_lake_file  # after the setting above (Prefect reads it on import)
     from lakefeed.sample import generate
     from lakefeed.store import Store
 
@@ -110,20 +116,29 @@ def demo_command(
     s = Store(store)
     lake = summary["lake"]
     if s.has_table("diagnostics", lake):
-        _print_frame("diagnostics (accepted chlorophyll-a observations per AOI)", s.read_table("diagnostics", lake),
-                     ["aoi", "n_obs", "obs_per_year", "gap_median_days", "gap_max_days", "warnings"])
+        _print_frame(
+            "diagnostics (accepted chlorophyll-a observations per AOI)",
+            s.read_table("diagnostics", lake),
+            ["aoi", "n_obs", "obs_per_year", "gap_median_days", "gap_max_days", "warnings"],
+        )
     if s.has_table("forecast_evaluation", lake):
         _print_frame("forecast bias by lead time", s.read_table("forecast_evaluation", lake), [])
     status = summary["status"]
     colour = {"failed": "red", "ok": "green"}.get(status, "yellow")
-    console.print(f"lake [bold]{lake}[/]: [{colour}]{status}[/]; stages run: {summary['stages_run'] or 'none'}; "
-                  f"{summary['rows_written']} rows written")
+    console.print(
+        f"lake [bold]{lake}[/]: [{colour}]{status}[/]; stages run: {summary['stages_run'] or 'none'}; "
+        f"{summary['rows_written']} rows written"
+    )
     for key in ("skipped", "error"):
         if summary.get(key):
             console.print(f"  {key}: {escape(summary[key])}")
     if result.get("report"):
         console.print(f"quality report: {escape(result['report'])}")
-    console.print("read it with pandas (pd.read_parquet) or DuckDB: "
-                  f"SELECT * FROM read_parquet('{escape(str(store))}/features/*/*.parquet', hive_partitioning=true)")
-    console.print("[dim]Trophic classes and chlorophyll-a thresholds inform only; bathing and drinking-water "
-                  "decisions follow local regulations and the responsible authority.[/]")
+    console.print(
+        "read it with pandas (pd.read_parquet) or DuckDB: "
+        f"SELECT * FROM read_parquet('{escape(str(store))}/features/*/*.parquet', hive_partitioning=true)"
+    )
+    console.print(
+        "[dim]Trophic classes and chlorophyll-a thresholds inform only; bathing and drinking-water "
+        "decisions follow local regulations and the responsible authority.[/]"
+    )

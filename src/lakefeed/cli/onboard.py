@@ -163,8 +163,11 @@ def init_command(
     lake_file.write_text("\n".join(lines) + "\n", encoding="utf-8")
     table = Table(title=f"lakefeed init {lake_id}", show_header=False)
     for k, v in [
-        ("sub-basin fields", f"id {id_field!r}, downstream {downstream_field!r}"
-         + (f", lake marked {lake_value!r}" if lake_value else "")),
+        (
+            "sub-basin fields",
+            f"id {id_field!r}, downstream {downstream_field!r}"
+            + (f", lake marked {lake_value!r}" if lake_value else ""),
+        ),
         ("direct inflows", ", ".join(catchment.direct_inflows) + f" (rule: {catchment.rule})"),
         ("catchment", f"{catchment.n_subbasins} sub-basins, {area_km2:.1f} km2"),
         ("time zone", f"{tz} (from the lake centroid)"),
@@ -203,8 +206,13 @@ def _print_summary(summaries: list[dict]) -> bool:
         table.add_column(c)
     for s in summaries:
         colour = {"failed": "red", "ok": "green"}.get(s["status"], "yellow")
-        table.add_row(s["lake"], f"[{colour}]{s['status']}[/]", str(s.get("new_rows", 0)),
-                      escape(s.get("stages_run", "")), escape(s.get("error") or s.get("skipped") or ""))
+        table.add_row(
+            s["lake"],
+            f"[{colour}]{s['status']}[/]",
+            str(s.get("new_rows", 0)),
+            escape(s.get("stages_run", "")),
+            escape(s.get("error") or s.get("skipped") or ""),
+        )
     console.print(table)
     return all(s["status"] != "failed" for s in summaries)
 
@@ -221,8 +229,14 @@ def build_command(
     """Full build: validate, derive geometry and weights, backfill the whole record, write the reports."""
     from lakefeed.flows.refresh import build_lake
 
-    summaries = build_lake([str(c) for c in configs], store=str(store) if store else None,
-                           dask_address=dask_address, sequential=sequential, wait=wait, report=report)
+    summaries = build_lake(
+        [str(c) for c in configs],
+        store=str(store) if store else None,
+        dask_address=dask_address,
+        sequential=sequential,
+        wait=wait,
+        report=report,
+    )
     if not _print_summary(summaries):
         raise typer.Exit(1)
 
@@ -238,7 +252,12 @@ def refresh_command(
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
 
-    summaries = refresh([str(config_dir)], store=str(store) if store else None, dask_address=dask_address,
-                        sequential=sequential, wait=wait)
+    summaries = refresh(
+        [str(config_dir)],
+        store=str(store) if store else None,
+        dask_address=dask_address,
+        sequential=sequential,
+        wait=wait,
+    )
     if not _print_summary(summaries):
         raise typer.Exit(1)

@@ -46,7 +46,8 @@ def start_local_server(port: int = 4200, *, timeout: float = 180.0) -> tuple[sub
 
     proc = subprocess.Popen(
         [sys.executable, "-m", "prefect", "server", "start", "--host", "127.0.0.1", "--port", str(port)],
-        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
         env={**os.environ, "PREFECT_SERVER_ANALYTICS_ENABLED": "false", "PREFECT_UI_ENABLED": "false"},
     )
     url = f"http://127.0.0.1:{port}/api"
@@ -78,8 +79,10 @@ def show_command(
     console.print(f"deployment [bold]refresh/{DEPLOYMENT_NAME}[/] of {escape(str(config_dir))}: cron {cron!r} in {tz}")
     for t in next_runs(cron, tz):
         console.print(f"  next run: {t:%Y-%m-%d %H:%M %Z}")
-    console.print("serve it (starts a local Prefect server unless PREFECT_API_URL is set): "
-                  f"lakefeed schedule serve {escape(str(config_dir))}")
+    console.print(
+        "serve it (starts a local Prefect server unless PREFECT_API_URL is set): "
+        f"lakefeed schedule serve {escape(str(config_dir))}"
+    )
 
 
 @schedule_app.command("serve")
@@ -101,8 +104,13 @@ def serve_command(
         os.environ["PREFECT_API_URL"] = url
         console.print(f"Prefect server ready: {url}")
     try:
-        serve(config_dir, store=str(store) if store else None, cron=cron or DEFAULT_CRON, timezone=timezone,
-              dask_address=dask_address)
+        serve(
+            config_dir,
+            store=str(store) if store else None,
+            cron=cron or DEFAULT_CRON,
+            timezone=timezone,
+            dask_address=dask_address,
+        )
     finally:
         if proc is not None:
             proc.terminate()

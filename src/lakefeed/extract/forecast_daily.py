@@ -183,7 +183,13 @@ def to_daily_by_lead(
         t0 = issues[sel].min() + leads.min()
         # one regular UTC time axis for the block; each (issue, zone) pair is a pseudo-zone of to_daily
         valid = issues[sel].values.astype("datetime64[ns]")[:, None] + leads.values.astype("timedelta64[ns]")[None, :]
-        pos = ((valid - t0.to_datetime64()) // step.to_timedelta64()).astype(np.int64)  # (issues, leads)
+        offset = valid - t0.to_datetime64()
+        if np.any(offset % step.to_timedelta64()):
+            raise ExtractError(
+                f"forecast issue times {list(issues[sel][:3])}... are not on the {step} grid of the leads; "
+                "lakefeed needs issue times that are whole multiples of the lead step apart"
+            )
+        pos = (offset // step.to_timedelta64()).astype(np.int64)  # (issues, leads)
         nt = int(pos.max()) + 1
         time = pd.date_range(t0, periods=nt, freq=step)
         nz = len(zones)

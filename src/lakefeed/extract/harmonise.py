@@ -17,7 +17,7 @@ With fewer than ``min_matchups`` matchups the sensor is left unadjusted and flag
 
 Fusion: for each AOI and local date, the inverse-variance weighted mean of the adjusted values with
 weights ``w_i = 1 / sigma_i^2``; its 1-sigma uncertainty is ``(sum w_i)^-1/2`` (standard result for
-independent errors, e.g. Taylor, An Introduction to Error Analysis, 2nd ed., section 7.2).
+independent errors; from memory of Taylor, An Introduction to Error Analysis, 2nd ed., ch. 7).
 """
 
 from __future__ import annotations

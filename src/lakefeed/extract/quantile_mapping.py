@@ -101,13 +101,13 @@ def _season_copies(
     return r, anchors[a]
 
 
-def _season_of(dates: pd.Series, season: Season, doy_step: int) -> np.ndarray:
+def _season_of(dates: pd.Series, season: Season, anchors: np.ndarray) -> np.ndarray:
+    """Season label of each date: 0 (none), the calendar month, or the nearest day-of-year anchor (cyclic)."""
     if season == "none":
         return np.zeros(len(dates), dtype=int)
     if season == "month":
         return pd.DatetimeIndex(dates).month.to_numpy()
     doy = pd.DatetimeIndex(dates).dayofyear.to_numpy()
-    anchors = np.arange(1, 367, doy_step)
     dist = np.abs(doy[:, None] - anchors[None, :])
     dist = np.minimum(dist, 366 - dist)
     return anchors[np.argmin(dist, axis=1)]
@@ -343,7 +343,6 @@ def apply_quantile_mapping(
     table: pd.DataFrame,
     *,
     variables: Sequence[str] | None = None,
-    doy_step: int = 5,
 ) -> pd.DataFrame:
     """Adjust daily forecast drivers with a fitted quantile table.
 
@@ -359,9 +358,10 @@ def apply_quantile_mapping(
     Returns
     -------
     pandas.DataFrame
-        A copy of ``forecast`` with adjusted driver columns and ``adjusted_group`` counts in
-        ``frame.attrs['fallback']`` (rows that used the pooled all-season group) and
-        ``frame.attrs['unadjusted']`` (rows left NaN because no group was fitted), per variable.
+        A copy of ``forecast`` with adjusted driver columns; per variable, ``frame.attrs['fallback']``
+        counts the rows that used the pooled all-season group and ``frame.attrs['unadjusted']`` the rows
+        left NaN because no group was fitted. Each row goes to the group of its zone, lead and the
+        season of its (valid) date: its calendar month, or the nearest day-of-year anchor of the table.
     """
     out = forecast.copy()
     if table.empty:
@@ -379,7 +379,7 @@ def apply_quantile_mapping(
             "zone": forecast["zone"].to_numpy(),
             "lead_min": lead_min,
             "lead_max": lead_max,
-            "season": _season_of(forecast["date"], season, doy_step),
+            "season": _season_of(forecast["date"], season, np.sort(table.loc[table["season"] > 0, "season"].unique())),
         }
     )
     u = _row_uniform(forecast["zone"].to_numpy(), forecast["date"], leads)

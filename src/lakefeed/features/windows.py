@@ -6,11 +6,12 @@ length, named ``<driver column>__<stat>_<k>d``, in the driver's unit (``sum`` ov
 a quantity per day is in the unit of that quantity times days, e.g. mm d-1 -> mm over the window).
 
 How: each target's longest window is gathered exactly (a fancy-index gather of the
-``k_max`` days before the target, one array of shape (targets, k_max, drivers)) and reduced by
-accumulating *outward from the target day*, so every shorter window is a prefix of the
-longest one. This is O(targets x k_max) per driver, linear in the length of the record and
-exact: a dry spell sums to exactly 0 (a cumulative sum over the whole record would drift, see
-PITFALLS "Antecedent windows").
+``k_max`` days before the target, one array of shape (k_max, targets, drivers)) and reduced by
+accumulating *outward from the target day*, one day at a time for all targets and drivers, so
+every shorter window is a prefix of the longest one. This is O(targets x k_max) per driver,
+linear in the length of the record, and exact: a dry spell sums to exactly 0 (a cumulative sum
+over the whole record would drift, see PITFALLS "Antecedent windows"). Missing days are NaN;
+``min``/``max`` ignore them, ``sum`` adds the valid days and ``mean`` divides by their count.
 
 Windows end the day before the target date by default (``include_target_day=False``): the
 window of length k for target t covers the days t-k .. t-1; with ``include_target_day=True``

@@ -97,6 +97,7 @@ def build_zones(
             downstream_field=layer.downstream_field,
             lake_id=layer.lake_id,
             direct_inflows=layer.direct_inflows,
+            outside_ids=["", *layer.outside_ids],
         )
         if opts.catchment:
             c = gpd.GeoDataFrame(geometry=[catch.polygon], crs=subbasins.crs)

@@ -52,7 +52,8 @@ def _read(store: Store, table: str, lake: str) -> pd.DataFrame | None:
 
 
 def _img(b64: str, name: str, alt: str) -> str:
-    return f'<figure><img id="fig-{name}" class="figure" alt="{html.escape(alt)}" src="data:image/png;base64,{b64}"/></figure>'
+    src = f"data:image/png;base64,{b64}"
+    return f'<figure><img id="fig-{name}" class="figure" alt="{html.escape(alt)}" src="{src}"/></figure>'
 
 
 def _table(frame: pd.DataFrame, *, max_rows: int = 60) -> str:
@@ -80,8 +81,10 @@ def _map_section(project: Project, store: Store, notes: list[str]) -> str:
         cat = gpd.GeoDataFrame(geometry=[catchment.polygon], crs=catchment.crs or subs.crs)
         layers["catchment"] = cat.to_crs(4326)
         area = cat.to_crs(cat.estimate_utm_crs()).area.iloc[0] / 1e6
-        facts.append(f"catchment: {catchment.n_subbasins} sub-basins, {area:.1f} km2; direct inflows: "
-                     f"{', '.join(inflows) or 'none'}")
+        facts.append(
+            f"catchment: {catchment.n_subbasins} sub-basins, {area:.1f} km2; direct inflows: "
+            f"{', '.join(inflows) or 'none'}"
+        )
     except Exception as err:  # the map is still useful without the catchment
         notes.append(f"catchment not traced for the map: {err}")
     cells = None
@@ -135,18 +138,31 @@ def render_report(project: Project, store: Store) -> str:
     drivers = _read(store, "drivers_daily", lake.id)
     parts.append("<h2>Weather drivers</h2>")
     if drivers is not None:
-        parts.append(_img(to_png64(drivers_figure(drivers, drivers.attrs.get("units", {}))), "drivers",
-                          "daily weather drivers over the lake surface"))
+        parts.append(
+            _img(
+                to_png64(drivers_figure(drivers, drivers.attrs.get("units", {}))),
+                "drivers",
+                "daily weather drivers over the lake surface",
+            )
+        )
     else:
         parts.append('<p class="missing">no drivers_daily table (weather stage not run)</p>')
     obs = _read(store, "target_obs", lake.id)
     parts.append("<h2>Chlorophyll-a observations</h2>")
     if obs is not None and len(obs):
-        parts.append(_img(to_png64(target_figure(obs, obs.attrs.get("units", {}))), "target",
-                          "chlorophyll-a per AOI by sensor: accepted, rejected, outliers"))
-        counts = obs.assign(outlier=obs["outlier"].fillna(False).astype(bool)).groupby(
-            ["aoi", "sensor"]).agg(scenes=("scene_id", "size"), accepted=("accepted", "sum"),
-                                   outliers=("outlier", "sum")).reset_index()
+        parts.append(
+            _img(
+                to_png64(target_figure(obs, obs.attrs.get("units", {}))),
+                "target",
+                "chlorophyll-a per AOI by sensor: accepted, rejected, outliers",
+            )
+        )
+        counts = (
+            obs.assign(outlier=obs["outlier"].fillna(False).astype(bool))
+            .groupby(["aoi", "sensor"])
+            .agg(scenes=("scene_id", "size"), accepted=("accepted", "sum"), outliers=("outlier", "sum"))
+            .reset_index()
+        )
         parts.append(_table(counts))
         daily = _read(store, "target_daily", lake.id)
         dates = daily[["aoi", "date"]] if daily is not None else obs.loc[obs["accepted"].astype(bool), ["aoi", "date"]]
@@ -157,8 +173,19 @@ def render_report(project: Project, store: Store) -> str:
     parts.append("<h2>Diagnostics and warnings</h2>")
     diag = _read(store, "diagnostics", lake.id)
     if diag is not None:
-        keep = [c for c in ("aoi", "n_obs", "obs_per_year", "gap_median_days", "gap_max_days", "coverage_fraction",
-                            "warnings") if c in diag]
+        keep = [
+            c
+            for c in (
+                "aoi",
+                "n_obs",
+                "obs_per_year",
+                "gap_median_days",
+                "gap_max_days",
+                "coverage_fraction",
+                "warnings",
+            )
+            if c in diag
+        ]
         parts.append(_table(diag[keep]))
         warns = [w for w in diag.get("warnings", pd.Series(dtype=str)).dropna().astype(str) if w]
         parts += [f'<p class="warn">{html.escape(w)}</p>' for w in warns]
@@ -178,8 +205,10 @@ def render_report(project: Project, store: Store) -> str:
         parts.append(_table(evaluation.drop(columns=["lake"])))
     parts.append(f'<p class="caution">{html.escape(CAUTION)}</p>')
     body = "\n".join(parts)
-    return (f"<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"/><title>lakefeed report "
-            f"{html.escape(lake.id)}</title><style>{_CSS}</style>{_LOADED}</head><body>\n{body}\n</body></html>\n")
+    return (
+        f'<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8"/><title>lakefeed report '
+        f"{html.escape(lake.id)}</title><style>{_CSS}</style>{_LOADED}</head><body>\n{body}\n</body></html>\n"
+    )
 
 
 def write_report(project: Project, store: Store, out: str | Path) -> Path:

@@ -14,10 +14,10 @@ import geopandas as gpd
 import matplotlib
 
 matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
 
 __all__ = ["calendar_figure", "drivers_figure", "map_figure", "target_figure", "to_png64"]
 
@@ -123,8 +123,13 @@ def target_figure(obs: pd.DataFrame, units: Mapping[str, str]) -> Figure:
             for kind, mask in kinds.items():
                 sel = obs[here & mask & (obs["sensor"] == sensor)]
                 if len(sel):
-                    ax.scatter(pd.to_datetime(sel["time"]), sel["median"], color=colours[sensor],
-                               label=f"{sensor} {kind}", **style[kind])
+                    ax.scatter(
+                        pd.to_datetime(sel["time"]),
+                        sel["median"],
+                        color=colours[sensor],
+                        label=f"{sensor} {kind}",
+                        **style[kind],
+                    )
         ax.set_yscale("log")
         ax.set_ylabel(f"{aoi}\n({units.get('median', 'mg m-3')})", fontsize=8)
         ax.legend(fontsize=6, ncol=3, loc="upper left")

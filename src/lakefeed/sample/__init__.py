@@ -14,13 +14,13 @@ from pathlib import Path
 
 import pandas as pd
 
-from lakefeed.sample._chla import PARAMS, lake_truth, spatial_pattern
+from lakefeed.sample._chla import lake_truth, spatial_pattern
 from lakefeed.sample._config import render_config, write_config
 from lakefeed.sample._forecast import write_forecasts
-from lakefeed.sample._geo import NETWORK, build_geometry, write_geometry
-from lakefeed.sample._hydrology import RATING, SAMPLED_SUBBASIN, TP_DETECTION_LIMIT, simulate_hydrology, write_hydrology
-from lakefeed.sample._io import write_json
-from lakefeed.sample._scenes import OUTLIER_FACTOR, SENSORS, SHORE_FLAG_PROBABILITY, aoi_pattern_means, write_scenes
+from lakefeed.sample._geo import build_geometry, write_geometry
+from lakefeed.sample._hydrology import simulate_hydrology, write_hydrology
+from lakefeed.sample._scenes import aoi_pattern_means, write_scenes
+from lakefeed.sample._truth import write_truth
 from lakefeed.sample._weather import draw_weather, write_reanalysis
 from lakefeed.stages._result import Progress, no_progress
 
@@ -130,7 +130,7 @@ def generate(
     )
     lap("forecast")
 
-    _write_truth(
+    write_truth(
         out / "truth",
         seed=seed,
         start=start,
@@ -140,88 +140,10 @@ def generate(
         hyd=hyd,
         scenes=scenes,
         biases=biases,
+        every=every,
     )
     lap("truth")
     LAST_TIMINGS.clear()
     LAST_TIMINGS.update(timings)
     report("done", 1, 1)
     return out
-
-
-def _write_truth(folder: Path, *, seed, start, end, truth, factors, hyd, scenes, biases) -> None:
-    folder.mkdir(parents=True, exist_ok=True)
-    rows = []
-    for aoi, f in factors.items():
-        part = truth.reset_index().assign(
-            aoi=aoi, chla=truth["chla"].to_numpy() * f, lake_chla=truth["chla"].to_numpy()
-        )
-        rows.append(part)
-    chla = pd.concat(rows, ignore_index=True)
-    cols = [
-        "date",
-        "aoi",
-        "chla",
-        "lake_chla",
-        "water_temperature_proxy",
-        "shortwave",
-        "tp_load_30d",
-        "f_t",
-        "f_i",
-        "f_p",
-        "bloom",
-    ]
-    chla = chla[cols].sort_values(["date", "aoi"])
-    chla["date"] = chla["date"].dt.strftime("%Y-%m-%d")
-    chla.to_csv(folder / "chla_truth.csv", index=False, float_format="%.6g", lineterminator="\n")
-    loads = hyd.loads.assign(date=hyd.loads["date"].dt.strftime("%Y-%m-%d"))
-    loads.to_csv(folder / "loads_truth.csv", index=False, float_format="%.6g", lineterminator="\n")
-    scenes.to_csv(folder / "scenes_truth.csv", index=False, lineterminator="\n")
-    outliers = sorted(scenes.loc[scenes["outlier_factor"] != 1.0, "scene_id"])
-    doc = {
-        "scenario": "Tallow Reservoir (invented)",
-        "seed": int(seed),
-        "period": {"start": start.strftime("%Y-%m-%d"), "end": end.strftime("%Y-%m-%d")},
-        "sensor_bias": {
-            name: {
-                "model": "ratio",
-                "factor": s.bias_ratio,
-                "pixel_noise_sd": s.noise_sd,
-                "pixel_size_m": s.pixel_m,
-                "revisit_days": s.every_days,
-                "overpass_hour_utc": s.hour_utc,
-                "reference": s.bias_ratio == 1.0,
-            }
-            for name, s in SENSORS.items()
-        },
-        "dune_over_kite_ratio": SENSORS["dune"].bias_ratio / SENSORS["kite"].bias_ratio,
-        "outlier_factor": OUTLIER_FACTOR,
-        "outlier_scenes": outliers,
-        "shore_flag_probability": SHORE_FLAG_PROBABILITY,
-        "quality_bits": {"0": "cloud", "1": "cloud shadow", "2": "sun glint", "3": "adjacency/mixed shore pixel"},
-        "forecast_bias": {"lead_unit": "day (forecast_period / 24 h)", "variables": biases},
-        "chla_model": {
-            "parameters": PARAMS,
-            "aoi_factor": factors,
-            "formula": "chla_aoi = aoi_factor * (C_MAX f_T f_I f_P + BACKGROUND + bloom) * exp(AR1 noise); "
-            "f_T = THETA**(Tw-20), f_I = I/(I+I_K), f_P = P/(P+K_P)",
-            "units": {
-                "chla": "mg m-3",
-                "water_temperature_proxy": "degC",
-                "shortwave": "W m-2",
-                "tp_load_30d": "kg d-1",
-            },
-        },
-        "loads": {
-            "units": {"discharge": "m3 s-1", "tn_load": "kg d-1", "tp_load": "kg d-1"},
-            "rating": RATING,
-            "sampled_subbasin": SAMPLED_SUBBASIN,
-            "tp_detection_limit_mg_per_l": TP_DETECTION_LIMIT,
-            "direct_inflows": sorted(k for k, v in NETWORK.items() if v[0] == "LAKE"),
-        },
-        "weather": {"nodata_corner": {"latitude_index": [0, 3], "longitude_index": [12, 16]}},
-        "scene_count": {k: int(v) for k, v in scenes.groupby("sensor").size().items()},
-        "mean_cloud_fraction": {
-            k: round(float(v), 4) for k, v in scenes.groupby("sensor")["cloud_fraction"].mean().items()
-        },
-    }
-    write_json(doc, folder / "truth.json")

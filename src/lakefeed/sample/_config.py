@@ -125,7 +125,9 @@ def render_config(*, data: str, geo: str, store: str | None) -> tuple[str, str]:
     )
 
 
-def write_config(folder: Path, *, data: str = "..", geo: str = "../geometry", store: str | None = "../store") -> Path:
+def write_config(
+    folder: Path, *, data: str = "..", geo: str = "../geometry", store: str | None = "${LAKEFEED_STORE:-../store}"
+) -> Path:
     """Write both YAML files into ``folder``; return the lake file's path."""
     folder.mkdir(parents=True, exist_ok=True)
     lake, sources = render_config(data=data, geo=geo, store=store)

@@ -192,7 +192,7 @@ def write_hydrology(hyd: Hydrology, out: Path) -> list[Path]:
             "downstream_id": (("station",), np.array(list(hyd.outlets["downstream_id"]), dtype=object)),
         },
         coords={
-            "time": ("time", hyd.dates.to_numpy(), {"standard_name": "time", "axis": "T"}),
+            "time": ("time", hyd.dates.to_numpy(), {"standard_name": "time", "axis": "T", "long_name": "day (UTC)"}),
             "station_id": (
                 ("station",),
                 np.array(ids, dtype=object),
@@ -229,6 +229,10 @@ def write_hydrology(hyd: Hydrology, out: Path) -> list[Path]:
     samples.to_csv(path, index=False, float_format="%.5g", lineterminator="\n")
     paths.append(path)
     return paths
+
+
+def _station_attrs(name: str, units: str) -> dict[str, str]:
+    return {"standard_name": name, "units": units, "long_name": f"{name} of a point inside the sub-basin"}
 
 
 def _conc_attrs(what: str) -> dict[str, str]:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from datetime import UTC
 from pathlib import Path
 
 import numpy as np
@@ -21,6 +22,7 @@ import rasterio
 import shapely
 from pyproj import Transformer
 from rasterio.crs import CRS as RasterCRS
+from rasterio.io import MemoryFile
 from scipy.ndimage import distance_transform_edt
 
 from lakefeed.sample._geo import CRS
@@ -188,8 +190,10 @@ def _write_tif(path: Path, arr: np.ndarray, grid: _Grid, nodata: float) -> None:
         "zlevel": 1,
         "predictor": 3 if arr.dtype.kind == "f" else 2,
     }
-    with rasterio.open(path, "w", **profile) as dst:
-        dst.write(arr, 1)
+    with MemoryFile() as mem:  # build in memory, then one write: fewer small writes to the disk
+        with mem.open(**profile) as dst:
+            dst.write(arr, 1)
+        path.write_bytes(mem.read())
 
 
 def _item(spec: SensorSpec, scene_id: str, when: pd.Timestamp, grid: _Grid, cover: float) -> dict:
@@ -198,7 +202,7 @@ def _item(spec: SensorSpec, scene_id: str, when: pd.Timestamp, grid: _Grid, cove
         id=scene_id,
         geometry=shapely.geometry.mapping(fp),
         bbox=[round(v, 7) for v in fp.bounds],
-        datetime=when.to_pydatetime().replace(tzinfo=__import__("datetime").timezone.utc),
+        datetime=when.to_pydatetime().replace(tzinfo=UTC),
         properties={
             "constellation": spec.name,
             "platform": f"{spec.name}-1",

@@ -49,6 +49,7 @@ LATS = np.round(48.65 - 0.1 * np.arange(12), 2)
 LONS = np.round(9.0 + 0.1 * np.arange(16), 2)
 NODATA_CORNER = {"latitude": slice(0, 3), "longitude": slice(12, 16)}
 LAKE_ELEVATION_M = 540.0
+_TIME_NOTE = "time (UTC); accumulated fields: end of the accumulation period"
 
 
 def terrain_m(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
@@ -244,7 +245,11 @@ def write_reanalysis(
                 for k in ("air_temp", "dewpoint", "wind_u", "wind_v", "sw_down", "precip")
             },
             coords={
-                "time": ("time", stamps[sel].to_numpy(), {"standard_name": "time", "axis": "T"}),
+                "time": (
+                    "time",
+                    stamps[sel].to_numpy(),
+                    {"standard_name": "time", "axis": "T", "long_name": _TIME_NOTE},
+                ),
                 "latitude": LATS,
                 "longitude": LONS,
             },

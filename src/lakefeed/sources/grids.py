@@ -36,6 +36,10 @@ __all__ = ["Grid", "decode", "expand_paths", "find_variable", "open_grid", "sele
 _LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}
 _LON_UNITS = {"degrees_east", "degree_east", "degree_e", "degrees_e", "degreee", "degreese"}
 TARGET_CHUNK_BYTES = 96 * 2**20
+#: HDF5 chunk cache per open variable. Every chunk is read once per pass (whole time blocks), so a
+#: small cache suffices; the library default (tens of MiB per variable and file) grows with the
+#: number of files kept open and made memory grow with the record length.
+CHUNK_CACHE_BYTES = 2 * 2**20
 
 
 @dataclass(frozen=True)
@@ -149,7 +153,14 @@ def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
         if engine == "zarr":
             ds = xr.open_zarr(path, chunks=None, mask_and_scale=False)
         else:
-            ds = xr.open_dataset(path, engine=engine, chunks=None, cache=False, mask_and_scale=False)
+            import netCDF4
+
+            previous = netCDF4.get_chunk_cache()
+            netCDF4.set_chunk_cache(CHUNK_CACHE_BYTES)
+            try:
+                ds = xr.open_dataset(path, engine=engine, chunks=None, cache=False, mask_and_scale=False)
+            finally:
+                netCDF4.set_chunk_cache(*previous)
     except Exception as err:  # netCDF4/HDF5/zarr raise many types
         raise SourceError(
             f"weather grid {path}: cannot open ({type(err).__name__}: {err}); the file may be corrupt "

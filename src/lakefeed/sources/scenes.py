@@ -316,9 +316,9 @@ class SceneReader:
     ) -> SceneWindow:
         """Read the AOI window(s) of one scene.
 
-        One window covers all AOIs; when the AOIs lie far apart (their own windows cover less than
-        half of the common one) each AOI gets its own window instead. ``shore_buffer_m`` (metres):
-        inward shoreline buffer; None: one pixel of the scene.
+        One window covers all AOIs; when the AOIs lie far apart (the common window would decode more
+        than twice the file blocks of their own windows) each AOI gets its own window instead.
+        ``shore_buffer_m`` (metres): inward shoreline buffer; None: one pixel of the scene.
 
         Raises
         ------
@@ -390,14 +390,29 @@ class SceneReader:
 
 
 def _window_groups(src: Any, geoms: gpd.GeoSeries, keep: list[str]) -> list[list[str]]:
-    """One group of all AOIs, or one group per AOI when their common window is mostly empty."""
+    """One group of all AOIs, or one group per AOI when the common window would decode more than twice
+    the file blocks (tiles or strips) that the AOIs' own windows touch."""
     if len(keep) == 1:
         return [keep]
     union = rasterio.features.geometry_window(src, list(geoms.loc[keep].values), boundless=True)
-    own = [rasterio.features.geometry_window(src, [geoms[a]], boundless=True) for a in keep]
-    if 2 * sum(w.width * w.height for w in own) < union.width * union.height:
+    own: set[tuple[int, int]] = set()
+    for a in keep:
+        own |= _blocks(src, rasterio.features.geometry_window(src, [geoms[a]], boundless=True))
+    if len(_blocks(src, union)) > 2 * len(own):
         return [[a] for a in keep]
     return [keep]
+
+
+def _blocks(src: Any, window: Window) -> set[tuple[int, int]]:
+    """File blocks (row, col indices) a window touches, within the scene."""
+    bh, bw = src.block_shapes[0]
+    r0, r1 = max(window.row_off, 0), min(window.row_off + window.height, src.height)
+    c0, c1 = max(window.col_off, 0), min(window.col_off + window.width, src.width)
+    if r1 <= r0 or c1 <= c0:
+        return set()
+    rows = range(int(r0 // bh), int((r1 - 1) // bh) + 1)
+    cols = range(int(c0 // bw), int((c1 - 1) // bw) + 1)
+    return {(r, c) for r in rows for c in cols}
 
 
 def _open(href: str, scene_id: str, what: str) -> rasterio.io.DatasetReader:

@@ -138,6 +138,33 @@ def _digests(frames: dict[str | None, pd.DataFrame], targets: pd.DataFrame, thro
     )
 
 
+def _to_arrow(frame: pd.DataFrame) -> pa.Table:
+    """A wide feature frame as Arrow, converting the float block at once (pyarrow's per-column
+    pandas conversion dominates otherwise). NaN becomes null, as with ``pa.Table.from_pandas``."""
+    kinds = dict(zip(frame.columns, (dt.kind for dt in frame.dtypes), strict=True))
+    floats = [c for c in frame.columns if kinds[c] == "f"]
+    block = np.asfortranarray(frame[floats].to_numpy(dtype=np.float64)) if floats else None
+    at = {c: i for i, c in enumerate(floats)}
+    arrays = []
+    for c in frame.columns:
+        if c in at:
+            arrays.append(pa.array(block[:, at[c]], type=pa.float64(), from_pandas=True))
+        else:
+            arrays.append(pa.Array.from_pandas(frame[c]))
+    return pa.Table.from_arrays(arrays, names=list(frame.columns))
+
+
+def _input_hashes(store: Store, lake: str) -> dict[str, str]:
+    """Content hashes of the input partitions (from the manifest): provenance and the up-to-date check."""
+    tables = store.manifest().get("tables", {})
+    out = {}
+    for t in ("target_daily", "drivers_daily", "hydrology_daily"):
+        entry = tables.get(t, {}).get(lake)
+        if entry and store.has_table(t, lake):
+            out[f"{t}/lake={lake}"] = entry.get("content_hash", "")
+    return out
+
+
 def _folds(arrow: pa.Table, opts: FeatureOptions) -> np.ndarray:
     """Fold per row: per AOI over its target dates (the same target date shares a fold across leads)."""
     aoi = np.asarray(arrow["aoi"].to_numpy(zero_copy_only=False)).astype(str)
@@ -178,6 +205,22 @@ def build_features(
             load_drivers(store, lake.id, zone=opts.driver_zone, aois=[], wanted=list(opts.drivers))
         result.skipped, result.reason = True, "no target_daily table for this lake; run the target (scenes) stage first"
         return result
+    inputs = _input_hashes(store, lake.id)
+    options_hash = _config_hash(project, [])
+    prev = store.entry("features", lake.id)
+    if (
+        not full
+        and prev
+        and prev.get("inputs") == inputs
+        and prev.get("metadata", {}).get("options_hash") == options_hash
+        and store.has_table("features", lake.id)
+        and store.has_table("diagnostics", lake.id)
+    ):  # same inputs, same configuration: the stored tables are the result (nothing to recompute)
+        diag = store.read_table("diagnostics", lake.id)
+        result.warnings = [f"AOI {d['aoi']}: {d['warnings']}" for _, d in diag.iterrows() if d["warnings"]]
+        result.tables = {"features": prev["rows"], "diagnostics": len(diag)}
+        progress("features: up to date", 3, 3)
+        return result
     progress("features: reading", 0, 3)
     td = store.read_table("target_daily", lake.id)
     targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
@@ -204,7 +247,6 @@ def build_features(
     digest_now = _digests(frames, targets, through)
 
     since = None
-    prev = store.entry("features", lake.id)
     if not full and prev and prev.get("config_hash") == cfg and store.has_table("features", lake.id):
         md = prev.get("metadata", {})
         old = (md.get("drivers_through"), md.get("targets_through"))
@@ -225,7 +267,7 @@ def build_features(
     rows = pd.concat(blocks, ignore_index=True)
     rows.insert(rows.columns.get_loc("doy_cos") + 1, "fold", np.zeros(len(rows), dtype=np.int16))
     rows.insert(rows.columns.get_loc("fold") + 1, "fold_kind", opts.fold_kind)
-    arrow = pa.Table.from_pandas(rows, preserve_index=False)
+    arrow = _to_arrow(rows)
     if since is not None:
         old = store.read_arrow("features", lake.id)
         if old.column_names != arrow.column_names:  # e.g. a driver table gained a column: rebuild in full
@@ -258,12 +300,11 @@ def build_features(
         if opts.fold_kind == "blocked"
         else "RANDOM cross-validation fold (not time-blocked: ignores autocorrelation, overstates skill)"
     )
-    inputs = {f"{t}/lake={lake.id}": store.entry(t, lake.id)["content_hash"] for t in ("target_daily", "drivers_daily",
-              "hydrology_daily") if store.has_table(t, lake.id) and store.entry(t, lake.id)}  # fmt: skip
     meta = {
         "drivers_through": str(pd.Timestamp(through[0]).date()),
         "targets_through": str(pd.Timestamp(through[1]).date()),
         "inputs_digest_at_through": digest_now,
+        "options_hash": options_hash,
         "driver_zone": opts.driver_zone,
         "fold_kind": opts.fold_kind,
         "tables_read": "; ".join(["target_daily", *read]),

@@ -50,6 +50,8 @@ from lakefeed.units import convert
 __all__ = ["adjust_forecasts", "build_forecast", "daily_forecasts", "fit_options", "forecast_steps"]
 
 ADJUSTED = "quantile_mapping"
+#: Fewest (forecast, reanalysis) pairs of a zone/lead-group/month group; smaller groups use the pooled months.
+MIN_GROUP_VALUES = 20
 _AMOUNTS = ("precipitation", "shortwave_radiation")
 
 
@@ -62,6 +64,7 @@ def fit_options(src: ForecastSource) -> dict[str, object]:
         "month_window": src.month_window,
         "wet_day_threshold": src.wet_day_threshold_mm,
         "max_factor": src.max_factor,
+        "min_values": MIN_GROUP_VALUES,
     }
 
 
@@ -308,8 +311,22 @@ def build_forecast(project: Project, store: Store, *, progress: Progress | None 
         both[c] = pd.to_datetime(both[c]).dt.date
     units = dict(DAILY_UNITS) | {"lead_days": "d"}
     meta = {"settings": str(table["settings"].iat[0]), "overlap_days": str(info["overlap_days"]),
-            "bias_table_reused": str(info["reused"])}  # fmt: skip
-    store.write_table("forecast_drivers_daily", lake.id, both, units=units, metadata=meta, time_column="date")
+            "bias_table_reused": str(info["reused"]),
+            "method": "empirical quantile mapping (type-7 quantiles at nodes (i + 0.5)/n, linear interpolation, "
+                      "constant extrapolation of the correction); refit at each month start on pairs with valid date "
+                      "before it (fitted_through); groups: zone x lead group x calendar month of the valid date "
+                      "+- month_window, pooled over months when a group has < 20 pairs",
+            "fit_options": json.dumps(fit_options(src) | {"kinds": DEFAULT_KINDS}, default=str),
+            "min_overlap_days": str(src.min_overlap_days)}  # fmt: skip
+    descr = {
+        "issue_date": "the forecast's issue date: lead 1 (the first full local day after the issue time) minus 1 day",
+        "lead_days": "date - issue_date (lead 1 = first full local day after the issue time)",
+        "adjustment": "raw (aggregated forecast) or quantile_mapping (bias-adjusted without look-ahead)",
+        "issue_time": "forecast reference time (UTC)",
+        "fitted_through": "last reanalysis date used by the adjustment's fit (always before issue_date)",
+    }
+    store.write_table("forecast_drivers_daily", lake.id, both, units=units, metadata=meta, time_column="date",
+                      descriptions=descr)  # fmt: skip
     tunits = {"quantile": "1", "lead_min": "d", "lead_max": "d", "factor": "1 (multiplicative) or unit (additive)"}
     through = pd.Timestamp(table["fitted_through"].iat[0]).date()
     stored_table = table.assign(fitted_through=through, unit=table["variable"].map(DAILY_UNITS))

@@ -241,8 +241,11 @@ class Store:
             tmp = f"{table_path(self.path, table)}/.tmp-{lake}-{uuid.uuid4().hex}.parquet"
             try:
                 self.fs.makedirs(part_dir, exist_ok=True)
-                with self.fs.open(tmp, "wb") as f:
-                    pq.write_table(arrow, f, **_write_options(arrow.schema))
+                if self.local:
+                    pq.write_table(arrow, tmp, **_write_options(arrow.schema))
+                else:
+                    with self.fs.open(tmp, "wb") as f:
+                        pq.write_table(arrow, f, **_write_options(arrow.schema))
                 digest = self._digest(tmp)
                 if self.local:
                     os.replace(tmp, final)
@@ -315,6 +318,8 @@ class Store:
         path = self.part_file(table, lake)
         if not self.fs.exists(path):
             raise StoreError(f"table {table!r} has no partition for lake {lake!r} in {self.url}; run the stage first")
+        if self.local:
+            return pq.read_table(path, columns=list(columns) if columns else None)
         with self.fs.open(path, "rb") as f:
             return pq.read_table(f, columns=list(columns) if columns else None)
 

@@ -1,0 +1,72 @@
+"""`lakefeed init` on a lake and sub-basin layer kept apart from the project; field detection."""
+
+from __future__ import annotations
+
+import shutil
+
+import geopandas as gpd
+import pytest
+from shapely.geometry import box
+from typer.testing import CliRunner
+
+from lakefeed.cli import app
+from lakefeed.cli.onboard import detect_fields
+from lakefeed.config import load_project
+from lakefeed.exceptions import GeometryError
+
+
+def _layer(**columns: list[object]) -> gpd.GeoDataFrame:
+    n = len(next(iter(columns.values())))
+    return gpd.GeoDataFrame(columns, geometry=[box(i, 0, i + 1, 1) for i in range(n)], crs="EPSG:32632")
+
+
+def test_detect_fields_unambiguous() -> None:
+    subs = _layer(code=["A", "B", "C"], name=["x", "y", "z"], to=["B", "LAKE", "B"], area=[1.0, 2.0, 3.0])
+    assert detect_fields(subs) == ("code", "to")
+
+
+def test_detect_fields_ambiguous_asks_for_names() -> None:
+    subs = _layer(a=["1", "2", "3"], b=["2", "3", "1"])  # each could be the other's downstream
+    with pytest.raises(GeometryError, match="--id-field NAME --downstream-field NAME"):
+        detect_fields(subs)
+
+
+def test_init_writes_a_ready_config(small_sample, tmp_path) -> None:
+    work = tmp_path / "elsewhere"
+    work.mkdir()
+    shutil.copy(small_sample / "geometry" / "lake.gpkg", work / "pond.gpkg")
+    shutil.copy(small_sample / "geometry" / "subbasins.gpkg", work / "basins.gpkg")
+    out = tmp_path / "cfg"
+    result = CliRunner().invoke(
+        app,
+        [
+            "init",
+            "pond",
+            "--lake",
+            str(work / "pond.gpkg"),
+            "--subbasins",
+            str(work / "basins.gpkg"),
+            "--sources",
+            str(small_sample / "config" / "sources.yaml"),
+            "--out",
+            str(out),
+        ],
+    )
+    assert result.exit_code == 0, result.output
+    text = " ".join(result.output.split())
+    assert "subbasin_id" in text and "downstream_id" in text
+    for sb in ("SB01", "SB02", "SB03"):  # the sample's direct inflows (sample scenario README)
+        assert sb in text
+    assert "Europe/Berlin" in text  # from the lake centroid
+    assert "whole lake is proposed" in text
+    project = load_project(out / "lake-pond.yaml")
+    assert project.lake.timezone == "Europe/Berlin"
+    assert project.lake.subbasins.lake_id == "LAKE"
+    aois = gpd.read_file(project.lake.aois.path)
+    assert list(aois["aoi_id"]) == ["whole_lake"]
+
+
+def test_init_rejects_a_bad_id(tmp_path) -> None:
+    result = CliRunner().invoke(app, ["init", "../up", "--lake", "x.gpkg", "--subbasins", "y.gpkg"])
+    assert result.exit_code != 0
+    assert "plain slug" in str(result.exception) + result.output
