@@ -103,7 +103,7 @@ def _season_copies(
 
 def _season_of(dates: pd.Series, season: Season, anchors: np.ndarray) -> np.ndarray:
     """Season label of each date: 0 (none), the calendar month, or the nearest day-of-year anchor (cyclic)."""
-    if season == "none":
+    if season == "none" or (season == "doy" and anchors.size == 0):
         return np.zeros(len(dates), dtype=int)
     if season == "month":
         return pd.DatetimeIndex(dates).month.to_numpy()
