@@ -20,6 +20,10 @@ before it, so ``lead_days = date - issue_date`` (the point-in-time rule of
 on UTC it is lead 1. Only days wholly inside the forecast horizon are kept (a 240 h forecast issued
 at 00 UTC gives leads 1-9 at UTC+1/+2, 1-10 at UTC).
 
+Limitation: temperatures, dewpoint and wind are taken as instantaneous at their stamp (as for the
+reanalysis), which suits hourly and 6-hourly archives; in a daily-step archive a daily *mean* temperature
+stamped at the end of its day would land on the next day.
+
 Must not: open files, compute dask arrays in step 1.
 """
 
