@@ -5,8 +5,9 @@ Takes a loaded :class:`~lakefeed.config.Project` and the store root; returns fin
 ``<store>/_state/source_state/lake=<id>.json``. Months come from ``YYYY-MM`` / ``YYYYMM`` in file names
 (files without one count as ``all``). Must not run any stage.
 
-The record is written only after every stage of the lake succeeded, so an interrupted or failed run
-leaves the previous record and the next run redoes the same work.
+The record is written at the end of a run (atomically): stages that failed or did not get to run are
+left out of it, so the next run redoes them; a run killed midway leaves the previous record, so the
+next run redoes all of that run's work (store writes are atomic: no half-written table is ever seen).
 """
 
 from __future__ import annotations

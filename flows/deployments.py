@@ -72,8 +72,14 @@ def register(config_dir: str | Path, **kwargs: Any) -> str:
     return str(deployment.apply())
 
 
-def serve(config_dir: str | Path, **kwargs: Any) -> None:
-    """Register and serve the deployment (blocks; runs the refresh on schedule). Ctrl-C stops serving."""
+def serve(config_dir: str | Path, *, pause_on_shutdown: bool = False, **kwargs: Any) -> None:
+    """Register and serve the deployment (blocks; runs the refresh on schedule). Ctrl-C stops serving.
+
+    Prefect pauses a served schedule when serving stops unless told otherwise; here the schedule stays
+    active by default (a reboot must not silently stop the monthly refresh): runs due while nothing serves
+    wait as late runs and start when serving resumes. ``pause_on_shutdown=True`` gives Prefect's behaviour.
+    One run at a time: a second run on the same store waits or refuses (store lock).
+    """
     from prefect import serve as prefect_serve
 
-    prefect_serve(refresh_deployment(config_dir, **kwargs))
+    prefect_serve(refresh_deployment(config_dir, **kwargs), pause_on_shutdown=pause_on_shutdown, limit=1)

@@ -69,7 +69,7 @@ def process_lakes(
     store = Store(store_root)
     clock = {lake: time.perf_counter() for lake in lakes}
     rec: dict[str, dict[str, Any]] = {
-        lake: {"lake": lake, "status": "ok", "stages_run": [], "tables": {}, "skipped": [], "error": "", "changed": "", "warnings": []}
+        lake: {"lake": lake, "status": "ok", "stages_run": [], "tables": {}, "skipped": [], "warnings": [], "error": ""}
         for lake in lakes
     }
     plans: dict[str, dict[str, Any]] = {}
@@ -106,10 +106,11 @@ def process_lakes(
                 rec[lake]["skipped"].append(f"{stage}: {result['reason']}")
             rec[lake]["warnings"] += [f"{stage}: {w}" for w in result["warnings"]]
             plans[lake]["recorded"][stage] = sorted(result["tables"])
-    for lake in alive:  # every stage of the lake succeeded: remember what its store now reflects
-        write_json_atomic(
-            state_path(store_root, lake), {"sources": plans[lake]["sources"], "stages": plans[lake]["recorded"]}
-        )
+    for lake, plan in plans.items():  # remember what the store now reflects; unfinished stages run next time
+        recorded = {
+            s: t for s, t in plan["recorded"].items() if s in rec[lake]["stages_run"] or s not in plan["stages"]
+        }
+        write_json_atomic(state_path(store_root, lake), {"sources": plan["sources"], "stages": recorded})
     summaries = []
     for lake, r in rec.items():
         after = _row_counts(store, lake) if lake in before else {}
@@ -121,7 +122,7 @@ def process_lakes(
                 "stages_run": ",".join(r["stages_run"]),
                 "new_rows": int(new),
                 "rows_written": int(sum(r["tables"].values())),
-                "changed": r["changed"],
+                "changed": r.get("changed", ""),
                 "skipped": "; ".join(r["skipped"]),
                 "error": r["error"],
                 "warnings": "; ".join(r["warnings"]),

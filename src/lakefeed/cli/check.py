@@ -9,12 +9,15 @@ Writes nothing.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import typer
 from rich.markup import escape
 
-from lakefeed.checks import CheckResult, LakeReport, check_paths
 from lakefeed.cli._app import app, console
+
+if TYPE_CHECKING:  # lakefeed.checks pulls in geopandas, rasterio, xarray: imported inside the command
+    from lakefeed.checks import CheckResult, LakeReport
 
 __all__ = ["check", "format_report"]
 
@@ -47,6 +50,8 @@ def check(
     strict: bool = typer.Option(False, "--strict", help="Warnings (e.g. repaired polygons) fail too."),
 ) -> None:
     """Validate the configuration and open every source cheaply (metadata only); exit 1 on any problem."""
+    from lakefeed.checks import check_paths
+
     reports = check_paths(configs)
     width = max((len(r.name) for rep in reports for r in rep.results), default=10)
     for i, rep in enumerate(reports):

@@ -14,18 +14,33 @@ from __future__ import annotations
 import math
 import warnings
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pandas as pd
 import typer
 from rich.markup import escape
-from rich.table import Table
 
 from lakefeed.cli._app import app, console, err_console
 from lakefeed.exceptions import ExtractError, LakefeedWarning, SourceError
-from lakefeed.extract.load_estimation import METHODS, LoadEstimate, align, compare_methods
-from lakefeed.sources.samples import read_flow, read_samples
 
-__all__ = ["loads", "to_output_frame"]
+if TYPE_CHECKING:  # heavy imports (pandas, scipy) happen inside the command, so `--help` stays fast
+    import pandas as pd
+
+    from lakefeed.extract.load_estimation import LoadEstimate
+
+__all__ = ["METHOD_NAMES", "loads", "to_output_frame"]
+
+#: Names of :data:`lakefeed.extract.load_estimation.METHODS`, spelled out here so that building the
+#: command (and ``--help``) does not import the estimators; a test keeps the two equal.
+METHOD_NAMES: tuple[str, ...] = (
+    "interpolation",
+    "rating_curve",
+    "rating_curve_ferguson",
+    "beale",
+    "beale_season",
+    "beale_flow",
+    "fwmc",
+    "composite",
+)
 
 
 def _fmt(x: float, digits: int = 4) -> str:
@@ -49,7 +64,7 @@ def to_output_frame(est: LoadEstimate) -> pd.DataFrame:
 def loads(
     samples: Path = typer.Option(..., "--samples", help="CSV: date, concentration (mg L-1), optional censored."),
     flow: Path = typer.Option(..., "--flow", help="CSV: date, discharge (m3 s-1), daily."),
-    method: str = typer.Option("rating_curve", "--method", help=f"Method written by --out: {', '.join(METHODS)}."),
+    method: str = typer.Option("rating_curve", "--method", help=f"Method written by --out: {', '.join(METHOD_NAMES)}."),
     out: Path | None = typer.Option(None, "--out", help="Write the chosen method's loads (.csv or .parquet)."),
     nutrient: str | None = typer.Option(None, "--nutrient", help="Which nutrient, when the samples hold several."),
     period: str = typer.Option(
@@ -64,10 +79,15 @@ def loads(
     Censored samples (below detection; the value is the detection limit) count as half the limit.
     Duplicate sample dates are averaged (with a warning); samples outside the flow record are an error.
     """
+    from rich.table import Table
+
+    from lakefeed.extract.load_estimation import LoadEstimate, align, compare_methods
+    from lakefeed.sources.samples import read_flow, read_samples
+
     if period not in ("year", "record"):
         raise ExtractError(f"--period {period!r} is unknown; choose 'record' or 'year'")
-    if method not in METHODS:
-        raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHODS)}")
+    if method not in METHOD_NAMES:
+        raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHOD_NAMES)}")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", LakefeedWarning)
         table = read_samples(samples, units=units)

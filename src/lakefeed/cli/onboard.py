@@ -206,14 +206,18 @@ def _print_summary(summaries: list[dict]) -> bool:
         table.add_column(c)
     for s in summaries:
         colour = {"failed": "red", "ok": "green"}.get(s["status"], "yellow")
+        why = s.get("error") or s.get("skipped") or ""
         table.add_row(
             s["lake"],
             f"[{colour}]{s['status']}[/]",
             str(s.get("new_rows", 0)),
             escape(s.get("stages_run", "")),
-            escape(s.get("error") or s.get("skipped") or ""),
+            escape(why if len(why) <= 60 else why[:57] + "..."),
         )
     console.print(table)
+    for s in summaries:
+        if s.get("error"):
+            console.print(f"[red]{escape(s['lake'])}[/]: {escape(s['error'])}")
     return all(s["status"] != "failed" for s in summaries)
 
 

@@ -40,7 +40,11 @@ def write_parquet(frame: pd.DataFrame, path: Path, units: dict[str, str]) -> Non
 
 @app.command("scenes")
 def scenes(
-    catalog: Path = typer.Argument(..., help="Folder of STAC Item JSON files, or a STAC catalog/collection file."),
+    catalog: Path = typer.Argument(
+        ...,
+        help="Folder of STAC Item JSON files, a STAC catalog/collection file, or (with --filename-pattern) a "
+        "folder of GeoTIFFs.",
+    ),
     aois: Path = typer.Option(..., "--aois", help="Areas of interest (any vector format geopandas reads)."),
     id_field: str = typer.Option(..., "--id-field", help="Field of the AOI layer holding the AOI ids."),
     out: Path = typer.Option(..., "--out", help="Output Parquet file (target_obs columns)."),
@@ -58,24 +62,43 @@ def scenes(
     ),
     lake_id: str | None = typer.Option(None, "--lake-id", help="Value of the 'lake' column [default: AOI file name]."),
     timezone: str = typer.Option("UTC", "--timezone", help="IANA time zone of the 'date' column (local date)."),
+    filename_pattern: str | None = typer.Option(
+        None,
+        "--filename-pattern",
+        help="CATALOG is a folder of GeoTIFFs named by this regular expression with groups 'date' and 'sensor' "
+        "(optional 'time', 'asset'), e.g. '(?P<sensor>[a-z]+)_(?P<date>\\d{8})_(?P<asset>[a-z]+)\\.tif'.",
+    ),
+    bad_quality_bits: str | None = typer.Option(
+        None,
+        "--bad-quality-bits",
+        help="Comma-separated quality bits (0 = least significant) that make a pixel bad, e.g. '0,1,2,3' "
+        "[default: any non-zero flag is bad].",
+    ),
 ) -> None:
     """Windowed AOI statistics of chlorophyll-a scenes, acceptance and outlier flags, to one Parquet file.
 
-    Quality flags: any non-zero flag counts as bad (0 = clear). Pixels count for an AOI when their centre
-    lies inside it.
+    Quality flags: with --bad-quality-bits only those bits are bad, else any non-zero flag counts as bad
+    (0 = clear). Pixels count for an AOI when their centre lies inside it.
     """
     if out.suffix.lower() != ".parquet":
         raise ConfigError(f"--out {out}: give a file name ending in .parquet")
     try:
         options = TargetOptions(min_valid_fraction=min_valid_fraction)
+        bits = [int(b) for b in bad_quality_bits.split(",") if b.strip()] if bad_quality_bits else []
+        if any(not 0 <= b < 64 for b in bits):
+            raise ValueError(f"quality bits must lie in 0..63; got {bits}")
     except ValueError as err:
         raise ConfigError(f"invalid option: {err}") from err
+    if filename_pattern is not None:
+        try:
+            re.compile(filename_pattern)
+        except re.error as err:
+            raise ConfigError(f"--filename-pattern {filename_pattern!r} is not a regular expression: {err}") from err
     layer = read_layer(aois, what="areas of interest", id_field=id_field)
     lake_layer = read_layer(lake, what="lake polygon") if lake is not None else None
     reader = SceneReader(layer, id_field=id_field, lake=lake_layer)
-    source = SceneSource(
-        catalog=str(catalog), asset=asset, quality_asset=quality_asset, uncertainty_asset=uncertainty_asset
-    )
+    where = {"folder": str(catalog), "filename_pattern": filename_pattern} if filename_pattern else {"catalog": str(catalog)}
+    source = SceneSource(**where, asset=asset, quality_asset=quality_asset, uncertainty_asset=uncertainty_asset)
     table = list_scenes(source)
     label = lake_id or re.sub(r"[^a-z0-9_-]+", "-", aois.stem.lower()).strip("-") or "lake"
     with Progress(
@@ -98,6 +121,7 @@ def scenes(
             timezone=timezone,
             options=options,
             shore_buffer_m=shore_buffer,
+            bad_quality_bits=bits or None,
             progress=progress,
         )
     write_parquet(obs, out, OBS_UNITS)

@@ -14,8 +14,11 @@ Outliers: a leave-one-out Hampel filter (rolling median / MAD) on ln(median) ove
 window: a value is an outlier when ``|x - m| > threshold * max(1.4826 * MAD, min_scale)``, ``m`` and
 ``MAD`` being the median and the median absolute deviation of the OTHER accepted values of the same AOI
 and sensor within ``window_days`` (at least ``min_points`` of them, else never flagged); ``min_scale``
-is 0.2 in ln units by default (lakefeed's choice: real day-to-day changes of 20 % are common). Sensors are screened
-separately because their biases differ before harmonisation.
+is 0.2 in ln units by default (lakefeed's choice: real day-to-day changes of 20 % are common). By default
+``m`` is the value at the point's time of a local Theil-Sen line through those other values (when they
+lie on both sides), and the MAD that of their residuals from the line: a spike on a steep bloom rise or
+decline is then not hidden by the trend. Sensors are screened separately because their biases differ
+before harmonisation.
 """
 
 from __future__ import annotations
@@ -73,11 +76,14 @@ def hampel(
     threshold: float,
     min_points: int = 3,
     min_scale: float = 0.0,
+    trend: bool = False,
 ) -> np.ndarray:
     """Outlier flags of one irregular series by a leave-one-out Hampel filter (vectorised).
 
     For each value, ``m`` and ``MAD`` are the median and the median absolute deviation of the OTHER
-    finite values within the centred window; the value is an outlier when
+    finite, not yet flagged values within the centred window; the most extreme value above the threshold
+    is flagged first, then the others are re-scored without it, until none is left; a value is an
+    outlier when
     ``|x - m| > threshold * max(1.4826 * MAD, min_scale)``. Leaving the value out keeps a spike from
     widening its own yardstick, which matters on sparse satellite series.
 
@@ -96,6 +102,12 @@ def hampel(
     min_scale
         Floor of the robust standard deviation (units of ``values``): small windows can give a tiny MAD
         by chance, which would flag ordinary variability.
+    trend
+        Measure deviations from a local robust straight line instead of the local median: the Theil-Sen
+        line (median of pairwise slopes, median intercept; Sen 1968, J. Am. Stat. Assoc. 63) through the
+        other values of the window, used only when they lie on both sides of the value (no
+        extrapolation). On a steep rise or decline the plain median and MAD mix the trend into the
+        yardstick and miss a spike; the line's residuals do not.
     """
     t = np.asarray(days, dtype=np.float64)
     x = np.asarray(values, dtype=np.float64)
@@ -107,15 +119,57 @@ def hampel(
     width = int((hi - lo).max())
     idx = lo[:, None] + np.arange(width)[None, :]
     others = (idx < hi[:, None]) & (idx != np.arange(t.size)[:, None])
-    win = np.where(others, x[np.minimum(idx, t.size - 1)], np.nan)
+    pos = np.where(others, np.minimum(idx, t.size - 1), 0)
+    flags = np.zeros(t.size, dtype=bool)
+    # Sequential: flag the most extreme value, drop it from the others' windows, repeat. A spike then
+    # cannot make its neighbours look like outliers (swamping) nor hide a second spike (masking).
+    for _ in range(t.size):
+        work = np.where(flags, np.nan, x)
+        score = _scores(t, work, np.where(others, work[pos], np.nan), pos, min_points, min_scale, trend)
+        score[flags] = 0.0
+        worst = int(np.argmax(score))
+        if not score[worst] > threshold:
+            break
+        flags[worst] = True
+    return flags
+
+
+def _scores(
+    t: np.ndarray, x: np.ndarray, win: np.ndarray, pos: np.ndarray, min_points: int, min_scale: float, trend: bool
+) -> np.ndarray:
+    """|x - m| / scale per point (0 where no decision is possible); see :func:`hampel`."""
     count = np.isfinite(win).sum(axis=1)
     with np.errstate(all="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # windows without other values
         med = np.nanmedian(win, axis=1)
-        mad = np.nanmedian(np.abs(win - med[:, None]), axis=1)
+        resid = win - med[:, None]
+        if trend:
+            level, resid_t = _theil_sen(t, win, pos)
+            use = np.isfinite(level)
+            med = np.where(use, level, med)
+            resid = np.where(use[:, None], resid_t, resid)
+        mad = np.nanmedian(np.abs(resid), axis=1)
         scale = np.maximum(MAD_TO_SIGMA * mad, min_scale)
-        dev = np.abs(x - med)
-        return (count >= min_points) & (scale > 0) & (dev > threshold * scale)
+        score = np.abs(x - med) / scale
+    ok = (count >= min_points) & (scale > 0) & np.isfinite(score)
+    return np.where(ok, score, 0.0)
+
+
+def _theil_sen(t: np.ndarray, win: np.ndarray, pos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per row of ``win`` (values of the other points, NaN = none; ``pos`` their indices into ``t``): the
+    Theil-Sen line's value at the row's own time, and the residuals of the other points from it. NaN where
+    the other points do not lie on both sides in time or have fewer than two distinct times."""
+    n = win.shape[0]
+    dt = np.where(np.isfinite(win), t[pos] - t[:, None], np.nan)  # time relative to the row's point
+    both = (np.nanmin(dt, axis=1) < 0) & (np.nanmax(dt, axis=1) > 0)
+    ddt = dt[:, :, None] - dt[:, None, :]
+    dx = win[:, :, None] - win[:, None, :]
+    upper = np.triu(np.ones((win.shape[1], win.shape[1]), dtype=bool), k=1)
+    slopes = np.where(upper & (ddt != 0), dx / np.where(ddt != 0, ddt, 1.0), np.nan).reshape(n, -1)
+    slope = np.nanmedian(slopes, axis=1)
+    level = np.nanmedian(win - slope[:, None] * dt, axis=1)  # intercept at the row's own time
+    level = np.where(both & np.isfinite(slope), level, np.nan)
+    return level, win - (level[:, None] + slope[:, None] * dt)
 
 
 def flag_outliers(
@@ -125,6 +179,7 @@ def flag_outliers(
     threshold: float = 3.5,
     min_points: int = 3,
     min_scale: float = 0.2,
+    trend: bool = True,
     value: str = "median",
     by: tuple[str, ...] = ("aoi", "sensor"),
 ) -> pd.Series:
@@ -132,7 +187,8 @@ def flag_outliers(
 
     The filter works on ln(``value``) (chlorophyll-a is roughly log-normal; common practice) over
     ``time``; rows not accepted are never flagged. ``min_scale`` (default 0.2 in ln units, about 20 %,
-    lakefeed's choice) floors the robust standard deviation. See :func:`hampel`.
+    lakefeed's choice) floors the robust standard deviation. ``trend`` (default True) measures deviations
+    from a local Theil-Sen line, so a spike on a steep rise or decline is still caught. See :func:`hampel`.
     """
     flags = pd.Series(False, index=obs.index)
     ok = obs["accepted"].astype(bool) & (obs[value] > 0)
@@ -150,6 +206,7 @@ def flag_outliers(
             threshold=threshold,
             min_points=min_points,
             min_scale=min_scale,
+            trend=trend,
         )
         flags.loc[g.index] = f
     return flags

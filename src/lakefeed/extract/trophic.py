@@ -94,6 +94,10 @@ def exceedance_flags(chla: pd.Series, thresholds: Mapping[str, float] | Iterable
     ``thresholds``: mapping name -> value, or objects with ``name`` and ``value`` (config Threshold).
     Missing values never exceed.
     """
-    items = thresholds.items() if isinstance(thresholds, Mapping) else ((t.name, t.value) for t in thresholds)  # type: ignore[attr-defined]
+    items = list(thresholds.items() if isinstance(thresholds, Mapping) else ((t.name, t.value) for t in thresholds))  # type: ignore[attr-defined]
+    names = [name for name, _ in items]
+    if len(set(names)) < len(names):
+        twice = sorted({n for n in names if names.count(n) > 1})
+        raise ValueError(f"threshold names {twice} occur more than once; give each threshold its own name")
     c = pd.to_numeric(chla, errors="coerce").astype(float)
     return pd.DataFrame({f"exceeds_{name}": (c >= float(value)).fillna(False) for name, value in items}, index=c.index)

@@ -129,10 +129,21 @@ def to_daily(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.Dat
 
 def as_dates(values: object) -> pd.DatetimeIndex:
     """Calendar dates (midnight, no time zone) from dates, timestamps or ISO strings."""
+    if isinstance(values, (pd.Index, pd.Series)) and isinstance(values.dtype, pd.DatetimeTZDtype):
+        values = pd.DatetimeIndex(values).tz_localize(None)
     arr = values.to_numpy() if isinstance(values, (pd.Index, pd.Series)) else np.asarray(values)
     if arr.dtype.kind == "M":
         return pd.DatetimeIndex(arr.astype("datetime64[D]").astype("datetime64[ns]"))
-    return pd.DatetimeIndex(pd.to_datetime(arr)).normalize()
+    try:
+        idx = pd.DatetimeIndex(pd.to_datetime(arr, format="ISO8601"))
+    except (ValueError, TypeError):
+        try:
+            idx = pd.DatetimeIndex(pd.to_datetime(arr, format="mixed"))
+        except (ValueError, TypeError) as err:
+            raise FeatureError(f"cannot read dates {list(arr[:3])}...: {err}; use ISO dates (YYYY-MM-DD)") from err
+    if idx.tz is not None:  # a zone-aware stamp: its local calendar date
+        idx = idx.tz_localize(None)
+    return idx.normalize()
 
 
 def gather_windows(values: np.ndarray, end: np.ndarray, k_max: int) -> np.ndarray:

@@ -187,8 +187,6 @@ def render_report(project: Project, store: Store) -> str:
             if c in diag
         ]
         parts.append(_table(diag[keep]))
-        warns = [w for w in diag.get("warnings", pd.Series(dtype=str)).dropna().astype(str) if w]
-        parts += [f'<p class="warn">{html.escape(w)}</p>' for w in warns]
     else:
         parts.append('<p class="missing">no diagnostics table (features stage not run)</p>')
     runs = _read(store, "run_summary", lake.id)

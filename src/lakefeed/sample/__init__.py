@@ -94,7 +94,8 @@ def generate(
     report("geometry", 0, 1)
     geo = build_geometry()
     write_geometry(geo, out / "geometry")
-    write_config(out / "config")
+    # the reduced scenario has one year of forecasts: fit quantile mapping on 90 days at least
+    write_config(out / "config", min_overlap_days=90 if small else None)
     report("geometry", 1, 1)
     lap("geometry")
 

@@ -112,25 +112,35 @@ forecast:
     - {data}/forecast/forecast_*.nc
   accumulation:
     precip: {{kind: per_step}}
-    sw_down: {{kind: per_step}}
+    sw_down: {{kind: per_step}}{overlap}
 {store}"""
 
 
-def render_config(*, data: str, geo: str, store: str | None) -> tuple[str, str]:
-    """Texts of ``lake-tallow.yaml`` and ``sources.yaml`` with the given path prefixes."""
+def render_config(*, data: str, geo: str, store: str | None, min_overlap_days: int | None = None) -> tuple[str, str]:
+    """Texts of ``lake-tallow.yaml`` and ``sources.yaml`` with the given path prefixes.
+
+    ``min_overlap_days`` sets the forecast section's minimum overlap (the reduced one-year
+    scenario needs less than the default 365 days).
+    """
     store_line = f"\nstore: {store}\n" if store else ""
+    overlap = f"\n  min_overlap_days: {min_overlap_days}" if min_overlap_days else ""
     return (
         _LAKE.format(geo=geo),
-        _SOURCES.format(data=data, sampled=SAMPLED_SUBBASIN, store=store_line),
+        _SOURCES.format(data=data, sampled=SAMPLED_SUBBASIN, store=store_line, overlap=overlap),
     )
 
 
 def write_config(
-    folder: Path, *, data: str = "..", geo: str = "../geometry", store: str | None = "${LAKEFEED_STORE:-../store}"
+    folder: Path,
+    *,
+    data: str = "..",
+    geo: str = "../geometry",
+    store: str | None = "${LAKEFEED_STORE:-../store}",
+    min_overlap_days: int | None = None,
 ) -> Path:
     """Write both YAML files into ``folder``; return the lake file's path."""
     folder.mkdir(parents=True, exist_ok=True)
-    lake, sources = render_config(data=data, geo=geo, store=store)
+    lake, sources = render_config(data=data, geo=geo, store=store, min_overlap_days=min_overlap_days)
     (folder / "sources.yaml").write_text(sources, encoding="utf-8")
     path = folder / "lake-tallow.yaml"
     path.write_text(lake, encoding="utf-8")

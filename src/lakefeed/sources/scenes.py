@@ -8,6 +8,11 @@ AOI. Must not compute statistics or decide acceptance (that is :mod:`lakefeed.ex
 Pixel rule: a pixel belongs to an AOI when its centre lies inside the (shore-buffered) AOI
 polygon (``rasterio.features.geometry_mask`` with ``all_touched=False``).
 
+Value encoding: a scale/offset (``raster:bands`` of the STAC asset, else the GeoTIFF's own
+scale/offset tags) is applied as ``value x scale + offset`` after no-data masking; the value unit
+(``raster:bands`` ``unit``, else the source's ``units``) is converted to mg m-3. A scene id that occurs
+twice keeps its first item; later items get the id ``<id>~dup<k>`` and are recorded as rejected.
+
 Problems with one scene (missing, truncated or corrupt file, no CRS, bands of different shapes)
 raise :class:`~lakefeed.exceptions.SourceError` from :meth:`SceneReader.read`;
 :func:`read_scenes` records them as the scene's rejection reason and goes on with the others.
@@ -40,11 +45,27 @@ from lakefeed.config.sources import SceneSource
 from lakefeed.exceptions import SourceError
 from lakefeed.extract.scene_stats import shore_buffered
 from lakefeed.stages._result import Progress, no_progress
+from lakefeed.units import factor as unit_factor
 
 __all__ = ["SCENE_COLUMNS", "AoiPixels", "SceneReader", "SceneWindow", "list_scenes", "read_scenes"]
 
 #: Columns of the scene table returned by :func:`list_scenes` (``reason`` is "" for usable scenes).
-SCENE_COLUMNS = ["scene_id", "sensor", "time", "value_href", "quality_href", "uncertainty_href", "reason"]
+#: ``scale``, ``offset``, ``nodata`` come from the asset's STAC ``raster:bands`` (NaN: not declared);
+#: ``unit`` is the value unit (declared, else the source's ``units``).
+SCENE_COLUMNS = [
+    "scene_id",
+    "sensor",
+    "time",
+    "value_href",
+    "quality_href",
+    "uncertainty_href",
+    "scale",
+    "offset",
+    "nodata",
+    "unit",
+    "reason",
+]
+CANONICAL_UNIT = "mg m-3"
 
 
 # ----------------------------------------------------------------------------------------- catalogue
@@ -81,10 +102,31 @@ def list_scenes(source: SceneSource | str | Path, *, asset: str | None = None) -
         rows = list(_folder_rows(Path(source.folder or ""), source, asset))
         where = source.folder
     if not rows:
-        raise SourceError(f"scene catalogue {where}: no scenes found; check the path (and filename_pattern)")
+        hint = " (a folder of GeoTIFFs needs filename_pattern)" if source.catalog is not None else ""
+        raise SourceError(f"scene catalogue {where}: no scenes found; check the path and filename_pattern{hint}")
     table = pd.DataFrame(rows, columns=SCENE_COLUMNS)
+    table["unit"] = table["unit"].fillna(source.units)
     table["time"] = pd.to_datetime(table["time"], utc=True)
-    return table.sort_values(["time", "scene_id"], na_position="last").reset_index(drop=True)
+    table = table.sort_values(["time", "scene_id"], na_position="last").reset_index(drop=True)
+    return _mark_duplicates(table)
+
+
+def _mark_duplicates(table: pd.DataFrame) -> pd.DataFrame:
+    """The same item listed twice is dropped; a second item with an id already used is renamed
+    ``<id>~dup<k>`` and rejected, so that (AOI, scene_id) stays a key of the observation table."""
+    table = table.drop_duplicates(["scene_id", "value_href", "time"]).reset_index(drop=True)
+    k = table.groupby("scene_id").cumcount()
+    dup = k > 0
+    if dup.any():
+        first = table.drop_duplicates("scene_id").set_index("scene_id")["value_href"]
+        old = table.loc[dup, "scene_id"]
+        table.loc[dup, "reason"] = [
+            f"duplicate scene id {sid!r} (first item: {first[sid]}; this one: {href}); only the first is used: "
+            "give each item a unique id"
+            for sid, href in zip(old, table.loc[dup, "value_href"], strict=True)
+        ]
+        table.loc[dup, "scene_id"] = old + "~dup" + k[dup].astype(str)
+    return table
 
 
 def _stac_rows(path: Path, source: SceneSource, asset: str | None) -> Iterator[dict[str, Any]]:
@@ -134,6 +176,10 @@ def _rejected(scene_id: str, reason: str, sensor: str = "", time: Any = None) ->
         value_href=None,
         quality_href=None,
         uncertainty_href=None,
+        scale=np.nan,
+        offset=np.nan,
+        nodata=np.nan,
+        unit=None,
         reason=reason,
     )
 
@@ -171,6 +217,16 @@ def _item_row(path: Path, source: SceneSource, asset: str | None) -> dict[str, A
     def href(k: str | None) -> str | None:
         return item.assets[k].get_absolute_href() if k and k in item.assets else None
 
+    bands = item.assets[key].extra_fields.get("raster:bands") or [{}]
+    band = bands[0] if isinstance(bands, list) and bands and isinstance(bands[0], dict) else {}
+
+    def number(name: str) -> float:
+        value = band.get(name)
+        try:
+            return float(value) if value is not None else np.nan
+        except (TypeError, ValueError):
+            return np.nan
+
     return dict(
         scene_id=scene_id,
         sensor=sensor,
@@ -178,6 +234,10 @@ def _item_row(path: Path, source: SceneSource, asset: str | None) -> dict[str, A
         value_href=href(key),
         quality_href=href(source.quality_asset),
         uncertainty_href=href(source.uncertainty_asset),
+        scale=number("scale"),
+        offset=number("offset"),
+        nodata=number("nodata"),
+        unit=band.get("unit") or None,
         reason="",
     )
 
@@ -313,12 +373,19 @@ class SceneReader:
         uncertainty_href: str | None = None,
         *,
         shore_buffer_m: float | None = None,
+        scale: float | None = None,
+        offset: float | None = None,
+        nodata: float | None = None,
+        unit: str | None = None,
     ) -> SceneWindow:
         """Read the AOI window(s) of one scene.
 
         One window covers all AOIs; when the AOIs lie far apart (the common window would decode more
         than twice the file blocks of their own windows) each AOI gets its own window instead.
         ``shore_buffer_m`` (metres): inward shoreline buffer; None: one pixel of the scene.
+        ``scale``, ``offset``, ``nodata`` (declared in the catalogue; None/NaN: not declared) and the
+        value ``unit`` (None: mg m-3): the returned values are ``raw x scale + offset`` converted to
+        mg m-3, no-data as NaN. Undeclared scale/offset/nodata fall back to the GeoTIFF's own.
 
         Raises
         ------
@@ -333,10 +400,11 @@ class SceneReader:
                     f"scene {scene_id}: {value_href} has no CRS; write one into the file (e.g. gdal_edit)"
                 )
             crs = CRS.from_user_input(src.crs)
+            encoding = _encoding(src, scene_id, value_href, scale=scale, offset=offset, nodata=nodata, unit=unit)
             pixel_m = _pixel_size_m(src, crs)
             buffer_m = pixel_m if shore_buffer_m is None else float(shore_buffer_m)
             geoms = self._aois_in(crs, buffer_m)
-            out = SceneWindow(scene_id, [], src.shape, src.nodata, pixel_m, buffer_m)
+            out = SceneWindow(scene_id, [], src.shape, encoding[2], pixel_m, buffer_m)
             scene_box = shapely.box(*src.bounds)
             keep = []
             for aoi, geom in geoms.items():
@@ -354,11 +422,20 @@ class SceneReader:
                 if href
             }
             for group in _window_groups(src, geoms, keep):
-                self._read_group(src, others, geoms, group, out)
+                self._read_group(src, others, geoms, group, out, encoding)
+        if encoding != (1.0, 0.0, out.nodata, 1.0):  # decoded: no-data is NaN now
+            out.nodata = None
         return out
 
     @staticmethod
-    def _read_group(src: Any, others: dict[str, Any], geoms: gpd.GeoSeries, group: list[str], out: SceneWindow) -> None:
+    def _read_group(
+        src: Any,
+        others: dict[str, Any],
+        geoms: gpd.GeoSeries,
+        group: list[str],
+        out: SceneWindow,
+        encoding: tuple[float, float, float | None, float] = (1.0, 0.0, None, 1.0),
+    ) -> None:
         """Read the window of ``group``'s AOIs from every band; fill ``out.pixels`` / ``out.skipped``."""
         full = rasterio.features.geometry_window(src, list(geoms.loc[group].values), boundless=True)
         try:
@@ -367,8 +444,10 @@ class SceneReader:
             out.skipped.update(dict.fromkeys(group, "AOI does not intersect the scene footprint"))
             return
         out.windows.append(full)
-        values = _read(src, inner, full, out.scene_id, src.name, fill=np.nan)
-        bands = {what: _read_band(o, inner, full, out.scene_id) for what, o in others.items()}
+        values = _decode(_read(src, inner, full, out.scene_id, src.name, fill=np.nan), *encoding)
+        bands = {
+            what: _read_band(o, inner, full, out.scene_id, decode=what == "uncertainty") for what, o in others.items()
+        }
         transform = rasterio.windows.transform(full, src.transform)
         inside = np.zeros(values.shape, dtype=bool)
         r, c = inner.row_off - full.row_off, inner.col_off - full.col_off
@@ -444,6 +523,53 @@ def _pixel_size_m(src: rasterio.io.DatasetReader, crs: CRS) -> float:
     return size * float(crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0)
 
 
+def _given(x: float | None) -> bool:
+    return x is not None and not (isinstance(x, float) and np.isnan(x))
+
+
+def _encoding(
+    src: Any,
+    scene_id: str,
+    href: str,
+    *,
+    scale: float | None,
+    offset: float | None,
+    nodata: float | None,
+    unit: str | None,
+) -> tuple[float, float, float | None, float]:
+    """(scale, offset, raw no-data, unit factor to mg m-3) of the value band.
+
+    Declared values (STAC ``raster:bands``) win over the GeoTIFF's tags; a declared scale/offset that
+    contradicts a non-default one in the file is an error (applying both would scale twice).
+    """
+    file_scale, file_offset = float(src.scales[0] or 1.0), float(src.offsets[0] or 0.0)
+    for name, declared, own, default in (("scale", scale, file_scale, 1.0), ("offset", offset, file_offset, 0.0)):
+        if _given(declared) and own != default and not np.isclose(float(declared), own):  # type: ignore[arg-type]
+            raise SourceError(
+                f"scene {scene_id}: the catalogue declares {name} {declared} but {href} carries {name} {own}; "
+                "fix one of them (lakefeed would not know which to apply)"
+            )
+    s = float(scale) if _given(scale) else file_scale  # type: ignore[arg-type]
+    o = float(offset) if _given(offset) else file_offset  # type: ignore[arg-type]
+    raw_nodata = src.nodata if src.nodata is not None else (float(nodata) if _given(nodata) else None)  # type: ignore[arg-type]
+    try:
+        unit = unit if isinstance(unit, str) and unit.strip() else None
+        f = 1.0 if unit is None or unit == CANONICAL_UNIT else unit_factor(unit, CANONICAL_UNIT)
+    except SourceError as err:
+        raise SourceError(f"scene {scene_id}: value unit {unit!r} of {href}: {err}") from err
+    return s, o, raw_nodata, f
+
+
+def _decode(raw: np.ndarray, scale: float, offset: float, nodata: float | None, unit_factor: float) -> np.ndarray:
+    """Raw band values to mg m-3 (float64, no-data as NaN); unchanged when nothing is to be done."""
+    if (scale, offset, unit_factor) == (1.0, 0.0, 1.0):
+        return raw
+    values = raw.astype(np.float64)
+    if nodata is not None and np.isfinite(nodata):
+        values[raw == nodata] = np.nan
+    return (values * scale + offset) * unit_factor
+
+
 def _read(src: Any, inner: Window, full: Window, scene_id: str, href: str, *, fill: float) -> np.ndarray:
     """Read ``inner`` of band 1 and place it in an array of the ``full`` window (outside: ``fill``)."""
     try:
@@ -458,11 +584,15 @@ def _read(src: Any, inner: Window, full: Window, scene_id: str, href: str, *, fi
     return out
 
 
-def _read_band(src: Any, inner: Window, full: Window, scene_id: str) -> np.ndarray:
-    """A quality/uncertainty window with the band's own no-data as NaN (unknown)."""
+def _read_band(src: Any, inner: Window, full: Window, scene_id: str, *, decode: bool = False) -> np.ndarray:
+    """A quality/uncertainty window with the band's own no-data as NaN (unknown); ``decode``: apply the
+    band's own scale/offset tags (uncertainty only; quality flags are never scaled)."""
     data = _read(src, inner, full, scene_id, src.name, fill=np.nan)
     if src.nodata is not None and np.isfinite(src.nodata):
         data = np.where(data == src.nodata, np.nan, data.astype(np.float32, copy=False))
+    scale, offset = float(src.scales[0] or 1.0), float(src.offsets[0] or 0.0)
+    if decode and (scale, offset) != (1.0, 0.0):  # e.g. an integer-coded uncertainty band
+        data = data.astype(np.float64) * scale + offset
     return data
 
 
@@ -493,6 +623,10 @@ def read_scenes(
                     row["quality_href"],
                     row["uncertainty_href"],
                     shore_buffer_m=buffers.get(row["sensor"]),
+                    scale=row.get("scale"),
+                    offset=row.get("offset"),
+                    nodata=row.get("nodata"),
+                    unit=row.get("unit"),
                 )
                 yield row, win, ""
             except SourceError as err:

@@ -8,7 +8,7 @@ of its own beyond wiring.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -43,6 +43,7 @@ _DESCRIPTIONS = {
     "uncertainty": "mean relative 1-sigma uncertainty of the valid pixels (fraction), NaN without a band",
     "valid_fraction": "valid pixels / pixels whose centre lies in the shore-buffered AOI",
     "trophic_class": "OECD (1982) category of the value (boundaries in the lower class). " + CAUTION,
+    "tsi": "Carlson (1977) trophic state index of chla, 9.81 ln(chla) + 30.6. " + CAUTION,
     "chla_uncertainty": "1-sigma uncertainty of the inverse-variance weighted mean",
 }
 
@@ -56,12 +57,14 @@ def extract_observations(
     sensors: Mapping[str, SensorConfig] | None = None,
     options: TargetOptions | None = None,
     shore_buffer_m: float | None = None,
+    bad_quality_bits: Sequence[int] | None = None,
     progress: Progress | None = None,
 ) -> pd.DataFrame:
     """One row per AOI and scene with statistics, acceptance and outlier flags (``OBS_COLUMNS``).
 
     ``shore_buffer_m`` overrides every sensor's buffer (metres); sensors without a config use one
-    pixel of the scene. Unreadable scenes and skipped AOIs are rows with ``reason`` set.
+    pixel of the scene. ``bad_quality_bits`` overrides every sensor's bad quality bits (and values);
+    sensors without a config and no override count any non-zero flag as bad. Unreadable scenes and skipped AOIs are rows with ``reason`` set.
     """
     sensors = dict(sensors or {})
     options = options or TargetOptions()
@@ -79,8 +82,8 @@ def extract_observations(
         cfg = sensors.get(scene["sensor"])
         rules = dict(
             nodata=win.nodata,
-            bad_bits=cfg.bad_quality_bits if cfg else (),
-            bad_values=cfg.bad_quality_values if cfg else (),
+            bad_bits=tuple(bad_quality_bits) if bad_quality_bits is not None else (cfg.bad_quality_bits if cfg else ()),
+            bad_values=() if bad_quality_bits is not None else (cfg.bad_quality_values if cfg else ()),
             valid_range=tuple(options.valid_range),
         )
         for aoi in aoi_ids:
@@ -183,8 +186,23 @@ def build_target(project: Project, store: Store, *, progress: Progress | None = 
         progress=progress,
     )
     reference = lake.reference_sensor
-    if reference is None and obs["sensor"].nunique() > 1:
+    seen = set(obs.loc[obs["sensor"].fillna("") != "", "sensor"])
+    unknown = sorted(seen - set(lake.sensors))
+    if unknown and lake.sensors:
+        result.warnings.append(
+            f"sensor(s) {unknown} not in the lake's 'sensors' config: any non-zero quality flag counts as bad, "
+            f"the shore buffer is one pixel and the uncertainty {SensorConfig.model_fields['uncertainty'].default}; "
+            f"configured: {sorted(lake.sensors)}"
+        )
+    if reference is None and len(seen) > 1:
         result.warnings.append("no reference sensor configured: sensors are fused without harmonisation")
+    accepted = obs["accepted"].astype(bool)
+    if reference is not None and not (accepted & (obs["sensor"] == reference)).any():
+        result.warnings.append(
+            f"reference sensor {reference!r} has no accepted observation: other sensors are left unadjusted"
+        )
+    if not accepted.any():
+        result.warnings.append("no accepted observation: target_daily is empty (see 'reason' in target_obs)")
     daily, fits = daily_target(
         obs, sensors=lake.sensors, reference=reference, options=lake.target, thresholds=lake.thresholds
     )
@@ -196,11 +214,17 @@ def build_target(project: Project, store: Store, *, progress: Progress | None = 
         result.warnings.append(
             f"{len(unreadable)} scene(s) rejected as unreadable, e.g. {unreadable['reason'].iloc[0]}"
         )
+    dups = bad[bad["reason"].str.startswith("duplicate scene id")]
+    if len(dups):
+        result.warnings.append(f"{len(dups)} item(s) with a duplicate scene id ignored, e.g. {dups['reason'].iloc[0]}")
     meta = {"caution": CAUTION}
+    descriptions = _DESCRIPTIONS | {
+        c: f"chla >= threshold '{c.removeprefix('exceeds_')}'. {CAUTION}" for c in daily if c.startswith("exceeds_")
+    }
     fit_meta = {"sensor_bias": fits.to_json(orient="records")}
     store.write_table("target_obs", lake.id, obs, units=OBS_UNITS, descriptions=_DESCRIPTIONS, metadata=meta)
     store.write_table(
-        "target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=_DESCRIPTIONS, metadata=meta | fit_meta
+        "target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=descriptions, metadata=meta | fit_meta
     )
     bias_units = {"ratio": "1", "ln_ratio": "1", "ln_ratio_se": "1", "slope": "1", "intercept": "mg m-3", "r2": "1"}
     store.write_table("sensor_bias", lake.id, fits.assign(lake=lake.id), units=bias_units)
