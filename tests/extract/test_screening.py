@@ -82,3 +82,39 @@ def test_hampel_constant_series_never_flagged_and_shape(xs: list[float], w: floa
     days = np.cumsum(np.ones(x.size))
     assert hampel(days, x, window_days=w, threshold=3).shape == x.shape
     assert not hampel(days, np.full(x.size, 2.0), window_days=w, threshold=3).any()
+
+
+def test_spike_on_steep_decline_caught_by_local_trend() -> None:
+    """A factor-4 spike on a bloom decline (5-day revisit), the case the plain median/MAD missed.
+
+    Worked by hand (ln values): the spike's neighbours within +-15.5 days lie at -15, -10, -5, +15 days
+    with ln 3.408, 3.203, 3.006, 2.578. Plain filter: median 3.105, MAD 0.200, scale 0.297,
+    |3.978 - 3.105| = 0.87 < 3.5 x 0.297 = 1.04 -> missed. Theil-Sen line (Sen 1968): slope -0.0333 per
+    day (median of the six pairwise slopes), value at the spike 2.889; residual MAD 0.034, floored to 0.2;
+    |3.978 - 2.889| = 1.09 > 0.7 -> flagged. The spike's neighbours are not flagged (sequential removal).
+    """
+    days = np.array([-15.0, -10.0, -5.0, 0.0, 15.0])
+    x = np.log([30.19, 24.6, 20.2, 53.4, 13.17])
+    kw = dict(window_days=31, threshold=3.5, min_points=3, min_scale=0.2)
+    assert not hampel(days, x, **kw).any()
+    assert hampel(days, x, **kw, trend=True).tolist() == [False, False, False, True, False]
+
+
+def test_trend_filter_no_false_positive_on_smooth_bloom() -> None:
+    """A smooth log-normal bloom (x8 rise and fall within six weeks) with 10 % noise, every 5 days: nothing flagged;
+    with a factor-3 spike planted on the rise, only that is flagged."""
+    days = np.arange(0.0, 120.0, 5.0)
+    rng = np.random.default_rng(4)
+    x = np.log(3.0) + np.log(8.0) * np.exp(-(((days - 60.0) / 15.0) ** 2)) + rng.normal(0, 0.1, days.size)
+    kw = dict(window_days=31, threshold=3.5, min_points=3, min_scale=0.2, trend=True)
+    assert not hampel(days, x, **kw).any()
+    x[10] += np.log(3.0)  # day 50, on the rise
+    assert np.flatnonzero(hampel(days, x, **kw)).tolist() == [10]
+
+
+def test_two_neighbouring_spikes_both_flagged_without_masking() -> None:
+    days = np.arange(0.0, 60.0, 3.0)
+    x = np.zeros(days.size)
+    x[[8, 9]] = np.log(4.0)
+    flags = hampel(days, x, window_days=31, threshold=3.5, min_points=3, min_scale=0.2, trend=True)
+    assert np.flatnonzero(flags).tolist() == [8, 9]

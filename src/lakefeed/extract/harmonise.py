@@ -98,27 +98,21 @@ def fit_bias(
 ) -> pd.DataFrame:
     """Fit each sensor's bias against the reference sensor; one row per sensor (:data:`BIAS_COLUMNS`).
 
-    The reference sensor gets ratio 1 (slope 1, intercept 0) and ``note`` "reference" (or "reference;
-    no usable observation" when ``sensors`` does not include it: every other sensor is then left
-    unadjusted with that note).
+    The reference sensor gets ratio 1 (slope 1, intercept 0) and ``note`` "reference".
     """
-    present = set(sensors)
     rows = []
     for sensor in sorted(set(sensors) | {reference}):
         row = dict.fromkeys(BIAS_COLUMNS, np.nan)
         row.update(sensor=sensor, reference=reference, model=model, adjusted=False, note="")
         if sensor == reference:
-            note = "reference" if sensor in present else "reference; no usable observation"
-            row.update(n=0, ratio=1.0, ln_ratio=0.0, ln_ratio_se=0.0, slope=1.0, intercept=0.0, se=0.0, note=note)
+            row.update(
+                n=0, ratio=1.0, ln_ratio=0.0, ln_ratio_se=0.0, slope=1.0, intercept=0.0, se=0.0, note="reference"
+            )
             rows.append(row)
             continue
         p = pairs[pairs["sensor"] == sensor]
         n = len(p)
         row["n"] = n
-        if reference not in present:
-            row["note"] = f"reference sensor {reference} has no usable observation; left unadjusted"
-            rows.append(row)
-            continue
         if n < min_matchups:
             row["note"] = f"too few matchups with {reference} ({n} < {min_matchups}); left unadjusted"
             rows.append(row)

@@ -142,6 +142,10 @@ def daily_target(
             model=options.bias_model,
             min_matchups=options.min_matchups,
         )
+        if reference not in set(use["sensor"]):
+            absent = fits["sensor"] != reference
+            fits.loc[absent, "note"] = f"too few matchups: reference sensor {reference} has no usable observation"
+            fits.loc[~absent, "note"] = "reference; no usable observation"
     else:
         fits = pd.DataFrame(columns=BIAS_COLUMNS)
     if len(fits):
