@@ -262,3 +262,21 @@ def test_several_lakes_in_a_folder(mini: Path) -> None:
 def test_sources_file_given_instead_of_the_lake_file(mini: Path) -> None:
     code, out = check(str(mini.parent / "sources.yaml"))
     assert code == 1 and "sources.yaml is a sources config, not a lake config" in out
+
+
+@pytest.mark.parametrize(
+    ("case", "expected"),
+    [
+        ("aoi outside", ["aois.gpkg (config key 'aois', field 'aoi_id'): AOI 'bathing_bay'"]),
+        ("cycle", ["subbasins.gpkg (config key 'subbasins', fields 'subbasin_id' -> 'downstream_id'): cycle"]),
+        ("unknown key", ["edit that key in the file named (at the line given)"]),
+    ],
+)
+def test_problem_lines_name_file_key_and_what_to_do(mini: Path, case: str, expected: list[str]) -> None:
+    """Regression: the AOI and network problems named neither the layer file nor its config key, and config
+    problems ended with the unfinished hint 'fix it in the file named'."""
+    BROKEN[case][0](mini.parent.parent)
+    result = runner.invoke(app, ["check", str(mini)], env={"COLUMNS": "400"})
+    assert result.exit_code == 1
+    for text in expected:
+        assert text in result.output, result.output

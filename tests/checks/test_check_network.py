@@ -110,3 +110,15 @@ def test_misspelt_lake_id_is_pointed_at() -> None:
         "dangling downstream id 'LAKE' (of sub-basin(s) 'a'): no sub-basin has that id "
         "(subbasins.lake_id is 'LAKES', which no sub-basin drains into)"
     ]
+
+
+def test_lake_id_naming_the_lakes_own_subbasin() -> None:
+    """Regression: lake_id naming a sub-basin (the one the lake lies in) gave 'no sub-basin drains into the lake'
+    and its outflow id out of the layer was called dangling; now as in lakefeed.geometry.network."""
+    report = check_network(
+        ["L", "a", "b", "c", "x"], ["RIVER", "L", "L", "a", "OUTSIDE"], lake_id="L", outside_ids=["OUTSIDE"]
+    )
+    assert report.problems == []
+    assert report.direct_inflows == ["a", "b"]
+    assert report.catchment == ["L", "a", "b", "c"]
+    assert report.outside == ["x"]

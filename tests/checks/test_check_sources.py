@@ -66,7 +66,7 @@ def test_long_table(tmp_path: Path) -> None:
     src = HydrologySource(format="long", path=str(tmp_path / "h.parquet"), units=units)
     res, _ = check_hydrology(src, required_ids=["a", "b", "c"])
     assert sorted(bad(res)) == [
-        "h.parquet: no rows for variable 'tp' (tp)",
+        "h.parquet: no rows for variable 'tp' (tp); variables are ['discharge', 'tn']",
         "h.parquet: sub-basin(s) of the network missing from the hydrology outputs: ['c']",
     ]
 
@@ -142,3 +142,24 @@ def test_catalogue_json_is_not_rewritten(tmp_path: Path) -> None:
     before = json.loads(cat.read_text())
     check_scenes(SceneSource(catalog=str(cat)), _lake(tmp_path, {"kite": {"pixel_size_m": 20}}))
     assert json.loads(cat.read_text()) == before
+
+
+def test_variables_and_units_found_as_the_reader_finds_them(tmp_path: Path) -> None:
+    """Regression: check demanded a variable named 'discharge' where the reader finds it by CF standard_name,
+    and ignored the unit column of a long table (and its 'subbasin_id' spelling) that the reader accepts."""
+    ds = _mini.hydrology_dataset(["a", "b"], DAYS).rename({"discharge": "flow"})
+    ds["flow"].attrs["standard_name"] = "water_volume_transport_in_river_channel"
+    ds.to_netcdf(tmp_path / "h.nc")
+    res, _ = check_hydrology(HydrologySource(path=str(tmp_path / "h.nc")), required_ids=["a", "b"])
+    assert not bad(res)
+    assert any(r.message.startswith("discharge: 'flow' in") for r in res)
+    rows = [(d, s, v, 1.0, u) for d in DAYS for s in ("a", "b") for v, u in (("Q", "L/s"), ("tn", "ug L-1"))]
+    frame = pd.DataFrame(rows, columns=["date", "subbasin_id", "variable", "value", "unit"])
+    frame.to_csv(tmp_path / "h.csv", index=False)
+    src = HydrologySource(format="long", path=str(tmp_path / "h.csv"), variables={"discharge": "Q"}, nutrients=["tn"])
+    res, period = check_hydrology(src, required_ids=["a", "b"])
+    assert not bad(res), bad(res)
+    assert str(period) == "2024-01-01 .. 2024-01-05"
+    frame.drop(columns="unit").to_csv(tmp_path / "h.csv", index=False)
+    res, _ = check_hydrology(src, required_ids=["a", "b"])
+    assert "h.csv: discharge has no units" in bad(res)

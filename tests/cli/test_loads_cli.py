@@ -97,3 +97,40 @@ def test_duplicate_dates_warned_not_fatal(files: tuple[Path, Path], tmp_path: Pa
     res = run("loads", "--samples", str(tmp_path / "dup.csv"), "--flow", str(flow))
     assert res.exit_code == 0, res.output
     assert "duplicate sample date" in res.output
+
+
+def test_misspelt_concentration_column_is_a_clear_error(files: tuple[Path, Path], tmp_path: Path) -> None:
+    """Regression: a `conc` column was taken for a nutrient named 'conc' and the command ran."""
+    samples, flow = files
+    pd.read_csv(samples).rename(columns={"concentration": "conc"}).to_csv(tmp_path / "s.csv", index=False)
+    res = run("loads", "--samples", str(tmp_path / "s.csv"), "--flow", str(flow))
+    assert res.exit_code != 0
+    assert isinstance(res.exception, SourceError) and "no 'concentration' column" in str(res.exception)
+
+
+def test_method_names_match_the_estimators() -> None:
+    from lakefeed.cli.loads import METHOD_NAMES
+
+    assert METHOD_NAMES == tuple(METHODS)
+
+
+# Builds the command module without lakefeed/cli/__init__.py (which imports every subcommand) and lists the
+# heavy libraries it pulled in: `lakefeed loads --help` must not pay for pandas/scipy/xarray/geopandas.
+_IMPORT_ONE = """
+import importlib, sys, types
+import lakefeed
+pkg = types.ModuleType("lakefeed.cli"); pkg.__path__ = [lakefeed.__path__[0] + "/cli"]
+sys.modules["lakefeed.cli"] = pkg
+importlib.import_module("lakefeed.cli." + sys.argv[1])
+print(",".join(m for m in ("pandas", "scipy", "xarray", "geopandas", "rasterio") if m in sys.modules))
+"""
+
+
+@pytest.mark.parametrize("module", ["loads", "check"])
+def test_command_module_imports_no_heavy_library(module: str) -> None:
+    """Regression: cli/loads.py and cli/check.py imported pandas, scipy, xarray (and geopandas) at import time."""
+    import subprocess
+    import sys
+
+    out = subprocess.run([sys.executable, "-c", _IMPORT_ONE, module], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""

@@ -128,3 +128,24 @@ def test_apply_bias_ratio_and_sigma() -> None:
     adj = apply_bias(obs, fits)
     assert adj["value"].tolist() == pytest.approx([10.0, 10.0])
     assert adj["sigma"].tolist() == pytest.approx([10.0 * 0.5, 10.0 * 0.4])  # sqrt(0.3^2 + 0.4^2) = 0.5
+
+
+def test_inconsistent_matchup_left_out_of_the_ratio_fit() -> None:
+    """Regression: one undetected factor-4 outlier scene of the reference sensor in the matchups pulled the
+    ratio (sample scenario, 3 years: 1.220 +- 0.027 against the planted 1.25; with screening 1.247 +- 0.005).
+    Here: 30 days x 2 AOIs, 5 % noise, one reference value x 4."""
+    obs = _pairs_obs(1.25, 30, noise=0.05, seed=3)
+    spike = obs.index[(obs["sensor"] == "kite") & (obs["aoi"] == "a")][7]
+    obs.loc[spike, "median"] *= 4.0
+    pairs = matchups(obs, reference="kite")
+    raw = fit_bias(pairs, reference="kite", sensors=["dune"], trim=None).set_index("sensor").loc["dune"]
+    fit = fit_bias(pairs, reference="kite", sensors=["dune"]).set_index("sensor").loc["dune"]
+    # measured: unscreened ln ratio 0.027 low (se 0.025, inflated by the spike); screened 0.004 low (se 0.009)
+    assert raw["n_excluded"] == 0 and raw["ln_ratio"] - np.log(1.25) < -0.02
+    assert fit["n"] == 59 and fit["n_excluded"] == 1 and "1 inconsistent matchup" in fit["note"]
+    assert abs(fit["ln_ratio"] - np.log(1.25)) < 3 * fit["ln_ratio_se"]
+    assert fit["ln_ratio_se"] < raw["ln_ratio_se"] / 2
+    clean = fit_bias(
+        matchups(_pairs_obs(1.25, 30, noise=0.05, seed=3), reference="kite"), reference="kite", sensors=["dune"]
+    )
+    assert clean.set_index("sensor").loc["dune", "n_excluded"] == 0

@@ -276,3 +276,17 @@ def test_stratified_beale_falls_back_with_warning() -> None:
         # constant concentration: every ratio estimate is exact, whatever the strata
         assert est.total_kg == pytest.approx(flow.sum() * 2 * K, rel=1e-9)
         assert set(est.periods["stratum"]) <= {"DJF", "MAM", "JJA", "SON", "high", "low"}
+
+
+def test_bootstrap_standard_error_is_not_blown_up_by_degenerate_resamples() -> None:
+    """Regression: with a handful of samples, a composite resample of 2-3 distinct samples extrapolated the fit
+    wildly and the bootstrap standard deviation came out several times the interval's width. Resamples with no
+    residual degree of freedom are now left out and the SE is the 95 % percentile interval width / 3.92."""
+    rng = np.random.default_rng(5)
+    flow = record(list(np.exp(rng.normal(1, 0.6, 365))))
+    pos = [10, 60, 61, 130, 200, 270, 340]
+    loads = list(3.0 * flow.to_numpy()[pos] ** 1.3 * np.exp(rng.normal(0, 0.4, len(pos))))
+    for method in ("composite", "interpolation", "fwmc"):
+        est = estimate_load(samples_for(flow, pos, loads), flow, method=method, period="record")
+        assert est.se_kg == pytest.approx((est.upper_kg - est.lower_kg) / (2 * 1.959963984540054), rel=1e-12)
+        assert est.lower_kg <= est.total_kg <= est.upper_kg, method

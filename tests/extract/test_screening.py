@@ -101,15 +101,26 @@ def test_spike_on_steep_decline_caught_by_local_trend() -> None:
 
 
 def test_trend_filter_no_false_positive_on_smooth_bloom() -> None:
-    """A smooth log-normal bloom (x8 rise and fall within six weeks) with 10 % noise, every 5 days: nothing flagged;
-    with a factor-3 spike planted on the rise, only that is flagged."""
+    """A smooth bloom (x8 rise and fall, Gaussian of 15 days) with 10 % noise, every 5 days: nothing flagged.
+    A factor-3 spike planted at each date in turn: only the spike is ever flagged, and the trend filter
+    catches more of them than the plain median filter (measured: 12 of 16 against 8 of 16, and the plain one
+    also flagged a neighbour once; it misses
+    spikes at the bloom's bend, where a straight line fits poorly)."""
     days = np.arange(0.0, 120.0, 5.0)
     rng = np.random.default_rng(4)
-    x = np.log(3.0) + np.log(8.0) * np.exp(-(((days - 60.0) / 15.0) ** 2)) + rng.normal(0, 0.1, days.size)
-    kw = dict(window_days=31, threshold=3.5, min_points=3, min_scale=0.2, trend=True)
-    assert not hampel(days, x, **kw).any()
-    x[10] += np.log(3.0)  # day 50, on the rise
-    assert np.flatnonzero(hampel(days, x, **kw)).tolist() == [10]
+    x0 = np.log(3.0) + np.log(8.0) * np.exp(-(((days - 60.0) / 15.0) ** 2)) + rng.normal(0, 0.1, days.size)
+    kw = dict(window_days=31, threshold=3.5, min_points=3, min_scale=0.2)
+    assert not hampel(days, x0, **kw, trend=True).any()
+    caught = {True: 0, False: 0}
+    for k in range(4, 20):
+        x = x0.copy()
+        x[k] += np.log(3.0)
+        for trend in (True, False):
+            flagged = np.flatnonzero(hampel(days, x, **kw, trend=trend)).tolist()
+            if trend:
+                assert flagged in ([], [k])
+            caught[trend] += k in flagged
+    assert caught[True] == 12 and caught[False] == 8
 
 
 def test_two_neighbouring_spikes_both_flagged_without_masking() -> None:

@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import given
+from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lakefeed.exceptions import FeatureError
@@ -21,6 +21,7 @@ def test_blocked_folds_are_contiguous_and_balanced() -> None:
     assert blocked_folds(shuffled.append(dates), k=5)[:4].tolist() == [1, 0, 4, 2]
 
 
+@settings(deadline=None)
 @given(st.lists(st.integers(0, 2000), min_size=1, max_size=200), st.integers(2, 8))
 def test_blocked_folds_property(days: list[int], k: int) -> None:
     """Property: folds are monotone in time, same date -> same fold, sizes differ by <= 1 date."""

@@ -97,30 +97,172 @@ def test_stage_writes_contract_columns_with_units(tmp_path: Path) -> None:
     assert any("accepted observations" in w for w in res.warnings)
 
 
+def _plain_reads(store: Store) -> list[pd.DataFrame]:
+    """The features table as a reader outside lakefeed sees it: pyarrow.dataset and DuckDB over a glob."""
+    import duckdb
+    import pyarrow.dataset as ds
+
+    root = Path(store.path) / "features"
+    a = ds.dataset(root, format="parquet", partitioning="hive").to_table().to_pandas()
+    b = duckdb.sql(f"SELECT * FROM read_parquet('{root}/*/*.parquet', hive_partitioning = true)").df()
+    return [a, b]
+
+
+def _assert_unique_and_equal(store: Store, want: pd.DataFrame) -> None:
+    """Every plain glob read has unique keys and the rows of ``want`` (a full rebuild)."""
+    keys = ["aoi", "target_date", "lead_days"]
+    for got in _plain_reads(store):
+        assert not got.duplicated(keys).any()
+        got = got.sort_values(keys).reset_index(drop=True)
+        assert len(got) == len(want)
+        np.testing.assert_array_equal(got["fold"], want["fold"])
+        np.testing.assert_allclose(got["precipitation_sum__sum_5d"], want["precipitation_sum__sum_5d"], rtol=1e-12)
+
+
+def _full_copy(src: Store, tmp_path: Path, name: str, project: Project, **kw: object) -> Store:
+    """A copy of the store rebuilt in full (``full=True``: every row recomputed, folds frozen)."""
+    import shutil
+
+    shutil.copytree(src.path, tmp_path / name)
+    full = Store(tmp_path / name)
+    build_features(project, full, full=True, **kw)  # type: ignore[arg-type]
+    return full
+
+
+def _files(store: Store) -> dict[str, bytes]:
+    root = Path(store.path)
+    return {str(p.relative_to(root)): p.read_bytes() for p in sorted(root.rglob("*")) if p.is_file()}
+
+
 def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    project = _project(tmp_path, leads=[0, 3], windows=[1, 5, 30])
+    project = _project(tmp_path, leads=[0, 3], windows=[1, 5, 30], embargo_days=10)
     inc = Store(tmp_path / "inc")
     old = _inputs(end="2022-10-31")
     _write(inc, *old)
     build_features(project, inc)
-    _write(inc, *_inputs(end="2022-11-30"))  # one more month of every input
-    calls = []
+    before = load_features(inc, "tallow")
     import lakefeed.stages.features as stage
 
+    calls = []
     real = stage.new_feature_rows
     monkeypatch.setattr(stage, "new_feature_rows", lambda *a, **k: calls.append(k["since"]) or real(*a, **k))
-    build_features(project, inc)
-    # the refresh starts the day after the last old target (the old drivers reach further)
+    for step, end in enumerate(["2022-11-30", "2022-12-31"]):
+        _write(inc, *_inputs(end=end))  # one more month of every input
+        build_features(project, inc)
+        full = _full_copy(inc, tmp_path, f"full{step}", project)
+        got, want = load_features(inc, "tallow"), load_features(full, "tallow")
+        pd.testing.assert_frame_equal(got, want)
+        pd.testing.assert_frame_equal(inc.read_table("diagnostics", "tallow"), full.read_table("diagnostics", "tallow"))
+        _assert_unique_and_equal(inc, want.drop(columns="lake"))
+        # folds are frozen: no stored row changed its fold; later dates joined the last block
+        old_rows = got.merge(
+            before[["aoi", "target_date", "lead_days", "fold"]], on=["aoi", "target_date", "lead_days"]
+        )
+        assert (old_rows["fold_x"] == old_rows["fold_y"]).all() and len(old_rows) == len(before)
+        assert set(got.loc[got["target_date"] > before["target_date"].max(), "fold"]) <= {4, -1}
+    # the refresh starts the day after the last old target (the old drivers reach further) and appends one part
     assert calls and calls[0] == old[2]["date"].max() + pd.Timedelta(days=1)
-    full = Store(tmp_path / "full")
-    _write(full, *_inputs(end="2022-11-30"))
-    build_features(project, full)
-    pd.testing.assert_frame_equal(inc.read_table("features", "tallow"), full.read_table("features", "tallow"))
-    pd.testing.assert_frame_equal(inc.read_table("diagnostics", "tallow"), full.read_table("diagnostics", "tallow"))
-    # re-running with the same inputs changes nothing (idempotent): same file bytes
-    before = Path(inc.part_file("features", "tallow")).read_bytes()
+    assert len(inc.part_files("features", "tallow")) == 3
+    # re-running with the same inputs changes no byte anywhere in the store (idempotent)
+    snapshot = _files(inc)
     build_features(project, inc)
-    assert Path(inc.part_file("features", "tallow")).read_bytes() == before
+    assert _files(inc) == snapshot
+    # a fresh build of the same inputs differs only by the re-balanced folds; rebalance_folds=True gives it
+    fresh = Store(tmp_path / "fresh")
+    _write(fresh, *_inputs(end="2022-12-31"))
+    build_features(project, fresh)
+    pd.testing.assert_frame_equal(
+        load_features(fresh, "tallow").drop(columns="fold"), load_features(inc, "tallow").drop(columns="fold")
+    )
+    build_features(project, inc, rebalance_folds=True)
+    pd.testing.assert_frame_equal(load_features(inc, "tallow"), load_features(fresh, "tallow"))
+    assert len(inc.part_files("features", "tallow")) == 1
+    _assert_unique_and_equal(inc, load_features(fresh, "tallow").drop(columns="lake"))
+
+
+def test_drivers_behind_targets_replace_only_the_tail_part(tmp_path: Path) -> None:
+    """Targets newer than the drivers are flagged rows; the next refresh recomputes them in the last part."""
+    project = _project(tmp_path, windows=[1, 5])
+    store = Store(tmp_path / "s")
+
+    def month(d_end: str, t_end: str) -> None:
+        drivers, hyd, _ = _inputs(end=d_end)
+        _write(store, drivers, hyd, _inputs(end=t_end)[2])
+        build_features(project, store)
+
+    month("2022-08-31", "2022-09-30")
+    month("2022-09-30", "2022-10-31")  # the provisional September part is replaced, October's is new
+    parts = [Path(p).name for p in store.part_files("features", "tallow")]
+    assert parts == ["part-0.parquet", "part-20220901.parquet", "part-20221001.parquet"]
+    month("2022-10-31", "2022-11-30")  # the last part's spill-over rows are recomputed in place
+    assert [Path(p).name for p in store.part_files("features", "tallow")] == [*parts, "part-20221101.parquet"]
+    full = _full_copy(store, tmp_path, "full", project)
+    want = load_features(full, "tallow")
+    pd.testing.assert_frame_equal(load_features(store, "tallow"), want)
+    _assert_unique_and_equal(store, want.drop(columns="lake"))
+    assert not want.loc[want["target_date"] <= "2022-10-31", "outside_driver_record"].any()
+
+
+@pytest.mark.parametrize("crash_at", ["os.replace", "manifest"])
+def test_interrupted_refresh_leaves_the_previous_table(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, crash_at: str
+) -> None:
+    """A crash while the refresh writes its part (or just before the manifest switch) leaves the previous
+    table for lakefeed's readers, no duplicate for plain glob readers, and the re-run completes it."""
+    import lakefeed.store._parquet as parquet
+    import lakefeed.store._parts as parts
+
+    project = _project(tmp_path, windows=[1, 5])
+    store = Store(tmp_path / "s")
+    _write(store, *_inputs(end="2022-10-31"))
+    build_features(project, store)
+    before = load_features(store, "tallow")
+    _write(store, *_inputs(end="2022-11-30"))
+
+    def crash(*a: object, **k: object) -> None:
+        raise KeyboardInterrupt("simulated crash")
+
+    if crash_at == "os.replace":
+        monkeypatch.setattr(parts.os, "replace", crash)
+    else:
+        real = parquet.write_manifest
+
+        def crash_on_append(fs: object, root: str, manifest: dict, **k: object) -> None:
+            entry = manifest["tables"].get("features", {}).get("tallow", {})
+            if len(entry.get("parts", [])) > 1:  # the refresh's new part is on disk, the manifest not yet switched
+                crash()
+            real(fs, root, manifest, **k)
+
+        monkeypatch.setattr(parquet, "write_manifest", crash_on_append)
+    with pytest.raises(KeyboardInterrupt):
+        build_features(project, store)
+    monkeypatch.undo()
+    pd.testing.assert_frame_equal(load_features(store, "tallow"), before)
+    for got in _plain_reads(store):
+        assert not got.duplicated(["aoi", "target_date", "lead_days"]).any()
+    assert not list(Path(store.path).rglob("*.pending"))
+    build_features(project, store)
+    full = _full_copy(store, tmp_path, "full", project)
+    pd.testing.assert_frame_equal(load_features(store, "tallow"), load_features(full, "tallow"))
+    _assert_unique_and_equal(store, load_features(full, "tallow").drop(columns="lake"))
+
+
+def test_compaction_keeps_the_table(tmp_path: Path) -> None:
+    project = _project(tmp_path, windows=[5])
+    store = Store(tmp_path / "s")
+    for end in ["2022-09-30", "2022-10-31", "2022-11-30"]:
+        _write(store, *_inputs(end=end))
+        build_features(project, store)
+    assert len(store.part_files("features", "tallow")) == 3
+    before = load_features(store, "tallow")
+    store.compact("features", "tallow")
+    assert len(store.part_files("features", "tallow")) == 1
+    pd.testing.assert_frame_equal(load_features(store, "tallow"), before)
+    _assert_unique_and_equal(store, before.drop(columns="lake"))
+    _write(store, *_inputs(end="2022-12-31"))  # refreshes continue after a compaction
+    build_features(project, store)
+    full = _full_copy(store, tmp_path, "full", project)
+    pd.testing.assert_frame_equal(load_features(store, "tallow"), load_features(full, "tallow"))
 
 
 def test_changed_old_data_triggers_full_rebuild(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:

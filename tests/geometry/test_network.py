@@ -187,3 +187,41 @@ def test_random_trees_match_ancestors(parents: list[int]) -> None:
     ref = nx.DiGraph(list(zip(ids, down, strict=True)))
     assert set(got.subbasin_ids) == nx.ancestors(ref, "LAKE") == set(ids)
     assert set(got.direct_inflows) == {s for s, d in zip(ids, down, strict=True) if d == "LAKE"}
+
+
+def test_cycle_is_shown_in_drainage_order_with_field_and_layer(lake: gpd.GeoDataFrame) -> None:
+    """Regression: the cycle was printed as sorted ids (A -> C -> D for A -> D -> C -> A), without field or file."""
+    net = layer(overrides={"A": ((0, 0), "D"), "C": ((0, 1), "A"), "D": ((-1, 1), "C")})
+    with pytest.raises(GeometryError) as err:
+        trace(net, lake, lake_id="LAKE", where="sub-basin layer net.gpkg")
+    msg = str(err.value)
+    assert "A -> D -> C -> A" in msg and "'downstream_id'" in msg and msg.startswith("sub-basin layer net.gpkg")
+
+
+# The lake lies in its own sub-basin L (cell (1, 0), the lake's cell): A and B drain into L, L drains out of the
+# layer ("RIVER", not a sub-basin and not an outside marker: the lake's outflow is not followed).
+OWN = {**{k: v for k, v in NETWORK.items() if k not in {"A", "B"}}, "L": ((1, 0), "RIVER")}
+OWN.update(A=((0, 0), "L"), B=((2, 0), "L"))
+
+
+@pytest.mark.parametrize(
+    ("kw", "rule"),
+    [
+        ({"lake_id": "L"}, "lake_subbasin"),
+        ({}, "lake_subbasin"),
+        ({"lake_id": "L", "direct_inflows": ["A", "B"]}, "config"),
+    ],
+)
+def test_lake_in_its_own_subbasin(lake: gpd.GeoDataFrame, kw: dict, rule: str) -> None:
+    """Issue rule "their downstream sub-basin is the lake's own" (regression: lake_id naming a sub-basin was
+    'no outlet reaches the lake', and a listed inflow draining into it was rejected)."""
+    got = trace(layer(OWN), lake, **kw)
+    graph = nx.DiGraph([(k, v[1]) for k, v in OWN.items()])
+    assert (got.rule, got.direct_inflows, got.lake_node) == (rule, ("A", "B"), "L")
+    assert got.subbasin_ids == tuple(sorted(nx.ancestors(graph, "L") | {"L"}))  # networkx, plus the lake's own
+    assert got.overlapping == ("L",)
+
+
+def test_own_subbasin_without_inflows_is_an_error(lake: gpd.GeoDataFrame) -> None:
+    with pytest.raises(GeometryError, match=r"lake_id .G. is a sub-basin .* no sub-basin has 'downstream_id' equal"):
+        trace(layer(OWN), lake, lake_id="G")  # G: nothing drains into it

@@ -169,3 +169,21 @@ def test_flow_record(tmp_path: Path) -> None:
     (tmp_path / "dup.csv").write_text("date,discharge\n2024-01-01,1.0\n2024-01-01,2.0\n")
     with pytest.raises(SourceError, match="duplicate dates"):
         read_flow(tmp_path / "dup.csv")
+
+
+def test_misspelt_concentration_column_is_an_error_when_required(tmp_path: Path) -> None:
+    """Regression: `conc` instead of `concentration` was read silently as the wide form (nutrient 'conc')."""
+    (tmp_path / "s.csv").write_text("date,conc,censored\n2024-01-02,1.0,false\n")
+    with pytest.raises(SourceError, match=r"no 'concentration' column.*\['date', 'conc', 'censored'\]"):
+        read_samples(tmp_path / "s.csv", require_concentration=True)
+    assert read_samples(tmp_path / "s.csv")["nutrient"].tolist() == ["conc"]  # the wide form, when allowed
+
+
+def test_duplicate_warning_names_dates_only_in_the_single_form(tmp_path: Path) -> None:
+    """Regression: the single form's duplicates were named 'concentration 2024-01-02'."""
+    (tmp_path / "s.csv").write_text("date,concentration\n2024-01-02,1.0\n2024-01-02,3.0\n")
+    with pytest.warns(LakefeedWarning, match=r"\(\['2024-01-02'\]\)"):
+        read_samples(tmp_path / "s.csv")
+    (tmp_path / "l.csv").write_text("date,nutrient,concentration\n2024-01-02,tp,1.0\n2024-01-02,tp,3.0\n")
+    with pytest.warns(LakefeedWarning, match=r"\(\['tp 2024-01-02'\]\)"):
+        read_samples(tmp_path / "l.csv")

@@ -27,7 +27,9 @@ X0, Y0 = ORIGIN
 
 
 def _aoi() -> gpd.GeoDataFrame:
-    return gpd.GeoDataFrame({"aoi_id": ["a"]}, geometry=[shapely.box(X0 + 200, Y0 - 600, X0 + 600, Y0 - 200)], crs=32632)
+    return gpd.GeoDataFrame(
+        {"aoi_id": ["a"]}, geometry=[shapely.box(X0 + 200, Y0 - 600, X0 + 600, Y0 - 200)], crs=32632
+    )
 
 
 def _coded(tmp: Path, name: str, *, tags: bool) -> tuple[Path, np.ndarray]:
@@ -62,7 +64,10 @@ def test_stac_raster_bands_scale_offset_applied_once(tmp_path: Path) -> None:
     for tags in (False, True):
         path, decoded = _coded(tmp_path, f"stac{tags}.tif", tags=tags)
         item = write_item(
-            tmp_path / f"items{tags}", f"s{tags}", datetime="2024-06-01T10:00:00Z", sensor="kite",
+            tmp_path / f"items{tags}",
+            f"s{tags}",
+            datetime="2024-06-01T10:00:00Z",
+            sensor="kite",
             assets={"chla": str(path)},
         )
         data = json.loads(item.read_text())
@@ -79,7 +84,7 @@ def test_stac_raster_bands_scale_offset_applied_once(tmp_path: Path) -> None:
 
 def test_contradicting_scale_is_an_error(tmp_path: Path) -> None:
     path, _ = _coded(tmp_path, "tags.tif", tags=True)
-    with pytest.raises(SourceError, match="declares scale 0.1 but .* carries scale 0.01"):
+    with pytest.raises(SourceError, match=r"declares scale 0\.1 but .* carries scale 0\.01"):
         SceneReader(_aoi(), id_field="aoi_id").read("s", str(path), shore_buffer_m=0, scale=0.1)
 
 

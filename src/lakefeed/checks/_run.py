@@ -75,6 +75,10 @@ def check_project(project: Project) -> list[CheckResult]:
     if layers.subbasins is None and src.hydrology is not None:
         results.append(skipped("hydrology ids", "needs the sub-basin layer"))
     required = layers.catchment_ids(lake.subbasins.id_field)
+    if layers.traced is not None and src.hydrology is not None and src.hydrology.discharge_kind == "routed":
+        # routed discharge: the stage reads only the direct inflows (and the sampled stations' sub-basins)
+        stations = [s.subbasin for s in src.samples if s.subbasin]
+        required = list(dict.fromkeys([*layers.traced.direct_inflows, *stations]))
     run("hydrology", "hydrology", lambda: check_hydrology(src.hydrology, required_ids=required))
     run("samples", "samples", lambda: check_samples(src.samples, subbasin_ids=ids))
     run("scenes", "scenes", lambda: check_scenes(src.scenes, lake))
@@ -106,7 +110,10 @@ def _check_file(lake_file: Path) -> LakeReport:
         project = load_project(lake_file)
     except ConfigError as err:
         problems = err.problems or [str(err)]
-        report.results = [failed("config", p, "fix it in the file named") for p in problems]
+        report.results = [
+            failed("config", p, "edit that key in the file named (at the line given), then run lakefeed check again")
+            for p in problems
+        ]
         report.results.append(skipped("sources", "not opened: fix the configuration first"))
         return report
     report.lake_id = project.id

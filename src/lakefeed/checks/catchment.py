@@ -91,7 +91,12 @@ def check_subbasin_network(
     if lake_id is None and not cfg.direct_inflows and lake is not None:
         catchment, notes = _trace(subbasins, lake, cfg)  # may find the lake's id from the shore
         if catchment is not None and catchment.lake_node != LAKE_NODE:
-            lake_id, inferred = catchment.lake_node, f" (lake id {catchment.lake_node!r} found from the shore)"
+            lake_id = catchment.lake_node
+            inferred = (
+                f" (the lake lies in sub-basin {lake_id!r})"
+                if catchment.rule == "lake_subbasin"
+                else f" (lake id {lake_id!r} found from the shore)"
+            )
     report = check_network(
         subbasins[cfg.id_field].map(_clean).tolist(),
         subbasins[cfg.downstream_field].map(_clean).tolist(),
@@ -100,7 +105,8 @@ def check_subbasin_network(
         direct_inflows=cfg.direct_inflows,
     )
     if report.problems:
-        return [failed(NAME, f"{cfg.path}: {p}", _HINT) for p in report.problems], report, None
+        where = f"{cfg.path} (config key 'subbasins', fields {cfg.id_field!r} -> {cfg.downstream_field!r})"
+        return [failed(NAME, f"{where}: {p}", _HINT) for p in report.problems], report, None
     if lake is None:
         return [warned(NAME, "network sane, catchment not traced: the lake polygon is missing", "")], report, None
     if catchment is None:

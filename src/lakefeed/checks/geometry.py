@@ -92,11 +92,17 @@ def _area_km2(gdf: gpd.GeoDataFrame) -> float:
 
 
 def check_aois_inside(
-    aois: gpd.GeoDataFrame, lake: gpd.GeoDataFrame, *, id_field: str, tolerance: float = AOI_OUTSIDE_TOLERANCE
+    aois: gpd.GeoDataFrame,
+    lake: gpd.GeoDataFrame,
+    *,
+    id_field: str,
+    tolerance: float = AOI_OUTSIDE_TOLERANCE,
+    where: str = "",
 ) -> list[CheckResult]:
     """Each AOI must lie inside the lake polygon, up to ``tolerance`` (fraction of its area).
 
-    Areas are computed in the lake's CRS when projected, else in a UTM zone (m2).
+    Areas are computed in the lake's CRS when projected, else in a UTM zone (m2). ``where`` (e.g. the
+    AOI file and config key) prefixes each problem message.
     """
     lake_m = _metric(lake)
     shape = shapely.union_all(lake_m.geometry.values)
@@ -114,7 +120,7 @@ def check_aois_inside(
         out.append(
             failed(
                 "AOIs inside lake",
-                f"AOI {aoi!r}: {f:.1%} of its area ({a / 1e4:.2f} ha) lies outside the lake polygon "
+                f"{where}AOI {aoi!r}: {f:.1%} of its area ({a / 1e4:.2f} ha) lies outside the lake polygon "
                 f"(tolerance {tolerance:.1%})",
                 "clip the AOI to the lake polygon, or fix the lake polygon",
             )
@@ -148,7 +154,12 @@ def check_geometry(lake: LakeConfig) -> tuple[list[CheckResult], Layers]:
     )
     results += res
     if layers.lake is not None and layers.aois is not None:
-        results += check_aois_inside(layers.aois, layers.lake, id_field=lake.aois.id_field)
+        results += check_aois_inside(
+            layers.aois,
+            layers.lake,
+            id_field=lake.aois.id_field,
+            where=f"{lake.aois.path} (config key 'aois', field {lake.aois.id_field!r}): ",
+        )
     else:
         results.append(skipped("AOIs inside lake", "needs both the lake polygon and the AOIs"))
     sb = lake.subbasins

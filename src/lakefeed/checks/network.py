@@ -73,7 +73,8 @@ def check_network(
         Downstream id of each sub-basin, aligned with ``ids``. Blank/None/NaN means "drains
         out of the area".
     lake_id
-        Downstream id meaning "drains into the lake".
+        Downstream id meaning "drains into the lake"; when it is a sub-basin id, that sub-basin is the
+        lake's own (in the catchment, its outflow not followed).
     outside_ids
         Downstream ids meaning "drains out of the area" (case-insensitive).
     direct_inflows
@@ -97,7 +98,17 @@ def check_network(
     graph.add_nodes_from([LAKE_NODE, OUTSIDE_NODE])
     graph.add_nodes_from(sid)
     dangling: dict[str, list[str]] = {}
+    # lake_id naming a sub-basin: the lake's own sub-basin (as in lakefeed.geometry.network). Those draining
+    # into it drain into the lake; it belongs to the catchment; its own outflow is not followed.
+    own = str(lake_id) if lake_id is not None and str(lake_id) in known else None
+    if own is not None:
+        graph.add_edge(own, LAKE_NODE)
     for i, d in zip(sid, downstream, strict=True):
+        if i == own:
+            continue
+        if own is not None and not _is_blank(d) and str(d) == own:
+            graph.add_edge(i, LAKE_NODE)
+            continue
         if _is_blank(d):
             graph.add_edge(i, OUTSIDE_NODE)
             continue
@@ -136,7 +147,7 @@ def check_network(
         start = cycle.index(min(cycle))  # start at the smallest id, so the message is stable
         cycle = cycle[start:] + cycle[:start]
         problems.append(f"cycle in the sub-basin network: {' -> '.join([*cycle, cycle[0]])}")
-    direct = sorted(str(u) for u in graph.predecessors(LAKE_NODE))
+    direct = sorted(str(u) for u in graph.predecessors(LAKE_NODE) if u != own)
     catchment = sorted(str(u) for u in nx.ancestors(graph, LAKE_NODE))
     out = sorted(str(u) for u in nx.ancestors(graph, OUTSIDE_NODE) if u != LAKE_NODE)
     lake_known = lake_id is not None or bool(listed)

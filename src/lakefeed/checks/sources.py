@@ -15,10 +15,12 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow.parquet as pq
 
 from lakefeed.checks._open import Period, open_lazy, time_period
 from lakefeed.checks._result import CheckResult, failed, passed, skipped, warned
 from lakefeed.config import HydrologySource, LakeConfig, SampleStation, SceneSource
+from lakefeed.sources.hydrology import STANDARD_NAMES
 from lakefeed.units import is_convertible
 
 __all__ = ["check_hydrology", "check_samples", "check_scenes"]
@@ -63,13 +65,21 @@ def _ids_result(name: str, found: Sequence[str], required: Sequence[str], file: 
             f"{file}: sub-basin(s) of the network missing from the hydrology outputs: {missing}",
             "use outputs covering every sub-basin of the catchment, or fix the sub-basin ids",
         )
-    return passed(name, f"{file}: all {len(set(required))} network sub-basins present ({len(set(found))} in file)")
+    return passed(
+        name, f"{file}: all {len(set(required))} sub-basins the stage reads are present ({len(set(found))} in file)"
+    )
 
 
 def _dsg(src: HydrologySource, roles: list[str], required: Sequence[str]) -> tuple[list[CheckResult], Period | None]:
     path = Path(str(src.path))
     if not path.exists():
-        return [failed("hydrology file", f"hydrology.path: file not found: {path}", "fix hydrology.path")], None
+        return [
+            failed(
+                "hydrology file",
+                f"hydrology.path: file not found: {path}",
+                "fix hydrology.path in the sources config (relative paths start at its folder)",
+            )
+        ], None
     out = [passed("hydrology file", f"{path.name} (CF timeSeries)")]
     with open_lazy(path) as ds:
         id_var = next((v for v in ds.variables.values() if v.attrs.get("cf_role") == "timeseries_id"), None)
@@ -85,6 +95,9 @@ def _dsg(src: HydrologySource, roles: list[str], required: Sequence[str]) -> tup
             out.append(_ids_result("hydrology ids", _decode_ids(id_var.values), required, path.name))
         for role in roles:
             name = src.variables.get(role, role)
+            if name not in ds.data_vars:  # as the reader does: fall back on the role's CF standard_name
+                wanted = STANDARD_NAMES.get(role, ())
+                name = next((str(v) for v in ds.data_vars if ds[v].attrs.get("standard_name") in wanted), name)
             if name not in ds.data_vars:
                 out.append(
                     failed(
@@ -132,24 +145,56 @@ def _tables(src: HydrologySource, roles: list[str], required: Sequence[str]) -> 
     else:  # long
         p = Path(str(src.path))
         if not p.exists():
-            return [failed("hydrology file", f"hydrology.path: file not found: {p}", "fix hydrology.path")], None
-        cols = ["date", "subbasin", "variable"]
-        try:
-            frame = pd.read_parquet(p, columns=cols) if p.suffix == ".parquet" else pd.read_csv(p, usecols=cols)
-        except (ValueError, KeyError) as err:
             return [
-                failed("hydrology file", f"{p.name}: {err}", "a long table needs date, subbasin, variable, value")
+                failed(
+                    "hydrology file",
+                    f"hydrology.path: file not found: {p}",
+                    "fix hydrology.path in the sources config (relative paths start at its folder)",
+                )
             ], None
+        parquet = p.suffix.lower() in {".parquet", ".pq"}
+        header = [str(c) for c in (pq.read_schema(p).names if parquet else pd.read_csv(p, nrows=0).columns)]
+        sub = "subbasin" if "subbasin" in header else "subbasin_id"  # the names the reader accepts
+        missing = sorted({"date", sub, "variable", "value"} - set(header))
+        if missing:
+            return [
+                failed(
+                    "hydrology file",
+                    f"{p.name}: long table without column(s) {missing}; columns are {header[:10]}",
+                    "a long table needs columns date, subbasin, variable, value (optional unit)",
+                )
+            ], None
+        cols = ["date", sub, "variable", *(["unit"] if "unit" in header else [])]
+        frame = pd.read_parquet(p, columns=cols) if parquet else pd.read_csv(p, usecols=cols, dtype={sub: str})
         out.append(passed("hydrology file", f"{p.name}: {len(frame)} rows"))
-        out.append(_ids_result("hydrology ids", frame["subbasin"].astype(str).unique().tolist(), required, p.name))
+        out.append(_ids_result("hydrology ids", frame[sub].astype(str).unique().tolist(), required, p.name))
         have = set(frame["variable"].astype(str))
         for role in roles:
             name = src.variables.get(role, role)
             if name not in have:
-                out.append(failed("hydrology variables", f"{p.name}: no rows for variable {name!r} ({role})", ""))
+                out.append(
+                    failed(
+                        "hydrology variables",
+                        f"{p.name}: no rows for variable {name!r} ({role}); variables are {sorted(have)[:10]}",
+                        f"fix hydrology.variables.{role}",
+                    )
+                )
                 continue
-            bad = _units_line("hydrology variables", role, src.units.get(role), f"hydrology.units.{role}", p.name)
-            out.append(bad or passed("hydrology variables", f"{role}: {name!r} in {src.units[role]}"))
+            unit, where = src.units.get(role), f"hydrology.units.{role}"
+            if unit is None and "unit" in frame.columns:  # as the reader does: the table's unit column
+                units = frame.loc[frame["variable"].astype(str) == name, "unit"].dropna().unique()
+                if len(units) > 1:
+                    out.append(
+                        failed(
+                            "hydrology variables",
+                            f"{p.name}: variable {name!r} has several units {list(units)}",
+                            "use one unit per variable",
+                        )
+                    )
+                    continue
+                unit, where = (str(units[0]) if len(units) else None), "unit column"
+            bad = _units_line("hydrology variables", role, unit, where, p.name)
+            out.append(bad or passed("hydrology variables", f"{role}: {name!r} in {unit}"))
         per = time_period(frame["date"].to_numpy())
         if per is not None:
             periods.append(per)

@@ -90,7 +90,7 @@ def loads(
         raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHOD_NAMES)}")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", LakefeedWarning)
-        table = read_samples(samples, units=units)
+        table = read_samples(samples, units=units, require_concentration=nutrient is None)
         q = read_flow(flow)
     for w in caught:
         err_console.print(f"[yellow]warning:[/] {escape(str(w.message))}", highlight=False)
@@ -133,8 +133,8 @@ def loads(
     for w in sorted(common):
         console.print(f"[yellow]all methods:[/] {escape(w)}", highlight=False)
     console.print(
-        "SE: standard error of the total (delta method for the rating curve, root MSE for Beale, bootstrap "
-        "standard deviation where marked); interval: +-1.96 SE, or bootstrap 2.5-97.5 percentiles. "
+        "SE: standard error of the total (delta method for the rating curve, root MSE for Beale; where marked "
+        "boot, the bootstrap interval width / 3.92); interval: +-1.96 SE, or bootstrap 2.5-97.5 percentiles. "
         "Censored values counted as half the detection limit.",
         highlight=False,
     )

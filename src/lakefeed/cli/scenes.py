@@ -97,7 +97,11 @@ def scenes(
     layer = read_layer(aois, what="areas of interest", id_field=id_field)
     lake_layer = read_layer(lake, what="lake polygon") if lake is not None else None
     reader = SceneReader(layer, id_field=id_field, lake=lake_layer)
-    where = {"folder": str(catalog), "filename_pattern": filename_pattern} if filename_pattern else {"catalog": str(catalog)}
+    where = (
+        {"folder": str(catalog), "filename_pattern": filename_pattern}
+        if filename_pattern
+        else {"catalog": str(catalog)}
+    )
     source = SceneSource(**where, asset=asset, quality_asset=quality_asset, uncertainty_asset=uncertainty_asset)
     table = list_scenes(source)
     label = lake_id or re.sub(r"[^a-z0-9_-]+", "-", aois.stem.lower()).strip("-") or "lake"

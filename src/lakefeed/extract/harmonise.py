@@ -13,7 +13,11 @@ Bias models (fitted on accepted, non-outlier matchups of the same AOI):
 - ``linear``: ordinary least squares sensor = intercept + slope x reference (scipy ``linregress``);
   adjusted = (value - intercept) / slope.
 
-With fewer than ``min_matchups`` matchups the sensor is left unadjusted and flagged in ``note``.
+Matchup screening (on by default, ``trim`` = 3.5): a pair whose log ratio ``ln(sensor) - ln(reference)``
+lies more than ``trim`` robust standard deviations (1.4826 x MAD) from the median log ratio is left out
+of the fit and counted in ``n_excluded``: one undetected outlier scene of either sensor would otherwise
+pull the bias (common match-up practice trims outliers, Bailey & Werdell 2006, Remote Sens. Environ. 102).
+With fewer than ``min_matchups`` matchups left the sensor is unadjusted and flagged in ``note``.
 
 Fusion: for each AOI and local date, the inverse-variance weighted mean of the adjusted values with
 weights ``w_i = 1 / sigma_i^2``; its 1-sigma uncertainty is ``(sum w_i)^-1/2`` (standard result for
@@ -46,6 +50,7 @@ BIAS_COLUMNS = [
     "r2",
     "adjusted",
     "note",
+    "n_excluded",
 ]
 
 
@@ -95,6 +100,7 @@ def fit_bias(
     sensors: list[str],
     model: Literal["ratio", "linear"] = "ratio",
     min_matchups: int = 10,
+    trim: float | None = 3.5,
 ) -> pd.DataFrame:
     """Fit each sensor's bias against the reference sensor; one row per sensor (:data:`BIAS_COLUMNS`).
 
@@ -111,6 +117,9 @@ def fit_bias(
             rows.append(row)
             continue
         p = pairs[pairs["sensor"] == sensor]
+        keep = _consistent(p, trim)
+        row["n_excluded"] = int((~keep).sum())
+        p = p[keep]
         n = len(p)
         row["n"] = n
         if n < min_matchups:
@@ -139,11 +148,26 @@ def fit_bias(
                 rows.append(row)
                 continue
         row["adjusted"] = True
+        if row["n_excluded"]:
+            row["note"] = f"{row['n_excluded']} inconsistent matchup(s) left out of the fit"
         rows.append(row)
     out = pd.DataFrame(rows, columns=BIAS_COLUMNS)
     out["n"] = out["n"].astype(int)
+    out["n_excluded"] = out["n_excluded"].fillna(0).astype(int)
     out["adjusted"] = out["adjusted"].astype(bool)
     return out
+
+
+def _consistent(pairs: pd.DataFrame, trim: float | None) -> np.ndarray:
+    """Pairs whose log ratio lies within ``trim`` robust standard deviations of the median log ratio."""
+    d = np.log(pairs["value"].to_numpy(float)) - np.log(pairs["ref_value"].to_numpy(float))
+    if trim is None or d.size < 3:
+        return np.ones(d.size, dtype=bool)
+    med = np.median(d)
+    scale = 1.4826 * np.median(np.abs(d - med))
+    if not scale > 0:
+        return np.ones(d.size, dtype=bool)
+    return np.abs(d - med) <= trim * scale
 
 
 def apply_bias(

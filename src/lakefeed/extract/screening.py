@@ -81,9 +81,9 @@ def hampel(
     """Outlier flags of one irregular series by a leave-one-out Hampel filter (vectorised).
 
     For each value, ``m`` and ``MAD`` are the median and the median absolute deviation of the OTHER
-    finite, not yet flagged values within the centred window; the most extreme value above the threshold
-    is flagged first, then the others are re-scored without it, until none is left; a value is an
-    outlier when
+    finite, not yet flagged values within the centred window; values above the threshold that are the most
+    extreme of their window are flagged first, then the others are re-scored without them, until none is
+    left; a value is an outlier when
     ``|x - m| > threshold * max(1.4826 * MAD, min_scale)``. Leaving the value out keeps a spike from
     widening its own yardstick, which matters on sparse satellite series.
 
@@ -120,17 +120,20 @@ def hampel(
     idx = lo[:, None] + np.arange(width)[None, :]
     others = (idx < hi[:, None]) & (idx != np.arange(t.size)[:, None])
     pos = np.where(others, np.minimum(idx, t.size - 1), 0)
+    inwin = idx < hi[:, None]
     flags = np.zeros(t.size, dtype=bool)
-    # Sequential: flag the most extreme value, drop it from the others' windows, repeat. A spike then
-    # cannot make its neighbours look like outliers (swamping) nor hide a second spike (masking).
+    # Sequential: flag the values that exceed the threshold and are the most extreme within their own
+    # window, drop them from the others' windows, repeat. A spike then cannot make its neighbours look
+    # like outliers (swamping) nor hide a second spike (masking); each round flags at least one value.
     for _ in range(t.size):
         work = np.where(flags, np.nan, x)
         score = _scores(t, work, np.where(others, work[pos], np.nan), pos, min_points, min_scale, trend)
         score[flags] = 0.0
-        worst = int(np.argmax(score))
-        if not score[worst] > threshold:
+        local_max = score >= np.where(inwin, score[np.minimum(idx, t.size - 1)], 0.0).max(axis=1)
+        new = (score > threshold) & local_max
+        if not new.any():
             break
-        flags[worst] = True
+        flags |= new
     return flags
 
 

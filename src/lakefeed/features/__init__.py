@@ -6,7 +6,15 @@ Pure: takes pandas/numpy, returns pandas/numpy; no file I/O, no Prefect. The sto
 """
 
 from lakefeed.features.diagnostics import sampling_diagnostics
-from lakefeed.features.folds import EMBARGOED, assign_folds, blocked_folds, random_folds
+from lakefeed.features.folds import (
+    EMBARGOED,
+    assign_folds,
+    blocked_folds,
+    date_hash_folds,
+    fold_boundaries,
+    folds_from_boundaries,
+    random_folds,
+)
 from lakefeed.features.incremental import new_feature_rows, refresh_feature_rows, refresh_start
 from lakefeed.features.pit import FLAG_CODES, build_feature_rows, calendar_features, forecast_array, persistence
 from lakefeed.features.windows import (
@@ -29,8 +37,11 @@ __all__ = [
     "blocked_folds",
     "build_feature_rows",
     "calendar_features",
+    "date_hash_folds",
     "default_statistics",
     "feature_name",
+    "fold_boundaries",
+    "folds_from_boundaries",
     "forecast_array",
     "gather_windows",
     "new_feature_rows",

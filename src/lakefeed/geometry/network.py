@@ -10,9 +10,15 @@ How the direct inflows (the sub-basins draining straight into the lake) are foun
 1. ``direct_inflows`` listed in the config: rule ``"config"``. Each must be a sub-basin id;
    a listed sub-basin whose own downstream id is another sub-basin is an error (it does not
    drain directly into the lake).
-2. ``lake_id`` configured: the sub-basins whose downstream id equals it, rule ``"lake_id"``
-   ("the downstream id is the lake's own").
-3. Otherwise the outlet rule, ``"outlet_in_lake"``: a sub-basin is terminal when its downstream
+2. The lake's own sub-basin (the one the lake lies in), rule ``"lake_subbasin"``: the sub-basins
+   draining into it are the direct inflows, and it belongs to the catchment itself (its local
+   runoff reaches the lake; its own downstream id, the lake's outflow, is ignored). It is
+   ``lake_id`` when that names a sub-basin of the layer; with neither ``lake_id`` nor
+   ``direct_inflows``, the sub-basin holding at least half of the lake's area, if another
+   sub-basin drains into it.
+3. ``lake_id`` configured (and not a sub-basin id): the sub-basins whose downstream id equals it,
+   rule ``"lake_id"`` ("the downstream id is the lake's own").
+4. Otherwise the outlet rule, ``"outlet_in_lake"``: a sub-basin is terminal when its downstream
    id is not a sub-basin id; terminal sub-basins whose outlet lies in the lake polygon are
    direct inflows. With ``outlets`` (one point per sub-basin) the point must lie within the lake
    (within ``tolerance_m``); without them the outlet is taken to lie on the sub-basin's
@@ -66,9 +72,11 @@ class Catchment:
     direct_inflows
         Ids of the sub-basins draining straight into the lake, sorted.
     rule
-        Which rule found the direct inflows: ``"config"``, ``"lake_id"`` or ``"outlet_in_lake"``.
+        Which rule found the direct inflows: ``"config"``, ``"lake_subbasin"``, ``"lake_id"`` or
+        ``"outlet_in_lake"``.
     lake_node
-        The node standing for the lake in ``graph`` (the lake's downstream id, e.g. ``"LAKE"``).
+        The node standing for the lake in ``graph``: the lake's downstream id (e.g. ``"LAKE"``) or the
+        lake's own sub-basin (rule ``lake_subbasin``, which is then also in ``subbasin_ids``).
     area_km2
         Geodesic area of ``polygon`` on the WGS84 ellipsoid, km2.
     overlapping
@@ -126,13 +134,40 @@ def _geodesic_area_km2(polygon: BaseGeometry, crs: CRS) -> float:
     return float(convert(abs(area_m2), "m2", "km2"))
 
 
-def _check_cycles(graph: nx.DiGraph) -> None:
-    cycles = [sorted(c) for c in nx.simple_cycles(graph)]
+def _own_subbasin(
+    ids: pd.Index,
+    overlap_area: np.ndarray,
+    lake_area: float,
+    graph: nx.DiGraph,
+    lake_id: str | None,
+    direct_inflows: list[str] | None,
+) -> str | None:
+    """The lake's own sub-basin: ``lake_id`` when it is a sub-basin id; with neither ``lake_id`` nor
+    ``direct_inflows``, the sub-basin holding at least half of the lake's area that others drain into."""
+    if lake_id is not None:
+        return str(lake_id) if str(lake_id) in graph else None
+    if direct_inflows or len(ids) == 0 or lake_area <= 0:
+        return None
+    best = int(np.argmax(overlap_area))
+    if overlap_area[best] >= 0.5 * lake_area and graph.in_degree(ids[best]) > 0:
+        return str(ids[best])
+    return None
+
+
+def _check_cycles(graph: nx.DiGraph, where: str, downstream_field: str) -> None:
+    """Raise naming each cycle in drainage order (``a -> b -> c -> a``), starting at its smallest id."""
+    cycles = []
+    for c in nx.simple_cycles(graph):  # nodes in edge order; each node has one downstream, so cycles are few
+        c = [str(x) for x in c]
+        start = c.index(min(c))
+        c = c[start:] + c[:start]
+        cycles.append(" -> ".join([*c, c[0]]))
     if cycles:
-        shown = "; ".join(" -> ".join(c) for c in cycles[:5])
+        shown = "; ".join(sorted(cycles)[:5])
         raise GeometryError(
-            f"sub-basin network has {len(cycles)} cycle(s) in the downstream ids: {shown}; "
-            "each sub-basin must drain to exactly one downstream sub-basin, the lake or out of the network"
+            f"{where}: {len(cycles)} cycle(s) in the downstream ids ({downstream_field!r}): {shown}; "
+            "each sub-basin must drain to exactly one downstream sub-basin, the lake or out of the network: "
+            "fix those downstream ids"
         )
 
 
@@ -147,6 +182,7 @@ def trace_catchment(
     outlets: gpd.GeoSeries | None = None,
     outside_ids: Iterable[str] = DEFAULT_OUTSIDE_IDS,
     tolerance_m: float = 1.0,
+    where: str = "sub-basin layer",
 ) -> Catchment:
     """Find the lake's direct inflows and trace the whole upstream catchment.
 
@@ -168,6 +204,8 @@ def trace_catchment(
         Downstream ids meaning "drains out of the network" (case-insensitive).
     tolerance_m
         Distance, metres, within which a polygon or outlet counts as touching the lake.
+    where
+        How error messages name the layer (e.g. its file and config key).
 
     Returns
     -------
@@ -179,7 +217,6 @@ def trace_catchment(
         Missing fields, duplicate ids, a cycle, dangling downstream ids, no sub-basin reaching the
         lake, or a listed direct inflow that drains into another sub-basin; each message names the ids.
     """
-    where = "sub-basin layer"
     for name in (id_field, downstream_field):
         if name not in subbasins.columns:
             raise GeometryError(
@@ -210,13 +247,17 @@ def trace_catchment(
     graph.add_nodes_from(ids)
     internal = frame[frame["down"].isin(id_set)]
     graph.add_edges_from(zip(internal["id"], internal["down"], strict=True))
-    _check_cycles(graph)
+    metric = _metric(frame)
+    lake_metric = gpd.GeoSeries([lake_poly], crs=frame.crs).to_crs(metric.crs).iloc[0]
+    overlap_area = shapely.area(shapely.intersection(metric.geometry.values, lake_metric))
+    own = _own_subbasin(frame.index, overlap_area, float(lake_metric.area), graph, lake_id, direct_inflows)
+    if own is not None:  # the lake is the sink: the outflow of its own sub-basin is not followed
+        graph.remove_edges_from(list(graph.out_edges(own)))
+    _check_cycles(graph, where, downstream_field)
 
     outside = {str(o).strip().upper() for o in outside_ids}
     terminal = frame[~frame["down"].isin(id_set)]
     is_outside = terminal["down"].isna() | terminal["down"].str.upper().isin(outside)
-    metric = _metric(frame)
-    lake_metric = gpd.GeoSeries([lake_poly], crs=frame.crs).to_crs(metric.crs).iloc[0]
 
     if direct_inflows:
         rule = "config"
@@ -227,7 +268,7 @@ def trace_catchment(
                 f"config subbasins.direct_inflows lists ids not in the sub-basin layer: {unknown}; "
                 f"known ids include {sorted(id_set)[:10]}"
             )
-        inner = [s for s in listed if frame.at[s, "down"] in id_set]
+        inner = [s for s in listed if frame.at[s, "down"] in id_set and frame.at[s, "down"] != own]
         if inner:
             pairs = [f"{s} -> {frame.at[s, 'down']}" for s in inner]
             raise GeometryError(
@@ -237,6 +278,16 @@ def trace_catchment(
         direct = sorted(set(listed))
         sinks = {s for s in frame.loc[direct, "down"] if s is not None and s.upper() not in outside}
         lake_node = lake_id or (sinks.pop() if len(sinks) == 1 else LAKE_NODE)
+    elif own is not None:
+        rule = "lake_subbasin"
+        lake_node = own
+        direct = sorted(graph.predecessors(own))
+        if not direct:
+            raise GeometryError(
+                f"{where}: subbasins.lake_id {own!r} is a sub-basin (the lake's own), but no sub-basin has "
+                f"{downstream_field!r} equal to it, so nothing flows into the lake; set subbasins.lake_id to the id "
+                "the inflows drain into, or list subbasins.direct_inflows"
+            )
     elif lake_id is not None:
         rule = "lake_id"
         lake_node = str(lake_id)
@@ -283,7 +334,7 @@ def trace_catchment(
 
     lake_sinks = {lake_node} | set(frame.loc[direct, "down"].dropna())
     dangling = terminal[~is_outside.to_numpy() & ~terminal["down"].isin(lake_sinks).to_numpy()]
-    dangling = dangling[~dangling["id"].isin(direct)]
+    dangling = dangling[~dangling["id"].isin([*direct, own])]  # the lake's outflow may leave the layer
     if len(dangling):
         pairs = [f"{a} -> {b}" for a, b in zip(dangling["id"], dangling["down"], strict=True)]
         raise GeometryError(
@@ -301,9 +352,8 @@ def trace_catchment(
         )
     graph.add_node(lake_node, kind="lake")
     graph.add_edges_from((d, lake_node) for d in direct)
-    members = sorted(nx.ancestors(graph, lake_node))
+    members = sorted(nx.ancestors(graph, lake_node) | ({own} if own == lake_node else set()))
     polygon = shapely.union_all(frame.loc[members].geometry.values)
-    overlap_area = shapely.area(shapely.intersection(metric.geometry.values, lake_metric))
     own_area = shapely.area(metric.geometry.values)
     overlapping = sorted(frame.index[overlap_area > 1e-6 * np.maximum(own_area, 1.0)].tolist())
     return Catchment(

@@ -57,7 +57,9 @@ def _censored(values: pd.Series, path: Path) -> pd.Series:
     return text.isin(_TRUE)
 
 
-def read_samples(path: str | Path, *, name: str = "concentration", units: str = "mg L-1") -> pd.DataFrame:
+def read_samples(
+    path: str | Path, *, name: str = "concentration", units: str = "mg L-1", require_concentration: bool = False
+) -> pd.DataFrame:
     """Read tributary samples.
 
     Parameters
@@ -68,6 +70,9 @@ def read_samples(path: str | Path, *, name: str = "concentration", units: str = 
         Nutrient label for the single form.
     units
         Unit of the concentrations (default mg L-1); converted to mg L-1.
+    require_concentration
+        Accept only the long and single forms (a ``concentration`` column): a file whose value column
+        is misspelt is an error instead of being read as the wide form with a nutrient of that name.
 
     Returns
     -------
@@ -84,6 +89,12 @@ def read_samples(path: str | Path, *, name: str = "concentration", units: str = 
     if "censored" not in frame.columns:
         frame["censored"] = False
     frame["censored"] = _censored(frame["censored"], path)
+    if require_concentration and "concentration" not in frame.columns:
+        raise SourceError(
+            f"samples {path}: no 'concentration' column (mg L-1 unless told otherwise); columns are "
+            f"{list(frame.columns)}; rename the column of concentrations to 'concentration'"
+        )
+    single = "concentration" in frame.columns and "nutrient" not in frame.columns  # one unnamed nutrient
     if "concentration" in frame.columns:
         if "nutrient" not in frame.columns:
             frame["nutrient"] = name
@@ -116,7 +127,10 @@ def read_samples(path: str | Path, *, name: str = "concentration", units: str = 
     dup = long.duplicated(["nutrient", "date"], keep=False)
     if dup.any():
         shown = sorted(
-            {f"{n} {d:%Y-%m-%d}" for n, d in zip(long.loc[dup, "nutrient"], long.loc[dup, "date"], strict=True)}
+            {
+                f"{d:%Y-%m-%d}" if single else f"{n} {d:%Y-%m-%d}"
+                for n, d in zip(long.loc[dup, "nutrient"], long.loc[dup, "date"], strict=True)
+            }
         )
         warnings.warn(
             f"samples {path}: {len(shown)} duplicate sample date(s) ({shown[:5]}); their concentrations are "

@@ -4,10 +4,15 @@ Reads from the store ``target_daily`` (the accepted chlorophyll-a per AOI and da
 driver tables that exist: ``drivers_daily`` (the zone named by ``features.driver_zone``:
 ``lake``, ``catchment``, ``aoi:<id>``, or ``aoi`` for each AOI's own zone) and
 ``hydrology_daily`` (inflow, loads, flow-weighted concentrations); calls the pure core
-(:mod:`lakefeed.features`) and writes ``features`` and ``diagnostics``. When the previous
-``features`` were built with the same configuration from inputs whose old part is unchanged,
-only rows from the first new date on are recomputed (incremental refresh). Must not hold
-science of its own beyond wiring.
+(:mod:`lakefeed.features`) and writes ``features`` and ``diagnostics``.
+
+Incremental refresh: when the previous ``features`` were built with the same configuration
+from inputs whose old part is unchanged, only rows from the first new date on are recomputed
+(from the drivers of the longest window's spill-over) and appended as one part file
+(:meth:`lakefeed.store.Store.append_arrow`); the old rows are neither read nor rewritten.
+Blocked fold boundaries are frozen at the first build (manifest metadata ``fold_boundaries``):
+later dates join the last block, so no stored row changes fold; ``rebalance_folds=True``
+(CLI ``--rebuild``) re-derives them. Must not hold science of its own beyond wiring.
 """
 
 from __future__ import annotations
@@ -25,8 +30,10 @@ from lakefeed.config.lake import FeatureOptions
 from lakefeed.exceptions import FeatureError
 from lakefeed.features import (
     WindowPlan,
-    assign_folds,
     build_feature_rows,
+    date_hash_folds,
+    fold_boundaries,
+    folds_from_boundaries,
     new_feature_rows,
     refresh_start,
     sampling_diagnostics,
@@ -165,14 +172,34 @@ def _input_hashes(store: Store, lake: str) -> dict[str, str]:
     return out
 
 
-def _folds(arrow: pa.Table, opts: FeatureOptions) -> np.ndarray:
-    """Fold per row: per AOI over its target dates (the same target date shares a fold across leads)."""
+def _fold_options(opts: FeatureOptions) -> str:
+    return json.dumps({"k": opts.folds, "kind": opts.fold_kind, "embargo_days": opts.embargo_days}, sort_keys=True)
+
+
+def _boundaries(
+    targets: pd.DataFrame, opts: FeatureOptions, frozen: dict[str, list[list[str]]]
+) -> dict[str, list[list[str]]]:
+    """Block boundaries per AOI: the frozen ones, derived from its target dates for an AOI without."""
+    if opts.fold_kind != "blocked":
+        return {}
+    out = dict(frozen)
+    for a, g in targets.groupby("aoi", sort=True):
+        if str(a) not in out:
+            out[str(a)] = [list(b) for b in fold_boundaries(g["date"], k=opts.folds)]
+    return dict(sorted(out.items()))
+
+
+def _folds(arrow: pa.Table, opts: FeatureOptions, bounds: dict[str, list[list[str]]]) -> np.ndarray:
+    """Fold per row, from its AOI and target date only (the same target date shares a fold across leads):
+    blocked folds from the frozen boundaries, random folds from a hash of the date."""
     aoi = np.asarray(arrow["aoi"].to_numpy(zero_copy_only=False)).astype(str)
     dates = arrow["target_date"].to_numpy()
+    if opts.fold_kind == "random":
+        return date_hash_folds(dates, k=opts.folds)
     fold = np.zeros(len(aoi), dtype=np.int16)
     for a in np.unique(aoi):
         sel = aoi == a
-        fold[sel] = assign_folds(dates[sel], k=opts.folds, kind=opts.fold_kind, embargo_days=opts.embargo_days)
+        fold[sel] = folds_from_boundaries(dates[sel], bounds.get(str(a), []), embargo_days=opts.embargo_days)
     return fold
 
 
@@ -183,14 +210,62 @@ def _full_again(project: Project, store: Store, progress: Progress, result: Stag
     return out
 
 
+def _write_rows(
+    store: Store,
+    lake: str,
+    arrow: pa.Table,
+    *,
+    since: pd.Timestamp | None,
+    split: pd.Timestamp,
+    frames: dict[str | None, pd.DataFrame],
+    targets: pd.DataFrame,
+    write: dict[str, object],
+) -> None:
+    """Write the rows as settled rows (target date before ``split``, the next refresh's first date) and
+    provisional ones (from ``split`` on: target dates after the end of an input, recomputed by the next
+    refresh), each in one store operation of one file (atomic on its own). The provisional rows get a
+    part of their own, so the next refresh replaces only that small part. The first operation's state
+    is a valid table of the inputs up to ``split - 1`` (its manifest says so), so a crash between the two
+    leaves a table that the next run completes incrementally."""
+    tcol = arrow["target_date"]
+    late = pc.greater_equal(tcol, pa.scalar(split.to_pydatetime(), tcol.type))
+    provisional = arrow.filter(late)
+    settled = arrow.filter(pc.invert(late)) if provisional.num_rows else arrow
+    steps = []
+    if settled.num_rows or not provisional.num_rows or since is None:
+        first = provisional if not settled.num_rows else settled
+        steps.append((since, first))
+    if provisional.num_rows and settled.num_rows:
+        steps.append((split, provisional))
+    for i, (start, rows) in enumerate(steps):
+        kw = dict(write)
+        if i < len(steps) - 1:  # the state after this step: the table of the inputs up to split - 1
+            day = str((split - pd.Timedelta(days=1)).date())
+            md = dict(kw["metadata"])  # type: ignore[call-overload]
+            md |= {"drivers_through": day, "targets_through": day,
+                   "inputs_digest_at_through": _digests(frames, targets, (day, day))}  # fmt: skip
+            kw |= {"metadata": md, "inputs": {}}
+        if start is None:
+            store.write_arrow("features", lake, rows, **kw)  # type: ignore[arg-type]
+        else:
+            store.append_arrow("features", lake, rows, since=start, **kw)  # type: ignore[arg-type]
+
+
 def build_features(
-    project: Project, store: Store, *, progress: Progress | None = None, full: bool = False
+    project: Project,
+    store: Store,
+    *,
+    progress: Progress | None = None,
+    full: bool = False,
+    rebalance_folds: bool = False,
 ) -> StageResult:
     """Build ``features`` and ``diagnostics`` for one lake from the store's driver and target tables.
 
     Incremental when possible: with the same configuration and unchanged old inputs, only rows from
-    the first new date on are recomputed and merged with the stored ones (``full=True`` forces a
-    full rebuild). The result equals a full rebuild.
+    the first new date on are recomputed and appended (one part file; the stored rows are not read).
+    ``full=True`` recomputes every row (keeping the frozen fold boundaries); ``rebalance_folds=True``
+    also re-derives the fold boundaries from all target dates (a fresh start). The table read back
+    equals a full rebuild's.
 
     Examples
     --------
@@ -199,6 +274,7 @@ def build_features(
     """
     lake, opts = project.lake, project.lake.features
     progress = progress or no_progress
+    full = full or rebalance_folds
     result = StageResult(stage="features", lake=lake.id)
     if not store.has_table("target_daily", lake.id):
         if opts.drivers:
@@ -247,11 +323,15 @@ def build_features(
     digest_now = _digests(frames, targets, through)
 
     since = None
+    md = (prev or {}).get("metadata", {})
     if not full and prev and prev.get("config_hash") == cfg and store.has_table("features", lake.id):
-        md = prev.get("metadata", {})
         old = (md.get("drivers_through"), md.get("targets_through"))
         if all(old) and _digests(frames, targets, old) == md.get("inputs_digest_at_through"):
             since = refresh_start(*old)
+    frozen = {}
+    if prev and not rebalance_folds and md.get("fold_options") == _fold_options(opts):
+        frozen = json.loads(md.get("fold_boundaries") or "{}")
+    bounds = _boundaries(targets, opts, frozen)
 
     progress("features: computing", 1, 3)
     blocks = []
@@ -268,21 +348,18 @@ def build_features(
     rows.insert(rows.columns.get_loc("doy_cos") + 1, "fold", np.zeros(len(rows), dtype=np.int16))
     rows.insert(rows.columns.get_loc("fold") + 1, "fold_kind", opts.fold_kind)
     arrow = _to_arrow(rows)
-    if since is not None:
-        old = store.read_arrow("features", lake.id)
-        if old.column_names != arrow.column_names:  # e.g. a driver table gained a column: rebuild in full
-            result.warnings.append("features: columns changed since the last build; rebuilt in full")
-            return _full_again(project, store, progress, result)
-        kept = old.filter(
-            pc.less(old["target_date"], pa.scalar(since.to_pydatetime(), old.schema.field("target_date").type))
-        )
-        arrow = pa.concat_tables([kept, arrow.cast(old.schema)])
+    if since is not None and prev.get("columns") != arrow.column_names:  # e.g. a driver table gained a column
+        result.warnings.append("features: columns changed since the last build; rebuilt in full")
+        return _full_again(project, store, progress, result)
     arrow = arrow.sort_by([(k, "ascending") for k in KEYS])
-    arrow = arrow.set_column(arrow.column_names.index("fold"), "fold", pa.array(_folds(arrow, opts), pa.int16()))
+    arrow = arrow.set_column(
+        arrow.column_names.index("fold"), "fold", pa.array(_folds(arrow, opts, bounds), pa.int16())
+    )
     n_outside = int(pc.sum(arrow["outside_driver_record"]).as_py() or 0)
     if n_outside and columns:
+        where = " refreshed" if since is not None else ""
         result.warnings.append(
-            f"{n_outside} feature row(s) have target dates outside the driver record (kept, flagged)"
+            f"{n_outside}{where} feature row(s) have target dates outside the driver record (kept, flagged)"
         )
 
     diag = sampling_diagnostics(targets, by="aoi", record=record, min_observations=opts.min_observations)
@@ -307,14 +384,17 @@ def build_features(
         "options_hash": options_hash,
         "driver_zone": opts.driver_zone,
         "fold_kind": opts.fold_kind,
+        "fold_options": _fold_options(opts),
+        "fold_boundaries": json.dumps(bounds, sort_keys=True),
         "tables_read": "; ".join(["target_daily", *read]),
     }
-    store.write_arrow("features", lake.id, arrow, units=units, descriptions=descr, metadata=meta, inputs=inputs,
-                      config_hash=cfg, time_column="target_date")  # fmt: skip
+    _write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), frames=frames, targets=targets,
+                write=dict(units=units, descriptions=descr, metadata=meta, inputs=inputs, config_hash=cfg,
+                           time_column="target_date", sort_by=KEYS))  # fmt: skip
     dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")} | {"coverage_fraction": "1"}
     store.write_table(
         "diagnostics", lake.id, diag, units=dunits, inputs=inputs, config_hash=cfg, time_column="first_date"
     )
     progress("features: done", 3, 3)
-    result.tables = {"features": arrow.num_rows, "diagnostics": len(diag)}
+    result.tables = {"features": int((store.entry("features", lake.id) or {}).get("rows", 0)), "diagnostics": len(diag)}
     return result

@@ -57,6 +57,7 @@ def catchment_of(project: Project) -> Catchment:
         lake_id=cfg.lake_id,
         direct_inflows=cfg.direct_inflows,
         outside_ids=["", *cfg.outside_ids],
+        where=f"sub-basin layer {cfg.path} (config key 'subbasins' of {project.lake_file.name})",
     )
 
 
@@ -121,10 +122,12 @@ def build_hydrology(project: Project, store: Store, *, progress: Progress | None
         data = read_hydrology(hyd, subbasin_ids=list(dict.fromkeys([*members, *station_ids])))
         nutrients = [n for n in hyd.nutrients if n in data]
         table = inflow_loads(data["discharge"][members], {n: data[n][members] for n in nutrients}, members=members)
-        gaps = int((table["flags"] != "").sum())
-        if gaps:
+        gap_days = table.index[table["flags"] != ""]
+        if len(gap_days):
+            shown = ", ".join(f"{d:%Y-%m-%d} ({f})" for d, f in table.loc[gap_days[:5], "flags"].items())
             warnings.warn(
-                f"hydrology output: {gaps} day(s) with missing values; their lake values are missing and flagged",
+                f"hydrology output {hyd.path or ', '.join(hyd.files.values())}: {len(gap_days)} day(s) with missing "
+                f"values, e.g. {shown}; their lake values are missing (not zero) and named in 'flags'",
                 LakefeedWarning,
                 stacklevel=2,
             )

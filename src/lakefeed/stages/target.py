@@ -1,8 +1,9 @@
 """Stage `target`: chlorophyll-a observations and the fused daily target of one lake.
 
 Reads the scene catalogue and the AOI/lake polygons (:mod:`lakefeed.sources`), extracts windowed AOI
-statistics, screens them, harmonises the sensors and fuses same-day values (:mod:`lakefeed.extract`),
-and writes the store tables ``target_obs``, ``target_daily`` and ``sensor_bias``. Must not hold science
+statistics, screens them, harmonises the sensors, screens each AOI's harmonised series of all sensors
+once more (a sparse sensor's spike gets the frequent sensor's values as neighbours) and fuses same-day
+values (:mod:`lakefeed.extract`), and writes the store tables ``target_obs``, ``target_daily`` and ``sensor_bias``. Must not hold science
 of its own beyond wiring.
 """
 
@@ -24,7 +25,7 @@ from lakefeed.sources.vectors import read_layer
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store
 
-__all__ = ["OBS_COLUMNS", "OBS_UNITS", "build_target", "daily_target", "extract_observations"]
+__all__ = ["OBS_COLUMNS", "OBS_UNITS", "build_target", "cross_sensor_outliers", "daily_target", "extract_observations"]
 
 OBS_COLUMNS = ["lake", "aoi", "scene_id", "sensor", "time", "date", *STAT_COLUMNS, "accepted", "reason", "outlier"]
 OBS_UNITS = {
@@ -42,6 +43,8 @@ DAILY_UNITS = {"chla": "mg m-3", "chla_uncertainty": "mg m-3", "n_obs": "1", "ts
 _DESCRIPTIONS = {
     "uncertainty": "mean relative 1-sigma uncertainty of the valid pixels (fraction), NaN without a band",
     "valid_fraction": "valid pixels / pixels whose centre lies in the shore-buffered AOI",
+    "outlier": "flagged by the outlier screening of the AOI's series (per sensor, and across sensors after "
+    "harmonisation); kept here, left out of target_daily",
     "trophic_class": "OECD (1982) category of the value (boundaries in the lower class). " + CAUTION,
     "tsi": "Carlson (1977) trophic state index of chla, 9.81 ln(chla) + 30.6. " + CAUTION,
     "chla_uncertainty": "1-sigma uncertainty of the inverse-variance weighted mean",
@@ -64,7 +67,8 @@ def extract_observations(
 
     ``shore_buffer_m`` overrides every sensor's buffer (metres); sensors without a config use one
     pixel of the scene. ``bad_quality_bits`` overrides every sensor's bad quality bits (and values);
-    sensors without a config and no override count any non-zero flag as bad. Unreadable scenes and skipped AOIs are rows with ``reason`` set.
+    sensors without a config and no override count any non-zero flag as bad. Unreadable scenes and
+    skipped AOIs are rows with ``reason`` set.
     """
     sensors = dict(sensors or {})
     options = options or TargetOptions()
@@ -161,6 +165,37 @@ def daily_target(
     return daily, fits
 
 
+def cross_sensor_outliers(obs: pd.DataFrame, fits: pd.DataFrame, *, options: TargetOptions | None = None) -> pd.Series:
+    """Outlier flags (bool Series aligned with ``obs``) from screening each AOI's series of ALL sensors
+    after harmonisation (values divided by their sensor's fitted bias), with the same filter as the
+    per-sensor screening. A frequent sensor then gives a sparse sensor's spike the neighbours it lacks
+    in its own series. Rows already flagged or not accepted are never flagged; without fits (no reference
+    sensor) or with one sensor nothing is flagged; sensors left unadjusted are not screened here.
+    """
+    options = options or TargetOptions()
+    flags = pd.Series(False, index=obs.index)
+    if fits.empty:
+        return flags
+    harmonised = set(fits.loc[fits["adjusted"].astype(bool) | (fits["sensor"] == fits["reference"]), "sensor"])
+    use = obs[
+        obs["accepted"].astype(bool)
+        & ~obs["outlier"].astype(bool)
+        & (obs["median"] > 0)
+        & obs["sensor"].isin(harmonised)
+    ]
+    if use["sensor"].nunique() < 2:
+        return flags
+    adjusted = apply_bias(use.assign(relative_sigma=0.0), fits)["value"]
+    found = flag_outliers(
+        use.assign(median=adjusted),
+        window_days=options.outlier_window_days,
+        threshold=options.outlier_threshold,
+        by=("aoi",),
+    )
+    flags.loc[found.index] = found
+    return flags
+
+
 def build_target(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
     """Build ``target_obs``, ``target_daily`` and ``sensor_bias`` for one lake.
 
@@ -210,6 +245,12 @@ def build_target(project: Project, store: Store, *, progress: Progress | None = 
     daily, fits = daily_target(
         obs, sensors=lake.sensors, reference=reference, options=lake.target, thresholds=lake.thresholds
     )
+    cross = cross_sensor_outliers(obs, fits, options=lake.target)
+    if cross.any():  # flag, then fuse again without them (the bias fit is screened on its own)
+        obs["outlier"] = obs["outlier"] | cross
+        daily, fits = daily_target(
+            obs, sensors=lake.sensors, reference=reference, options=lake.target, thresholds=lake.thresholds
+        )
     for _, f in fits[fits["note"].str.startswith("too few") | fits["note"].str.startswith("fitted")].iterrows():
         result.warnings.append(f"sensor {f['sensor']}: {f['note']}")
     bad = obs.loc[obs["reason"] != "", ["scene_id", "reason"]].drop_duplicates("scene_id")

@@ -17,7 +17,6 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import uuid
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from typing import Any
@@ -31,11 +30,12 @@ from lakefeed.exceptions import StoreError
 from lakefeed.store._fs import file_digest, is_local, resolve
 from lakefeed.store._lock import store_lock
 from lakefeed.store._manifest import read_manifest, write_manifest
+from lakefeed.store._parts import BASE, _read_one, date_part_name, glob_parts, live_parts, read_parts, write_file
 from lakefeed.store.layout import partition_path, table_path
 
 __all__ = ["PART", "Store", "read_units"]
 
-PART = "part-0.parquet"
+PART = BASE
 #: Candidate time columns for a table's time range in the manifest, in order of preference.
 TIME_COLUMNS = ("target_date", "date", "time", "issue_date")
 
@@ -229,61 +229,144 @@ class Store:
         inputs: Mapping[str, str] | Sequence[str] | None = None,
         config_hash: str | None = None,
         time_column: str | None = None,
+        sort_by: Sequence[str] | None = None,
     ) -> str:
-        """As :meth:`write_table`, for an Arrow table (e.g. rows merged without pandas)."""
+        """As :meth:`write_table`, for an Arrow table (e.g. rows merged without pandas).
+
+        ``sort_by``: key columns by which a reader sorts the rows of several part files (recorded
+        in the manifest; :meth:`append_arrow` keeps it).
+        """
         if "lake" in arrow.column_names:
             arrow = arrow.drop_columns(["lake"])
         arrow = arrow.cast(_schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
         part_dir = partition_path(self.path, table, lake)
-        final = f"{part_dir}/{PART}"
         with self.lock():
             manifest = self.manifest()
-            tmp = f"{table_path(self.path, table)}/.tmp-{lake}-{uuid.uuid4().hex}.parquet"
-            try:
-                self.fs.makedirs(part_dir, exist_ok=True)
-                if self.local:
-                    pq.write_table(arrow, tmp, **_write_options(arrow.schema))
-                else:
-                    with self.fs.open(tmp, "wb") as f:
-                        pq.write_table(arrow, f, **_write_options(arrow.schema))
-                digest = self._digest(tmp)
-                if self.local:
-                    os.replace(tmp, final)
-                else:
-                    self.fs.mv(tmp, final)
-            except BaseException as err:
-                try:
-                    if self.fs.exists(tmp):
-                        self.fs.rm(tmp)
-                except OSError:
-                    pass
-                if isinstance(err, OSError):
-                    raise StoreError(f"could not write {final}: {err}; the previous version is unchanged") from err
-                raise
+            old = live_parts(_entry(manifest, table, lake), self.fs, part_dir)
+            # a single base part is replaced in place (one rename: atomic for every reader); a partition
+            # of several parts gets a new, content-named base, listed in the manifest before the old
+            # parts are removed (lakefeed's readers switch at the manifest; see the module docstring)
+            name: Any = BASE if BASE not in old or old == [BASE] else (lambda d: f"part-0-{d[:16]}.parquet")
+            name, digest = write_file(self.fs, self.local, part_dir, name, arrow, _write_options(arrow.schema))
             col, trange = _time_range(arrow, time_column)
-            if isinstance(inputs, Mapping):
-                hashes = dict(inputs)
-            else:
-                hashes = {str(p): file_digest(p) for p in (inputs or [])}
-            manifest.setdefault("tables", {}).setdefault(table, {})[lake] = {
-                "rows": arrow.num_rows,
-                "columns": list(arrow.column_names),
-                "time_column": col,
-                "time_range": trange,
-                "config_hash": config_hash,
-                "inputs": dict(sorted(hashes.items())),
-                "content_hash": digest,
-                "metadata": dict(metadata or {}),
-            }
+            parts = [{"file": name, "rows": arrow.num_rows, "first": trange[0], "last": trange[1], "sha256": digest}]
+            entry = _make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by)
+            manifest.setdefault("tables", {}).setdefault(table, {})[lake] = entry
             write_manifest(self.fs, self.path, manifest, local=self.local)
+            self._remove_unlisted(part_dir, [name])
+        final = f"{part_dir}/{name}"
         return final if self.local else self._url(final)
 
-    def _digest(self, path: str) -> str:
-        h = hashlib.sha256()
-        with self.fs.open(path, "rb") as f:
-            while block := f.read(1 << 20):
-                h.update(block)
-        return h.hexdigest()
+    def append_arrow(
+        self,
+        table: str,
+        lake: str,
+        arrow: pa.Table,
+        *,
+        since: object,
+        time_column: str,
+        units: Mapping[str, str] | None = None,
+        descriptions: Mapping[str, str] | None = None,
+        metadata: Mapping[str, str] | None = None,
+        inputs: Mapping[str, str] | Sequence[str] | None = None,
+        config_hash: str | None = None,
+        sort_by: Sequence[str] | None = None,
+        max_parts: int = 24,
+    ) -> str:
+        """Replace the rows keyed on or after ``since`` by ``arrow`` without rewriting the older rows.
+
+        The rows of ``arrow`` (all keyed on or after ``since`` in ``time_column``) go into one part
+        file. When no live part holds rows on or after ``since``, that is a new file
+        ``part-<since>.parquet``. When only the last part does (the spill-over rows of the previous
+        refresh), that part is rewritten under its own name with its rows before ``since`` plus
+        ``arrow`` (one rename). Either way one file appears or changes in one atomic step, so a plain
+        glob read (DuckDB, pandas, pyarrow.dataset) sees the old or the new rows, never both. Any other
+        overlap, or more than ``max_parts`` parts afterwards, rewrites the partition in full (a
+        compaction). The columns must equal the stored ones. Without a stored partition this is
+        :meth:`write_arrow`.
+
+        Returns
+        -------
+        str
+            Path (or URL) of the part file written.
+        """
+        since = pd.Timestamp(since)
+        part_dir = partition_path(self.path, table, lake)
+        if "lake" in arrow.column_names:
+            arrow = arrow.drop_columns(["lake"])
+        arrow = arrow.cast(_schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
+        kw = dict(units=units, descriptions=descriptions, metadata=metadata, inputs=inputs, config_hash=config_hash,
+                  time_column=time_column, sort_by=sort_by)  # fmt: skip
+        with self.lock():
+            manifest = self.manifest()
+            entry = _entry(manifest, table, lake)
+            parts = [dict(p) for p in (entry or {}).get("parts") or []]
+            if not parts or not self.fs.exists(f"{part_dir}/{parts[0]['file']}"):
+                return self.write_arrow(table, lake, arrow, **kw)  # type: ignore[arg-type]
+            if list(entry.get("columns", [])) != arrow.column_names:
+                raise StoreError(
+                    f"cannot append to {table}/lake={lake}: columns differ from the stored ones; rewrite it in full"
+                )
+            after = [i for i, p in enumerate(parts) if p.get("last") is None or pd.Timestamp(p["last"]) >= since]
+            if after and after != [len(parts) - 1]:
+                return self._rewrite(table, lake, [(since, arrow)], **kw)
+            if after:  # the last part holds spill-over rows: keep its rows before `since`, add the new ones
+                name = parts[-1]["file"]
+                old = _read_one(self.fs, self.local, f"{part_dir}/{name}", None)
+                tcol = old[time_column]
+                kept = old.filter(pc.less(tcol, pa.scalar(since.to_pydatetime(), tcol.type)))
+                arrow = pa.concat_tables([kept, arrow.cast(kept.schema)])
+                parts = parts[:-1]
+            else:
+                name = date_part_name(since)
+            if len(parts) + 1 > max_parts:
+                return self._rewrite(table, lake, [(since, arrow)], **kw)
+            name, digest = write_file(self.fs, self.local, part_dir, name, arrow, _write_options(arrow.schema))
+            col, trange = _time_range(arrow, time_column)
+            parts.append({"file": name, "rows": arrow.num_rows, "first": trange[0], "last": trange[1],
+                          "sha256": digest})  # fmt: skip
+            new = _make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by)
+            manifest.setdefault("tables", {}).setdefault(table, {})[lake] = new
+            write_manifest(self.fs, self.path, manifest, local=self.local)
+            self._remove_unlisted(part_dir, [p["file"] for p in parts])
+        final = f"{part_dir}/{name}"
+        return final if self.local else self._url(final)
+
+    def _rewrite(
+        self, table: str, lake: str, replace: list[tuple[pd.Timestamp, pa.Table]] | None = None, **kw: Any
+    ) -> str:
+        """Rewrite a partition as one base part (compaction), optionally replacing rows from a date on."""
+        current = self.read_arrow(table, lake)
+        entry = self.entry(table, lake) or {}
+        sort_by = kw.get("sort_by") or entry.get("sort_by")
+        col = kw.get("time_column") or entry.get("time_column")
+        for since, rows in replace or []:
+            tcol = current[col]
+            kept = current.filter(pc.less(tcol, pa.scalar(since.to_pydatetime(), tcol.type)))
+            current = pa.concat_tables([kept, rows.cast(kept.schema)])
+        if sort_by:
+            current = current.sort_by([(k, "ascending") for k in sort_by])
+        units = kw.get("units") or read_units(current.schema)
+        descriptions = kw.get("descriptions") or read_descriptions(current.schema)
+        metadata = kw.get("metadata") if kw.get("metadata") is not None else entry.get("metadata")
+        inputs = kw.get("inputs") if kw.get("inputs") is not None else entry.get("inputs")
+        config_hash = kw.get("config_hash") or entry.get("config_hash")
+        return self.write_arrow(table, lake, current, units=units, descriptions=descriptions, metadata=metadata,
+                                inputs=inputs, config_hash=config_hash, time_column=col, sort_by=sort_by)  # fmt: skip
+
+    def compact(self, table: str, lake: str) -> str:
+        """Merge the part files of a partition into one (same rows, same order as a fresh full write)."""
+        with self.lock():
+            return self._rewrite(table, lake)
+
+    def _remove_unlisted(self, part_dir: str, keep: Sequence[str]) -> None:
+        """Remove part files the manifest no longer lists (superseded parts, leftovers of a crash)."""
+        for n in glob_parts(self.fs, part_dir):
+            if n not in keep:
+                try:
+                    self.fs.rm(f"{part_dir}/{n}")
+                except FileNotFoundError:
+                    pass
 
     def _url(self, path: str) -> str:
         return self.fs.unstrip_protocol(path)
@@ -294,12 +377,18 @@ class Store:
         root = table_path(self.path, table)
         if not self.fs.exists(root):
             return []
+        entries = self.manifest().get("tables", {}).get(table, {})
         out = []
         for p in self.fs.ls(root, detail=False):
             name = p.rstrip("/").rsplit("/", 1)[-1]
-            if name.startswith("lake=") and self.fs.exists(f"{p.rstrip('/')}/{PART}"):
+            if name.startswith("lake=") and self._present(table, name.split("=", 1)[1], entries):
                 out.append(name.split("=", 1)[1])
         return sorted(out)
+
+    def _present(self, table: str, lake: str, entries: Mapping[str, Any]) -> bool:
+        part_dir = partition_path(self.path, table, lake)
+        names = live_parts(entries.get(lake), self.fs, part_dir)
+        return bool(names) and bool(self.fs.exists(f"{part_dir}/{names[0]}"))
 
     def tables(self) -> list[str]:
         """Tables present in the store."""
@@ -308,20 +397,39 @@ class Store:
         names = [p.rstrip("/").rsplit("/", 1)[-1] for p in self.fs.ls(self.path, detail=False)]
         return sorted(n for n in names if not n.startswith((".", "_")) and self.lakes(n))
 
+    def part_files(self, table: str, lake: str) -> list[str]:
+        """Paths (as the store's filesystem names them) of a partition's live part files, base first."""
+        part_dir = partition_path(self.path, table, lake)
+        return [f"{part_dir}/{n}" for n in live_parts(self.entry(table, lake), self.fs, part_dir)]
+
     def part_file(self, table: str, lake: str) -> str:
-        """Path of a partition's Parquet file (as the store's filesystem names it)."""
-        return f"{partition_path(self.path, table, lake)}/{PART}"
+        """Path of a partition's first (base) Parquet part file; see :meth:`part_files` for all of them."""
+        files = self.part_files(table, lake)
+        return files[0] if files else f"{partition_path(self.path, table, lake)}/{BASE}"
+
+    def num_rows(self, table: str, lake: str) -> int:
+        """Rows of a partition over all its part files (from the Parquet footers)."""
+        total = 0
+        for path in self.part_files(table, lake):
+            with self.fs.open(path, "rb") as f:
+                total += pq.ParquetFile(f).metadata.num_rows
+        return total
 
     def read_arrow(self, table: str, lake: str, *, columns: Sequence[str] | None = None) -> pa.Table:
-        """One lake's partition as an Arrow table (schema metadata with units kept)."""
+        """One lake's partition (all live part files) as an Arrow table (schema metadata with units kept).
+
+        Several part files are concatenated and sorted by the keys recorded at write time, so the
+        result equals that of one full write.
+        """
         self.manifest()  # refuses newer schema versions
-        path = self.part_file(table, lake)
-        if not self.fs.exists(path):
+        part_dir = partition_path(self.path, table, lake)
+        arrow, entry = read_parts(self.fs, self.local, part_dir, lambda: self.entry(table, lake), columns=columns)
+        if arrow is None:
             raise StoreError(f"table {table!r} has no partition for lake {lake!r} in {self.url}; run the stage first")
-        if self.local:
-            return pq.read_table(path, columns=list(columns) if columns else None)
-        with self.fs.open(path, "rb") as f:
-            return pq.read_table(f, columns=list(columns) if columns else None)
+        sort_by = [k for k in (entry or {}).get("sort_by") or [] if k in arrow.column_names]
+        if len((entry or {}).get("parts") or []) > 1 and sort_by:
+            arrow = arrow.sort_by([(k, "ascending") for k in sort_by])
+        return arrow
 
     def read_table(self, table: str, lake: str | None = None, *, columns: Sequence[str] | None = None) -> pd.DataFrame:
         """Read a table (one lake, or all lakes) as pandas with a ``lake`` column first.
@@ -347,4 +455,41 @@ class Store:
 
     def has_table(self, table: str, lake: str) -> bool:
         """True when ``table`` has a partition for ``lake``."""
-        return bool(self.fs.exists(self.part_file(table, lake)))
+        return self._present(table, lake, self.manifest().get("tables", {}).get(table, {}))
+
+
+def _entry(manifest: Mapping[str, Any], table: str, lake: str) -> dict[str, Any] | None:
+    return manifest.get("tables", {}).get(table, {}).get(lake)
+
+
+def _make_entry(
+    arrow: pa.Table,
+    parts: list[dict[str, Any]],
+    time_column: str | None,
+    inputs: Mapping[str, str] | Sequence[str] | None,
+    config_hash: str | None,
+    metadata: Mapping[str, str] | None,
+    sort_by: Sequence[str] | None,
+) -> dict[str, Any]:
+    """Manifest entry of a partition: totals over its parts, provenance, the live part list."""
+    hashes = dict(inputs) if isinstance(inputs, Mapping) else {str(p): file_digest(p) for p in (inputs or [])}
+    firsts = [p["first"] for p in parts if p["first"] is not None]
+    lasts = [p["last"] for p in parts if p["last"] is not None]
+    trange = [min(firsts, key=pd.Timestamp) if firsts else None, max(lasts, key=pd.Timestamp) if lasts else None]
+    content = (
+        parts[0]["sha256"]
+        if len(parts) == 1
+        else hashlib.sha256(",".join(p["sha256"] for p in parts).encode()).hexdigest()
+    )
+    return {
+        "rows": int(sum(p["rows"] for p in parts)),
+        "columns": list(arrow.column_names),
+        "time_column": time_column,
+        "time_range": trange,
+        "config_hash": config_hash,
+        "inputs": dict(sorted(hashes.items())),
+        "content_hash": content,
+        "metadata": dict(metadata or {}),
+        "parts": parts,
+        "sort_by": list(sort_by or []),
+    }

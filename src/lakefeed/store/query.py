@@ -13,23 +13,26 @@ from typing import Any
 import pandas as pd
 
 from lakefeed.exceptions import StoreError
-from lakefeed.store._parquet import PART, Store
+from lakefeed.store._parquet import Store
 
 __all__ = ["connect", "load_features", "query"]
 
 _IDENT = re.compile(r"^[a-z][a-z0-9_]*$")
 
 
-def _glob(store: Store, table: str) -> str:
-    base = f"{store.path}/{table}/lake=*/{PART}"
-    return base if store.local else store.fs.unstrip_protocol(base)
+def _files(store: Store, table: str) -> list[str]:
+    """The live part files of every lake of a table (the manifest's lists: a consistent snapshot)."""
+    files = [f for lake in store.lakes(table) for f in store.part_files(table, lake)]
+    return files if store.local else [store.fs.unstrip_protocol(f) for f in files]
 
 
 def connect(store: Store, *, tables: list[str] | None = None) -> Any:
     """An in-memory DuckDB connection with a view per store table (``SELECT * FROM features``).
 
-    Views read ``<store>/<table>/lake=*/part-0.parquet`` with Hive partitioning; remote stores
-    are read through the store's fsspec filesystem.
+    Views read the live part files ``<store>/<table>/lake=*/part-*.parquet`` listed in the manifest
+    (so a write in progress is never half seen) with Hive partitioning; remote stores are read
+    through the store's fsspec filesystem. A plain ``read_parquet('<store>/features/*/*.parquet',
+    hive_partitioning = true)`` reads the same rows once no write is in progress.
     """
     import duckdb
 
@@ -40,9 +43,11 @@ def connect(store: Store, *, tables: list[str] | None = None) -> Any:
     for name in tables or store.tables():
         if not _IDENT.fullmatch(name):
             continue
-        pattern = _glob(store, name).replace("'", "''")
+        files = ", ".join("'" + f.replace("'", "''") + "'" for f in _files(store, name))
+        if not files:
+            continue
         con.execute(
-            f"CREATE VIEW {name} AS SELECT * FROM read_parquet('{pattern}', hive_partitioning = true, "
+            f"CREATE VIEW {name} AS SELECT * FROM read_parquet([{files}], hive_partitioning = true, "
             "union_by_name = true)"
         )
     return con

@@ -78,8 +78,9 @@ class LoadEstimate:
     proportion to flow. ``periods`` has one row per period (and stratum): ``start``, ``end``, ``days``,
     ``n_samples``, ``load_kg``, ``mean_kg_d``, ``se_kg``, ``lower_kg``, ``upper_kg``.
     ``total_kg`` is the load over the whole flow record (NaN when days lack flow), ``mean_kg_d`` the
-    mean daily load over days with flow, ``se_kg`` the standard error of the total (NaN for bootstrap
-    methods), ``lower_kg``/``upper_kg`` its 95 % interval, ``uncertainty`` how they were obtained.
+    mean daily load over days with flow, ``se_kg`` the standard error of the total (for bootstrap
+    methods the 95 % interval width / 3.92), ``lower_kg``/``upper_kg`` its 95 % interval, ``uncertainty``
+    how they were obtained.
     """
 
     method: str

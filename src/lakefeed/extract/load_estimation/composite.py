@@ -9,7 +9,8 @@ comparisons of load methods under sparse sampling (Aulenbach & Hooper 2006; see 
 
 Uncertainty: a bootstrap over the samples (resampled with replacement, refitted, residuals
 re-interpolated; ``n_boot`` times, fixed seed) gives 95 % percentile intervals of the daily loads,
-the period loads and the total. Pure: no file I/O.
+the period loads and the total (standard error = interval width / 3.92). A resample with no more
+distinct samples than coefficients cannot be fitted and is left out. Pure: no file I/O.
 """
 
 from __future__ import annotations
@@ -81,6 +82,9 @@ def composite_load(
     t = np.arange(len(a.days), dtype=float)
 
     def predict(idx: np.ndarray) -> np.ndarray:
+        # a resample with no residual degree of freedom (too few distinct samples) cannot be fitted: left out
+        if len(np.unique(idx)) <= x_s.shape[1] or np.linalg.matrix_rank(x_s[idx]) < x_s.shape[1]:
+            return np.full(len(a.days), np.nan)
         coef, *_ = np.linalg.lstsq(x_s[idx], y[idx], rcond=None)
         resid = y[idx] - x_s[idx] @ coef
         out = np.where(positive, np.exp(x_d @ coef + np.interp(t, pos[idx], resid)), 0.0)

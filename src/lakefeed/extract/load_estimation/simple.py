@@ -7,7 +7,9 @@
 
 Uncertainty: a bootstrap over the samples (resampled with replacement, ``n_boot`` times, fixed
 seed) gives 95 % percentile intervals of the daily loads, the period loads and the total; the
-reported standard error is the bootstrap standard deviation. Takes numpy/pandas, returns
+reported standard error is the width of that interval / (2 x 1.96), not the bootstrap standard
+deviation, which a few near-degenerate resamples (e.g. of a handful of samples) can inflate
+many-fold. Takes numpy/pandas, returns
 :class:`~lakefeed.extract.load_estimation._common.LoadEstimate`. Pure: no file I/O.
 """
 
@@ -19,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.extract.load_estimation._common import (
+    Z95,
     LoadEstimate,
     Period,
     align,
@@ -39,10 +42,14 @@ def _bootstrap_indices(n: int, n_boot: int, seed: int) -> np.ndarray:
 
 
 def _intervals(boot: np.ndarray, axis: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """95 % percentile interval (lower, upper) and the standard error it implies, (upper - lower) / (2 x 1.96).
+
+    Replicates that are NaN (a resample that could not be fitted) are left out.
+    """
     with warnings.catch_warnings():  # days without flow are all-NaN columns: their interval is missing
         warnings.simplefilter("ignore", RuntimeWarning)
         lo, hi = np.nanpercentile(boot, [2.5, 97.5], axis=axis)
-        return lo, hi, np.nanstd(boot, axis=axis, ddof=1)
+        return lo, hi, (hi - lo) / (2 * Z95)
 
 
 def interpolation_load(

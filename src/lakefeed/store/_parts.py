@@ -1,0 +1,147 @@
+"""Part files of one table partition: naming, the live list, atomic file writes and consistent reads.
+
+A partition ``<store>/<table>/lake=<id>/`` holds one or more Parquet part files, together one
+Hive-partitioned table for pyarrow.dataset, pandas, DuckDB and Spark:
+
+- ``part-0.parquet`` (or ``part-0-<hash>.parquet``): the base, written by a full write;
+- ``part-<YYYYMMDD>.parquet``: rows keyed on or after that date, appended by an incremental
+  refresh (:meth:`lakefeed.store.Store.append_arrow`).
+
+The live list is the manifest entry's ``parts`` (name, rows, first and last key date, content
+hash): lakefeed's own readers use it (a snapshot: files not listed are ignored; a listed file
+that a concurrent full rewrite removed makes the reader re-read the manifest). Every write
+changes at most one listed file, in one rename, so any moment's files form the old or the new
+table. Stores without
+``parts`` (older ones, or written by other tools) are read by globbing ``part-*.parquet``.
+
+Temporary files are dot-files without the ``.parquet`` extension, so neither pyarrow.dataset
+(ignores ``.``/``_`` prefixes) nor a ``*.parquet`` glob (DuckDB, pandas, Spark) ever sees them.
+Must not compute any science.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import time
+import uuid
+from collections.abc import Callable, Sequence
+from typing import Any
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from lakefeed.exceptions import StoreError
+
+__all__ = ["BASE", "date_part_name", "glob_parts", "live_parts", "read_parts", "write_file"]
+
+BASE = "part-0.parquet"
+_RETRIES = 50
+
+
+def date_part_name(since: object) -> str:
+    """Name of an appended part holding rows keyed on or after ``since`` (a date)."""
+    import pandas as pd
+
+    return f"part-{pd.Timestamp(since):%Y%m%d}.parquet"
+
+
+def glob_parts(fs: Any, part_dir: str) -> list[str]:
+    """Part files present in a partition folder (sorted: base first, then by date)."""
+    try:
+        names = [p.rstrip("/").rsplit("/", 1)[-1] for p in fs.ls(part_dir, detail=False)]
+    except (FileNotFoundError, NotADirectoryError):
+        return []
+    return sorted(n for n in names if n.startswith("part-") and n.endswith(".parquet"))
+
+
+def live_parts(entry: dict[str, Any] | None, fs: Any, part_dir: str) -> list[str]:
+    """Names of the live parts: the manifest's list when it has one, else the folder's part files."""
+    if entry and entry.get("parts"):
+        return [p["file"] for p in entry["parts"]]
+    return glob_parts(fs, part_dir)
+
+
+def write_file(
+    fs: Any, local: bool, part_dir: str, name: str | Callable[[str], str], arrow: pa.Table, options: dict[str, Any]
+) -> tuple[str, str]:
+    """Write ``arrow`` aside (a dot-file), then move it to ``part_dir/name`` in one rename.
+
+    ``name`` may be a function of the file's SHA-256 (content-named parts). Returns (final name,
+    SHA-256 of the bytes). A failure removes the temporary file and leaves whatever was at the
+    final name before unchanged.
+    """
+    final = f"{part_dir}/{name}" if isinstance(name, str) else ""
+    tmp = f"{part_dir}/.tmp-{uuid.uuid4().hex}.pending"
+    try:
+        fs.makedirs(part_dir, exist_ok=True)
+        if local:
+            pq.write_table(arrow, tmp, **options)
+        else:
+            with fs.open(tmp, "wb") as f:
+                pq.write_table(arrow, f, **options)
+        digest = _digest(fs, tmp)
+        if not isinstance(name, str):
+            final = f"{part_dir}/{name(digest)}"
+        if local:
+            os.replace(tmp, final)
+        else:
+            fs.mv(tmp, final)
+    except BaseException as err:
+        try:
+            if fs.exists(tmp):
+                fs.rm(tmp)
+        except OSError:
+            pass
+        if isinstance(err, OSError):
+            raise StoreError(f"could not write {final or part_dir}: {err}; the previous version is unchanged") from err
+        raise
+    return final.rsplit("/", 1)[-1], digest
+
+
+def _digest(fs: Any, path: str) -> str:
+    h = hashlib.sha256()
+    with fs.open(path, "rb") as f:
+        while block := f.read(1 << 20):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _read_one(fs: Any, local: bool, path: str, columns: Sequence[str] | None) -> pa.Table:
+    cols = list(columns) if columns else None
+    if local:
+        return pq.read_table(path, columns=cols)
+    with fs.open(path, "rb") as f:
+        return pq.read_table(f, columns=cols)
+
+
+def read_parts(
+    fs: Any,
+    local: bool,
+    part_dir: str,
+    entry_of: Callable[[], dict[str, Any] | None],
+    *,
+    columns: Sequence[str] | None = None,
+) -> tuple[pa.Table | None, dict[str, Any] | None]:
+    """All live parts of a partition concatenated (schemas unified), and the manifest entry used.
+
+    Returns (None, entry) when the partition has no part. A concurrent full rewrite may remove a
+    listed part between the manifest read and the file read: the reader then re-reads the manifest.
+    """
+    for _ in range(_RETRIES):
+        entry = entry_of()
+        names = live_parts(entry, fs, part_dir)
+        if not names:
+            return None, entry
+        try:
+            tables = [_read_one(fs, local, f"{part_dir}/{n}", columns) for n in names]
+        except FileNotFoundError:
+            time.sleep(0.01)
+            continue
+        if len(tables) == 1:
+            return tables[0], entry
+        return pa.concat_tables(tables, promote_options="default"), entry
+    raise StoreError(
+        f"partition {part_dir} changed under the reader {_RETRIES} times (a writer is busy or the manifest "
+        "does not match the files); retry, or re-run the stage that writes it"
+    )
