@@ -120,7 +120,7 @@ def _break_sensors(root: Path) -> None:
 
 
 def _break_hydrology_ids(root: Path) -> None:
-    ds = _mini.hydrology_dataset(["a", "c", "d"], pd.date_range("2024-01-01", "2024-03-31", freq="D"))
+    ds = _mini.hydrology_dataset(["b", "c", "d"], pd.date_range("2024-01-01", "2024-03-31", freq="D"))
     ds.to_netcdf(root / "hydrology" / "subbasin_daily.nc")
 
 
@@ -150,7 +150,7 @@ BROKEN = {
     "off grid": (_break_lake_off_grid, ["lake (", "is not inside the weather grid of reanalysis_2024-01-01.nc"]),
     "units": (_break_variable, ["air_temperature ('air_temp') has units 'm s-1' (weather.units.air_temperature)"]),
     "sensors": (_break_sensors, ["configured sensor(s) ['owl'] have no scenes"]),
-    "hydrology ids": (_break_hydrology_ids, ["missing from the hydrology outputs: ['b']"]),
+    "hydrology ids": (_break_hydrology_ids, ["missing from the hydrology outputs: ['a']"]),
     "coverage": (_break_coverage, ["the sources do not overlap in time: forecast issues starts 2026-01-05"]),
 }
 
@@ -280,3 +280,17 @@ def test_problem_lines_name_file_key_and_what_to_do(mini: Path, case: str, expec
     assert result.exit_code == 1
     for text in expected:
         assert text in result.output, result.output
+
+
+def test_routed_outputs_need_only_the_direct_inflows(mini: Path) -> None:
+    """Regression: with routed discharge the stage reads only the direct inflows (and station sub-basins), but
+    check demanded every catchment sub-basin; with local runoff it needs them all."""
+    root = mini.parent.parent
+    ds = _mini.hydrology_dataset(["a", "c", "d"], pd.date_range("2024-01-01", "2024-03-31", freq="D"))  # no 'b'
+    ds.to_netcdf(root / "hydrology" / "subbasin_daily.nc")
+    code, out = check(str(mini))
+    assert code == 0, out
+    sources = next(p for p in (root / "config").glob("*.yaml") if "hydrology" in p.read_text())
+    edit_yaml(sources, lambda d: d["hydrology"].update(discharge_kind="local"))
+    code, out = check(str(mini))
+    assert code == 1 and "missing from the hydrology outputs: ['b']" in out, out

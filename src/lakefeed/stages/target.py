@@ -3,8 +3,8 @@
 Reads the scene catalogue and the AOI/lake polygons (:mod:`lakefeed.sources`), extracts windowed AOI
 statistics, screens them, harmonises the sensors, screens each AOI's harmonised series of all sensors
 once more (a sparse sensor's spike gets the frequent sensor's values as neighbours) and fuses same-day
-values (:mod:`lakefeed.extract`), and writes the store tables ``target_obs``, ``target_daily`` and ``sensor_bias``. Must not hold science
-of its own beyond wiring.
+values (:mod:`lakefeed.extract`), and writes the store tables ``target_obs``, ``target_daily`` and
+``sensor_bias``. Must not hold science of its own beyond wiring.
 """
 
 from __future__ import annotations
