@@ -269,7 +269,7 @@ def test_sources_file_given_instead_of_the_lake_file(mini: Path) -> None:
     [
         ("aoi outside", ["aois.gpkg (config key 'aois', field 'aoi_id'): AOI 'bathing_bay'"]),
         ("cycle", ["subbasins.gpkg (config key 'subbasins', fields 'subbasin_id' -> 'downstream_id'): cycle"]),
-        ("unknown key", ["edit that key in the file named (at the line given)"]),
+        ("unknown key", ["fix that key in the file named above (line given where known)"]),
     ],
 )
 def test_problem_lines_name_file_key_and_what_to_do(mini: Path, case: str, expected: list[str]) -> None:

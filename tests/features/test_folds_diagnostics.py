@@ -87,3 +87,39 @@ def test_default_minimum_is_140() -> None:
     assert d["warn_few_observations"].item()
     d = sampling_diagnostics(pd.DataFrame({"aoi": "a", "date": pd.date_range("2015-01-01", periods=140, freq="13D")}))
     assert not d["warn_few_observations"].item()
+
+
+@settings(deadline=None)
+@given(
+    st.lists(st.integers(0, 2000), min_size=1, max_size=120),
+    st.lists(st.integers(1, 400), max_size=40),
+    st.integers(2, 6),
+    st.integers(0, 20),
+)
+def test_frozen_folds_do_not_move_when_dates_are_appended(old: list[int], new: list[int], k: int, embargo: int) -> None:
+    """Property: with boundaries frozen on the old dates, the old dates keep the folds that blocked_folds
+    gives them, later dates join the last block; random (hashed) folds ignore the other dates."""
+    from lakefeed.features import date_hash_folds, fold_boundaries, folds_from_boundaries
+
+    day0 = pd.Timestamp("2015-01-01")
+    old_dates = day0 + pd.to_timedelta(old, unit="D")
+    later = day0 + pd.to_timedelta([max(old) + d for d in new], unit="D")
+    bounds = fold_boundaries(old_dates, k=k)
+    want = blocked_folds(old_dates, k=k, embargo_days=embargo)
+    both = folds_from_boundaries(old_dates.append(later), bounds, embargo_days=embargo)
+    np.testing.assert_array_equal(both[: len(old)], want)
+    last = min(k, len(set(old))) - 1
+    tail = both[len(old) :]
+    assert set(tail.tolist()) <= {last, EMBARGOED}
+    if last == 0 or embargo == 0:
+        assert (tail == last).all()
+    np.testing.assert_array_equal(
+        date_hash_folds(old_dates.append(later), k=k)[: len(old)], date_hash_folds(old_dates, k=k)
+    )
+
+
+def test_hashed_random_folds_are_about_balanced() -> None:
+    from lakefeed.features import date_hash_folds
+
+    f = date_hash_folds(pd.date_range("2000-01-01", periods=5000), k=5, seed=3)
+    assert set(f.tolist()) == {0, 1, 2, 3, 4} and np.bincount(f).min() > 900  # expected 1000 each

@@ -111,7 +111,11 @@ def _check_file(lake_file: Path) -> LakeReport:
     except ConfigError as err:
         problems = err.problems or [str(err)]
         report.results = [
-            failed("config", p, "edit that key in the file named (at the line given), then run lakefeed check again")
+            failed(
+                "config",
+                p,
+                "fix that key in the file named above (line given where known), then run lakefeed check again",
+            )
             for p in problems
         ]
         report.results.append(skipped("sources", "not opened: fix the configuration first"))

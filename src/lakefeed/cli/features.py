@@ -1,7 +1,11 @@
-"""`lakefeed features CONFIG... [--store DIR]`: build feature tables and print the sampling diagnostics.
+"""`lakefeed features CONFIG... [--store DIR] [--full | --rebuild] [--compact]`: build feature tables and
+print the sampling diagnostics.
 
 Parses arguments, loads the lake configurations and calls :func:`lakefeed.stages.features.build_features`
-for each lake; prints the diagnostics as a rich table. Holds no science.
+for each lake (incremental by default: only new dates are computed and appended as one part file;
+``--full`` recomputes every row keeping the frozen cross-validation folds; ``--rebuild`` also
+re-balances the fold blocks over all dates; ``--compact`` merges the table's part files into one);
+prints the diagnostics as a rich table. Holds no science.
 """
 
 from __future__ import annotations
@@ -60,12 +64,17 @@ def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
 def features(
     configs: list[Path] = typer.Argument(..., help="Lake configuration files or folders of them."),
     store: str | None = typer.Option(None, "--store", help="Store folder or fsspec URL [default: sources.yaml store]."),
+    full: bool = typer.Option(False, "--full", help="Recompute every row (folds stay as frozen)."),
+    rebuild: bool = typer.Option(False, "--rebuild", help="Recompute every row and re-balance the fold blocks."),
+    compact: bool = typer.Option(False, "--compact", help="Merge the feature table's part files into one."),
 ) -> None:
     """Build point-in-time feature tables, folds and sampling diagnostics; print the diagnostics."""
     projects = load_projects(list(configs))
     for project in projects:
         st = store_for(project, store)
-        result = build_features(project, st)
+        result = build_features(project, st, full=full, rebalance_folds=rebuild)
+        if compact and st.has_table("features", project.id):
+            st.compact("features", project.id)
         if result.skipped:
             console.print(f"[yellow]{project.id}: features skipped[/]: {result.reason}")
             continue

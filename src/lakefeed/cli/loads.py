@@ -66,7 +66,11 @@ def loads(
     flow: Path = typer.Option(..., "--flow", help="CSV: date, discharge (m3 s-1), daily."),
     method: str = typer.Option("rating_curve", "--method", help=f"Method written by --out: {', '.join(METHOD_NAMES)}."),
     out: Path | None = typer.Option(None, "--out", help="Write the chosen method's loads (.csv or .parquet)."),
-    nutrient: str | None = typer.Option(None, "--nutrient", help="Which nutrient, when the samples hold several."),
+    nutrient: str | None = typer.Option(
+        None,
+        "--nutrient",
+        help="Which nutrient, when the samples hold several (a 'nutrient' column, or one column per nutrient).",
+    ),
     period: str = typer.Option(
         "record", "--period", help="Periods of the period estimators (Beale, fwmc): the whole record or each year."
     ),

@@ -107,9 +107,9 @@ class SampleStation(StrictModel):
     subbasin: str | None = None
     flow_path: str | None = None
     units: str = "mg L-1"
-    method: Literal[
-        "interpolation", "rating_curve", "beale", "beale_season", "beale_flow", "fwmc", "composite"
-    ] = "rating_curve"
+    method: Literal["interpolation", "rating_curve", "beale", "beale_season", "beale_flow", "fwmc", "composite"] = (
+        "rating_curve"
+    )
     rating_correction: Literal["duan", "ferguson"] = "duan"
     rating_seasonal: bool = False
     rating_trend: bool = False

@@ -63,9 +63,11 @@ def _one(days: np.ndarray, start: np.datetime64 | None, end: np.datetime64 | Non
     for name, (lo, hi) in GAP_BINS.items():
         row[f"gaps_{name}"] = int(((gaps >= lo) & ((gaps <= hi) if hi is not None else True)).sum())
     if pd.notna(rec_start) and pd.notna(rec_end):
-        all_months = pd.period_range(rec_start, rec_end, freq="M")
-        seen = set(dates.to_period("M"))
-        row["coverage_fraction"] = len(seen & set(all_months)) / len(all_months) if len(all_months) else np.nan
+        first_m, last_m = (rec_start.year * 12 + rec_start.month - 1), (rec_end.year * 12 + rec_end.month - 1)
+        seen = np.unique(dates.year.to_numpy() * 12 + dates.month.to_numpy() - 1)  # month numbers, vectorised
+        n_months = last_m - first_m + 1
+        inside = int(((seen >= first_m) & (seen <= last_m)).sum())
+        row["coverage_fraction"] = inside / n_months if n_months > 0 else np.nan
     else:
         row["coverage_fraction"] = 0.0
     warns = []

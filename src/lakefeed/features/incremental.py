@@ -25,13 +25,27 @@ from lakefeed.features.windows import as_dates
 __all__ = ["new_feature_rows", "prefix_digest", "refresh_feature_rows", "refresh_start"]
 
 
-def prefix_digest(frame: pd.DataFrame, *, date_column: str, through: object) -> str:
-    """SHA-256 of the rows dated on or before ``through`` (content and row order; pass sorted frames)."""
-    dates = as_dates(frame[date_column])
-    part = frame[dates <= pd.Timestamp(through)]
-    hashed = pd.util.hash_pandas_object(part, index=False).to_numpy()
-    h = hashlib.sha256(np.ascontiguousarray(hashed).tobytes())
-    h.update(",".join(map(str, part.columns)).encode())
+def prefix_digest(frame: pd.DataFrame, *, date_column: str | None, through: object) -> str:
+    """SHA-256 of the rows dated on or before ``through`` (content and row order; pass sorted frames).
+
+    ``date_column=None`` uses the index as the date. Numeric and date columns are hashed as their
+    raw bytes (NaN-safe, no per-row Python work), other columns as their text.
+    """
+    dates = as_dates(frame.index if date_column is None else frame[date_column]).to_numpy()
+    end = np.datetime64(pd.Timestamp(through))
+    keep: slice | np.ndarray
+    if (np.diff(dates) >= np.timedelta64(0)).all():  # sorted by date: a prefix, no copy
+        keep = slice(0, int(np.searchsorted(dates, end, side="right")))
+    else:
+        keep = np.flatnonzero(dates <= end)
+    h = hashlib.sha256(",".join(map(str, frame.columns)).encode())
+    h.update(np.ascontiguousarray(dates[keep]).tobytes())
+    for c in frame.columns:
+        v = frame[c].to_numpy()[keep]
+        if v.dtype.kind in "fiubmM":
+            h.update(np.ascontiguousarray(v).tobytes())
+        else:
+            h.update("\x1f".join(map(str, v)).encode())
     return h.hexdigest()
 
 

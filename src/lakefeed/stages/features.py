@@ -139,10 +139,9 @@ def _config_hash(project: Project, columns: list[str]) -> str:
 
 
 def _digests(frames: dict[str | None, pd.DataFrame], targets: pd.DataFrame, through: tuple[object, object]) -> str:
-    drv = pd.concat({str(k): f for k, f in frames.items()}, names=["key", "date"]).reset_index()
-    return prefix_digest(drv, date_column="date", through=through[0]) + prefix_digest(
-        targets, date_column="date", through=through[1]
-    )
+    """Fingerprint of the inputs up to the 'known through' dates (drivers, targets)."""
+    parts = [prefix_digest(f, date_column=None, through=through[0]) for _, f in sorted(frames.items(), key=lambda kv: str(kv[0]))]
+    return ";".join([*parts, prefix_digest(targets, date_column="date", through=through[1])])
 
 
 def _to_arrow(frame: pd.DataFrame) -> pa.Table:

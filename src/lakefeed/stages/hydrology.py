@@ -174,6 +174,8 @@ def build_hydrology(project: Project, store: Store, *, progress: Progress | None
             "direct_inflows": ",".join(catchment.direct_inflows),
             "catchment_subbasins": ",".join(catchment.subbasin_ids),
             "catchment_area_km2": f"{catchment.area_km2:.6g}",
+            "catchment_n_subbasins": str(catchment.n_subbasins),
+            "subbasins_overlapping_lake": ",".join(catchment.overlapping),
             "discharge_kind": hyd.discharge_kind,
             "source": str(hyd.path or Path(next(iter(hyd.files.values())))),
         }

@@ -11,6 +11,7 @@ refused.
 from __future__ import annotations
 
 import json
+import os
 import uuid
 from typing import Any
 
@@ -42,10 +43,28 @@ def check_schema_version(manifest: dict[str, Any], root: str) -> None:
         )
 
 
-def read_manifest(fs: Any, root: str) -> dict[str, Any]:
-    """The store's manifest (an empty one when the store has none); checks the schema version."""
+_CACHE: dict[str, tuple[tuple[int, int, int], dict[str, Any]]] = {}
+
+
+def read_manifest(fs: Any, root: str, *, shared: bool = False) -> dict[str, Any]:
+    """The store's manifest (an empty one when the store has none); checks the schema version.
+
+    Local manifests are parsed once per version (cached on inode, size and modification time; the
+    manifest is always replaced by a rename, so a new version has a new inode). ``shared=True`` returns
+    the cached object itself (read-only use: do not modify it); otherwise a fresh copy.
+    """
     path = f"{root}/{MANIFEST_NAME}"
-    if not fs.exists(path):
+    key = None
+    if _is_local(fs):
+        try:
+            st = os.stat(path)
+        except FileNotFoundError:
+            return empty_manifest()
+        key = (st.st_ino, st.st_size, st.st_mtime_ns)
+        hit = _CACHE.get(path)
+        if hit is not None and hit[0] == key:
+            return hit[1] if shared else _copy(hit[1])
+    elif not fs.exists(path):
         return empty_manifest()
     try:
         with fs.open(path, "rb") as f:
@@ -53,13 +72,27 @@ def read_manifest(fs: Any, root: str) -> dict[str, Any]:
     except (OSError, ValueError) as err:
         raise StoreError(f"store manifest {path} cannot be read ({err}); restore it or rebuild the store") from err
     check_schema_version(manifest, root)
+    if key is not None:
+        _CACHE[path] = (key, manifest)
+        return manifest if shared else _copy(manifest)
     return manifest
+
+
+def _copy(manifest: dict[str, Any]) -> dict[str, Any]:
+    """A copy whose top level, ``tables`` and per-table dicts are new: a writer replaces a partition's
+    entry (never edits one in place), so the entries themselves can be shared."""
+    tables = {t: dict(v) for t, v in manifest.get("tables", {}).items()}
+    return {**manifest, "tables": tables}
+
+
+def _is_local(fs: Any) -> bool:
+    from lakefeed.store._fs import is_local
+
+    return is_local(fs)
 
 
 def write_manifest(fs: Any, root: str, manifest: dict[str, Any], *, local: bool) -> None:
     """Write the manifest atomically (aside, then replace); keys sorted for stable bytes."""
-    import os
-
     manifest = dict(manifest, schema_version=SCHEMA_VERSION, package_version=__version__)
     data = json.dumps(manifest, indent=1, sort_keys=True, default=str).encode()
     path = f"{root}/{MANIFEST_NAME}"
@@ -68,5 +101,7 @@ def write_manifest(fs: Any, root: str, manifest: dict[str, Any], *, local: bool)
         f.write(data)
     if local:
         os.replace(tmp, path)
+        st = os.stat(path)
+        _CACHE[path] = ((st.st_ino, st.st_size, st.st_mtime_ns), manifest)
     else:
         fs.mv(tmp, path)

@@ -1,21 +1,30 @@
 """Parquet I/O of store tables with per-column units, a manifest, a writer lock and atomic replace.
 
-Takes pandas DataFrames; writes ``<store>/<table>/lake=<id>/part-0.parquet`` (Hive
+Takes pandas DataFrames; writes ``<store>/<table>/lake=<id>/part-*.parquet`` (Hive
 partitioning, readable unchanged by pyarrow.dataset, pandas, DuckDB and Spark) on a local
 folder or any fsspec URL; reads them back with their units in ``frame.attrs['units']``.
 Must not compute any science.
 
-Writes are atomic: the file is written aside (a dot-file, which pyarrow.dataset and the
-store's globs ignore) and moved into place (``os.replace`` locally; ``fs.mv`` elsewhere,
-atomic only where the filesystem's rename is). A crash leaves the previous version intact.
+Writes are atomic: each file is written aside (a dot-file without the ``.parquet`` extension,
+which no reader's glob matches) and moved into place in one rename (``os.replace`` locally;
+``fs.mv`` elsewhere, atomic only where the filesystem's rename is); the manifest, which lists
+the live part files, is replaced last. A crash leaves the previous version intact.
+
+- ``write_table``/``write_arrow`` (full): a partition of one part is replaced in place (one
+  rename: every reader sees the old or the new table). A partition of several parts gets a new,
+  content-named base part; the manifest switches to it, then the old parts are removed (lakefeed's
+  readers switch at the manifest; a plain glob may see both for that moment, or after a crash
+  until the next write removes the unlisted file).
+- ``append_arrow`` (incremental): adds one part or rewrites the last one, in one rename; a plain
+  glob read never sees a key twice, at any moment.
+- ``compact``: merges the parts (a full write of the same rows).
+
 Writes are idempotent: the same frame gives the same bytes. One writer at a time per store
 (:func:`lakefeed.store._lock.store_lock`).
 """
 
 from __future__ import annotations
 
-import hashlib
-import json
 import os
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
@@ -27,80 +36,27 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from lakefeed.exceptions import StoreError
-from lakefeed.store._fs import file_digest, is_local, resolve
+from lakefeed.store._fs import is_local, resolve
 from lakefeed.store._lock import store_lock
 from lakefeed.store._manifest import read_manifest, write_manifest
+from lakefeed.store._meta import (
+    entry_of,
+    make_entry,
+    read_descriptions,
+    read_units,
+    schema_with_units,
+    time_range,
+    write_options,
+)
 from lakefeed.store._parts import BASE, _read_one, date_part_name, glob_parts, live_parts, read_parts, write_file
 from lakefeed.store.layout import partition_path, table_path
 
 __all__ = ["PART", "Store", "read_units"]
 
 PART = BASE
-#: Candidate time columns for a table's time range in the manifest, in order of preference.
-TIME_COLUMNS = ("target_date", "date", "time", "issue_date")
-
-
-def _schema_with_units(
-    table: pa.Table, units: Mapping[str, str], descriptions: Mapping[str, str], extra: Mapping[str, str]
-) -> pa.Schema:
-    fields = []
-    for f in table.schema:
-        md = dict(f.metadata or {})
-        if f.name in units:
-            md[b"unit"] = units[f.name].encode()
-        if f.name in descriptions:
-            md[b"description"] = descriptions[f.name].encode()
-        fields.append(f.with_metadata(md or None))
-    meta = dict(table.schema.metadata or {})
-    meta[b"lakefeed.units"] = json.dumps(dict(units), sort_keys=True).encode()
-    if descriptions:
-        meta[b"lakefeed.descriptions"] = json.dumps(dict(descriptions), sort_keys=True).encode()
-    for k, v in extra.items():
-        meta[f"lakefeed.{k}".encode()] = str(v).encode()
-    return pa.schema(fields, metadata=meta)
-
-
-def _write_options(schema: pa.Schema) -> dict[str, Any]:
-    """Parquet options: microsecond timestamps (readable by Spark, which rejects nanoseconds);
-    dictionary encoding and statistics for keys, dates and labels, not for float measurements
-    (wide feature tables write several times faster; predicate pushdown works on keys and dates)."""
-    other = [f.name for f in schema if not pa.types.is_floating(f.type)]
-    return {
-        "coerce_timestamps": "us",
-        "allow_truncated_timestamps": True,
-        "use_dictionary": other,
-        "write_statistics": other,
-    }
-
-
-def read_units(schema: pa.Schema) -> dict[str, str]:
-    """Per-column units stored in a schema (field metadata ``unit``)."""
-    out = {}
-    for f in schema:
-        if f.metadata and b"unit" in f.metadata:
-            out[f.name] = f.metadata[b"unit"].decode()
-    return out
-
-
-def read_descriptions(schema: pa.Schema) -> dict[str, str]:
-    """Per-column descriptions stored in a schema (field metadata ``description``)."""
-    return {f.name: f.metadata[b"description"].decode() for f in schema if f.metadata and b"description" in f.metadata}
-
-
-def _time_range(arrow: pa.Table, time_column: str | None) -> tuple[str | None, list[str | None]]:
-    col = time_column or next((c for c in TIME_COLUMNS if c in arrow.column_names), None)
-    if col is None or col not in arrow.column_names or arrow.num_rows == 0:
-        return col, [None, None]
-    try:
-        mm = pc.min_max(arrow[col]).as_py()
-    except (pa.ArrowNotImplementedError, pa.ArrowInvalid, TypeError):
-        return col, [None, None]
-    if mm["min"] is None:
-        return col, [None, None]
-    try:
-        return col, [pd.Timestamp(mm["min"]).isoformat(), pd.Timestamp(mm["max"]).isoformat()]
-    except (TypeError, ValueError):
-        return col, [None, None]
+# names used by other modules before the split into _meta (kept importable)
+_schema_with_units = schema_with_units
+_write_options = write_options
 
 
 class Store:
@@ -162,9 +118,13 @@ class Store:
         """The store's manifest (schema version, package version, per-table provenance)."""
         return read_manifest(self.fs, self.path)
 
+    def _view(self) -> dict[str, Any]:
+        """The manifest for reading only (shared, not copied)."""
+        return read_manifest(self.fs, self.path, shared=True)
+
     def entry(self, table: str, lake: str) -> dict[str, Any] | None:
-        """Manifest entry of one table partition, or None."""
-        return self.manifest().get("tables", {}).get(table, {}).get(lake)
+        """Manifest entry of one table partition, or None (read-only: do not modify it)."""
+        return self._view().get("tables", {}).get(table, {}).get(lake)
 
     # -- writing ----------------------------------------------------------------------------
     def write_table(
@@ -179,6 +139,7 @@ class Store:
         inputs: Mapping[str, str] | Sequence[str] | None = None,
         config_hash: str | None = None,
         time_column: str | None = None,
+        sort_by: Sequence[str] | None = None,
     ) -> str:
         """Atomically replace the partition of ``lake`` in ``table`` with ``frame``; record it in the manifest.
 
@@ -196,6 +157,9 @@ class Store:
             Hash of the configuration that produced the table.
         time_column
             Column giving the table's time range (default: the first of target_date, date, time).
+        sort_by
+            Key columns by which readers sort the rows once the partition holds several part files
+            (after :meth:`append_arrow`).
 
         Returns
         -------
@@ -215,6 +179,7 @@ class Store:
             inputs=inputs,
             config_hash=config_hash,
             time_column=time_column,
+            sort_by=sort_by,
         )
 
     def write_arrow(
@@ -238,19 +203,19 @@ class Store:
         """
         if "lake" in arrow.column_names:
             arrow = arrow.drop_columns(["lake"])
-        arrow = arrow.cast(_schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
+        arrow = arrow.cast(schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
         part_dir = partition_path(self.path, table, lake)
         with self.lock():
             manifest = self.manifest()
-            old = live_parts(_entry(manifest, table, lake), self.fs, part_dir)
+            old = live_parts(entry_of(manifest, table, lake), self.fs, part_dir)
             # a single base part is replaced in place (one rename: atomic for every reader); a partition
             # of several parts gets a new, content-named base, listed in the manifest before the old
             # parts are removed (lakefeed's readers switch at the manifest; see the module docstring)
             name: Any = BASE if BASE not in old or old == [BASE] else (lambda d: f"part-0-{d[:16]}.parquet")
-            name, digest = write_file(self.fs, self.local, part_dir, name, arrow, _write_options(arrow.schema))
-            col, trange = _time_range(arrow, time_column)
+            name, digest = write_file(self.fs, self.local, part_dir, name, arrow, write_options(arrow.schema))
+            col, trange = time_range(arrow, time_column)
             parts = [{"file": name, "rows": arrow.num_rows, "first": trange[0], "last": trange[1], "sha256": digest}]
-            entry = _make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by)
+            entry = make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by)
             manifest.setdefault("tables", {}).setdefault(table, {})[lake] = entry
             write_manifest(self.fs, self.path, manifest, local=self.local)
             self._remove_unlisted(part_dir, [name])
@@ -294,12 +259,12 @@ class Store:
         part_dir = partition_path(self.path, table, lake)
         if "lake" in arrow.column_names:
             arrow = arrow.drop_columns(["lake"])
-        arrow = arrow.cast(_schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
+        arrow = arrow.cast(schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
         kw = dict(units=units, descriptions=descriptions, metadata=metadata, inputs=inputs, config_hash=config_hash,
                   time_column=time_column, sort_by=sort_by)  # fmt: skip
         with self.lock():
             manifest = self.manifest()
-            entry = _entry(manifest, table, lake)
+            entry = entry_of(manifest, table, lake)
             parts = [dict(p) for p in (entry or {}).get("parts") or []]
             if not parts or not self.fs.exists(f"{part_dir}/{parts[0]['file']}"):
                 return self.write_arrow(table, lake, arrow, **kw)  # type: ignore[arg-type]
@@ -321,11 +286,11 @@ class Store:
                 name = date_part_name(since)
             if len(parts) + 1 > max_parts:
                 return self._rewrite(table, lake, [(since, arrow)], **kw)
-            name, digest = write_file(self.fs, self.local, part_dir, name, arrow, _write_options(arrow.schema))
-            col, trange = _time_range(arrow, time_column)
+            name, digest = write_file(self.fs, self.local, part_dir, name, arrow, write_options(arrow.schema))
+            col, trange = time_range(arrow, time_column)
             parts.append({"file": name, "rows": arrow.num_rows, "first": trange[0], "last": trange[1],
                           "sha256": digest})  # fmt: skip
-            new = _make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by)
+            new = make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by)
             manifest.setdefault("tables", {}).setdefault(table, {})[lake] = new
             write_manifest(self.fs, self.path, manifest, local=self.local)
             self._remove_unlisted(part_dir, [p["file"] for p in parts])
@@ -377,7 +342,7 @@ class Store:
         root = table_path(self.path, table)
         if not self.fs.exists(root):
             return []
-        entries = self.manifest().get("tables", {}).get(table, {})
+        entries = self._view().get("tables", {}).get(table, {})
         out = []
         for p in self.fs.ls(root, detail=False):
             name = p.rstrip("/").rsplit("/", 1)[-1]
@@ -421,7 +386,7 @@ class Store:
         Several part files are concatenated and sorted by the keys recorded at write time, so the
         result equals that of one full write.
         """
-        self.manifest()  # refuses newer schema versions
+        self._view()  # refuses newer schema versions
         part_dir = partition_path(self.path, table, lake)
         arrow, entry = read_parts(self.fs, self.local, part_dir, lambda: self.entry(table, lake), columns=columns)
         if arrow is None:
@@ -455,41 +420,4 @@ class Store:
 
     def has_table(self, table: str, lake: str) -> bool:
         """True when ``table`` has a partition for ``lake``."""
-        return self._present(table, lake, self.manifest().get("tables", {}).get(table, {}))
-
-
-def _entry(manifest: Mapping[str, Any], table: str, lake: str) -> dict[str, Any] | None:
-    return manifest.get("tables", {}).get(table, {}).get(lake)
-
-
-def _make_entry(
-    arrow: pa.Table,
-    parts: list[dict[str, Any]],
-    time_column: str | None,
-    inputs: Mapping[str, str] | Sequence[str] | None,
-    config_hash: str | None,
-    metadata: Mapping[str, str] | None,
-    sort_by: Sequence[str] | None,
-) -> dict[str, Any]:
-    """Manifest entry of a partition: totals over its parts, provenance, the live part list."""
-    hashes = dict(inputs) if isinstance(inputs, Mapping) else {str(p): file_digest(p) for p in (inputs or [])}
-    firsts = [p["first"] for p in parts if p["first"] is not None]
-    lasts = [p["last"] for p in parts if p["last"] is not None]
-    trange = [min(firsts, key=pd.Timestamp) if firsts else None, max(lasts, key=pd.Timestamp) if lasts else None]
-    content = (
-        parts[0]["sha256"]
-        if len(parts) == 1
-        else hashlib.sha256(",".join(p["sha256"] for p in parts).encode()).hexdigest()
-    )
-    return {
-        "rows": int(sum(p["rows"] for p in parts)),
-        "columns": list(arrow.column_names),
-        "time_column": time_column,
-        "time_range": trange,
-        "config_hash": config_hash,
-        "inputs": dict(sorted(hashes.items())),
-        "content_hash": content,
-        "metadata": dict(metadata or {}),
-        "parts": parts,
-        "sort_by": list(sort_by or []),
-    }
+        return self._present(table, lake, self._view().get("tables", {}).get(table, {}))
