@@ -59,7 +59,8 @@ def test_catchment_temperature_matches_an_independent_computation(built, small_s
     poly = gpd.GeoDataFrame(geometry=[catch.polygon], crs=subs.crs).to_crs(4326)
     start = pd.Timestamp(day).tz_localize(project.lake.timezone).tz_convert("UTC").tz_localize(None)
     files = sorted((small_sample / "weather").glob("reanalysis_*.nc"))
-    ds = xr.open_mfdataset(files).sel(time=slice(start, start + pd.Timedelta("23h")))
+    ds = xr.open_mfdataset(files, data_vars="minimal", coords="minimal", compat="override")
+    ds = ds.sel(time=slice(start, start + pd.Timedelta("23h")))
     lat, lon = ds["latitude"].values, ds["longitude"].values
     res = abs(float(lon[1] - lon[0]))
     wkt = pyproj.CRS("EPSG:4326").to_wkt()

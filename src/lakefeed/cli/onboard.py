@@ -8,7 +8,9 @@ what to review. ``build`` and ``refresh`` run the Prefect flows of :mod:`lakefee
 
 from __future__ import annotations
 
+import contextlib
 import os
+from collections.abc import Iterator
 from pathlib import Path
 
 import geopandas as gpd
@@ -200,6 +202,23 @@ def _run_checks(lake_file: Path) -> None:
             console.print(f"  [{colour}]{r.status:<8}[/] {escape(r.name)}: {escape(r.message)}{escape(hint)}")
 
 
+@contextlib.contextmanager
+def _bars(sequential: bool) -> Iterator[None]:
+    """Progress bars when stages run in this process; on Dask workers the flows log per-lake progress."""
+    if not sequential:
+        yield
+        return
+    from lakefeed.cli.demo import progress_bars
+    from lakefeed.flows._runtime import set_progress
+
+    with progress_bars() as bar:
+        set_progress(bar)
+        try:
+            yield
+        finally:
+            set_progress(None)
+
+
 def _print_summary(summaries: list[dict]) -> bool:
     table = Table(title="run summary")
     for c in ("lake", "status", "new rows", "stages run", "skipped / error"):
@@ -233,14 +252,15 @@ def build_command(
     """Full build: validate, derive geometry and weights, backfill the whole record, write the reports."""
     from lakefeed.flows.refresh import build_lake
 
-    summaries = build_lake(
-        [str(c) for c in configs],
-        store=str(store) if store else None,
-        dask_address=dask_address,
-        sequential=sequential,
-        wait=wait,
-        report=report,
-    )
+    with _bars(sequential):
+        summaries = build_lake(
+            [str(c) for c in configs],
+            store=str(store) if store else None,
+            dask_address=dask_address,
+            sequential=sequential,
+            wait=wait,
+            report=report,
+        )
     if not _print_summary(summaries):
         raise typer.Exit(1)
 
@@ -256,12 +276,13 @@ def refresh_command(
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
 
-    summaries = refresh(
-        [str(config_dir)],
-        store=str(store) if store else None,
-        dask_address=dask_address,
-        sequential=sequential,
-        wait=wait,
-    )
+    with _bars(sequential):
+        summaries = refresh(
+            [str(config_dir)],
+            store=str(store) if store else None,
+            dask_address=dask_address,
+            sequential=sequential,
+            wait=wait,
+        )
     if not _print_summary(summaries):
         raise typer.Exit(1)

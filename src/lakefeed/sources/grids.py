@@ -151,7 +151,11 @@ def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
     engine = _engine(path)
     try:
         if engine == "zarr":
-            ds = xr.open_zarr(path, chunks=None, mask_and_scale=False)
+            meta = path / "zarr.json"
+            consolidated = (path / ".zmetadata").exists() or (
+                meta.exists() and '"consolidated_metadata"' in meta.read_text(encoding="utf-8")
+            )
+            ds = xr.open_zarr(path, chunks=None, mask_and_scale=False, consolidated=consolidated)
         else:
             import netCDF4
 

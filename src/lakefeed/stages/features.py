@@ -140,21 +140,26 @@ def _config_hash(project: Project, columns: list[str]) -> str:
 
 def _digests(frames: dict[str | None, pd.DataFrame], targets: pd.DataFrame, through: tuple[object, object]) -> str:
     """Fingerprint of the inputs up to the 'known through' dates (drivers, targets)."""
-    parts = [prefix_digest(f, date_column=None, through=through[0]) for _, f in sorted(frames.items(), key=lambda kv: str(kv[0]))]
+    parts = [
+        prefix_digest(f, date_column=None, through=through[0])
+        for _, f in sorted(frames.items(), key=lambda kv: str(kv[0]))
+    ]
     return ";".join([*parts, prefix_digest(targets, date_column="date", through=through[1])])
 
 
 def _to_arrow(frame: pd.DataFrame) -> pa.Table:
     """A wide feature frame as Arrow, converting the float block at once (pyarrow's per-column
-    pandas conversion dominates otherwise). NaN becomes null, as with ``pa.Table.from_pandas``."""
+    pandas conversion dominates otherwise): one Arrow array for all float columns, sliced per
+    column without copies. NaN becomes null, as with ``pa.Table.from_pandas``."""
     kinds = dict(zip(frame.columns, (dt.kind for dt in frame.dtypes), strict=True))
     floats = [c for c in frame.columns if kinds[c] == "f"]
-    block = np.asfortranarray(frame[floats].to_numpy(dtype=np.float64)) if floats else None
+    n = len(frame)
+    flat = pa.array(frame[floats].to_numpy(dtype=np.float64).ravel(order="F"), type=pa.float64(), from_pandas=True)
     at = {c: i for i, c in enumerate(floats)}
     arrays = []
     for c in frame.columns:
         if c in at:
-            arrays.append(pa.array(block[:, at[c]], type=pa.float64(), from_pandas=True))
+            arrays.append(flat.slice(at[c] * n, n))
         else:
             arrays.append(pa.Array.from_pandas(frame[c]))
     return pa.Table.from_arrays(arrays, names=list(frame.columns))

@@ -94,7 +94,7 @@ def _is_local(fs: Any) -> bool:
 def write_manifest(fs: Any, root: str, manifest: dict[str, Any], *, local: bool) -> None:
     """Write the manifest atomically (aside, then replace); keys sorted for stable bytes."""
     manifest = dict(manifest, schema_version=SCHEMA_VERSION, package_version=__version__)
-    data = json.dumps(manifest, indent=1, sort_keys=True, default=str).encode()
+    data = json.dumps(manifest, sort_keys=True, separators=(",", ":"), default=str).encode()  # C encoder: fast
     path = f"{root}/{MANIFEST_NAME}"
     tmp = f"{root}/.tmp-manifest-{uuid.uuid4().hex}.json"
     with fs.open(tmp, "wb") as f:
