@@ -26,7 +26,12 @@ def test_demo_end_to_end(small_sample, tmp_path, monkeypatch) -> None:
     monkeypatch.delenv("PREFECT_API_URL", raising=False)
     demo = tmp_path / "demo"
     shutil.copytree(small_sample, demo / "sample")  # reused, not regenerated
-    result = CliRunner().invoke(app, ["demo", str(demo)])
+    try:
+        result = CliRunner().invoke(app, ["demo", str(demo)])
+    finally:  # stop Prefect's temporary local server now, not at interpreter exit (streams closed by then)
+        from prefect.server.api.server import SubprocessASGIServer
+
+        SubprocessASGIServer().stop()
     assert result.exit_code == 0, result.output
     assert "reusing the sample scenario" in result.output
     store = demo / "store"

@@ -10,9 +10,13 @@ Incremental refresh: when the previous ``features`` were built with the same con
 from inputs whose old part is unchanged, only rows from the first new date on are recomputed
 (from the drivers of the longest window's spill-over) and appended as one part file
 (:meth:`lakefeed.store.Store.append_arrow`); the old rows are neither read nor rewritten.
-Blocked fold boundaries are frozen at the first build (manifest metadata ``fold_boundaries``):
-later dates join the last block, so no stored row changes fold; ``rebalance_folds=True``
-(CLI ``--rebuild``) re-derives them. Must not hold science of its own beyond wiring.
+Rows whose target date lies after the end of an input (the next refresh recomputes them) are
+written as a part of their own, so that refresh rewrites only that small part. Blocked fold
+boundaries are frozen at the first build (manifest metadata ``fold_boundaries``, per AOI):
+later dates join the last block, so no stored row changes fold (an AOI with fewer dates than
+folds at its first build keeps fewer blocks); ``rebalance_folds=True`` (CLI ``--rebuild``)
+re-derives them. Random folds are a hash of the target date. Must not hold science of its own
+beyond wiring.
 """
 
 from __future__ import annotations
