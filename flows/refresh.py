@@ -282,16 +282,21 @@ def build_lake(
     """
     from lakefeed.checks import check_project
 
-    projects, _ = _load(configs)
+    projects, rejected = _load(configs)
     good = []
     for lake, p in projects.items():
         problems = [f"{r.name}: {r.message}" for r in check_project(p) if r.status == "problem"]
         if problems:
             get_run_logger().error("lake %s: checks failed: %s", lake, "; ".join(problems))
+            rejected.append({"lake": lake, "status": "failed", "error": "checks failed: " + "; ".join(problems)})
         else:
             good.append(str(p.lake_file))
     if not good:
-        raise ConfigError("no lake passed the checks; run `lakefeed check` for details")
+        print(format_summary(rejected))
+        raise ConfigError(
+            "no lake passed the checks; fix these and see `lakefeed check`",
+            [f"{r['lake']}: {r['error']}" for r in rejected],
+        )
     summaries = _run(
         good,
         store=store,
@@ -302,6 +307,7 @@ def build_lake(
         what="build",
         stages=stages,
     )
+    summaries += rejected
     if report:
         from lakefeed.report import write_report
 

@@ -153,3 +153,16 @@ def test_refresh_completes_after_an_interrupted_write(sequential_run) -> None:
     assert summary["alder"]["status"] == "ok" and summary["alder"]["stages_run"] == "weather"
     assert summary["birch"]["status"] == "unchanged"
     assert len(Store(str(root)).read_table("drivers_daily", "alder")) > 0
+
+
+def test_build_lake_validates_backfills_and_reports(small_sample, prefect_server, tmp_path) -> None:
+    from lakefeed.flows.refresh import build_lake
+
+    missing = str(tmp_path / "nowhere" / "reanalysis_*.nc")
+    cfg = write_variants(small_sample, tmp_path / "config", ["fresh", "lost"], broken={"lost": missing})
+    summary = {s["lake"]: s for s in build_lake([str(cfg)], sequential=True, stages=["weather"])}
+    assert summary["fresh"]["status"] == "ok" and summary["fresh"]["stages_run"] == "weather"
+    assert summary["lost"]["status"] == "failed" and summary["lost"]["error"].startswith("checks failed")
+    root = tmp_path / "store"
+    assert (root / "reports" / "fresh.html").exists() and not (root / "reports" / "lost.html").exists()
+    assert json.loads(state_path(root, "fresh").read_text())["stages"] == {"weather": ["drivers_daily"]}
