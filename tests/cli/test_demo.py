@@ -28,9 +28,13 @@ def test_demo_end_to_end(small_sample, tmp_path, monkeypatch) -> None:
     shutil.copytree(small_sample, demo / "sample")  # reused, not regenerated
     try:
         result = CliRunner().invoke(app, ["demo", str(demo)])
-    finally:  # stop Prefect's temporary local server now, not at interpreter exit (streams closed by then)
+    finally:  # flush Prefect's logs and events, then stop its temporary local server (not at interpreter exit)
+        from prefect.events.worker import EventsWorker
+        from prefect.logging.handlers import APILogWorker
         from prefect.server.api.server import SubprocessASGIServer
 
+        APILogWorker.drain_all(timeout=20)
+        EventsWorker.drain_all(timeout=20)
         SubprocessASGIServer().stop()
     assert result.exit_code == 0, result.output
     assert "reusing the sample scenario" in result.output

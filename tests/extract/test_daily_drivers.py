@@ -83,3 +83,41 @@ def test_radiation_above_clear_sky_is_flagged_and_humidity_columns():
 def test_missing_variable_is_an_error():
     with pytest.raises(ExtractError, match="wind_speed"):
         to_daily(_hourly("2024-06-01", 24).drop_vars("wind_speed"), tz="UTC", latitude={"z": 50.0})
+
+
+def test_flags_stay_on_their_own_zone_when_incomplete_days_differ():
+    """Regression: z0 misses an hour on 11 January, z1 on 10 and 12 January; each flag stays on its zone."""
+    h = _hourly("2024-01-10 00:00", 24 * 4, zones=("z0", "z1"))
+    h["air_temperature"][30, 0] = np.nan  # 11 January 06 UTC, zone z0
+    h["air_temperature"][5, 1] = np.nan  # 10 January 05 UTC, zone z1
+    h["dewpoint"][53, 1] = np.nan  # 12 January 05 UTC, zone z1
+    d = to_daily(h, tz="UTC", latitude={"z0": 50.0, "z1": 51.0})
+    d = d.loc[d["date"].between("2024-01-10", "2024-01-12")]  # 9 and 13 January are partial for all zones
+    flagged = d.loc[d["flags"] == "missing_hours"]
+    got = {(z, str(t.date())) for z, t in zip(flagged["zone"], flagged["date"], strict=True)}
+    assert got == {("z0", "2024-01-11"), ("z1", "2024-01-10"), ("z1", "2024-01-12")}
+    # the values of each zone agree with its own flags
+    assert d.loc[d["flags"] == "", "air_temperature_mean"].notna().all()
+    for z, day in got:
+        row = d.loc[(d["zone"] == z) & (d["date"] == day)].iloc[0]
+        assert row[["air_temperature_mean", "dewpoint_mean"]].isna().any()
+
+
+def test_flags_follow_zone_order_not_sorted_order():
+    """Zones given out of sorted order keep their own flags (rows come out sorted by zone)."""
+    h = _hourly("2024-01-10 00:00", 24 * 3, zones=("zb", "za"))
+    h["precipitation"][30, 0] = np.nan  # zb misses an hour on 11 January
+    d = to_daily(h, tz="UTC", latitude={"za": 50.0, "zb": 50.0}, zone_flags={"za": ["sub_cell_zone"]})
+    d = d.set_index(["zone", "date"])
+    assert d.loc[("zb", pd.Timestamp("2024-01-11")), "flags"] == "missing_hours"
+    assert d.loc[("za", pd.Timestamp("2024-01-11")), "flags"] == "sub_cell_zone"
+    assert np.isnan(d.loc[("zb", pd.Timestamp("2024-01-11")), "precipitation_sum"])
+
+
+def test_non_string_zone_ids_keep_their_flags():
+    """Regression: integer zone ids (e.g. from a layer's id field) gave flags misaligned or an error."""
+    h = _hourly("2024-01-10 00:00", 24 * 3, zones=(1, 0))
+    h["air_temperature"][30, 0] = np.nan  # zone 1 misses an hour on 11 January
+    d = to_daily(h, tz="UTC", latitude={"0": 50.0, "1": 50.0}).set_index(["zone", "date"])
+    assert d.loc[("1", pd.Timestamp("2024-01-11")), "flags"] == "missing_hours"
+    assert d.loc[("0", pd.Timestamp("2024-01-11")), "flags"] == ""

@@ -58,9 +58,12 @@ def prefect_server(tmp_path_factory: pytest.TempPathFactory) -> str:
         with temporary_settings(updates={PREFECT_API_URL: url, PREFECT_HOME: str(home)}):
             yield url
     finally:
+        from prefect.events.worker import EventsWorker
         from prefect.logging.handlers import APILogWorker
 
-        APILogWorker.drain_all(timeout=10)  # send the last task logs before the server goes
+        # send the last logs and events while the server is up; else Prefect retries them at exit forever
+        APILogWorker.drain_all(timeout=20)
+        EventsWorker.drain_all(timeout=20)
         proc.terminate()
         try:
             proc.wait(timeout=30)

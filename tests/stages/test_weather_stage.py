@@ -127,3 +127,27 @@ def test_unconvertible_units_and_precipitation_units(small_sample):
     w, _ = get_weights(zones, grid)
     with pytest.raises(SourceError, match="cannot convert 'm s-1' to 'degC'"):
         hourly_drivers(grid, w, source=WeatherSource(paths=[], units={"air_temperature": "m s-1"}))
+
+
+def test_clear_sky_radiation_uses_the_lake_elevation(built):
+    """FAO-56 Eq. 37: Rso = (0.75 + 2e-5 z) Ra; Ra (Eq. 21) and Rso from pyet as the reference library."""
+    import geopandas as gpd
+    import pyet
+    import shapely
+
+    project, store, _ = built
+    assert project.lake.elevation_m == 512  # the sample template's invented elevation
+    frame = store.read_table("drivers_daily", project.id)
+    lake_rows = frame[frame["zone"] == "lake"].iloc[::37]
+    lake = gpd.read_file(project.lake.lake.path).to_crs(4326)
+    lat = float(shapely.get_y(shapely.point_on_surface(lake.geometry.union_all())))
+    index = pd.DatetimeIndex(pd.to_datetime(lake_rows["date"]))
+    ra = pyet.extraterrestrial_r(index, np.deg2rad(lat))  # MJ m-2 d-1
+    rso = pyet.calc_rso(ra, 512.0)
+    expected = rso.to_numpy() * 1e6 / 86400.0  # MJ m-2 d-1 -> W m-2
+    np.testing.assert_allclose(lake_rows["clear_sky_radiation"].to_numpy(), expected, rtol=2e-3)
+    # and differs from the sea-level value by the factor of Eq. 37
+    at_sea = pyet.calc_rso(ra, 0.0).to_numpy() * 1e6 / 86400.0
+    np.testing.assert_allclose(
+        lake_rows["clear_sky_radiation"].to_numpy() / at_sea, (0.75 + 2e-5 * 512) / 0.75, rtol=2e-3
+    )

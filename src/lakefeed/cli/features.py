@@ -11,22 +11,27 @@ prints the diagnostics as a rich table. Holds no science.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pandas as pd
 import typer
-from rich.table import Table
 
 from lakefeed.cli._app import app, console
-from lakefeed.config import Project, load_projects
 from lakefeed.exceptions import ConfigError
-from lakefeed.stages.features import build_features
-from lakefeed.store import Store
+
+if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
+    import pandas as pd
+    from rich.table import Table
+
+    from lakefeed.config import Project
+    from lakefeed.store import Store
 
 __all__ = ["diagnostics_table", "features", "store_for"]
 
 
 def store_for(project: Project, store: str | None) -> Store:
     """The store given on the command line, else ``store:`` of the project's sources.yaml."""
+    from lakefeed.store import Store
+
     root = store or project.sources.store
     if not root:
         raise ConfigError(
@@ -37,6 +42,9 @@ def store_for(project: Project, store: str | None) -> Store:
 
 def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
     """A rich table of sampling diagnostics (one row per lake and AOI); warnings as short codes."""
+    import pandas as pd
+    from rich.table import Table
+
     t = Table(title=title, caption="few obs: < min_observations accepted; season: one season under-represented")
     for col in ("lake", "aoi", "obs", "DJF/MAM/JJA/SON", "median gap d", "longest gap d", "months covered", "warn"):
         t.add_column(col, justify="left" if col in ("lake", "aoi", "warn") else "right")
@@ -69,6 +77,9 @@ def features(
     compact: bool = typer.Option(False, "--compact", help="Merge the feature table's part files into one."),
 ) -> None:
     """Build point-in-time feature tables, folds and sampling diagnostics; print the diagnostics."""
+    from lakefeed.config import load_projects
+    from lakefeed.stages.features import build_features
+
     projects = load_projects(list(configs))
     for project in projects:
         st = store_for(project, store)

@@ -7,25 +7,30 @@ for each lake; prints the before/after bias table (out-of-sample) as a rich tabl
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pandas as pd
 import typer
-from rich.table import Table
 
 from lakefeed.cli._app import app, console
 from lakefeed.cli.features import store_for
-from lakefeed.config import load_projects
-from lakefeed.stages.forecast import build_forecast
+
+if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
+    import pandas as pd
+    from rich.table import Table
 
 __all__ = ["bias_rich_table", "forecast"]
 
 
 def _num(value: float, digits: int = 2) -> str:
+    import pandas as pd
+
     return "-" if pd.isna(value) else f"{value:.{digits}f}"
 
 
 def bias_rich_table(evaluation: pd.DataFrame, *, title: str) -> Table:
     """A rich table of the before/after evaluation: one row per variable, lead and method."""
+    from rich.table import Table
+
     t = Table(
         title=title,
         caption="bias = mean(forecast - reanalysis); KS = two-sample Kolmogorov-Smirnov statistic; "
@@ -58,6 +63,9 @@ def forecast(
     store: str | None = typer.Option(None, "--store", help="Store folder or fsspec URL [default: sources.yaml store]."),
 ) -> None:
     """Build forecast drivers per lead, fit and apply the bias adjustment, append re-forecast feature rows."""
+    from lakefeed.config import load_projects
+    from lakefeed.stages.forecast import build_forecast
+
     for project in load_projects(list(configs)):
         st = store_for(project, store)
         result = build_forecast(project, st)

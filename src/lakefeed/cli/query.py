@@ -14,7 +14,6 @@ from rich.table import Table
 
 from lakefeed.cli._app import app, console
 from lakefeed.exceptions import StoreError
-from lakefeed.store import Store, query
 
 __all__ = ["query_command"]
 
@@ -27,6 +26,8 @@ def query_command(
     limit: int = typer.Option(200, "--max-rows", min=1, help="Rows shown in the table view (CSV prints all)."),
 ) -> None:
     """Run SQL over the store's tables through DuckDB."""
+    from lakefeed.store import Store, query
+
     st = Store(store)
     if not st.tables():
         st.manifest()

@@ -9,26 +9,25 @@ from __future__ import annotations
 
 import re
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pandas as pd
-import pyarrow as pa
-import pyarrow.parquet as pq
 import typer
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
 from lakefeed.cli._app import app, console
-from lakefeed.config.lake import TargetOptions
-from lakefeed.config.sources import SceneSource
 from lakefeed.exceptions import ConfigError
-from lakefeed.sources.scenes import SceneReader, list_scenes
-from lakefeed.sources.vectors import read_layer
-from lakefeed.stages.target import OBS_UNITS, extract_observations
+
+if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
+    import pandas as pd
 
 __all__ = ["scenes", "write_parquet"]
 
 
 def write_parquet(frame: pd.DataFrame, path: Path, units: dict[str, str]) -> None:
     """Write ``frame`` to ``path`` with each column's unit in its Arrow field metadata (``unit``)."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
     table = pa.Table.from_pandas(frame, preserve_index=False)
     fields = [f.with_metadata({b"unit": units[f.name].encode()}) if f.name in units else f for f in table.schema]
     table = table.cast(pa.schema(fields, metadata=table.schema.metadata))
@@ -80,6 +79,12 @@ def scenes(
     Quality flags: with --bad-quality-bits only those bits are bad, else any non-zero flag counts as bad
     (0 = clear). Pixels count for an AOI when their centre lies inside it.
     """
+    from lakefeed.config.lake import TargetOptions
+    from lakefeed.config.sources import SceneSource
+    from lakefeed.sources.scenes import SceneReader, list_scenes
+    from lakefeed.sources.vectors import read_layer
+    from lakefeed.stages.target import OBS_UNITS, extract_observations
+
     if out.suffix.lower() != ".parquet":
         raise ConfigError(f"--out {out}: give a file name ending in .parquet")
     try:

@@ -47,7 +47,7 @@ def zonal(
     from lakefeed.sources.grids import open_grid
     from lakefeed.sources.vectors import read_layer
     from lakefeed.stages.weather import get_weights, hourly_drivers, zonal_long
-    from lakefeed.store._parquet import _schema_with_units
+    from lakefeed.store._meta import schema_with_units
 
     if accumulation not in ("none", "since_reset", "per_step"):
         raise ConfigError(f"--accumulation {accumulation!r}: use none, since_reset or per_step")
@@ -87,7 +87,7 @@ def zonal(
     import pyarrow.parquet as pq
 
     table = pa.Table.from_pandas(frame, preserve_index=False)
-    table = table.cast(_schema_with_units(table, units, {}, {"grid_signature": weights.signature}))
+    table = table.cast(schema_with_units(table, units, {}, {"grid_signature": weights.signature}))
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = out.with_name(f".{out.name}.tmp")
     pq.write_table(table, tmp)

@@ -146,6 +146,9 @@ class LakeConfig(StrictModel):
     id: str
     name: str
     timezone: str
+    #: Elevation of the lake surface in metres above sea level (clear-sky radiation, FAO-56 Eq. 37);
+    #: None means 0 m (sea level).
+    elevation_m: float | None = Field(default=None, ge=-500, le=9000)
     sources: Path
     lake: LayerRef
     aois: AoiLayer

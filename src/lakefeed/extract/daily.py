@@ -124,6 +124,7 @@ def to_daily(
     all_dates = np.union1d(inst, intv)
     expected = _expected_steps(all_dates, tz, step)
     zones = [str(z) for z in hourly["zone"].values]
+    hourly = hourly.assign_coords(zone=zones)  # one label type for every per-zone array below
 
     ta = hourly["air_temperature"]
     td = hourly["dewpoint"]
@@ -164,16 +165,20 @@ def to_daily(
     ratio = cols["shortwave_radiation_mean"] / cols["clear_sky_radiation"].where(cols["clear_sky_radiation"] > 0)
     cols["radiation_ratio"] = ratio
 
-    inc = incomplete.transpose("date", "zone").values
-    high = (ratio > RADIATION_SUSPECT_RATIO).transpose("date", "zone").values
-    flags = np.where(inc, "missing_hours;", "").astype(object) + np.where(high, "radiation_above_clear_sky;", "")
-    for k, z in enumerate(zones):
-        extra = (zone_flags or {}).get(z) or ()
-        if extra:
-            flags[:, k] = flags[:, k] + "".join(f"{f};" for f in extra)
+    # flags are labelled (date, zone) like the values and travel with them through to_dataframe, so a
+    # flag can never land on another zone's row whatever the zone order or alignment
+    text = xr.where(incomplete, "missing_hours;", "") + xr.where(
+        ratio > RADIATION_SUSPECT_RATIO, "radiation_above_clear_sky;", ""
+    )
+    extra = xr.DataArray(
+        ["".join(f"{f};" for f in ((zone_flags or {}).get(z) or ())) for z in zones],
+        dims="zone",
+        coords={"zone": zones},
+    )
+    cols["flags"] = (text.astype(object) + extra.astype(object)).transpose("date", "zone")
     ds = xr.Dataset(cols).transpose("date", "zone")
     frame = ds.to_dataframe(dim_order=["date", "zone"]).reset_index()
-    frame["flags"] = pd.Series(flags.ravel(), index=frame.index).str.rstrip(";")
+    frame["flags"] = frame["flags"].astype(str).str.rstrip(";")
     frame["date"] = pd.to_datetime(frame["date"])
     frame = frame[DAILY_COLUMNS].sort_values(["zone", "date"], kind="stable").reset_index(drop=True)
     return frame

@@ -36,7 +36,7 @@ import pandas as pd
 import xarray as xr
 
 from lakefeed.exceptions import ExtractError
-from lakefeed.extract.daily import DAILY_COLUMNS, RADIATION_SUSPECT_RATIO, to_daily
+from lakefeed.extract.daily import DAILY_COLUMNS, to_daily
 
 __all__ = ["FORECAST_KEYS", "deaccumulate_forecast", "first_full_day", "to_daily_by_lead"]
 
@@ -45,15 +45,6 @@ LEAD = "forecast_period"
 #: Key columns of daily forecast drivers (before the ``drivers_daily`` value columns).
 FORECAST_KEYS = ["zone", "issue_date", "lead_days", "issue_time", "date"]
 _SEP = "\x1f"
-_VALUE_COLUMNS = (
-    "air_temperature_mean",
-    "air_temperature_min",
-    "air_temperature_max",
-    "dewpoint_mean",
-    "precipitation_sum",
-    "shortwave_radiation_mean",
-    "wind_speed_mean",
-)
 
 
 def deaccumulate_forecast(
@@ -122,19 +113,6 @@ def first_full_day(issue_times: pd.DatetimeIndex, tz: str) -> pd.DatetimeIndex:
 def _last_full_day(end_times: pd.DatetimeIndex, tz: str) -> pd.DatetimeIndex:
     local = pd.DatetimeIndex(end_times).tz_localize("UTC").tz_convert(tz).tz_localize(None)
     return local.normalize() - pd.Timedelta(days=1)
-
-
-def _flags(daily: pd.DataFrame, zone_flags: Mapping[str, Sequence[str]]) -> pd.Series:
-    """The ``flags`` of :func:`lakefeed.extract.daily.to_daily`, recomputed row by row from the values.
-
-    (Computed here from each row's own values so that they stay attached to the right pseudo-zone.)
-    """
-    values = [c for c in _VALUE_COLUMNS if c in daily.columns]
-    missing = daily[values].isna().any(axis=1).to_numpy()
-    high = (daily["radiation_ratio"] > RADIATION_SUSPECT_RATIO).to_numpy()
-    text = np.where(missing, "missing_hours;", "").astype(object) + np.where(high, "radiation_above_clear_sky;", "")
-    extra = daily["zone"].map(lambda z: "".join(f"{f};" for f in zone_flags.get(z, ()))).to_numpy(dtype=object)
-    return pd.Series(text + extra, index=daily.index).str.rstrip(";")
 
 
 def to_daily_by_lead(
@@ -216,7 +194,6 @@ def to_daily_by_lead(
         )
         flags = {p: list((zone_flags or {}).get(b, ())) for p, b in zip(pz, base, strict=True)}
         daily = to_daily(hourly, tz=tz, latitude=lat, elevation_m=elev, zone_flags=flags)
-        daily["flags"] = _flags(daily, flags)
         split = daily["zone"].str.split(_SEP, n=1, expand=True)
         idx = split[1].astype(int).to_numpy()
         daily["zone"] = split[0].to_numpy()

@@ -24,6 +24,7 @@ _LAKE = """\
 id: tallow
 name: Tallow Reservoir
 timezone: Europe/Berlin
+elevation_m: 512
 sources: sources.yaml
 
 lake:

@@ -59,7 +59,8 @@ def list_scenes(source: SceneSource | str | Path, *, asset: str | None = None) -
     -------
     DataFrame with :data:`SCENE_COLUMNS`, sorted by time; ``time`` is UTC (tz-aware). Items that
     cannot be used (no datetime, no sensor label, asset missing, unreadable JSON) are kept with
-    ``reason`` set and ``time`` possibly NaT.
+    ``reason`` set and ``time`` possibly NaT. ``attrs["source_files"]``: the catalogue and item JSON
+    files read (sorted paths; for provenance).
 
     Raises
     ------
@@ -79,10 +80,15 @@ def list_scenes(source: SceneSource | str | Path, *, asset: str | None = None) -
         hint = " (a folder of GeoTIFFs needs filename_pattern)" if source.catalog is not None else ""
         raise SourceError(f"scene catalogue {where}: no scenes found; check the path and filename_pattern{hint}")
     table = pd.DataFrame(rows, columns=SCENE_COLUMNS)
+    # the JSON files read (catalogue, item files), for the provenance of the tables built from them
+    read = [source.catalog] if source.catalog is not None and Path(source.catalog).is_file() else []
+    read += [r["item_path"] for r in rows if r.get("item_path")]
     table["unit"] = table["unit"].fillna(source.units)
     table["time"] = pd.to_datetime(table["time"], utc=True)
     table = table.sort_values(["time", "scene_id"], na_position="last").reset_index(drop=True)
-    return _mark_duplicates(table)
+    table = _mark_duplicates(table)
+    table.attrs["source_files"] = sorted(set(map(str, read)))
+    return table
 
 
 def _mark_duplicates(table: pd.DataFrame) -> pd.DataFrame:
@@ -213,6 +219,7 @@ def _item_row(path: Path, source: SceneSource, asset: str | None) -> dict[str, A
         nodata=number("nodata"),
         unit=band.get("unit") or None,
         reason="",
+        item_path=str(path),
     )
 
 

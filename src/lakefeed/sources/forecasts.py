@@ -146,7 +146,7 @@ def _find_dim(ds: xr.Dataset, standard_name: str, names: tuple[str, ...]) -> str
 
 
 def _open_one(path: Path) -> xr.Dataset:
-    from lakefeed.sources.grids import _normalise_lon, _spatial_dims
+    from lakefeed.sources.grids import normalise_lon, spatial_dims
 
     try:
         ds = xr.open_dataset(path, chunks={}, cache=False)
@@ -170,14 +170,14 @@ def _open_one(path: Path) -> xr.Dataset:
     lead_td = _lead_to_timedelta(ds[lead] if lead in ds.variables else xr.DataArray(np.arange(ds.sizes[lead])), path)
     if not np.issubdtype(ds[issue].dtype, np.datetime64):
         raise SourceError(f"forecast archive {path}: issue times {issue!r} could not be decoded; give CF time units")
-    ydim, xdim = _spatial_dims(ds, path)
+    ydim, xdim = spatial_dims(ds, path)
     ds = ds.rename({d: n for d, n in ((issue, ISSUE), (lead, LEAD), (ydim, "latitude"), (xdim, "longitude")) if d != n})
     ds = ds.assign_coords({LEAD: (LEAD, lead_td, {"standard_name": "forecast_period"})})
     keep = [n for n, v in ds.data_vars.items() if set(v.dims) == {ISSUE, LEAD, "latitude", "longitude"}]
     if not keep:
         raise SourceError(f"forecast archive {path}: no variable with dims (issue, lead, latitude, longitude)")
     ds = ds[keep].transpose(ISSUE, LEAD, "latitude", "longitude")
-    return _normalise_lon(ds).chunk({ISSUE: 16, LEAD: -1, "latitude": -1, "longitude": -1})
+    return normalise_lon(ds).chunk({ISSUE: 16, LEAD: -1, "latitude": -1, "longitude": -1})
 
 
 def find_issue_gaps(issue_times: pd.DatetimeIndex, step: pd.Timedelta) -> list[str]:

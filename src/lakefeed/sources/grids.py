@@ -31,7 +31,16 @@ import xarray as xr
 from lakefeed.exceptions import SourceError
 from lakefeed.geometry.weights import grid_signature
 
-__all__ = ["Grid", "decode", "expand_paths", "find_variable", "open_grid", "select_roles"]
+__all__ = [
+    "Grid",
+    "decode",
+    "expand_paths",
+    "find_variable",
+    "normalise_lon",
+    "open_grid",
+    "select_roles",
+    "spatial_dims",
+]
 
 _LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}
 _LON_UNITS = {"degrees_east", "degree_east", "degree_e", "degrees_e", "degreee", "degreese"}
@@ -111,7 +120,8 @@ def _is_coord(var: xr.DataArray, kind: Literal["latitude", "longitude"]) -> bool
     return var.attrs.get("standard_name") == kind or units in (_LAT_UNITS if kind == "latitude" else _LON_UNITS)
 
 
-def _spatial_dims(ds: xr.Dataset, path: Path) -> tuple[str, str]:
+def spatial_dims(ds: xr.Dataset, path: Path) -> tuple[str, str]:
+    """Names of the (latitude, longitude) dims of a CF dataset (``path`` names the file in errors)."""
     lat = [n for n, v in ds.variables.items() if v.ndim == 1 and _is_coord(v, "latitude")]
     lon = [n for n, v in ds.variables.items() if v.ndim == 1 and _is_coord(v, "longitude")]
     mappings = {str(v.attrs.get("grid_mapping_name")) for v in ds.variables.values() if "grid_mapping_name" in v.attrs}
@@ -177,7 +187,7 @@ def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
         ds = ds.swap_dims({ds[cand[0]].dims[0]: cand[0]}).rename({cand[0]: "time"})
     if not np.issubdtype(ds["time"].dtype, np.datetime64):
         raise SourceError(f"weather grid {path}: time could not be decoded ({ds['time'].dtype}); give CF time units")
-    ydim, xdim = _spatial_dims(ds, path)
+    ydim, xdim = spatial_dims(ds, path)
     ds = ds.rename({ydim: "latitude", xdim: "longitude"}) if (ydim, xdim) != ("latitude", "longitude") else ds
     for name in ("latitude", "longitude"):
         if name not in ds.coords:
@@ -204,7 +214,8 @@ def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
     return ds.chunk({"time": min(chunk_time, max(1, ds.sizes["time"])), "latitude": -1, "longitude": -1})
 
 
-def _normalise_lon(ds: xr.Dataset) -> xr.Dataset:
+def normalise_lon(ds: xr.Dataset) -> xr.Dataset:
+    """Longitudes wrapped to [-180, 180) and sorted ascending (0..360 grids), unchanged otherwise."""
     lon = np.asarray(ds["longitude"].values, dtype=float)
     if lon.max() <= 180 and lon.min() >= -180:
         return ds
@@ -289,7 +300,7 @@ def open_grid(
     if time_zone != "UTC":
         t = pd.DatetimeIndex(ds["time"].values).tz_localize(time_zone).tz_convert("UTC").tz_localize(None)
         ds = ds.assign_coords(time=t.values)
-    ds = _normalise_lon(ds)
+    ds = normalise_lon(ds)
     return Grid(dataset=ds, files=tuple(f for f, _ in opened), skipped=tuple(problems))
 
 

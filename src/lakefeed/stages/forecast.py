@@ -29,19 +29,21 @@ import pandas as pd
 import xarray as xr
 
 from lakefeed.config import Project
+from lakefeed.config.lake import FeatureOptions
 from lakefeed.config.sources import Accumulation, ForecastSource, WeatherSource
 from lakefeed.exceptions import ExtractError
 from lakefeed.extract.daily import DAILY_UNITS
 from lakefeed.extract.forecast_daily import check_increments, deaccumulate_forecast, to_daily_by_lead
 from lakefeed.extract.forecast_evaluation import bias_table, expanding_adjustment, leave_one_year_out, overlap_days
 from lakefeed.extract.quantile_mapping import DEFAULT_KINDS, fit_quantile_mapping
-from lakefeed.features import assign_folds
+from lakefeed.features import date_hash_folds, fold_boundaries, folds_from_boundaries
 from lakefeed.features.reforecast import reforecast_rows
 from lakefeed.geometry.weights import ZoneWeights
 from lakefeed.geometry.zones import build_zones, zone_latitudes
 from lakefeed.sources.forecasts import ISSUE, LEAD, ForecastArchive, open_forecasts
 from lakefeed.sources.grids import find_variable
 from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.stages.weather import get_weights, hourly_drivers
 from lakefeed.store import Store
@@ -123,7 +125,10 @@ def daily_forecasts(
     weights, _ = get_weights(zones, grid, cache_dir=cache_dir, allow_partial_coverage=lake.zones.allow_partial_coverage)
     cube, warnings = forecast_steps(archive, weights, source=project.sources.forecast, progress=progress)
     flags = {z: weights.flags(z) for z in weights.zones}
-    daily = to_daily_by_lead(cube, tz=lake.timezone, latitude=zone_latitudes(zones), zone_flags=flags)
+    elevation = 0.0 if lake.elevation_m is None else float(lake.elevation_m)  # as the reanalysis drivers
+    daily = to_daily_by_lead(
+        cube, tz=lake.timezone, latitude=zone_latitudes(zones), elevation_m=elevation, zone_flags=flags
+    )
     return daily, warnings
 
 
@@ -243,21 +248,10 @@ def _reforecast(
             "are replaced by re-forecast rows (features.leads and features.forecast_leads overlap)"
         )
         hind = hind.loc[~clash.to_numpy()]
-    folds = hind[["aoi", "target_date", "fold"]].drop_duplicates(["aoi", "target_date"]) if "fold" in hind else None
     rows["target_date"] = pd.to_datetime(rows["target_date"])
     rows["issue_date"] = pd.to_datetime(rows["issue_date"])
-    if folds is not None and len(folds):
-        folds = folds.assign(target_date=pd.to_datetime(folds["target_date"]))
-        rows = rows.merge(folds, on=["aoi", "target_date"], how="left")
-    if "fold" not in rows or rows["fold"].isna().any():
-        groups = list(rows.groupby("aoi"))
-        fresh = np.concatenate(
-            [assign_folds(g["target_date"], k=opts.folds, kind=opts.fold_kind, embargo_days=opts.embargo_days)
-             for _, g in groups]
-        )  # fmt: skip
-        order = np.concatenate([g.index.to_numpy() for _, g in groups])
-        filled = pd.Series(fresh, index=order).reindex(rows.index)
-        rows["fold"] = rows["fold"].fillna(filled) if "fold" in rows else filled
+    meta = (store.entry("features", lake.id) or {}).get("metadata") or {}
+    rows["fold"] = _reforecast_folds(rows, hind, meta, opts)
     rows["fold"] = rows["fold"].astype(np.int16)
     if "fold_kind" in hind:
         rows["fold_kind"] = opts.fold_kind
@@ -266,6 +260,37 @@ def _reforecast(
     out = out.sort_values(["aoi", "target_date", "lead_days"], kind="stable").reset_index(drop=True)
     units |= {"forecast_days": "d", "forecast_fraction": "1", "lead_days": "d"}
     return out, units
+
+
+def _reforecast_folds(rows: pd.DataFrame, hind: pd.DataFrame, meta: dict, opts: FeatureOptions) -> np.ndarray:
+    """Fold of each re-forecast row: its target date's hindcast fold, else the frozen block it falls in.
+
+    Blocked folds use the boundaries the features stage froze in the manifest (``fold_boundaries`` per
+    AOI; derived from the AOI's hindcast target dates only when it has none), never boundaries fitted to
+    the re-forecast rows, so a target date carries one fold across all its leads. Random folds are the
+    date hash of the features stage.
+    """
+    dates = pd.to_datetime(rows["target_date"]).to_numpy()
+    aoi = rows["aoi"].astype(str).to_numpy()
+    if opts.fold_kind == "random":
+        fold = date_hash_folds(dates, k=opts.folds)
+    else:
+        frozen = json.loads(meta.get("fold_boundaries") or "{}")
+        fold = np.zeros(len(rows), dtype=np.int16)
+        for a in np.unique(aoi):
+            sel = aoi == a
+            bounds = frozen.get(a)
+            if bounds is None:
+                own = hind.loc[hind["aoi"].astype(str) == a, "target_date"]
+                bounds = fold_boundaries(own if len(own) else dates[sel], k=opts.folds)
+            fold[sel] = folds_from_boundaries(dates[sel], bounds, embargo_days=opts.embargo_days)
+    if "fold" in hind and len(hind):  # rows whose target date has a hindcast row keep exactly its fold
+        known = hind[["aoi", "target_date", "fold"]].drop_duplicates(["aoi", "target_date"])
+        known = known.assign(aoi=known["aoi"].astype(str), target_date=pd.to_datetime(known["target_date"]))
+        key = pd.MultiIndex.from_arrays([aoi, dates])
+        same = known.set_index(["aoi", "target_date"])["fold"].reindex(key).to_numpy()
+        fold = np.where(pd.isna(same), fold, same)
+    return np.asarray(fold, dtype=np.int16)
 
 
 def build_forecast(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
@@ -303,6 +328,12 @@ def build_forecast(project: Project, store: Store, *, progress: Progress | None 
             f"min_overlap_days = {src.min_overlap_days} days of earlier overlap to fit on"
         )
     p("forecast: writing", 3, 5)
+    zone_layers = [lake.lake, lake.aois if lake.zones.aois else None]
+    zone_layers += [lake.subbasins] if lake.zones.catchment or lake.zones.subbasins else []
+    inputs = input_hashes([*archive.files, *layer_paths(*zone_layers)])
+    ref_entry = store.entry("drivers_daily", lake.id) or {}
+    inputs[f"drivers_daily/lake={lake.id}"] = str(ref_entry.get("content_hash", ""))  # the adjustment's reference
+    prov = {"inputs": dict(sorted(inputs.items())), "config_hash": config_hash(project)}
     both = pd.concat([raw.assign(adjustment="raw", fitted_through=pd.NaT), adjusted.assign(adjustment=ADJUSTED)],
                      ignore_index=True)  # fmt: skip
     keys = ["zone", "issue_date", "lead_days", "adjustment", "issue_time", "date"]
@@ -326,15 +357,15 @@ def build_forecast(project: Project, store: Store, *, progress: Progress | None 
         "fitted_through": "last reanalysis date used by the adjustment's fit (always before issue_date)",
     }
     store.write_table("forecast_drivers_daily", lake.id, both, units=units, metadata=meta, time_column="date",
-                      descriptions=descr)  # fmt: skip
+                      descriptions=descr, **prov)  # fmt: skip
     tunits = {"quantile": "1", "lead_min": "d", "lead_max": "d", "factor": "1 (multiplicative) or unit (additive)"}
     through = pd.Timestamp(table["fitted_through"].iat[0]).date()
     stored_table = table.assign(fitted_through=through, unit=table["variable"].map(DAILY_UNITS))
     descr = {"hist": "forecast quantile (in the row's unit)", "ref": "reanalysis quantile (in the row's unit)"}
     store.write_table("bias_adjustment", lake.id, stored_table, units=tunits, metadata=meta, time_column=None,
-                      descriptions=descr)  # fmt: skip
+                      descriptions=descr, **prov)  # fmt: skip
     store.write_table("forecast_evaluation", lake.id, evaluation, units={"lead_days": "d", "ks_raw": "1",
-                      "ks_adjusted": "1"}, metadata=meta, time_column=None)  # fmt: skip
+                      "ks_adjusted": "1"}, metadata=meta, time_column=None, **prov)  # fmt: skip
     result.tables = {"forecast_drivers_daily": len(both), "bias_adjustment": len(table),
                      "forecast_evaluation": len(evaluation)}  # fmt: skip
     p("forecast: re-forecast features", 4, 5)

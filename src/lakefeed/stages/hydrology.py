@@ -37,6 +37,7 @@ from lakefeed.geometry.network import Catchment, trace_catchment
 from lakefeed.sources.hydrology import read_hydrology
 from lakefeed.sources.samples import read_flow, read_samples
 from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store
 from lakefeed.units import CANONICAL
@@ -179,7 +180,13 @@ def build_hydrology(project: Project, store: Store, *, progress: Progress | None
             "discharge_kind": hyd.discharge_kind,
             "source": str(hyd.path or Path(next(iter(hyd.files.values())))),
         }
-        store.write_table("hydrology_daily", lake.id, out, units=units, metadata=meta)
+        files = [hyd.path, *(hyd.files or {}).values()]
+        files += [f for st in sources.samples for f in (st.path, st.flow_path)]
+        provenance = {
+            "inputs": input_hashes([*files, *layer_paths(project.lake.lake, project.lake.subbasins)]),
+            "config_hash": config_hash(project),
+        }
+        store.write_table("hydrology_daily", lake.id, out, units=units, metadata=meta, **provenance)
         result.tables["hydrology_daily"] = len(out)
         if estimates:
             est_frame = pd.concat(estimates, ignore_index=True)
@@ -189,6 +196,7 @@ def build_hydrology(project: Project, store: Store, *, progress: Progress | None
                 lake.id,
                 est_frame,
                 units={"load": CANONICAL["load"], "lower": CANONICAL["load"], "upper": CANONICAL["load"]},
+                **provenance,
             )
             result.tables["load_estimates"] = len(est_frame)
         progress("hydrology: done", 4, 4)

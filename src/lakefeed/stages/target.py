@@ -10,18 +10,20 @@ values (:mod:`lakefeed.extract`), and writes the store tables ``target_obs``, ``
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from lakefeed.config import Project
-from lakefeed.config.lake import SensorConfig, TargetOptions, Threshold
+from lakefeed.config.lake import LakeConfig, SensorConfig, TargetOptions, Threshold
 from lakefeed.extract.harmonise import BIAS_COLUMNS, apply_bias, fit_bias, fuse_daily, matchups
 from lakefeed.extract.scene_stats import STAT_COLUMNS, aoi_statistics
 from lakefeed.extract.screening import accept, flag_outliers
 from lakefeed.extract.trophic import CAUTION, carlson_tsi, exceedance_flags, oecd_category
 from lakefeed.sources.scenes import SceneReader, list_scenes, read_scenes
 from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store
 
@@ -196,6 +198,14 @@ def cross_sensor_outliers(obs: pd.DataFrame, fits: pd.DataFrame, *, options: Tar
     return flags
 
 
+def _input_files(scenes: pd.DataFrame, lake: LakeConfig) -> dict[str, str]:
+    """Content hashes of the catalogue and item JSONs, every local raster asset of the listed scenes
+    and the AOI/lake layers (the rasters too: a re-processed GeoTIFF under the same item changes them)."""
+    hrefs = scenes[["value_href", "quality_href", "uncertainty_href"]].to_numpy().ravel()
+    rasters = [Path(h) for h in pd.unique(hrefs[pd.notna(hrefs)]) if "://" not in str(h) and Path(h).is_file()]
+    return input_hashes([*scenes.attrs.get("source_files", []), *rasters, *layer_paths(lake.lake, lake.aois)])
+
+
 def build_target(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
     """Build ``target_obs``, ``target_daily`` and ``sensor_bias`` for one lake.
 
@@ -267,11 +277,12 @@ def build_target(project: Project, store: Store, *, progress: Progress | None = 
         c: f"chla >= threshold '{c.removeprefix('exceeds_')}'. {CAUTION}" for c in daily if c.startswith("exceeds_")
     }
     fit_meta = {"sensor_bias": fits.to_json(orient="records")}
-    store.write_table("target_obs", lake.id, obs, units=OBS_UNITS, descriptions=_DESCRIPTIONS, metadata=meta)
+    prov = {"inputs": _input_files(scenes, lake), "config_hash": config_hash(project)}
+    store.write_table("target_obs", lake.id, obs, units=OBS_UNITS, descriptions=_DESCRIPTIONS, metadata=meta, **prov)
     store.write_table(
-        "target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=descriptions, metadata=meta | fit_meta
+        "target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=descriptions, metadata=meta | fit_meta, **prov
     )
     bias_units = {"ratio": "1", "ln_ratio": "1", "ln_ratio_se": "1", "slope": "1", "intercept": "mg m-3", "r2": "1"}
-    store.write_table("sensor_bias", lake.id, fits.assign(lake=lake.id), units=bias_units)
+    store.write_table("sensor_bias", lake.id, fits.assign(lake=lake.id), units=bias_units, **prov)
     result.tables = {"target_obs": len(obs), "target_daily": len(daily), "sensor_bias": len(fits)}
     return result

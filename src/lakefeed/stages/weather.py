@@ -259,6 +259,7 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
     from lakefeed.extract.daily import DAILY_UNITS, to_daily
     from lakefeed.geometry.zones import build_zones, zone_latitudes
     from lakefeed.sources.vectors import read_layer
+    from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
 
     p = progress or no_progress
     lake = project.lake
@@ -273,6 +274,7 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
     subs = None
     if lake.zones.catchment or lake.zones.subbasins:
         subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
+    layers = [lake.lake, lake.aois if aois is not None else None, lake.subbasins if subs is not None else None]
     zones = build_zones(
         lake_g,
         aois=aois,
@@ -293,7 +295,9 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
     hourly, clipped = hourly_drivers(grid, weights, source=src, progress=progress)
     warn += [f"{k}: {n} value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
     flags = {z: weights.flags(z) for z in weights.zones}
-    daily = to_daily(hourly, tz=lake.timezone, latitude=zone_latitudes(zones), zone_flags=flags)
+    # the lake surface's elevation for every zone (FAO-56 Eq. 37); a catchment zone may lie higher
+    elevation = 0.0 if lake.elevation_m is None else float(lake.elevation_m)
+    daily = to_daily(hourly, tz=lake.timezone, latitude=zone_latitudes(zones), elevation_m=elevation, zone_flags=flags)
     daily.insert(0, "lake", lake.id)
     daily["date"] = daily["date"].dt.date
     store.write_table(
@@ -302,6 +306,8 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
         daily,
         units=DAILY_UNITS,
         metadata={"grid_signature": weights.signature, "files": str(len(grid.files))},
+        inputs=input_hashes([*grid.files, *layer_paths(*layers)]),
+        config_hash=config_hash(project),
     )
     p("weather: done", 3, 3)
     return StageResult("weather", lake.id, tables={"drivers_daily": len(daily)}, warnings=warn)

@@ -55,7 +55,6 @@ __all__ = ["PART", "Store", "read_units"]
 
 PART = BASE
 # names used by other modules before the split into _meta (kept importable)
-_schema_with_units = schema_with_units
 _write_options = write_options
 
 
