@@ -26,7 +26,7 @@ from lakefeed.checks._result import CheckResult, failed, passed, warned
 from lakefeed.checks.network import NetworkReport, check_network
 from lakefeed.config import SubbasinLayer
 from lakefeed.exceptions import LakefeedError, LakefeedWarning
-from lakefeed.geometry.network import LAKE_NODE, Catchment, trace_catchment
+from lakefeed.geometry.network import LAKE_NODE, Catchment, trace_configured_catchment
 
 __all__ = ["check_subbasin_network"]
 
@@ -52,15 +52,7 @@ def _trace(
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", LakefeedWarning)
         try:
-            found = trace_catchment(
-                subbasins,
-                lake,
-                id_field=cfg.id_field,
-                downstream_field=cfg.downstream_field,
-                lake_id=cfg.lake_id,
-                direct_inflows=cfg.direct_inflows,
-                outside_ids=["", *cfg.outside_ids],
-            )
+            found = trace_configured_catchment(subbasins, lake, cfg)
         except LakefeedError as err:
             return None, [failed(NAME, f"{cfg.path}: {err}", _HINT)]
     notes = [warned(NAME, str(w.message), _HINT) for w in caught if issubclass(w.category, LakefeedWarning)]

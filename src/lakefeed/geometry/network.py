@@ -47,10 +47,11 @@ import shapely
 from pyproj import CRS, Geod
 from shapely.geometry.base import BaseGeometry
 
+from lakefeed.config.lake import SubbasinLayer
 from lakefeed.exceptions import GeometryError, LakefeedWarning
 from lakefeed.units import convert
 
-__all__ = ["DEFAULT_OUTSIDE_IDS", "LAKE_NODE", "Catchment", "trace_catchment"]
+__all__ = ["DEFAULT_OUTSIDE_IDS", "LAKE_NODE", "Catchment", "trace_catchment", "trace_configured_catchment"]
 
 #: Downstream ids meaning "drains out of the network" (case-insensitive; common practice).
 DEFAULT_OUTSIDE_IDS: tuple[str, ...] = ("", "0", "-1", "NONE", "NAN", "OUTSIDE")
@@ -366,4 +367,28 @@ def trace_catchment(
         overlapping=tuple(overlapping),
         graph=graph,
         crs=CRS.from_user_input(frame.crs),
+    )
+
+
+def trace_configured_catchment(
+    subbasins: gpd.GeoDataFrame,
+    lake: gpd.GeoDataFrame | gpd.GeoSeries,
+    layer: SubbasinLayer,
+    *,
+    where: str | None = None,
+) -> Catchment:
+    """:func:`trace_catchment` with the field names and rules of a lake config's ``subbasins`` section.
+
+    The one place where the configuration is mapped onto the tracing options, so that
+    ``lakefeed check``, the weather zones and the hydrology stage apply the same rules.
+    """
+    return trace_catchment(
+        subbasins,
+        lake,
+        id_field=layer.id_field,
+        downstream_field=layer.downstream_field,
+        lake_id=layer.lake_id,
+        direct_inflows=layer.direct_inflows,
+        outside_ids=["", *layer.outside_ids],
+        where=where or f"sub-basin layer {layer.path}",
     )

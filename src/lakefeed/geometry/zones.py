@@ -88,17 +88,9 @@ def build_zones(
         geoms.extend(a.geometry.values)
     if (opts.catchment or opts.subbasins) and subbasins is not None and len(subbasins):
         layer = subbasin_layer or SubbasinLayer(path="subbasins")  # type: ignore[arg-type]
-        from lakefeed.geometry.network import trace_catchment
+        from lakefeed.geometry.network import trace_configured_catchment
 
-        catch = trace_catchment(
-            subbasins,
-            lake,
-            id_field=layer.id_field,
-            downstream_field=layer.downstream_field,
-            lake_id=layer.lake_id,
-            direct_inflows=layer.direct_inflows,
-            outside_ids=["", *layer.outside_ids],
-        )
+        catch = trace_configured_catchment(subbasins, lake, layer)
         if opts.catchment:
             c = gpd.GeoDataFrame(geometry=[catch.polygon], crs=subbasins.crs)
             names.append("catchment")

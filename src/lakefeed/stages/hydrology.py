@@ -33,7 +33,7 @@ from lakefeed.config.sources import SampleStation
 from lakefeed.exceptions import ConfigError, ExtractError, LakefeedWarning
 from lakefeed.extract.load_estimation import LoadEstimate, align, compare_methods
 from lakefeed.extract.loads import inflow_loads, inflow_members
-from lakefeed.geometry.network import Catchment, trace_catchment
+from lakefeed.geometry.network import Catchment, trace_configured_catchment
 from lakefeed.sources.hydrology import read_hydrology
 from lakefeed.sources.samples import read_flow, read_samples
 from lakefeed.sources.vectors import read_layer
@@ -50,15 +50,8 @@ def catchment_of(project: Project) -> Catchment:
     cfg = project.lake.subbasins
     subbasins = read_layer(cfg, what="sub-basin layer", id_field=cfg.id_field)
     lake = read_layer(project.lake.lake, what="lake polygon")
-    return trace_catchment(
-        subbasins,
-        lake,
-        id_field=cfg.id_field,
-        downstream_field=cfg.downstream_field,
-        lake_id=cfg.lake_id,
-        direct_inflows=cfg.direct_inflows,
-        outside_ids=["", *cfg.outside_ids],
-        where=f"sub-basin layer {cfg.path} (config key 'subbasins' of {project.lake_file.name})",
+    return trace_configured_catchment(
+        subbasins, lake, cfg, where=f"sub-basin layer {cfg.path} (config key 'subbasins' of {project.lake_file.name})"
     )
 
 
