@@ -13,9 +13,3 @@ import os
 
 os.environ.setdefault("PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS", "180")
 os.environ.setdefault("PREFECT_SERVER_ANALYTICS_ENABLED", "false")
-
-import logging
-
-# cf_xarray's unit registry redefines a few pint units on load; pint logs each one as a warning, which
-# would bury the run's own messages in every flow log.
-logging.getLogger("pint.util").setLevel(logging.ERROR)

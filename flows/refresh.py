@@ -18,7 +18,6 @@ from pathlib import Path
 from typing import Any
 
 import pandas as pd
-import pyarrow.parquet as pq
 from prefect import flow, get_run_logger
 from prefect.task_runners import ThreadPoolTaskRunner
 
@@ -45,7 +44,7 @@ def _row_counts(store: Store, lake: str) -> dict[str, int]:
     out = {}
     for table in store.tables():
         if store.has_table(table, lake):
-            out[table] = pq.ParquetFile(store.part_file(table, lake)).metadata.num_rows
+            out[table] = store.num_rows(table, lake)
     return out
 
 

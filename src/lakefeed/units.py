@@ -7,6 +7,7 @@ canonical quantity (see DESIGN.md, "Units").
 
 from __future__ import annotations
 
+import logging
 from functools import lru_cache
 from typing import Any
 
@@ -14,6 +15,10 @@ import numpy as np
 import pint
 
 from lakefeed.exceptions import SourceError
+
+# cf_xarray's registry redefines a few pint units on load; pint logs each one as a warning, which
+# would bury a run's own messages in every log.
+logging.getLogger("pint.util").setLevel(logging.ERROR)
 
 try:  # cf-xarray ships a pint registry that understands CF/UDUNITS strings ("kg m-2 s-1").
     from cf_xarray.units import units as _cf_units

@@ -60,11 +60,16 @@ def print_store_summary(store_root: str | Path, lake: str | None = None) -> None
         for lk in store.lakes(name):
             if lake is not None and lk != lake:
                 continue
-            path = store.part_file(name, lk)
-            meta = pq.ParquetFile(path)
-            schema = meta.schema_arrow
+            files = store.part_files(name, lk)
+            schema = pq.ParquetFile(files[0]).schema_arrow
+            where = files[0] if len(files) == 1 else f"{files[0]} (+{len(files) - 1} part files)"
             table.add_row(
-                name, lk, str(meta.metadata.num_rows), str(len(schema)), str(len(read_units(schema))), escape(str(path))
+                name,
+                lk,
+                str(store.num_rows(name, lk)),
+                str(len(schema)),
+                str(len(read_units(schema))),
+                escape(str(where)),
             )
     console.print(table)
 

@@ -12,8 +12,8 @@ import contextlib
 import os
 from collections.abc import Iterator
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import geopandas as gpd
 import typer
 from rich.markup import escape
 from rich.table import Table
@@ -21,6 +21,9 @@ from rich.table import Table
 from lakefeed.cli._app import app, console
 from lakefeed.config.lake import SLUG
 from lakefeed.exceptions import ConfigError, GeometryError
+
+if TYPE_CHECKING:
+    import geopandas as gpd
 
 __all__ = ["detect_fields", "init_command"]
 
@@ -79,6 +82,7 @@ def _lake_value(subbasins: gpd.GeoDataFrame, id_field: str, downstream_field: st
 
 
 def _time_zone(lake: gpd.GeoDataFrame) -> str:
+    import geopandas as gpd
     from timezonefinder import TimezoneFinder
 
     centre = lake.to_crs(lake.estimate_utm_crs()).union_all().centroid
@@ -103,12 +107,13 @@ def init_command(
     name: str | None = typer.Option(None, "--name", help="Display name of the lake; default from the id."),
 ) -> None:
     """Write a ready lake config from a lake polygon and a sub-basin layer, run the checks, say what to review."""
+    import geopandas as gpd
+
     from lakefeed.geometry.network import trace_catchment
     from lakefeed.sources.vectors import read_layer
 
     if not SLUG.fullmatch(lake_id):
         raise ConfigError(f"lake id {lake_id!r} must be a plain slug: lower-case letters, digits, '-' or '_'")
-    out.mkdir(parents=True, exist_ok=True)
     lake_g = read_layer(lake, what="lake polygon")
     subs = read_layer(subbasins, what="sub-basin layer")
     if id_field is None or downstream_field is None:
@@ -117,8 +122,8 @@ def init_command(
     subs = read_layer(subbasins, what="sub-basin layer", id_field=id_field)
     lake_value = _lake_value(subs, id_field, downstream_field)
     catchment = trace_catchment(subs, lake_g, id_field=id_field, downstream_field=downstream_field, lake_id=lake_value)
-    cat = gpd.GeoDataFrame(geometry=[catchment.polygon], crs=catchment.crs or subs.crs)
-    area_km2 = float(cat.to_crs(cat.estimate_utm_crs()).area.iloc[0] / 1e6)
+    area_km2 = catchment.area_km2
+    out.mkdir(parents=True, exist_ok=True)
     review: list[str] = []
     if aois is None:
         aois = out / f"aois-{lake_id}.gpkg"
