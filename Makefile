@@ -28,6 +28,9 @@ lint: $(STAMP)
 bench: $(STAMP)
 	$(PY) -m pip install --quiet -e ".[test,bench]"
 	$(PY) benchmarks/zonal.py
+	$(PY) benchmarks/scenes.py
+	$(PY) benchmarks/features.py
+	$(PY) benchmarks/refresh.py
 
 clean:
 	rm -rf demo .pytest_cache
