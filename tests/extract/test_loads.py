@@ -66,7 +66,9 @@ def test_missing_member_is_an_error() -> None:
         inflow_loads(q, {"tn": q}, members=["A", "B"])
 
 
-positive = st.floats(min_value=0.0, max_value=1e4, allow_nan=False)
+# Discharges are either exactly zero or at least 1 mL s-1: smaller (subnormal) floats lose all
+# precision when scaled, which is floating-point underflow, not a property of the loads.
+positive = st.one_of(st.just(0.0), st.floats(min_value=1e-6, max_value=1e4, allow_nan=False))
 
 
 @settings(max_examples=60, deadline=None)
