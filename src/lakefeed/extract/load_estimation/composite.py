@@ -22,14 +22,10 @@ from lakefeed.extract.load_estimation._common import (
     LoadEstimate,
     Period,
     align,
-    period_codes,
-    period_sums,
-    periods_frame,
     standard_warnings,
-    summarise,
 )
 from lakefeed.extract.load_estimation.rating import decimal_year, design_matrix
-from lakefeed.extract.load_estimation.simple import _bootstrap_indices, _intervals
+from lakefeed.extract.load_estimation.simple import _bootstrap_indices, summarise_bootstrap
 from lakefeed.extract.loads import load_factor
 
 __all__ = ["composite_load"]
@@ -92,22 +88,6 @@ def composite_load(
 
     daily = predict(np.arange(len(y)))
     boot = np.stack([predict(i) for i in _bootstrap_indices(len(y), n_boot, seed)])  # loop over replicates
-    lo_d, hi_d, _ = _intervals(boot)
-    codes, bounds = period_codes(a.days, period)
-    pk = period_sums(daily, codes, len(bounds))[0]
-    plo, phi, pse = _intervals(period_sums(boot, codes, len(bounds)))
-    lo, hi, se = _intervals(boot.sum(axis=1))
-    return summarise(
-        a,
-        daily,
-        lo_d,
-        hi_d,
-        periods_frame(bounds, codes, a, pk, pse, plo, phi),
-        method="composite",
-        kind="daily",
-        se_kg=float(se),
-        lower_kg=float(lo),
-        upper_kg=float(hi),
-        uncertainty=f"bootstrap over samples ({n_boot} resamples), 95 % percentile interval",
-        warnings=warnings,
+    return summarise_bootstrap(
+        a, daily, boot, period, method="composite", kind="daily", n_boot=n_boot, warnings=warnings
     )

@@ -22,6 +22,7 @@ import pandas as pd
 
 from lakefeed.extract.load_estimation._common import (
     Z95,
+    Aligned,
     LoadEstimate,
     Period,
     align,
@@ -33,7 +34,7 @@ from lakefeed.extract.load_estimation._common import (
 )
 from lakefeed.extract.loads import load_factor
 
-__all__ = ["fwmc_load", "interpolation_load"]
+__all__ = ["fwmc_load", "interpolation_load", "summarise_bootstrap"]
 
 
 def _bootstrap_indices(n: int, n_boot: int, seed: int) -> np.ndarray:
@@ -50,6 +51,46 @@ def _intervals(boot: np.ndarray, axis: int = 0) -> tuple[np.ndarray, np.ndarray,
         warnings.simplefilter("ignore", RuntimeWarning)
         lo, hi = np.nanpercentile(boot, [2.5, 97.5], axis=axis)
         return lo, hi, (hi - lo) / (2 * Z95)
+
+
+def summarise_bootstrap(
+    a: Aligned,
+    daily: np.ndarray,
+    boot: np.ndarray,
+    period: Period,
+    *,
+    method: str,
+    kind: str,
+    n_boot: int,
+    warnings: list[str],
+    details: dict[str, float] | None = None,
+) -> LoadEstimate:
+    """A :class:`LoadEstimate` from daily loads (kg d-1) and their bootstrap replicates (B x days).
+
+    Daily, per-period and whole-record 95 % percentile intervals and standard errors all come
+    from the same replicates; shared by every bootstrap-based estimator.
+    """
+    lo_d, hi_d, _ = _intervals(boot)
+    codes, bounds = period_codes(a.days, period)
+    pk = period_sums(daily, codes, len(bounds))[0]
+    plo, phi, pse = _intervals(period_sums(boot, codes, len(bounds)))
+    lo, hi, se = _intervals(boot.sum(axis=1))
+    extra = {"details": details} if details is not None else {}
+    return summarise(
+        a,
+        daily,
+        lo_d,
+        hi_d,
+        periods_frame(bounds, codes, a, pk, pse, plo, phi),
+        method=method,
+        kind=kind,
+        se_kg=float(se),
+        lower_kg=float(lo),
+        upper_kg=float(hi),
+        uncertainty=f"bootstrap over samples ({n_boot} resamples), 95 % percentile interval",
+        warnings=warnings,
+        **extra,
+    )
 
 
 def interpolation_load(
@@ -91,26 +132,8 @@ def interpolation_load(
     idx = _bootstrap_indices(a.n, n_boot, seed)
     boot_conc = np.stack([np.interp(t, xp[i], a.conc[i]) for i in idx])  # loop over replicates, not days
     boot = boot_conc * a.flow * k
-    lo_d, hi_d, _ = _intervals(boot)
-    codes, bounds = period_codes(a.days, period)
-    pk = period_sums(daily, codes, len(bounds))[0]
-    pboot = period_sums(boot, codes, len(bounds))
-    plo, phi, pse = _intervals(pboot)
-    tot_boot = boot.sum(axis=1)
-    lo, hi, se = _intervals(tot_boot)
-    return summarise(
-        a,
-        daily,
-        lo_d,
-        hi_d,
-        periods_frame(bounds, codes, a, pk, pse, plo, phi),
-        method="interpolation",
-        kind="daily",
-        se_kg=float(se),
-        lower_kg=float(lo),
-        upper_kg=float(hi),
-        uncertainty=f"bootstrap over samples ({n_boot} resamples), 95 % percentile interval",
-        warnings=warnings,
+    return summarise_bootstrap(
+        a, daily, boot, period, method="interpolation", kind="daily", n_boot=n_boot, warnings=warnings
     )
 
 
@@ -155,22 +178,14 @@ def fwmc_load(
     idx = _bootstrap_indices(a.n, n_boot, seed)
     bfw = fwmc_per_period(a.conc[idx], a.sample_flow[idx], scode[idx])  # (B, nper)
     boot = a.flow[None, :] * bfw[:, codes] * kf
-    lo_d, hi_d, _ = _intervals(boot)
-    pk = period_sums(daily, codes, nper)[0]
-    plo, phi, pse = _intervals(period_sums(boot, codes, nper))
-    lo, hi, se = _intervals(boot.sum(axis=1))
-    return summarise(
+    return summarise_bootstrap(
         a,
         daily,
-        lo_d,
-        hi_d,
-        periods_frame(bounds, codes, a, pk, pse, plo, phi),
+        boot,
+        period,
         method="fwmc",
         kind="period",
-        se_kg=float(se),
-        lower_kg=float(lo),
-        upper_kg=float(hi),
-        uncertainty=f"bootstrap over samples ({n_boot} resamples), 95 % percentile interval",
+        n_boot=n_boot,
         warnings=warnings,
         details={f"fwmc_mg_l_{bounds[p][0]:%Y}": float(fw[p]) for p in range(nper)},
     )
