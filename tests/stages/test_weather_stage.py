@@ -151,3 +151,41 @@ def test_clear_sky_radiation_uses_the_lake_elevation(built):
     np.testing.assert_allclose(
         lake_rows["clear_sky_radiation"].to_numpy() / at_sea, (0.75 + 2e-5 * 512) / 0.75, rtol=2e-3
     )
+
+
+def test_forked_workers_give_the_same_zonal_means_as_threads(small_sample):
+    """compute_by_time in worker processes equals one dask compute, bit for bit (exact same arithmetic)."""
+    import geopandas as gpd
+
+    from lakefeed.extract.zonal import zonal_mean
+    from lakefeed.stages.weather import compute_by_time
+
+    grid = open_grid(sorted((small_sample / "weather").glob("reanalysis_*.nc"))[:2], chunk_time=200)
+    aois = gpd.read_file(small_sample / "geometry" / "aois.gpkg").to_crs(grid.crs)
+    zones = gpd.GeoDataFrame({"zone": aois["aoi_id"]}, geometry=aois.geometry.values, crs=grid.crs)
+    w, _ = get_weights(zones, grid)
+    lazy = [zonal_mean(grid.dataset[n], w) for n in ("air_temp", "wind_u")]
+    assert len(lazy[0]["mean"].chunks[0]) > 2
+    seen = []
+    forked = compute_by_time(lazy, processes=True, progress=lambda d, done, total: seen.append((done, total)))
+    threaded = compute_by_time(lazy, processes=False)
+    for a, b in zip(forked, threaded, strict=True):
+        xr.testing.assert_identical(a, b)
+    assert seen[-1][0] == seen[-1][1] == len(lazy[0]["mean"].chunks[0])
+
+
+def test_worker_processes_only_where_safe():
+    """No fork inside a multi-threaded process (a Prefect task) or with a configured Dask scheduler."""
+    import threading
+
+    import dask
+
+    from lakefeed.stages.weather import use_processes
+
+    got = []
+    t = threading.Thread(target=lambda: got.append(use_processes()))
+    t.start()
+    t.join()
+    assert got == [False]
+    with dask.config.set(scheduler="threads"):
+        assert not use_processes()

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import os
+import sys
+
 import typer
 from rich.console import Console
 
@@ -13,5 +16,7 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-console = Console(stderr=False)
+# Without a terminal (logs, CI, pipes) rich would wrap tables at 80 columns; use a wider page.
+_WIDTH = None if sys.stdout.isatty() or "COLUMNS" in os.environ else 160
+console = Console(stderr=False, width=_WIDTH)
 err_console = Console(stderr=True)

@@ -127,7 +127,13 @@ def demo_command(
             ["aoi", "n_obs", "obs_per_year", "gap_median_days", "gap_max_days", "warnings"],
         )
     if s.has_table("forecast_evaluation", lake):
-        _print_frame("forecast bias by lead time", s.read_table("forecast_evaluation", lake), [])
+        from lakefeed.cli.forecast import bias_rich_table
+
+        ev = s.read_table("forecast_evaluation", lake)
+        # the demo's feature leads (1, 3, 5, 10) where the archive has them, else its longest lead
+        leads = sorted({h for h in (1, 3, 5, 10) if h in set(ev["lead_days"])} | {int(ev["lead_days"].max())})
+        ev = ev[ev["lead_days"].isin(leads) & (ev["method"] == ev["method"].iloc[0])]
+        console.print(bias_rich_table(ev, title=f"forecast bias before/after quantile mapping, leads {leads} (days)"))
     status = summary["status"]
     colour = {"failed": "red", "ok": "green"}.get(status, "yellow")
     console.print(

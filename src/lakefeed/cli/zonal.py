@@ -36,6 +36,11 @@ def zonal(
     allow_partial: bool = typer.Option(False, "--allow-partial", help="Accept zones partly outside the grid."),
     weights_cache: Path | None = typer.Option(None, "--weights-cache", help="Folder to cache exact weights in."),
     skip_bad_files: bool = typer.Option(False, "--skip-bad-files", help="Leave out unreadable files (warn)."),
+    processes: bool | None = typer.Option(
+        None,
+        "--processes/--threads",
+        help="Read time chunks in forked worker processes (default: when safe, i.e. not in a Dask worker).",
+    ),
 ) -> None:
     """Area-weighted means of every grid variable over every polygon (exact coverage x cell area)."""
     import geopandas as gpd
@@ -46,7 +51,7 @@ def zonal(
     from lakefeed.geometry.zones import to_crs, zone_latitudes
     from lakefeed.sources.grids import open_grid
     from lakefeed.sources.vectors import read_layer
-    from lakefeed.stages.weather import get_weights, hourly_drivers, zonal_long
+    from lakefeed.stages.weather import get_weights, hourly_drivers, use_processes, zonal_long
     from lakefeed.store._meta import schema_with_units
 
     if accumulation not in ("none", "since_reset", "per_step"):
@@ -60,6 +65,8 @@ def zonal(
     zgdf = gpd.GeoDataFrame({"zone": layer[id_field].astype(str).to_numpy()}, geometry=layer.geometry.values, crs=g.crs)
     weights, cached = get_weights(zgdf, g, cache_dir=weights_cache, allow_partial_coverage=allow_partial)
     console.print(f"{len(zgdf)} zones, {len(g.files)} file(s), weights {'from cache' if cached else 'computed'}")
+    # decided before the progress bar starts its refresh thread (the workers never touch the console)
+    processes = use_processes() if processes is None else processes
     with Progress(
         TextColumn("{task.description}"),
         BarColumn(),
@@ -81,7 +88,7 @@ def zonal(
             frame["date"] = frame["date"].dt.date
             units = DAILY_UNITS
         else:
-            frame = zonal_long(g, weights, accumulation=acc, progress=progress)
+            frame = zonal_long(g, weights, accumulation=acc, progress=progress, processes=processes)
             units = {"value": "see unit column", "valid_fraction": "1"}
     import pyarrow as pa
     import pyarrow.parquet as pq

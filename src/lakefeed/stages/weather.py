@@ -15,7 +15,10 @@ with the ``lakefeed zonal`` command and the benchmark. Must not: hold science (t
 from __future__ import annotations
 
 import hashlib
+import multiprocessing
 import os
+import sys
+import threading
 from collections.abc import Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -25,6 +28,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 from dask.callbacks import Callback
+from dask.local import get_sync
 
 from lakefeed.exceptions import SourceError
 from lakefeed.extract.accumulation import Deaccumulated, deaccumulate, step_of
@@ -41,7 +45,7 @@ if TYPE_CHECKING:  # heavy imports (geopandas, pint, pydantic, pyarrow) are defe
     from lakefeed.config.sources import Accumulation, WeatherSource
     from lakefeed.store import Store
 
-__all__ = ["build_weather", "get_weights", "hourly_drivers", "zonal_long"]
+__all__ = ["build_weather", "compute_by_time", "get_weights", "hourly_drivers", "use_processes", "zonal_long"]
 
 ROLES = (
     "air_temperature",
@@ -71,6 +75,72 @@ class _DaskProgress(Callback):
     def _posttask(self, key, result, dsk, state, worker_id) -> None:
         self._done += 1
         self._p(self._d, self._done, max(self._n, self._done))
+
+
+def use_processes() -> bool:
+    """Whether :func:`compute_by_time` may fork worker processes here (the ``processes=None`` default).
+
+    Only in a plain single-threaded process on a POSIX system with more than one core: not inside a
+    Dask worker, not when a Dask scheduler or client is configured, not when other threads run (a
+    Prefect task, a server): forking a multi-threaded process can deadlock.
+    """
+    if "fork" not in multiprocessing.get_all_start_methods() or len(os.sched_getaffinity(0)) < 2:
+        return False
+    if threading.active_count() > 1 or dask.config.get("scheduler", None) is not None:
+        return False
+    distributed = sys.modules.get("distributed")  # a Dask worker has it imported; importing it costs ~0.3 s
+    if distributed is None:
+        return True
+    try:
+        distributed.get_worker()
+    except ValueError:
+        return True
+    return False
+
+
+_FORKED: tuple[list[xr.Dataset], list[slice]] | None = None  # set in the parent just before forking
+
+
+def _compute_slice(i: int) -> list[xr.Dataset]:
+    objs, slices = _FORKED  # type: ignore[misc]
+    # a callable scheduler: dask does not look for (and import) dask.distributed in every worker
+    return list(dask.compute(*(o.isel(time=slices[i]) for o in objs), scheduler=get_sync))
+
+
+def compute_by_time(
+    objs: list[xr.Dataset], *, processes: bool | None = None, progress: Progress | None = None, what: str = ""
+) -> list[xr.Dataset]:
+    """Compute lazy (time, ...) Datasets together, one time chunk per task, in forked processes.
+
+    HDF5 reads hold a global lock, so dask threads do not decompress in parallel; forked workers
+    (each reading its own time chunks and returning only the small zonal result) do. ``processes``:
+    None decides by :func:`use_processes`; False computes with the current Dask scheduler. Results
+    are identical either way; memory per worker is one time chunk.
+    """
+    chunks = next((v.chunks[0] for o in objs for v in o.data_vars.values() if v.chunks), None)
+    if processes is None:
+        processes = use_processes()
+    if not processes or chunks is None or len(chunks) < 2:
+        cb = _DaskProgress(progress, what) if progress else None
+        with cb if cb else _Null():
+            return list(dask.compute(*objs))
+    from concurrent.futures import ProcessPoolExecutor
+
+    global _FORKED
+    ends = np.cumsum(chunks)
+    slices = [slice(int(e - c), int(e)) for c, e in zip(chunks, ends, strict=True)]
+    _FORKED = (objs, slices)
+    parts: list[list[xr.Dataset]] = []
+    try:
+        n = min(len(os.sched_getaffinity(0)), len(slices))
+        with ProcessPoolExecutor(n, mp_context=multiprocessing.get_context("fork")) as pool:
+            for k, part in enumerate(pool.map(_compute_slice, range(len(slices)))):
+                parts.append(part)
+                if progress:
+                    progress(what, k + 1, len(slices))
+    finally:
+        _FORKED = None
+    return [xr.concat([p[j] for p in parts], dim="time") for j in range(len(objs))]
 
 
 def get_weights(
@@ -195,13 +265,20 @@ class _Null:
 
 
 def zonal_long(
-    grid: Grid, weights: ZoneWeights, *, accumulation: Accumulation | None = None, progress: Progress | None = None
+    grid: Grid,
+    weights: ZoneWeights,
+    *,
+    accumulation: Accumulation | None = None,
+    progress: Progress | None = None,
+    processes: bool | None = None,
 ) -> pd.DataFrame:
     """Long table (zone, time, variable, value, unit, valid_fraction) of every (time, lat, lon) variable.
 
     ``variable`` is the CF standard_name where the file has one, else the variable name. Known roles
     are converted to canonical units (temperatures degC, wind m s-1, precipitation mm per step,
     shortwave W m-2); accumulated amounts (by standard_name) are de-accumulated per ``accumulation``.
+    Without accumulated amounts the time chunks are read in forked worker processes where safe
+    (``processes``: see :func:`compute_by_time`); de-accumulation needs one pass with the Dask scheduler.
     """
     from lakefeed.config.sources import WEATHER_ROLES
     from lakefeed.units import convert, parse_unit
@@ -220,11 +297,19 @@ def zonal_long(
             da = deaccumulate(decode(da), kind=accumulation.kind, reset_hour=accumulation.reset_hour, name=str(name))
         lazy[str(name)] = (zonal_mean(da.increments if hasattr(da, "increments") else da, weights), da)
         meta[str(name)] = (sn or str(name), by_sn.get(sn or ""), unit)
-    cb = _DaskProgress(progress, "zonal: reading grid") if progress else None
-    with cb if cb else _Null():
-        (res,) = dask.compute(
-            {k: (v[0], getattr(v[1], "bad_steps", None), getattr(v[1], "n_clipped", None)) for k, v in lazy.items()}
+    if not any(isinstance(v[1], Deaccumulated) for v in lazy.values()):
+        # every result runs along time: one task per time chunk, in worker processes where safe
+        names = list(lazy)
+        done = compute_by_time(
+            [lazy[k][0] for k in names], processes=processes, progress=progress, what="zonal: reading grid"
         )
+        res = {k: (d, None, None) for k, d in zip(names, done, strict=True)}
+    else:
+        cb = _DaskProgress(progress, "zonal: reading grid") if progress else None
+        with cb if cb else _Null():
+            (res,) = dask.compute(
+                {k: (v[0], getattr(v[1], "bad_steps", None), getattr(v[1], "n_clipped", None)) for k, v in lazy.items()}
+            )
     frames = []
     for name, (z, bad, ncl) in res.items():
         src = lazy[name][1]
