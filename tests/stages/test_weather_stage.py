@@ -172,6 +172,13 @@ def test_forked_workers_give_the_same_zonal_means_as_threads(small_sample):
     for a, b in zip(forked, threaded, strict=True):
         xr.testing.assert_identical(a, b)
     assert seen[-1][0] == seen[-1][1] == len(lazy[0]["mean"].chunks[0])
+    # the `lakefeed zonal` long table (no accumulated amounts: the forked path) is the same either way
+    from dataclasses import replace
+
+    from lakefeed.stages.weather import zonal_long
+
+    plain = replace(grid, dataset=grid.dataset[["air_temp", "wind_u"]])
+    pd.testing.assert_frame_equal(zonal_long(plain, w, processes=True), zonal_long(plain, w, processes=False))
 
 
 def test_worker_processes_only_where_safe():

@@ -7,9 +7,9 @@ zone geometry hashes, so later runs and other files on the same grid reuse them)
 grid once for every zone and variable at once, de-accumulates and converts units, and
 aggregates to the lake's local days. Writes ``drivers_daily`` (columns and units of DESIGN.md).
 
-The helpers :func:`get_weights`, :func:`hourly_drivers` and :func:`zonal_long` are shared
-with the ``lakefeed zonal`` command and the benchmark. Must not: hold science (that is in
-``extract``/``geometry``).
+The helpers :func:`get_weights`, :func:`hourly_drivers`, :func:`zonal_long` and
+:func:`compute_by_time` (time chunks read in forked worker processes where that is safe) are
+shared with the ``lakefeed zonal`` command and the benchmark. Must not: hold science.
 """
 
 from __future__ import annotations
@@ -20,6 +20,7 @@ import os
 import sys
 import threading
 from collections.abc import Mapping
+from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -77,14 +78,18 @@ class _DaskProgress(Callback):
         self._p(self._d, self._done, max(self._n, self._done))
 
 
+def _cores() -> int:
+    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1
+
+
 def use_processes() -> bool:
     """Whether :func:`compute_by_time` may fork worker processes here (the ``processes=None`` default).
 
-    Only in a plain single-threaded process on a POSIX system with more than one core: not inside a
+    Only in a plain single-threaded process on Linux with more than one core: not inside a
     Dask worker, not when a Dask scheduler or client is configured, not when other threads run (a
     Prefect task, a server): forking a multi-threaded process can deadlock.
     """
-    if "fork" not in multiprocessing.get_all_start_methods() or len(os.sched_getaffinity(0)) < 2:
+    if not sys.platform.startswith("linux") or _cores() < 2:
         return False
     if threading.active_count() > 1 or dask.config.get("scheduler", None) is not None:
         return False
@@ -112,10 +117,9 @@ def compute_by_time(
 ) -> list[xr.Dataset]:
     """Compute lazy (time, ...) Datasets together, one time chunk per task, in forked processes.
 
-    HDF5 reads hold a global lock, so dask threads do not decompress in parallel; forked workers
-    (each reading its own time chunks and returning only the small zonal result) do. ``processes``:
-    None decides by :func:`use_processes`; False computes with the current Dask scheduler. Results
-    are identical either way; memory per worker is one time chunk.
+    xarray reads HDF5 under one lock, so dask threads hardly overlap the reads; forked workers (each
+    reading its own time chunks, returning only the small zonal result) do. ``processes``: None
+    decides by :func:`use_processes`; False uses the current Dask scheduler. Identical results.
     """
     chunks = next((v.chunks[0] for o in objs for v in o.data_vars.values() if v.chunks), None)
     if processes is None:
@@ -124,15 +128,13 @@ def compute_by_time(
         cb = _DaskProgress(progress, what) if progress else None
         with cb if cb else _Null():
             return list(dask.compute(*objs))
-    from concurrent.futures import ProcessPoolExecutor
-
     global _FORKED
     ends = np.cumsum(chunks)
     slices = [slice(int(e - c), int(e)) for c, e in zip(chunks, ends, strict=True)]
     _FORKED = (objs, slices)
     parts: list[list[xr.Dataset]] = []
     try:
-        n = min(len(os.sched_getaffinity(0)), len(slices))
+        n = max(1, min(_cores(), len(slices)))
         with ProcessPoolExecutor(n, mp_context=multiprocessing.get_context("fork")) as pool:
             for k, part in enumerate(pool.map(_compute_slice, range(len(slices)))):
                 parts.append(part)
