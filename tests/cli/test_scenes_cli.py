@@ -13,32 +13,14 @@ import pytest
 import rasterio
 import shapely
 from affine import Affine
+from scene_factory import TARGET_OBS_COLUMNS
 from typer.testing import CliRunner
 
 from lakefeed.cli import app
 from lakefeed.exceptions import SourceError
 
 X0, Y0 = 400_000.0, 5_100_000.0
-OBS_COLUMNS = [
-    "lake",
-    "aoi",
-    "scene_id",
-    "sensor",
-    "time",
-    "date",
-    "median",
-    "mean",
-    "p10",
-    "p90",
-    "std",
-    "cv",
-    "n_valid",
-    "valid_fraction",
-    "uncertainty",
-    "accepted",
-    "reason",
-    "outlier",
-]
+OBS_COLUMNS = TARGET_OBS_COLUMNS
 
 
 def _tif(path: Path, data: np.ndarray, nodata: float | None) -> str:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
 import geopandas as gpd
@@ -11,12 +10,10 @@ import pytest
 import shapely
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from scene_factory import ORIGIN, write_tif
 
 from lakefeed.extract.scene_stats import aoi_statistics, shore_buffered, valid_mask
 from lakefeed.sources.scenes import SceneReader
-
-sys.path.insert(0, str(Path(__file__).parents[1] / "sources"))
-from scene_factory import ORIGIN, write_tif
 
 X0, Y0 = ORIGIN
 

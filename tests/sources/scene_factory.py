@@ -78,3 +78,26 @@ def write_catalog(root: Path, items: list[Path]) -> Path:
     path = root / "catalog.json"
     path.write_text(json.dumps(cat))
     return path
+
+
+#: ``target_obs`` columns in the order of the store contract (DESIGN.md, "Store tables").
+TARGET_OBS_COLUMNS = [
+    "lake",
+    "aoi",
+    "scene_id",
+    "sensor",
+    "time",
+    "date",
+    "median",
+    "mean",
+    "p10",
+    "p90",
+    "std",
+    "cv",
+    "n_valid",
+    "valid_fraction",
+    "uncertainty",
+    "accepted",
+    "reason",
+    "outlier",
+]

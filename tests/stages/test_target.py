@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import sys
 from pathlib import Path
 
 import geopandas as gpd
@@ -12,14 +11,12 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 import shapely
+from scene_factory import TARGET_OBS_COLUMNS, write_catalog, write_item, write_tif
 
 from lakefeed.config import load_project
 from lakefeed.extract.trophic import CAUTION
 from lakefeed.stages.target import build_target
 from lakefeed.store import Store
-
-sys.path.insert(0, str(Path(__file__).parents[1] / "sources"))
-from scene_factory import write_catalog, write_item, write_tif
 
 X0, Y0 = 600_000.0, 5_200_000.0
 RATIO = 1.25  # planted dune / kite bias
@@ -97,26 +94,7 @@ def test_build_target_synthetic(tmp_path: Path) -> None:
     obs = store.read_table("target_obs", "testlake")
     daily = store.read_table("target_daily", "testlake")
     assert obs.attrs["units"]["median"] == "mg m-3" and daily.attrs["units"]["chla"] == "mg m-3"
-    assert list(obs.columns) == [
-        "lake",
-        "aoi",
-        "scene_id",
-        "sensor",
-        "time",
-        "date",
-        "median",
-        "mean",
-        "p10",
-        "p90",
-        "std",
-        "cv",
-        "n_valid",
-        "valid_fraction",
-        "uncertainty",
-        "accepted",
-        "reason",
-        "outlier",
-    ]
+    assert list(obs.columns) == TARGET_OBS_COLUMNS
     assert list(daily.columns[:9]) == [
         "lake",
         "aoi",

@@ -261,17 +261,24 @@ def _role_variable(ds: xr.Dataset, role: str, variables: Mapping[str, str]) -> s
     return found
 
 
+def _source_files(paths: list[str], section: str) -> tuple[list[CheckResult], list[Path]]:
+    """Expand a grid source's paths: one problem per unmatched pattern, one ok line with the file range."""
+    files, problems = expand(paths, key=f"{section}.paths")
+    out = [failed(f"{section} files", p, f"fix {section}.paths in the sources config") for p in problems]
+    if files:
+        out.append(passed(f"{section} files", f"{len(files)} file(s), first {files[0].name}, last {files[-1].name}"))
+    return out, files
+
+
 def check_weather(
     src: WeatherSource | None, zones: Mapping[str, gpd.GeoDataFrame | None]
 ) -> tuple[list[CheckResult], Period | None]:
     """Weather grid: files, variables and units, extent, period (from the ``time`` coordinate)."""
     if src is None:
         return [skipped("weather", "no 'weather' section in the sources config")], None
-    files, problems = expand(src.paths, key="weather.paths")
-    out = [failed("weather files", p, "fix weather.paths in the sources config") for p in problems]
+    out, files = _source_files(src.paths, "weather")
     if not files:
         return out, None
-    out.append(passed("weather files", f"{len(files)} file(s), first {files[0].name}, last {files[-1].name}"))
     with open_lazy(files[0]) as ds:
         out += weather_variables(
             ds,
@@ -302,11 +309,9 @@ def check_forecast(
     """Forecast archive: files, forecast_reference_time, lead dimension, variables, extent, issue period."""
     if src is None:
         return [skipped("forecast", "no 'forecast' section in the sources config")], None
-    files, problems = expand(src.paths, key="forecast.paths")
-    out = [failed("forecast files", p, "fix forecast.paths in the sources config") for p in problems]
+    out, files = _source_files(src.paths, "forecast")
     if not files:
         return out, None
-    out.append(passed("forecast files", f"{len(files)} file(s), first {files[0].name}, last {files[-1].name}"))
     with open_lazy(files[0]) as ds:
         ref = find_coord(ds, "forecast_reference_time")
         lead = find_coord(ds, "forecast_period")
