@@ -11,12 +11,15 @@ missing days is missing.
   per statistic and window, shift one day, pick the target dates.
 - lakefeed: :func:`lakefeed.features.window_features` (gather each target's window, reduce).
 
-Refresh: per lake, one more month of drivers and targets; ``new_feature_rows`` (only the new
+Refresh: per lake, one more month of drivers and targets; ``new_feature_block`` (only the new
 dates, from the drivers of the longest window's spill-over) + folds from the frozen block
-boundaries vs ``build_feature_rows`` on the whole record + folds (compute only, in memory), and
-the same through the features stage and the Parquet store (``build_features``: read inputs,
-verify the old inputs unchanged, compute, append one part file / write the table, diagnostics,
-manifest and lock) for a subset of lakes. Times are wall clock and CPU time of this process
+boundaries vs ``feature_block`` on the whole record + folds, both to Arrow as the stage stores
+them (compute only, in memory), and the same through the features stage and the Parquet store
+(``build_features``: read the inputs, verify the old inputs unchanged, compute, append one part
+file / write the table, diagnostics, manifest and lock) for a subset of lakes. The new month of
+drivers is appended to ``drivers_daily`` as one part file, as the weather stage's monthly
+refresh writes it, so the incremental stage reads only the last days of the record. Times are wall clock
+and CPU time of this process
 (the CPU time is less disturbed by other work on the machine).
 
 Run: ``.venv/bin/python benchmarks/features.py [--lakes 200 --years 10 --store-lakes 20]``.
@@ -31,16 +34,11 @@ import time
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
-from lakefeed.features import (
-    build_feature_rows,
-    feature_name,
-    fold_boundaries,
-    folds_from_boundaries,
-    new_feature_rows,
-    window_features,
-)
-from lakefeed.features.incremental import _sorted
+from lakefeed.features import feature_name, fold_boundaries, folds_from_boundaries, window_features
+from lakefeed.features.incremental import new_feature_block
+from lakefeed.features.pit import feature_block
 from lakefeed.store import Store
 
 WINDOWS = [1, 3, 5, 7, 10, 15, 30]
@@ -111,26 +109,31 @@ def bench_windows(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[float
     return t_lf, t_pd, worst
 
 
-def _with_folds(rows: pd.DataFrame, bounds: list) -> pd.DataFrame:
-    rows = _sorted(rows, ["aoi", "target_date"]).reset_index(drop=True)  # no copy when already sorted
-    rows["fold"] = folds_from_boundaries(rows["target_date"], bounds)
-    return rows
+def _with_folds(block, bounds: list):
+    """A feature block as the stage stores it: Arrow, folds from the frozen boundaries."""
+    import pyarrow as pa
+
+    arrow = block.to_arrow()
+    folds = folds_from_boundaries(arrow["target_date"].to_numpy(), bounds)
+    return arrow.append_column("fold", pa.array(folds, pa.int16()))
 
 
 def bench_refresh(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[Clock, Clock]:
     """Compute only: the new month's rows (folds from the boundaries frozen at the previous build) vs
-    all rows (the same frozen boundaries); the new rows equal the full rebuild's rows from the cut on."""
+    all rows (the same frozen boundaries), both as the stage stores them (Arrow); the new rows equal
+    the full rebuild's rows from the cut on."""
     stats = {c: STATS for c in lakes[0][0].columns}
     kw = dict(lead=0, windows=WINDOWS, stats=stats, max_missing_fraction=FRAC)
     full_clock, inc_clock = Clock(), Clock()
     for drivers, targets in lakes:
         cut = drivers.index[-1] - pd.offsets.MonthBegin(1)  # the last month is "new"
         bounds = fold_boundaries(targets.loc[targets["date"] < cut, "date"], k=5)  # frozen at the previous build
-        full = full_clock(lambda d=drivers, t=targets, b=bounds: _with_folds(build_feature_rows(t, d, **kw), b))
+        full = full_clock(lambda d=drivers, t=targets, b=bounds: _with_folds(feature_block(t, d, **kw), b))
         inc = inc_clock(
-            lambda d=drivers, t=targets, c=cut, b=bounds: _with_folds(new_feature_rows(t, d, since=c, **kw), b)
+            lambda d=drivers, t=targets, c=cut, b=bounds: _with_folds(new_feature_block(t, d, since=c, **kw), b)
         )
-        pd.testing.assert_frame_equal(inc, full[full["target_date"] >= cut].reset_index(drop=True))
+        tail = full.slice(int((full["target_date"].to_numpy() < cut.to_datetime64()).sum()))
+        assert inc.equals(tail)
     return full_clock, inc_clock
 
 
@@ -165,10 +168,12 @@ def bench_store(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[Clock, 
             project = _project(lake, list(drivers.columns), tmp)
             cut = drivers.index[-1] - pd.offsets.MonthBegin(1)
             d = drivers.rename_axis("date").reset_index().assign(zone="lake")
-            store.write_table("drivers_daily", lake, d[d["date"] < cut])
+            store.write_table("drivers_daily", lake, d[d["date"] < cut], time_column="date")
             store.write_table("target_daily", lake, targets[targets["date"] < cut])
             build_features(project, store)  # last month's state
-            store.write_table("drivers_daily", lake, d)  # the new month arrives
+            # the new month arrives as the weather stage writes it: one appended part file
+            new = pa.Table.from_pandas(d[d["date"] >= cut], preserve_index=False)
+            store.append_arrow("drivers_daily", lake, new, since=cut, time_column="date")
             store.write_table("target_daily", lake, targets)
             inc_clock(build_features, project, store)
             parts += len(store.part_files("features", lake))

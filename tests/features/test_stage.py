@@ -144,8 +144,8 @@ def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: py
     import lakefeed.stages.features as stage
 
     calls = []
-    real = stage.new_feature_rows
-    monkeypatch.setattr(stage, "new_feature_rows", lambda *a, **k: calls.append(k["since"]) or real(*a, **k))
+    real = stage.new_feature_block
+    monkeypatch.setattr(stage, "new_feature_block", lambda *a, **k: calls.append(k["since"]) or real(*a, **k))
     for step, end in enumerate(["2022-11-30", "2022-12-31"]):
         _write(inc, *_inputs(end=end))  # one more month of every input
         build_features(project, inc)
@@ -275,8 +275,63 @@ def test_changed_old_data_triggers_full_rebuild(tmp_path: Path, monkeypatch: pyt
     _write(store, drivers, hyd, target)
     import lakefeed.stages.features as stage
 
-    monkeypatch.setattr(stage, "new_feature_rows", lambda *a, **k: pytest.fail("must rebuild in full"))
+    monkeypatch.setattr(stage, "new_feature_block", lambda *a, **k: pytest.fail("must rebuild in full"))
     build_features(project, store)
+
+
+def _append_month(store: Store, end: str, start: str) -> None:
+    """One more month as upstream stages write it: driver tables appended (older part files untouched),
+    targets rewritten."""
+    import pyarrow as pa
+
+    drivers, hyd, target = _inputs(end=end)
+    hyd_units = {"inflow_discharge": "m3 s-1", "tp_load": "kg d-1"}
+    for table, frame, units in [("drivers_daily", drivers, DRIVER_UNITS), ("hydrology_daily", hyd, hyd_units)]:
+        new = pa.Table.from_pandas(frame[frame["date"] >= start], preserve_index=False)
+        store.append_arrow(table, "tallow", new, since=start, time_column="date", units=units)
+    store.write_table("target_daily", "tallow", target, units={"chla": "mg m-3"})
+
+
+def test_appended_driver_months_are_read_from_the_tail_only(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """When the driver tables only gained later part files, the refresh reads their last days (longest
+    window + lead before the first new date), not the whole record, and equals a full rebuild; a
+    rewritten old part makes it read everything and compare fingerprints instead."""
+    project = _project(tmp_path, leads=[0, 2], windows=[1, 5, 30])
+    store = Store(tmp_path / "s")
+    _write(store, *_inputs(end="2022-09-30"))
+    build_features(project, store)
+    reads: list[tuple[str, object]] = []
+    real = Store.read_arrow
+
+    def spy(self: Store, table: str, lake: str, **k: object) -> object:
+        reads.append((table, k.get("since")))
+        return real(self, table, lake, **k)
+
+    monkeypatch.setattr(Store, "read_arrow", spy)
+    for start, end in [("2022-10-01", "2022-10-31"), ("2022-11-01", "2022-11-30")]:
+        reads.clear()
+        _append_month(store, end, start)
+        build_features(project, store)
+        first_new = min(pd.Timestamp(start), _inputs(end=end)[2]["date"].max())  # refresh_start of the old state
+        driver_reads = [s for t, s in reads if t in ("drivers_daily", "hydrology_daily")]
+        assert len(driver_reads) == 2 and all(s is not None for s in driver_reads)
+        assert all(pd.Timestamp(s) <= first_new - pd.Timedelta(days=30 + 2) for s in driver_reads)
+        assert all(pd.Timestamp(s) >= pd.Timestamp(start) - pd.Timedelta(days=120) for s in driver_reads)
+        full = _full_copy(store, tmp_path, f"full-{start}", project)
+        pd.testing.assert_frame_equal(load_features(store, "tallow"), load_features(full, "tallow"))
+        pd.testing.assert_frame_equal(
+            store.read_table("diagnostics", "tallow"), full.read_table("diagnostics", "tallow")
+        )
+    # an upstream rewrite of old rows (new content in an old part): whole record read, change found, rebuilt in full
+    drivers, hyd, target = _inputs(end="2022-12-31")
+    drivers.loc[5, "precipitation_sum"] += 1.0
+    reads.clear()
+    _write(store, drivers, hyd, target)
+    build_features(project, store)
+    assert [s for t, s in reads if t == "drivers_daily"] == [None]
+    full = _full_copy(store, tmp_path, "full-rewrite", project)
+    pd.testing.assert_frame_equal(load_features(store, "tallow"), load_features(full, "tallow"))
+    assert len(store.part_files("features", "tallow")) == 1
 
 
 def test_driver_named_in_config_but_in_no_table(tmp_path: Path) -> None:

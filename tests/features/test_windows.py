@@ -117,3 +117,23 @@ def test_default_statistics() -> None:
     assert default_statistics("dewpoint_mean") == ["mean", "min", "max"]
     assert default_statistics("air_temperature_max") == ["mean", "min", "max"]
     assert default_statistics("inflow_discharge") == ["mean"]
+
+
+def test_few_target_path_equals_the_day_loop() -> None:
+    """reduce_windows has two code paths (running reductions for a few targets, a day loop for many);
+    both accumulate sequentially, so they agree exactly, NaN pattern included (self-consistency)."""
+    from lakefeed.features.windows import _FEW_TARGETS, WindowPlan, reduce_windows
+
+    rng = np.random.default_rng(3)
+    cols = ["a", "b", "c"]
+    gathered = rng.gamma(1.0, 2.0, (30, 3 * _FEW_TARGETS, 3))
+    gathered[rng.random(gathered.shape) < 0.15] = np.nan
+    gathered[:, 0, 0] = 0.0  # a dry spell sums to exactly zero on both paths
+    plan = WindowPlan.build(cols, windows=[1, 3, 7, 30], stats={c: ["mean", "sum", "min", "max"] for c in cols})
+    many, many_bad = reduce_windows(gathered, plan, cols)
+    chunks = [
+        reduce_windows(gathered[:, i : i + _FEW_TARGETS], plan, cols) for i in range(0, 3 * _FEW_TARGETS, _FEW_TARGETS)
+    ]
+    np.testing.assert_array_equal(np.vstack([c[0] for c in chunks]), many)
+    np.testing.assert_array_equal(np.vstack([c[1] for c in chunks]), many_bad)
+    assert many[0, plan.names.index("a__sum_30d")] == 0.0

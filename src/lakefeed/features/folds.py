@@ -44,6 +44,12 @@ EMBARGOED = -1
 
 
 def _days(dates: Sequence[object] | pd.DatetimeIndex) -> np.ndarray:
+    """Day numbers (days since 1970-01-01) of dates; ISO date strings (frozen boundaries) without pandas."""
+    if isinstance(dates, list) and all(isinstance(d, str) and len(d) == 10 for d in dates):
+        try:
+            return np.array(dates, dtype="datetime64[D]").astype(np.int64)
+        except ValueError:
+            pass  # not plain YYYY-MM-DD: the general reader says what is wrong
     return as_dates(dates).to_numpy().astype("datetime64[D]").astype(np.int64)
 
 

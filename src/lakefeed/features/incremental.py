@@ -20,10 +20,10 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from lakefeed.features.pit import build_feature_rows
-from lakefeed.features.windows import as_dates
+from lakefeed.features.pit import FeatureBlock, feature_block
+from lakefeed.features.windows import as_dates, day_numbers
 
-__all__ = ["new_feature_rows", "prefix_digest", "refresh_feature_rows", "refresh_start"]
+__all__ = ["new_feature_block", "new_feature_rows", "prefix_digest", "refresh_feature_rows", "refresh_start"]
 
 
 def prefix_digest(frame: pd.DataFrame, *, date_column: str | None, through: object) -> str:
@@ -75,24 +75,46 @@ def new_feature_rows(
     all targets for the persistence baseline; the rows equal those of a full
     :func:`build_feature_rows` on the same inputs.
     """
+    return new_feature_block(
+        targets, drivers, since=since, lead=lead, windows=windows, stats=stats, include_target_day=include_target_day,
+        max_missing_fraction=max_missing_fraction, forecast_drivers=forecast_drivers, by=by, value=value,
+    ).to_pandas()  # fmt: skip
+
+
+def new_feature_block(
+    targets: pd.DataFrame,
+    drivers: pd.DataFrame,
+    *,
+    since: object,
+    lead: int = 0,
+    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    **options: object,
+) -> FeatureBlock:
+    """As :func:`new_feature_rows`, as a :class:`~lakefeed.features.pit.FeatureBlock` (no pandas frame
+    of the rows is built; the stage converts it to Arrow directly). ``options`` as for
+    :func:`~lakefeed.features.pit.feature_block`."""
     since = pd.Timestamp(since)
     tcol = "target_date" if "target_date" in targets.columns else "date"
-    new_targets = targets[as_dates(targets[tcol]) >= since]
+    new_targets = targets.iloc[_on_or_after(targets[tcol], since)]
     spill = since - pd.Timedelta(days=max(windows) + 1 + lead)
-    window_drivers = drivers[as_dates(drivers.index) >= spill]
-    return build_feature_rows(
+    window_drivers = drivers.iloc[_on_or_after(drivers.index, spill)]
+    return feature_block(
         new_targets,
         window_drivers,
         lead=lead,
         windows=windows,
-        stats=stats,
-        include_target_day=include_target_day,
-        max_missing_fraction=max_missing_fraction,
-        forecast_drivers=forecast_drivers,
-        observations=targets.rename(columns={tcol: "date"}),
-        by=by,
-        value=value,
+        observations=targets,
+        **options,  # type: ignore[arg-type]
     )
+
+
+def _on_or_after(dates: pd.Index | pd.Series, start: pd.Timestamp) -> slice | np.ndarray:
+    """Positions of the dates on or after ``start``: a slice when sorted (no copy of the mask), else indices."""
+    day = day_numbers(dates)
+    at = int(np.datetime64(start.date(), "D").astype(np.int64))
+    if len(day) < 2 or (day[1:] >= day[:-1]).all():
+        return slice(int(np.searchsorted(day, at, side="left")), None)
+    return np.flatnonzero(day >= at)
 
 
 def refresh_feature_rows(
@@ -136,8 +158,22 @@ def refresh_feature_rows(
 
 def _sorted(frame: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
     """Stable sort by ``keys``; no copy when already sorted."""
+    cols = [frame[k].to_numpy() for k in keys]
+    if len(frame) < 2 or _is_sorted(cols):
+        return frame
     codes = [pd.factorize(frame[k], sort=True)[0] for k in keys]
     order = np.lexsort(codes[::-1])
-    if (order == np.arange(len(order))).all():
-        return frame
     return frame.take(order).reset_index(drop=True)
+
+
+def _is_sorted(cols: list[np.ndarray]) -> bool:
+    """Whether rows are in lexicographic order of the columns (NaN/None-free keys)."""
+    tie = np.ones(len(cols[0]) - 1, dtype=bool)  # rows equal on all earlier keys
+    for c in cols:
+        a, b = c[:-1], c[1:]
+        if (tie & (b < a)).any():
+            return False
+        tie &= a == b
+        if not tie.any():
+            return True
+    return True

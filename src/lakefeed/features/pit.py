@@ -26,14 +26,26 @@ days; ``incomplete_windows`` counts them), ``no_prior_observation`` (no persiste
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from lakefeed.exceptions import FeatureError
-from lakefeed.features.windows import WindowPlan, as_dates, gather_windows, reduce_windows, to_daily
+from lakefeed.features.windows import WindowPlan, as_dates, day_numbers, gather_windows, reduce_windows, to_daily
 
-__all__ = ["FLAG_CODES", "build_feature_rows", "calendar_features", "flag_strings", "forecast_array", "persistence"]
+__all__ = [
+    "FLAG_CODES",
+    "FeatureBlock",
+    "build_feature_rows",
+    "calendar_features",
+    "feature_block",
+    "flag_strings",
+    "forecast_array",
+    "persistence",
+]
 
 #: Codes used in the ``flags`` column of feature rows.
 FLAG_CODES = ("outside_driver_record", "incomplete_window", "no_prior_observation", "forecast_drivers")
@@ -47,17 +59,24 @@ def flag_strings(codes: Mapping[str, np.ndarray]) -> np.ndarray:
     combo = np.zeros(len(next(iter(codes.values()))), dtype=np.int64)
     for bit, name in enumerate(names):
         combo |= np.asarray(codes[name], dtype=np.int64) << bit
-    table = np.array(
-        [";".join(n for b, n in enumerate(names) if c >> b & 1) for c in range(1 << len(names))], dtype=object
-    )
-    return table[combo]
+    return _flag_table(tuple(names))[combo]
 
 
-def calendar_features(dates: pd.DatetimeIndex) -> tuple[np.ndarray, np.ndarray]:
-    """Day of year as a point on the unit circle: (sin, cos) of 2 pi (doy - 1) / days in that year."""
-    dates = pd.DatetimeIndex(dates)
-    ndays = np.where(dates.is_leap_year, 366.0, 365.0)
-    angle = 2.0 * np.pi * (dates.dayofyear.to_numpy() - 1) / ndays
+@lru_cache(maxsize=32)
+def _flag_table(names: tuple[str, ...]) -> np.ndarray:
+    return np.array([";".join(n for b, n in enumerate(names) if c >> b & 1) for c in range(1 << len(names))], object)
+
+
+def calendar_features(dates: pd.DatetimeIndex | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Day of year as a point on the unit circle: (sin, cos) of 2 pi (doy - 1) / days in that year.
+
+    ``dates``: dates, or day numbers (int64 days since 1970-01-01)."""
+    days = np.asarray(dates) if np.asarray(dates).dtype.kind == "i" else day_numbers(pd.DatetimeIndex(dates))
+    year = days.astype("datetime64[D]").astype("datetime64[Y]")
+    doy0 = days - year.astype("datetime64[D]").astype(np.int64)  # day of year - 1
+    y = year.astype(np.int64) + 1970
+    leap = (y % 4 == 0) & ((y % 100 != 0) | (y % 400 == 0))
+    angle = 2.0 * np.pi * doy0 / np.where(leap, 366.0, 365.0)
     return np.sin(angle), np.cos(angle)
 
 
@@ -112,13 +131,16 @@ def _last_known(
     ovals = observations[value].to_numpy(dtype=float)
     keep = ~np.isnan(ovals)
     ovals = ovals[keep]
-    odays = as_dates(observations["date"]).to_numpy().astype("datetime64[D]").astype(np.int64)[keep]
+    dcol = "date" if "date" in observations.columns else "target_date"
+    odays = day_numbers(observations[dcol])[keep]
     cutoff = np.minimum(idays, tdays - 1)
     span = 1 << 32
     if by is not None:
-        ogroups = observations[by].to_numpy(dtype=object)[keep]
-        codes, _ = pd.factorize(np.concatenate([ogroups.astype(str), np.asarray(groups).astype(str)]))
-        ogrp, rgrp = codes[: len(ogroups)].astype(np.int64), codes[len(ogroups) :].astype(np.int64)
+        # groups compared as text (1 and "1" are one group); only the distinct labels are converted
+        ocodes, olabels = pd.factorize(observations[by].to_numpy(dtype=object)[keep])
+        text_codes, text = pd.factorize(np.asarray(olabels, dtype=object).astype(str))
+        ogrp = text_codes[ocodes].astype(np.int64) if len(ocodes) else np.zeros(0, dtype=np.int64)
+        rgrp = pd.Index(text).get_indexer(np.asarray(groups).astype(str)).astype(np.int64)  # -1: no observations
         okey, rkey = ogrp * span + odays, rgrp * span + cutoff
     else:
         okey, rkey = odays, cutoff
@@ -161,6 +183,55 @@ def forecast_array(
     return out
 
 
+@dataclass(frozen=True)
+class FeatureBlock:
+    """Feature rows as columns: ``head`` (keys, dates, label, baseline, calendar), the window features
+    (one float64 block, ``names`` in plan order) and ``tail`` (flag columns), in output column order.
+    Converts to pandas (:meth:`to_pandas`) or Arrow (:meth:`to_arrow`) without per-column copies of
+    the float block."""
+
+    head: dict[str, np.ndarray]
+    values: np.ndarray
+    names: list[str]
+    tail: dict[str, np.ndarray]
+    index: pd.Index | None = None
+
+    def __len__(self) -> int:
+        return int(self.values.shape[0])
+
+    def to_pandas(self) -> pd.DataFrame:
+        """One frame: head columns, features, tail columns (index as the targets')."""
+        idx = self.index if self.index is not None else pd.RangeIndex(len(self))
+        parts = [
+            pd.DataFrame(self.head, index=idx),
+            pd.DataFrame(self.values, columns=self.names, index=idx),
+            pd.DataFrame(self.tail, index=idx),
+        ]
+        return pd.concat(parts, axis=1)
+
+    def to_arrow(self, extra: Mapping[str, tuple[str, np.ndarray]] | None = None) -> pa.Table:
+        """Arrow table in the same column order (NaN -> null, as ``pa.Table.from_pandas``);
+        ``extra`` inserts columns after a named one: ``{new: (after, values)}``."""
+        n = len(self)
+        flat = pa.array(np.asarray(self.values, dtype=np.float64).ravel(order="F"), pa.float64(), from_pandas=True)
+        cols: list[tuple[str, pa.Array]] = [(k, _arrow_col(v)) for k, v in self.head.items()]
+        cols += [(c, flat.slice(i * n, n)) for i, c in enumerate(self.names)]
+        cols += [(k, _arrow_col(v)) for k, v in self.tail.items()]
+        for new, (after, v) in (extra or {}).items():
+            at = [c for c, _ in cols].index(after) + 1
+            cols.insert(at, (new, _arrow_col(v)))
+        return pa.Table.from_arrays([a for _, a in cols], names=[c for c, _ in cols])
+
+
+def _arrow_col(values: np.ndarray) -> pa.Array:
+    v = np.asarray(values)
+    if v.dtype.kind == "f":
+        return pa.array(v, from_pandas=True)
+    if v.dtype.kind == "O":
+        return pa.array(v.tolist(), pa.string())
+    return pa.array(v)
+
+
 def build_feature_rows(
     targets: pd.DataFrame,
     drivers: pd.DataFrame,
@@ -176,6 +247,38 @@ def build_feature_rows(
     value: str = "chla",
 ) -> pd.DataFrame:
     """Feature rows for target observations at one lead time, using only data known at issue.
+
+    Parameters as for :func:`feature_block`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``[by], target_date, lead_days, issue_date, chla, persistence_chla,
+        persistence_age_days, days_since_prev_obs, doy_sin, doy_cos, <features>,
+        incomplete_windows, outside_driver_record, flags``, in the order of ``targets``.
+    """
+    return feature_block(
+        targets, drivers, lead=lead, windows=windows, stats=stats, include_target_day=include_target_day,
+        max_missing_fraction=max_missing_fraction, forecast_drivers=forecast_drivers, observations=observations,
+        by=by, value=value,
+    ).to_pandas()  # fmt: skip
+
+
+def feature_block(
+    targets: pd.DataFrame,
+    drivers: pd.DataFrame,
+    *,
+    lead: int = 0,
+    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    stats: Mapping[str, Sequence[str]] | None = None,
+    include_target_day: bool = False,
+    max_missing_fraction: float = 0.2,
+    forecast_drivers: pd.DataFrame | None = None,
+    observations: pd.DataFrame | None = None,
+    by: str | None = "aoi",
+    value: str = "chla",
+) -> FeatureBlock:
+    """Feature rows for target observations at one lead time, as columns (see :class:`FeatureBlock`).
 
     Parameters
     ----------
@@ -193,23 +296,21 @@ def build_feature_rows(
         as ``drivers``); they fill the days after the issue date. Without them those days are
         missing.
     observations
-        Accepted observations for the persistence baseline (``date``, ``value``, ``by``);
-        default the targets themselves.
+        Accepted observations for the persistence baseline (``date`` or ``target_date``,
+        ``value``, ``by``); default the targets themselves.
 
     Returns
     -------
-    pandas.DataFrame
-        ``[by], target_date, lead_days, issue_date, chla, persistence_chla,
-        persistence_age_days, days_since_prev_obs, doy_sin, doy_cos, <features>,
-        incomplete_windows, outside_driver_record, flags``, in the order of ``targets``.
+    FeatureBlock
+        The columns of :func:`build_feature_rows`, in the order of ``targets``.
     """
     if lead < 0:
         raise FeatureError(f"lead time must be >= 0 days; got {lead}")
     tcol = "target_date" if "target_date" in targets.columns else "date"
     if by is not None and by not in targets.columns:
         by = None
-    tdates = as_dates(targets[tcol])
-    tdays = tdates.to_numpy().astype("datetime64[D]").astype(np.int64)
+    tdays = day_numbers(targets[tcol])
+    tdates = tdays.astype("datetime64[D]").astype("datetime64[ns]")
     numeric = drivers if all(dt.kind in "fiu" for dt in drivers.dtypes) else drivers.select_dtypes("number")
     daily = to_daily(numeric)
     columns = list(daily.columns)
@@ -240,16 +341,16 @@ def build_feature_rows(
     outside = (last_day < 0) | (last_day >= n_days) if n_days else np.ones(len(uniq), dtype=bool)
 
     groups = targets[by].to_numpy() if by else None
-    obs = observations if observations is not None else targets.rename(columns={tcol: "date"})
+    obs = observations if observations is not None else targets
     idays = tdays - lead
     p_val, p_day = _last_known(obs, tdays, idays, groups, value=value, by=by)
     none = np.isnan(p_val)
-    sin, cos = calendar_features(tdates)
-    out = {}
+    sin, cos = calendar_features(tdays)
+    head: dict[str, np.ndarray] = {}
     if by:
-        out[by] = targets[by].to_numpy()
-    out.update(
-        target_date=tdates.to_numpy(),
+        head[by] = targets[by].to_numpy()
+    head.update(
+        target_date=tdates,
         lead_days=np.full(len(tdates), lead, dtype=np.int16),
         issue_date=idays.astype("datetime64[D]").astype("datetime64[ns]"),
         chla=targets[value].to_numpy(float),
@@ -259,8 +360,6 @@ def build_feature_rows(
         doy_sin=sin,
         doy_cos=cos,
     )
-    frame = pd.DataFrame(out, index=targets.index)
-    feats = pd.DataFrame(values[inv], columns=plan.names, index=targets.index)
     n_incomplete = incomplete.sum(axis=1)[inv].astype(np.int16)
     codes = {
         "outside_driver_record": outside[inv],
@@ -268,12 +367,10 @@ def build_feature_rows(
         "no_prior_observation": none,
         "forecast_drivers": used_forecast[inv],
     }
-    tail = pd.DataFrame(
-        {
-            "incomplete_windows": n_incomplete,
-            "outside_driver_record": codes["outside_driver_record"],
-            "flags": flag_strings(codes),
-        },
-        index=targets.index,
-    )
-    return pd.concat([frame, feats, tail], axis=1)
+    tail = {
+        "incomplete_windows": n_incomplete,
+        "outside_driver_record": codes["outside_driver_record"],
+        "flags": flag_strings(codes),
+    }
+    rows = values if len(uniq) == len(tdays) and (inv == np.arange(len(inv))).all() else values[inv]
+    return FeatureBlock(head=head, values=rows, names=plan.names, tail=tail, index=targets.index)

@@ -25,6 +25,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -35,6 +36,7 @@ __all__ = [
     "STATISTICS",
     "WindowPlan",
     "as_dates",
+    "day_numbers",
     "default_statistics",
     "feature_name",
     "gather_windows",
@@ -45,6 +47,8 @@ __all__ = [
 
 #: Statistics a window can be summarised by.
 STATISTICS = ("mean", "sum", "min", "max")
+
+_PLANS: dict[tuple, WindowPlan] = {}
 
 
 def feature_name(column: str, stat: str, k: int) -> str:
@@ -84,7 +88,31 @@ class WindowPlan:
         windows: Sequence[int],
         stats: Mapping[str, Sequence[str]] | None = None,
     ) -> WindowPlan:
-        """Validate windows and statistics; columns without configured statistics get the defaults."""
+        """Validate windows and statistics; columns without configured statistics get the defaults.
+
+        Plans are cached by their arguments (a refresh builds the same plan for every lake and lead).
+        """
+        try:
+            key = (tuple(columns), tuple(windows), tuple((k, tuple(v)) for k, v in (stats or {}).items()))
+            hash(key)
+        except TypeError:
+            return cls._build(columns, windows=windows, stats=stats)
+        plan = _PLANS.get(key)
+        if plan is None:
+            plan = cls._build(columns, windows=windows, stats=stats)
+            if len(_PLANS) > 256:
+                _PLANS.clear()
+            _PLANS[key] = plan
+        return plan
+
+    @classmethod
+    def _build(
+        cls,
+        columns: Sequence[str],
+        *,
+        windows: Sequence[int],
+        stats: Mapping[str, Sequence[str]] | None = None,
+    ) -> WindowPlan:
         ws = [int(w) for w in windows]
         bad = [w for w in ws if w <= 0]
         if bad or not ws:
@@ -101,10 +129,27 @@ class WindowPlan:
             plan[c] = tuple(dict.fromkeys(chosen))
         return cls(windows=tuple(sorted(set(ws))), stats=plan)
 
-    @property
+    @cached_property
     def names(self) -> list[str]:
         """Feature column names in output order (driver, statistic, window)."""
         return [feature_name(c, s, k) for c, ss in self.stats.items() for s in ss for k in self.windows]
+
+    def layout(self, columns: Sequence[str]) -> np.ndarray | None:
+        """Positions of the features in the (drivers, statistics, windows) result block, or None when
+        the block is already in :attr:`names` order (cached per driver column order)."""
+        key = tuple(columns)
+        cache = self.__dict__.setdefault("_layouts", {})
+        if key not in cache:
+            n_w, n_s = len(self.windows), len(STATISTICS)
+            col_pos = {c: i for i, c in enumerate(columns)}
+            si = {s: i for i, s in enumerate(STATISTICS)}
+            flat = np.array(
+                [(col_pos[c] * n_s + si[s]) * n_w + w for c, ss in self.stats.items() for s in ss for w in range(n_w)],
+                dtype=np.int64,
+            )
+            whole = len(flat) == len(columns) * n_s * n_w and (flat == np.arange(len(flat))).all()
+            cache[key] = None if whole else flat
+        return cache[key]
 
 
 def to_daily(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.DataFrame:
@@ -114,6 +159,11 @@ def to_daily(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.Dat
     dates are an error (say which).
     """
     frame = drivers.set_index(date_column) if date_column else drivers
+    if isinstance(frame.index, pd.DatetimeIndex) and frame.index.tz is None and len(frame.index):
+        ns = frame.index.to_numpy().astype(np.int64)
+        days = ns // 86_400_000_000_000
+        if (ns == days * 86_400_000_000_000).all() and (np.diff(days) == 1).all():
+            return frame  # already a complete calendar of midnights
     idx = as_dates(frame.index)
     if len(idx) == 0:
         return frame.set_axis(idx)
@@ -125,6 +175,15 @@ def to_daily(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.Dat
     frame = frame.set_axis(idx).sort_index()
     full = pd.date_range(frame.index[0], frame.index[-1], freq="D")
     return frame.reindex(full)
+
+
+def day_numbers(values: object) -> np.ndarray:
+    """Calendar dates as day numbers (int64 days since 1970-01-01), as :func:`as_dates` reads them;
+    datetime64 input without a time zone is converted without building a pandas index."""
+    arr = values.to_numpy() if isinstance(values, (pd.Index, pd.Series)) else values
+    if isinstance(arr, np.ndarray) and arr.dtype.kind == "M":
+        return arr.astype("datetime64[D]").astype(np.int64)
+    return as_dates(values).to_numpy().astype("datetime64[D]").astype(np.int64)
 
 
 def as_dates(values: object) -> pd.DatetimeIndex:
@@ -212,7 +271,9 @@ def reduce_windows(
     total = np.zeros((t, d)) if needed & {"sum", "mean"} else None
     low = np.full((t, d), np.nan) if "min" in needed else None
     high = np.full((t, d), np.nan) if "max" in needed else None
-    for j in range(k_max):
+    if t <= _FEW_TARGETS:  # few targets (a monthly refresh): a handful of whole-array calls
+        counts, res = _reduce_few(gathered, needed, plan.windows, res)
+    for j in range(k_max if t > _FEW_TARGETS else 0):
         day = gathered[j]
         ok = ~np.isnan(day)
         count += ok
@@ -237,16 +298,34 @@ def reduce_windows(
         with np.errstate(invalid="ignore", divide="ignore"):
             res[:, :, si["mean"], :] = res[:, :, si["sum"], :] / counts
     res[np.broadcast_to(bad[:, :, None, :], res.shape)] = np.nan
-    col_pos = {c: i for i, c in enumerate(columns)}
-    flat = np.array(
-        [(col_pos[c] * n_s + si[s]) * n_w + w for c, ss in plan.stats.items() for s in ss for w in range(n_w)],
-        dtype=np.int64,
-    )
+    flat = plan.layout(columns)
     values = res.reshape(t, d * n_s * n_w)
     flags = np.broadcast_to(bad[:, :, None, :], res.shape).reshape(t, d * n_s * n_w)
-    if len(flat) == values.shape[1] and (flat == np.arange(len(flat))).all():
+    if flat is None:
         return values, np.ascontiguousarray(flags)
     return values[:, flat], flags[:, flat]
+
+
+_FEW_TARGETS = 16  # measured: below this the accumulate form is faster, above it the day loop
+
+
+def _reduce_few(
+    gathered: np.ndarray, needed: set[str], windows: Sequence[int], res: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """The day loop of :func:`reduce_windows` as running reductions along the day axis (``cumsum`` and
+    ``fmin``/``fmax.accumulate`` are sequential too: identical results); fills ``res``, returns
+    (counts, res)."""
+    si = {s: i for i, s in enumerate(STATISTICS)}
+    at = np.asarray(windows) - 1  # the window of k days ends k - 1 days out from the nearest day
+    ok = ~np.isnan(gathered)
+    counts = np.moveaxis(np.cumsum(ok, axis=0, dtype=np.int32)[at], 0, -1)  # (t, d, windows)
+    if needed & {"sum", "mean"}:
+        res[:, :, si["sum"], :] = np.moveaxis(np.cumsum(np.where(ok, gathered, 0.0), axis=0)[at], 0, -1)
+    if "min" in needed:
+        res[:, :, si["min"], :] = np.moveaxis(np.fmin.accumulate(gathered, axis=0)[at], 0, -1)
+    if "max" in needed:
+        res[:, :, si["max"], :] = np.moveaxis(np.fmax.accumulate(gathered, axis=0)[at], 0, -1)
+    return counts, res
 
 
 def window_features(

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Callable
 
 import numpy as np
 import pandas as pd
@@ -34,20 +35,21 @@ from lakefeed.config.lake import FeatureOptions
 from lakefeed.exceptions import FeatureError
 from lakefeed.features import (
     WindowPlan,
-    build_feature_rows,
     date_hash_folds,
     fold_boundaries,
     folds_from_boundaries,
-    new_feature_rows,
     refresh_start,
     sampling_diagnostics,
 )
-from lakefeed.features.incremental import prefix_digest
+from lakefeed.features.incremental import new_feature_block, prefix_digest
+from lakefeed.features.pit import FeatureBlock, feature_block
+from lakefeed.features.windows import as_dates
 from lakefeed.stages._result import Progress, StageResult, no_progress
-from lakefeed.store import Store
+from lakefeed.store import Store, read_units
 
 __all__ = ["build_features", "feature_units", "load_drivers"]
 
+_DRIVER_TABLES = ("drivers_daily", "hydrology_daily")
 _NOT_DRIVERS = {"valid_fraction", "flags", "load_method", "zone", "date", "lake"}
 KEYS = ["aoi", "target_date", "lead_days"]
 _DESCRIPTIONS = {
@@ -81,16 +83,32 @@ def feature_units(plan: WindowPlan, driver_units: dict[str, str]) -> dict[str, s
     return out
 
 
+def _read_dated(store: Store, table: str, lake: str, since: object) -> pd.DataFrame:
+    """A store table as pandas with its ``date`` column as datetime64 (converted in Arrow: fast),
+    only the rows from ``since`` on when given; units in ``attrs``."""
+    arrow = store.read_arrow(table, lake, since=since)
+    units = read_units(arrow.schema)
+    if "date" in arrow.column_names and pa.types.is_date(arrow["date"].type):
+        at = arrow.column_names.index("date")
+        arrow = arrow.set_column(at, "date", arrow["date"].cast(pa.timestamp("s")).cast(pa.timestamp("ns")))
+    frame = arrow.to_pandas()
+    frame.attrs["units"] = units
+    return frame
+
+
 def load_drivers(
-    store: Store, lake: str, *, zone: str, aois: list[str], wanted: list[str] | None
+    store: Store, lake: str, *, zone: str, aois: list[str], wanted: list[str] | None, since: object = None
 ) -> tuple[dict[str | None, pd.DataFrame], dict[str, str], list[str]]:
-    """Daily driver frames (indexed by date) per AOI (key None: the same for all), units, tables read."""
+    """Daily driver frames (indexed by date) per AOI (key None: the same for all), units, tables read.
+
+    ``since`` (a date): only the driver days from it on (the spill-over of an incremental refresh).
+    """
     units: dict[str, str] = {}
     read: list[str] = []
     per_zone: dict[str, pd.DataFrame] = {}
     hyd = None
     if store.has_table("drivers_daily", lake):
-        dd = store.read_table("drivers_daily", lake)
+        dd = _read_dated(store, "drivers_daily", lake, since)
         units.update(dd.attrs.get("units", {}))
         zones = sorted(dd["zone"].astype(str).unique())
         need = [f"aoi:{a}" for a in aois] if zone == "aoi" else [zone]
@@ -104,7 +122,7 @@ def load_drivers(
             per_zone[z] = _values(dd[dd["zone"].astype(str) == z])
         read.append(f"drivers_daily (zone {zone!r})")
     if store.has_table("hydrology_daily", lake):
-        h = store.read_table("hydrology_daily", lake)
+        h = _read_dated(store, "hydrology_daily", lake, since)
         units.update(h.attrs.get("units", {}))
         hyd = _values(h)
         read.append("hydrology_daily")
@@ -133,7 +151,7 @@ def load_drivers(
 def _values(frame: pd.DataFrame) -> pd.DataFrame:
     cols = [c for c in frame.columns if c not in _NOT_DRIVERS and pd.api.types.is_numeric_dtype(frame[c])]
     cols = [c for c in cols if not pd.api.types.is_bool_dtype(frame[c])]
-    out = frame.set_index(pd.DatetimeIndex(pd.to_datetime(frame["date"])).normalize())[cols].astype(float)
+    out = frame.set_index(as_dates(frame["date"]))[cols].astype(float)
     return out[~out.index.duplicated(keep="first")].sort_index()
 
 
@@ -142,31 +160,53 @@ def _config_hash(project: Project, columns: list[str]) -> str:
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
 
 
-def _digests(frames: dict[str | None, pd.DataFrame], targets: pd.DataFrame, through: tuple[object, object]) -> str:
-    """Fingerprint of the inputs up to the 'known through' dates (drivers, targets)."""
-    parts = [
-        prefix_digest(f, date_column=None, through=through[0])
-        for _, f in sorted(frames.items(), key=lambda kv: str(kv[0]))
-    ]
-    return ";".join([*parts, prefix_digest(targets, date_column="date", through=through[1])])
+def _drivers_digest(frames: dict[str | None, pd.DataFrame], through: object) -> str:
+    """Fingerprint of the driver frames up to the 'known through' date."""
+    ordered = sorted(frames.items(), key=lambda kv: str(kv[0]))
+    return ";".join(prefix_digest(f, date_column=None, through=through) for _, f in ordered)
 
 
-def _to_arrow(frame: pd.DataFrame) -> pa.Table:
-    """A wide feature frame as Arrow, converting the float block at once (pyarrow's per-column
-    pandas conversion dominates otherwise): one Arrow array for all float columns, sliced per
-    column without copies. NaN becomes null, as with ``pa.Table.from_pandas``."""
-    kinds = dict(zip(frame.columns, (dt.kind for dt in frame.dtypes), strict=True))
-    floats = [c for c in frame.columns if kinds[c] == "f"]
-    n = len(frame)
-    flat = pa.array(frame[floats].to_numpy(dtype=np.float64).ravel(order="F"), type=pa.float64(), from_pandas=True)
-    at = {c: i for i, c in enumerate(floats)}
-    arrays = []
-    for c in frame.columns:
-        if c in at:
-            arrays.append(flat.slice(at[c] * n, n))
-        else:
-            arrays.append(pa.Array.from_pandas(frame[c]))
-    return pa.Table.from_arrays(arrays, names=list(frame.columns))
+def _targets_digest(targets: pd.DataFrame, through: object) -> str:
+    """Fingerprint of the accepted targets up to the 'known through' date."""
+    return prefix_digest(targets, date_column="date", through=through)
+
+
+def _driver_parts(store: Store, lake: str) -> dict[str, list[list[object]]]:
+    """Live part files of the driver tables (name, SHA-256, first key date), from the manifest."""
+    out: dict[str, list[list[object]]] = {}
+    for t in _DRIVER_TABLES:
+        entry = store.entry(t, lake)
+        if entry and store.has_table(t, lake):
+            out[t] = [[p.get("file"), p.get("sha256"), p.get("first")] for p in entry.get("parts") or []]
+    return out
+
+
+def _old_rows_unchanged(
+    now: dict[str, list[list[object]]], recorded: dict[str, list[list[object]]], through: object
+) -> bool:
+    """Whether the driver rows dated on or before ``through`` are those of the previous build, from the
+    part lists alone: every part read then is still live with the same content hash, and every newer
+    part holds only later dates (as an appended month does). Otherwise the caller reads all rows and
+    compares their fingerprint."""
+    if not now or set(now) != set(recorded):
+        return False
+    end = pd.Timestamp(through)
+    for table, parts in now.items():
+        old = {(str(f), str(h)) for f, h, *_ in recorded[table]}
+        live = {(str(f), str(h)) for f, h, *_ in parts}
+        if not old or not old <= live:
+            return False
+        for f, h, first in parts:
+            if (str(f), str(h)) not in old and (first is None or pd.Timestamp(first) <= end):
+                return False
+    return True
+
+
+def _arrow_rows(block: FeatureBlock, fold_kind: str) -> pa.Table:
+    """A feature block as Arrow, with ``fold`` (assigned later) and ``fold_kind`` after ``doy_cos``."""
+    n = len(block)
+    extra = {"fold": ("doy_cos", np.zeros(n, dtype=np.int16)), "fold_kind": ("fold", np.full(n, fold_kind, object))}
+    return block.to_arrow(extra=extra)
 
 
 def _input_hashes(store: Store, lake: str) -> dict[str, str]:
@@ -225,7 +265,7 @@ def _write_rows(
     *,
     since: pd.Timestamp | None,
     split: pd.Timestamp,
-    frames: dict[str | None, pd.DataFrame],
+    drivers_digest: Callable[[object], str],
     targets: pd.DataFrame,
     write: dict[str, object],
 ) -> None:
@@ -250,13 +290,32 @@ def _write_rows(
         if i < len(steps) - 1:  # the state after this step: the table of the inputs up to split - 1
             day = str((split - pd.Timedelta(days=1)).date())
             md = dict(kw["metadata"])  # type: ignore[call-overload]
-            md |= {"drivers_through": day, "targets_through": day,
-                   "inputs_digest_at_through": _digests(frames, targets, (day, day))}  # fmt: skip
+            md |= {"drivers_through": day, "targets_through": day, "drivers_digest_at_through": drivers_digest(day),
+                   "targets_digest_at_through": _targets_digest(targets, day)}  # fmt: skip
             kw |= {"metadata": md, "inputs": {}}
         if start is None:
             store.write_arrow("features", lake, rows, **kw)  # type: ignore[arg-type]
         else:
             store.append_arrow("features", lake, rows, since=start, **kw)  # type: ignore[arg-type]
+
+
+def _refresh_plan(
+    store: Store, lake: str, prev: dict | None, targets: pd.DataFrame, *, full: bool
+) -> tuple[str, pd.Timestamp | None, tuple[str, str]]:
+    """How to refresh: ``("tail", since, old)`` when the old driver rows are provably unchanged from the
+    part lists (read only the last days), ``("check", since, old)`` when their fingerprint must be
+    compared (read all), ``("full", None, old)`` otherwise. The targets' fingerprint is checked here."""
+    md = (prev or {}).get("metadata", {})
+    old = (md.get("drivers_through"), md.get("targets_through"))
+    if full or not prev or not store.has_table("features", lake) or not all(old):
+        return "full", None, old
+    if _targets_digest(targets, old[1]) != md.get("targets_digest_at_through"):
+        return "full", None, old
+    since = refresh_start(*old)
+    recorded = json.loads(md.get("input_parts") or "{}")
+    if md.get("drivers_first") and _old_rows_unchanged(_driver_parts(store, lake), recorded, old[0]):
+        return "tail", since, old
+    return "check", since, old
 
 
 def build_features(
@@ -271,6 +330,9 @@ def build_features(
 
     Incremental when possible: with the same configuration and unchanged old inputs, only rows from
     the first new date on are recomputed and appended (one part file; the stored rows are not read).
+    When the driver tables only gained part files of later dates since the last build (an appended
+    month), only their last days (the longest window and lead before the first new date) are read;
+    otherwise all driver rows are read and their fingerprint is compared with the last build's.
     ``full=True`` recomputes every row (keeping the frozen fold boundaries); ``rebalance_folds=True``
     also re-derives the fold boundaries from all target dates (a fresh start). The table read back
     equals a full rebuild's.
@@ -306,36 +368,49 @@ def build_features(
         progress("features: up to date", 3, 3)
         return result
     progress("features: reading", 0, 3)
-    td = store.read_table("target_daily", lake.id)
+    td = _read_dated(store, "target_daily", lake.id, None)
     targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
     targets["aoi"] = targets["aoi"].astype(str)
-    targets["date"] = pd.to_datetime(targets["date"]).dt.normalize()
+    targets["date"] = as_dates(targets["date"])
     targets = targets.sort_values(["aoi", "date"]).reset_index(drop=True)
     if targets.empty:
         result.skipped, result.reason = True, "target_daily has no chlorophyll-a values for this lake"
         return result
     aois = sorted(targets["aoi"].unique())
     wanted = list(opts.drivers) if opts.drivers else None
-    frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
+    md = (prev or {}).get("metadata", {})
+    mode, since, old = _refresh_plan(store, lake.id, prev, targets, full=full)
+    tail_from = since - pd.Timedelta(days=max(opts.windows) + max(opts.leads) + 1) if mode == "tail" else None
+    frames, driver_units, read = load_drivers(
+        store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted, since=tail_from
+    )
+    if mode == "tail" and any(f.empty for f in frames.values()):  # no days to extend: read all
+        mode = "check"
+        frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
     present = {c for f in frames.values() for c in f.columns}
     columns = [c for c in wanted if c in present] if wanted else sorted(present)
     frames = {k: f.reindex(columns=columns) for k, f in frames.items()}
     if not columns:
         result.warnings.append("no driver tables (drivers_daily, hydrology_daily): features hold no window columns")
+    cfg = _config_hash(project, columns)
+    if mode != "full" and prev.get("config_hash") != cfg:
+        if mode == "tail":
+            frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
+            frames = {k: f.reindex(columns=columns) for k, f in frames.items()}
+        mode, since = "full", None
+    if mode == "check" and _drivers_digest(frames, old[0]) != md.get("drivers_digest_at_through"):
+        mode, since = "full", None
     stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
     plan = WindowPlan.build(columns, windows=opts.windows, stats=stats)
     all_days = [f.index for f in frames.values() if len(f)]
     record = (min(i.min() for i in all_days), max(i.max() for i in all_days)) if all_days else (None, None)
+    if mode == "tail":
+        record = (pd.Timestamp(md["drivers_first"]), record[1])
     through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
-    cfg = _config_hash(project, columns)
-    digest_now = _digests(frames, targets, through)
 
-    since = None
-    md = (prev or {}).get("metadata", {})
-    if not full and prev and prev.get("config_hash") == cfg and store.has_table("features", lake.id):
-        old = (md.get("drivers_through"), md.get("targets_through"))
-        if all(old) and _digests(frames, targets, old) == md.get("inputs_digest_at_through"):
-            since = refresh_start(*old)
+    def drivers_digest(day: object) -> str:  # unknown when only the tail was read: the next check rebuilds
+        return "" if mode == "tail" else _drivers_digest(frames, day)
+
     frozen = {}
     if prev and not rebalance_folds and md.get("fold_options") == _fold_options(opts):
         frozen = json.loads(md.get("fold_boundaries") or "{}")
@@ -349,13 +424,11 @@ def build_features(
             kw = dict(lead=h, windows=plan.windows, stats=plan.stats, include_target_day=opts.include_target_day,
                       max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
             if since is not None:
-                blocks.append(new_feature_rows(tg, drivers, since=since, **kw))
+                block = new_feature_block(tg, drivers, since=since, **kw)
             else:
-                blocks.append(build_feature_rows(tg, drivers, **kw))
-    rows = pd.concat(blocks, ignore_index=True)
-    rows.insert(rows.columns.get_loc("doy_cos") + 1, "fold", np.zeros(len(rows), dtype=np.int16))
-    rows.insert(rows.columns.get_loc("fold") + 1, "fold_kind", opts.fold_kind)
-    arrow = _to_arrow(rows)
+                block = feature_block(tg, drivers, **kw)
+            blocks.append(_arrow_rows(block, opts.fold_kind))
+    arrow = pa.concat_tables(blocks)
     if since is not None and prev.get("columns") != arrow.column_names:  # e.g. a driver table gained a column
         result.warnings.append("features: columns changed since the last build; rebuilt in full")
         return _full_again(project, store, progress, result)
@@ -388,7 +461,10 @@ def build_features(
     meta = {
         "drivers_through": str(pd.Timestamp(through[0]).date()),
         "targets_through": str(pd.Timestamp(through[1]).date()),
-        "inputs_digest_at_through": digest_now,
+        "drivers_first": str(pd.Timestamp(record[0]).date()) if record[0] is not None else "",
+        "drivers_digest_at_through": drivers_digest(through[0]),
+        "targets_digest_at_through": _targets_digest(targets, through[1]),
+        "input_parts": json.dumps({t: [p[:2] for p in ps] for t, ps in _driver_parts(store, lake.id).items()}),
         "options_hash": options_hash,
         "driver_zone": opts.driver_zone,
         "fold_kind": opts.fold_kind,
@@ -396,9 +472,9 @@ def build_features(
         "fold_boundaries": json.dumps(bounds, sort_keys=True),
         "tables_read": "; ".join(["target_daily", *read]),
     }
-    _write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), frames=frames, targets=targets,
-                write=dict(units=units, descriptions=descr, metadata=meta, inputs=inputs, config_hash=cfg,
-                           time_column="target_date", sort_by=KEYS))  # fmt: skip
+    _write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), drivers_digest=drivers_digest,
+                targets=targets, write=dict(units=units, descriptions=descr, metadata=meta, inputs=inputs,
+                                            config_hash=cfg, time_column="target_date", sort_by=KEYS))  # fmt: skip
     dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")} | {"coverage_fraction": "1"}
     store.write_table(
         "diagnostics", lake.id, diag, units=dunits, inputs=inputs, config_hash=cfg, time_column="first_date"

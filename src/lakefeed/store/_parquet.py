@@ -379,26 +379,47 @@ class Store:
                 total += pq.ParquetFile(f).metadata.num_rows
         return total
 
-    def read_arrow(self, table: str, lake: str, *, columns: Sequence[str] | None = None) -> pa.Table:
+    def read_arrow(
+        self, table: str, lake: str, *, columns: Sequence[str] | None = None, since: object = None
+    ) -> pa.Table:
         """One lake's partition (all live part files) as an Arrow table (schema metadata with units kept).
 
         Several part files are concatenated and sorted by the keys recorded at write time, so the
-        result equals that of one full write.
+        result equals that of one full write. ``since`` (a date) returns only the rows whose time
+        column (recorded at write time) is on or after it, reading only the part files that can
+        hold them (an incremental refresh reads the tail of a long record, not all of it).
         """
         self._view()  # refuses newer schema versions
         part_dir = partition_path(self.path, table, lake)
-        arrow, entry = read_parts(self.fs, self.local, part_dir, lambda: self.entry(table, lake), columns=columns)
+        arrow, entry = read_parts(
+            self.fs, self.local, part_dir, lambda: self.entry(table, lake), columns=columns, since=since
+        )
         if arrow is None:
             raise StoreError(f"table {table!r} has no partition for lake {lake!r} in {self.url}; run the stage first")
+        if since is not None:
+            col = (entry or {}).get("time_column")
+            if not col or col not in arrow.column_names:
+                raise StoreError(
+                    f"cannot read {table}/lake={lake} from a date on: no time column recorded"
+                    + (f" ({col!r} not among the columns read)" if col else "")
+                    + "; read it whole or include the time column"
+                )
+            tcol = arrow[col]
+            start = pd.Timestamp(since)
+            bound = pa.scalar(start.date() if pa.types.is_date(tcol.type) else start.to_pydatetime(), tcol.type)
+            arrow = arrow.filter(pc.greater_equal(tcol, bound))
         sort_by = [k for k in (entry or {}).get("sort_by") or [] if k in arrow.column_names]
         if len((entry or {}).get("parts") or []) > 1 and sort_by:
             arrow = arrow.sort_by([(k, "ascending") for k in sort_by])
         return arrow
 
-    def read_table(self, table: str, lake: str | None = None, *, columns: Sequence[str] | None = None) -> pd.DataFrame:
+    def read_table(
+        self, table: str, lake: str | None = None, *, columns: Sequence[str] | None = None, since: object = None
+    ) -> pd.DataFrame:
         """Read a table (one lake, or all lakes) as pandas with a ``lake`` column first.
 
-        Units are in ``frame.attrs['units']``, descriptions in ``frame.attrs['descriptions']``.
+        Units are in ``frame.attrs['units']``, descriptions in ``frame.attrs['descriptions']``;
+        ``since`` as for :meth:`read_arrow`.
         """
         lakes = [lake] if lake is not None else self.lakes(table)
         if not lakes:
@@ -406,7 +427,7 @@ class Store:
             raise StoreError(f"table {table!r} not found in {self.url}; run the stage first")
         frames, units, descr = [], {}, {}
         for lk in lakes:
-            t = self.read_arrow(table, lk, columns=columns)
+            t = self.read_arrow(table, lk, columns=columns, since=since)
             units.update(read_units(t.schema))
             descr.update(read_descriptions(t.schema))
             f = t.to_pandas(coerce_temporal_nanoseconds=True)

@@ -122,15 +122,24 @@ def read_parts(
     entry_of: Callable[[], dict[str, Any] | None],
     *,
     columns: Sequence[str] | None = None,
+    since: object = None,
 ) -> tuple[pa.Table | None, dict[str, Any] | None]:
     """All live parts of a partition concatenated (schemas unified), and the manifest entry used.
 
+    ``since`` (a date): only the parts whose last key date is on or after it (from the manifest's
+    part list; parts of unknown range are read too); the caller filters the rows.
     Returns (None, entry) when the partition has no part. A concurrent full rewrite may remove a
     listed part between the manifest read and the file read: the reader then re-reads the manifest.
     """
     for _ in range(_RETRIES):
         entry = entry_of()
         names = live_parts(entry, fs, part_dir)
+        if since is not None and entry and entry.get("parts"):
+            import pandas as pd
+
+            start = pd.Timestamp(since)
+            names = [p["file"] for p in entry["parts"] if p.get("last") is None or pd.Timestamp(p["last"]) >= start]
+            names = names or [entry["parts"][-1]["file"]]  # an empty table of the right schema
         if not names:
             return None, entry
         try:
