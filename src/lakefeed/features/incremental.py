@@ -15,7 +15,8 @@ that old data did not change (else: rebuild in full).
 from __future__ import annotations
 
 import hashlib
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -55,30 +56,15 @@ def refresh_start(*throughs: object) -> pd.Timestamp:
     return min(pd.Timestamp(t) for t in throughs) + pd.Timedelta(days=1)
 
 
-def new_feature_rows(
-    targets: pd.DataFrame,
-    drivers: pd.DataFrame,
-    *,
-    since: object,
-    lead: int = 0,
-    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
-    stats: Mapping[str, Sequence[str]] | None = None,
-    include_target_day: bool = False,
-    max_missing_fraction: float = 0.2,
-    forecast_drivers: pd.DataFrame | None = None,
-    by: str | None = "aoi",
-    value: str = "chla",
-) -> pd.DataFrame:
+def new_feature_rows(targets: pd.DataFrame, drivers: pd.DataFrame, *, since: object, **options: Any) -> pd.DataFrame:
     """Feature rows of the targets dated on or after ``since`` only.
 
     Uses the drivers from ``since`` minus the longest window and the lead (the spill-over) and
     all targets for the persistence baseline; the rows equal those of a full
-    :func:`build_feature_rows` on the same inputs.
+    :func:`build_feature_rows` on the same inputs. ``options`` (``lead``, ``windows``, ``stats``,
+    ...) as for :func:`~lakefeed.features.pit.feature_block`.
     """
-    return new_feature_block(
-        targets, drivers, since=since, lead=lead, windows=windows, stats=stats, include_target_day=include_target_day,
-        max_missing_fraction=max_missing_fraction, forecast_drivers=forecast_drivers, by=by, value=value,
-    ).to_pandas()  # fmt: skip
+    return new_feature_block(targets, drivers, since=since, **options).to_pandas()
 
 
 def new_feature_block(

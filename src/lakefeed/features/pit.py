@@ -28,6 +28,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from functools import lru_cache
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -232,23 +233,10 @@ def _arrow_col(values: np.ndarray) -> pa.Array:
     return pa.array(v)
 
 
-def build_feature_rows(
-    targets: pd.DataFrame,
-    drivers: pd.DataFrame,
-    *,
-    lead: int = 0,
-    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
-    stats: Mapping[str, Sequence[str]] | None = None,
-    include_target_day: bool = False,
-    max_missing_fraction: float = 0.2,
-    forecast_drivers: pd.DataFrame | None = None,
-    observations: pd.DataFrame | None = None,
-    by: str | None = "aoi",
-    value: str = "chla",
-) -> pd.DataFrame:
+def build_feature_rows(targets: pd.DataFrame, drivers: pd.DataFrame, **options: Any) -> pd.DataFrame:
     """Feature rows for target observations at one lead time, using only data known at issue.
 
-    Parameters as for :func:`feature_block`.
+    Parameters and options (``lead``, ``windows``, ``stats``, ...) as for :func:`feature_block`.
 
     Returns
     -------
@@ -257,11 +245,7 @@ def build_feature_rows(
         persistence_age_days, days_since_prev_obs, doy_sin, doy_cos, <features>,
         incomplete_windows, outside_driver_record, flags``, in the order of ``targets``.
     """
-    return feature_block(
-        targets, drivers, lead=lead, windows=windows, stats=stats, include_target_day=include_target_day,
-        max_missing_fraction=max_missing_fraction, forecast_drivers=forecast_drivers, observations=observations,
-        by=by, value=value,
-    ).to_pandas()  # fmt: skip
+    return feature_block(targets, drivers, **options).to_pandas()
 
 
 def feature_block(
