@@ -149,8 +149,8 @@ def load_drivers(
 
 
 def _values(frame: pd.DataFrame) -> pd.DataFrame:
-    cols = [c for c in frame.columns if c not in _NOT_DRIVERS and pd.api.types.is_numeric_dtype(frame[c])]
-    cols = [c for c in cols if not pd.api.types.is_bool_dtype(frame[c])]
+    kinds = {c: dt.kind for c, dt in frame.dtypes.items()}  # numeric, not bool
+    cols = [c for c in frame.columns if c not in _NOT_DRIVERS and kinds[c] in "iuf"]
     out = frame.set_index(as_dates(frame["date"]))[cols].astype(float)
     return out[~out.index.duplicated(keep="first")].sort_index()
 
