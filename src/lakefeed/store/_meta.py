@@ -19,10 +19,17 @@ import pyarrow.compute as pc
 from lakefeed.store._fs import file_digest
 
 __all__ = ["TIME_COLUMNS", "make_entry", "read_descriptions", "read_units", "schema_with_units", "time_range",
-           "write_options"]  # fmt: skip
+           "with_schema", "write_options"]  # fmt: skip
 
 #: Candidate time columns for a table's time range in the manifest, in order of preference.
 TIME_COLUMNS = ("target_date", "date", "time", "issue_date")
+
+
+def with_schema(table: pa.Table, schema: pa.Schema) -> pa.Table:
+    """``table`` under ``schema`` (same names and types, new metadata) without casting column by column."""
+    if table.schema.types == schema.types:
+        return pa.Table.from_arrays(table.columns, schema=schema)
+    return table.cast(schema)
 
 
 def schema_with_units(

@@ -46,6 +46,7 @@ from lakefeed.store._meta import (
     read_units,
     schema_with_units,
     time_range,
+    with_schema,
     write_options,
 )
 from lakefeed.store._parts import BASE, _read_one, date_part_name, glob_parts, live_parts, read_parts, write_file
@@ -202,7 +203,7 @@ class Store:
         """
         if "lake" in arrow.column_names:
             arrow = arrow.drop_columns(["lake"])
-        arrow = arrow.cast(schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
+        arrow = with_schema(arrow, schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
         part_dir = partition_path(self.path, table, lake)
         with self.lock():
             manifest = self.manifest()
@@ -258,7 +259,7 @@ class Store:
         part_dir = partition_path(self.path, table, lake)
         if "lake" in arrow.column_names:
             arrow = arrow.drop_columns(["lake"])
-        arrow = arrow.cast(schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
+        arrow = with_schema(arrow, schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
         kw = dict(units=units, descriptions=descriptions, metadata=metadata, inputs=inputs, config_hash=config_hash,
                   time_column=time_column, sort_by=sort_by)  # fmt: skip
         with self.lock():
