@@ -267,11 +267,11 @@ def test_bad_sql_is_a_store_error(tmp_path: Path) -> None:
         query(store, "SELECT nope FROM features")
 
 
-def _glob_rows(root: Path) -> pd.DataFrame:
+def _glob_rows(root: Path, table: str = "features") -> pd.DataFrame:
     """The table as a plain glob read sees it (DuckDB over every ``*.parquet``), lakefeed not involved."""
     import duckdb
 
-    return duckdb.sql(f"SELECT * FROM read_parquet('{root}/features/*/*.parquet', hive_partitioning = true)").df()
+    return duckdb.sql(f"SELECT * FROM read_parquet('{root}/{table}/*/*.parquet', hive_partitioning = true)").df()
 
 
 def test_append_adds_or_replaces_one_part_and_readers_agree(tmp_path: Path) -> None:
@@ -306,3 +306,48 @@ def test_append_adds_or_replaces_one_part_and_readers_agree(tmp_path: Path) -> N
                            max_parts=3, **kw)  # fmt: skip
     assert len(store.part_files("features", "tallow")) <= 3 and len(_glob_rows(tmp_path)) == 10
     assert store.read_table("features", "tallow")["target_date"].is_monotonic_increasing
+
+
+def test_rewritten_single_part_stays_in_key_order(tmp_path: Path) -> None:
+    """Rows appended into a single part (its spill-over rows replaced) are stored sorted by the keys, so the
+    one file reads back in key order without a sort on read (pyarrow, DuckDB, pandas alike)."""
+    store = Store(tmp_path)
+    days = pd.date_range("2024-01-01", periods=4)
+    base = pd.DataFrame({"zone": np.repeat(["a", "b"], 4), "date": np.tile(days, 2), "v": np.arange(8.0)})
+    kw = dict(time_column="date", sort_by=["zone", "date"])
+    store.write_table("drivers_daily", "tallow", base, **kw)
+    new = pd.DataFrame({"zone": ["a", "a", "b", "b"], "date": np.tile(pd.date_range("2024-01-04", periods=2), 2),
+                        "v": [10.0, 11.0, 12.0, 13.0]})  # fmt: skip
+    store.append_arrow("drivers_daily", "tallow", pa.Table.from_pandas(new, preserve_index=False), since="2024-01-04",
+                       **kw)  # fmt: skip
+    assert len(store.part_files("drivers_daily", "tallow")) == 1
+    plain = pq.read_table(store.part_files("drivers_daily", "tallow")[0]).to_pandas()
+    assert plain["zone"].tolist() == ["a"] * 5 + ["b"] * 5
+    assert plain["v"].tolist() == [0.0, 1.0, 2.0, 10.0, 11.0, 4.0, 5.0, 6.0, 12.0, 13.0]
+
+
+def test_append_to_a_partition_without_part_list_keeps_the_old_rows(tmp_path: Path) -> None:
+    """A store written before part lists existed (manifest entry without ``parts``): an append merges into
+    the old rows instead of replacing them."""
+    store = Store(tmp_path)
+    base = pd.DataFrame({"date": pd.date_range("2024-01-01", periods=5), "v": np.arange(5.0)})
+    store.write_table("hydrology_daily", "tallow", base, time_column="date")
+    manifest = json.loads((tmp_path / MANIFEST_NAME).read_text())
+    del manifest["tables"]["hydrology_daily"]["tallow"]["parts"]
+    (tmp_path / MANIFEST_NAME).write_text(json.dumps(manifest))
+    new = pd.DataFrame({"date": pd.date_range("2024-01-05", periods=3), "v": [40.0, 50.0, 60.0]})
+    store.append_arrow("hydrology_daily", "tallow", pa.Table.from_pandas(new, preserve_index=False),
+                       since="2024-01-05", time_column="date")  # fmt: skip
+    assert store.read_table("hydrology_daily", "tallow")["v"].tolist() == [0.0, 1.0, 2.0, 3.0, 40.0, 50.0, 60.0]
+
+
+def test_leftover_temporary_files_of_a_dead_writer_are_removed(tmp_path: Path) -> None:
+    """A writer killed mid-write leaves a dot-file no reader sees; the next write to that partition removes it."""
+    store = Store(tmp_path)
+    frame = pd.DataFrame({"date": pd.date_range("2024-01-01", periods=3), "v": 1.0})
+    store.write_table("drivers_daily", "tallow", frame)
+    part_dir = Path(store.part_files("drivers_daily", "tallow")[0]).parent
+    (part_dir / ".tmp-deadbeef.pending").write_bytes(b"half a parquet file")
+    assert len(_glob_rows(tmp_path, "drivers_daily")) == 3
+    store.write_table("drivers_daily", "tallow", frame.assign(v=2.0))
+    assert not list(part_dir.glob(".tmp-*"))

@@ -49,7 +49,16 @@ from lakefeed.store._meta import (
     with_schema,
     write_options,
 )
-from lakefeed.store._parts import BASE, _read_one, date_part_name, glob_parts, live_parts, read_parts, write_file
+from lakefeed.store._parts import (
+    BASE,
+    _read_one,
+    date_part_name,
+    glob_parts,
+    live_parts,
+    pending_files,
+    read_parts,
+    write_file,
+)
 from lakefeed.store.layout import partition_path, table_path
 
 __all__ = ["PART", "Store", "read_units"]
@@ -266,6 +275,8 @@ class Store:
             manifest = self.manifest()
             entry = entry_of(manifest, table, lake)
             parts = [dict(p) for p in (entry or {}).get("parts") or []]
+            if not parts and self._present(table, lake, manifest.get("tables", {}).get(table, {})):
+                return self._rewrite(table, lake, [(since, arrow)], **kw)  # a store without part list: merge
             if not parts or not self.fs.exists(f"{part_dir}/{parts[0]['file']}"):
                 return self.write_arrow(table, lake, arrow, **kw)  # type: ignore[arg-type]
             if list(entry.get("columns", [])) != arrow.column_names:
@@ -279,8 +290,10 @@ class Store:
                 name = parts[-1]["file"]
                 old = _read_one(self.fs, self.local, f"{part_dir}/{name}", None)
                 tcol = old[time_column]
-                kept = old.filter(pc.less(tcol, pa.scalar(since.to_pydatetime(), tcol.type)))
+                kept = old.filter(pc.less(tcol, _bound(since, tcol.type)))
                 arrow = pa.concat_tables([kept, arrow.cast(kept.schema)])
+                if sort_by:  # one part file is read back as stored: keep it in key order
+                    arrow = arrow.sort_by([(k, "ascending") for k in sort_by])
                 parts = parts[:-1]
             else:
                 name = date_part_name(since)
@@ -307,7 +320,7 @@ class Store:
         col = kw.get("time_column") or entry.get("time_column")
         for since, rows in replace or []:
             tcol = current[col]
-            kept = current.filter(pc.less(tcol, pa.scalar(since.to_pydatetime(), tcol.type)))
+            kept = current.filter(pc.less(tcol, _bound(since, tcol.type)))
             current = pa.concat_tables([kept, rows.cast(kept.schema)])
         if sort_by:
             current = current.sort_by([(k, "ascending") for k in sort_by])
@@ -325,13 +338,14 @@ class Store:
             return self._rewrite(table, lake)
 
     def _remove_unlisted(self, part_dir: str, keep: Sequence[str]) -> None:
-        """Remove part files the manifest no longer lists (superseded parts, leftovers of a crash)."""
-        for n in glob_parts(self.fs, part_dir):
-            if n not in keep:
-                try:
-                    self.fs.rm(f"{part_dir}/{n}")
-                except FileNotFoundError:
-                    pass
+        """Remove part files the manifest no longer lists (superseded parts, leftovers of a crash) and
+        temporary files of writers that died mid-write (under the lock no other writer is busy here)."""
+        stale = [n for n in glob_parts(self.fs, part_dir) if n not in keep] + pending_files(self.fs, part_dir)
+        for n in stale:
+            try:
+                self.fs.rm(f"{part_dir}/{n}")
+            except FileNotFoundError:
+                pass
 
     def _url(self, path: str) -> str:
         return self.fs.unstrip_protocol(path)
@@ -406,9 +420,7 @@ class Store:
                     + "; read it whole or include the time column"
                 )
             tcol = arrow[col]
-            start = pd.Timestamp(since)
-            bound = pa.scalar(start.date() if pa.types.is_date(tcol.type) else start.to_pydatetime(), tcol.type)
-            arrow = arrow.filter(pc.greater_equal(tcol, bound))
+            arrow = arrow.filter(pc.greater_equal(tcol, _bound(pd.Timestamp(since), tcol.type)))
         sort_by = [k for k in (entry or {}).get("sort_by") or [] if k in arrow.column_names]
         if len((entry or {}).get("parts") or []) > 1 and sort_by:
             arrow = arrow.sort_by([(k, "ascending") for k in sort_by])
@@ -442,3 +454,8 @@ class Store:
     def has_table(self, table: str, lake: str) -> bool:
         """True when ``table`` has a partition for ``lake``."""
         return self._present(table, lake, self._view().get("tables", {}).get(table, {}))
+
+
+def _bound(day: pd.Timestamp, kind: pa.DataType) -> pa.Scalar:
+    """A date as a scalar comparable with a date or timestamp column."""
+    return pa.scalar(day.date() if pa.types.is_date(kind) else day.to_pydatetime(), kind)

@@ -33,7 +33,7 @@ import pyarrow.parquet as pq
 
 from lakefeed.exceptions import StoreError
 
-__all__ = ["BASE", "date_part_name", "glob_parts", "live_parts", "read_parts", "write_file"]
+__all__ = ["BASE", "date_part_name", "glob_parts", "live_parts", "pending_files", "read_parts", "write_file"]
 
 BASE = "part-0.parquet"
 _RETRIES = 50
@@ -53,6 +53,15 @@ def glob_parts(fs: Any, part_dir: str) -> list[str]:
     except (FileNotFoundError, NotADirectoryError):
         return []
     return sorted(n for n in names if n.startswith("part-") and n.endswith(".parquet"))
+
+
+def pending_files(fs: Any, part_dir: str) -> list[str]:
+    """Temporary files of unfinished writes in a partition folder (``.tmp-*.pending``)."""
+    try:
+        names = [p.rstrip("/").rsplit("/", 1)[-1] for p in fs.ls(part_dir, detail=False)]
+    except (FileNotFoundError, NotADirectoryError):
+        return []
+    return sorted(n for n in names if n.startswith(".tmp-") and n.endswith(".pending"))
 
 
 def live_parts(entry: dict[str, Any] | None, fs: Any, part_dir: str) -> list[str]:
