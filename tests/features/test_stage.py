@@ -417,3 +417,45 @@ def test_cli_features_and_query(tmp_path: Path) -> None:
     assert lines[0] == "aoi,n" and lines[1].startswith("intake,")
     t = runner.invoke(app, ["query", "SELECT count(*) AS n FROM diagnostics", "--store", str(tmp_path / "store")])
     assert t.exit_code == 0 and "2" in t.output
+
+
+def test_rewritten_provisional_driver_day_is_recomputed_from_the_tail(tmp_path: Path) -> None:
+    """The weather stage keeps a month's last local day in a small part of its own and rewrites it when
+    the next month completes it. The features refresh starts at that day (read from the part list, not
+    by re-reading the record) and equals a full rebuild."""
+    import pyarrow as pa
+
+    project = _project(tmp_path, leads=[0, 1], windows=[1, 3, 10])
+    store = Store(tmp_path / "s")
+    drivers, hyd, target = _inputs(end="2022-10-31")
+    kw = dict(time_column="date", units=DRIVER_UNITS)
+    provisional = drivers["date"] == "2022-10-31"
+    drivers.loc[provisional, "air_temperature_mean"] = -50.0  # the incomplete last day, completed later
+    store.write_table("drivers_daily", "tallow", drivers[~provisional], **kw)
+    store.append_arrow("drivers_daily", "tallow", pa.Table.from_pandas(drivers[provisional], preserve_index=False),
+                       since="2022-10-31", **kw)  # fmt: skip
+    store.write_table("hydrology_daily", "tallow", hyd, units={"inflow_discharge": "m3 s-1", "tp_load": "kg d-1"})
+    store.write_table("target_daily", "tallow", target, units={"chla": "mg m-3"})
+    build_features(project, store)
+    new_drivers, _, new_target = _inputs(end="2022-11-30")
+    new = new_drivers[new_drivers["date"] >= "2022-10-31"]
+    store.append_arrow("drivers_daily", "tallow", pa.Table.from_pandas(new, preserve_index=False),
+                       since="2022-10-31", **kw)  # fmt: skip
+    store.write_table("target_daily", "tallow", new_target, units={"chla": "mg m-3"})
+    reads: list[object] = []
+    real = Store.read_arrow
+
+    def spy(self: Store, table: str, lake: str, **k: object) -> object:
+        if table == "drivers_daily":
+            reads.append(k.get("since"))
+        return real(self, table, lake, **k)
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(Store, "read_arrow", spy)
+        build_features(project, store)
+    assert len(reads) == 1 and reads[0] is not None  # the tail only
+    assert pd.Timestamp(reads[0]) <= pd.Timestamp("2022-10-31") - pd.Timedelta(days=10 + 1)
+    full = _full_copy(store, tmp_path, "full", project)
+    got, want = load_features(store, "tallow"), load_features(full, "tallow")
+    pd.testing.assert_frame_equal(got, want)
+    assert (got["air_temperature_mean__min_1d"] > -50).all()  # no row kept the provisional value

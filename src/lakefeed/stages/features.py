@@ -50,6 +50,7 @@ from lakefeed.store import Store, read_units
 __all__ = ["build_features", "feature_units", "load_drivers"]
 
 _DRIVER_TABLES = ("drivers_daily", "hydrology_daily")
+_TAIL_REACH = pd.Timedelta(days=62)  # driver changes reaching further back are checked by fingerprint
 _NOT_DRIVERS = {"valid_fraction", "flags", "load_method", "zone", "date", "lake"}
 KEYS = ["aoi", "target_date", "lead_days"]
 _DESCRIPTIONS = {
@@ -181,25 +182,29 @@ def _driver_parts(store: Store, lake: str) -> dict[str, list[list[object]]]:
     return out
 
 
-def _old_rows_unchanged(
+def _unchanged_before(
     now: dict[str, list[list[object]]], recorded: dict[str, list[list[object]]], through: object
-) -> bool:
-    """Whether the driver rows dated on or before ``through`` are those of the previous build, from the
-    part lists alone: every part read then is still live with the same content hash, and every newer
-    part holds only later dates (as an appended month does). Otherwise the caller reads all rows and
-    compares their fingerprint."""
+) -> pd.Timestamp | None:
+    """First date from which the driver rows may differ from the previous build's, from the part lists
+    alone: the earliest first date of a part that is new or was replaced since then (an appended month,
+    or a rewritten tail of provisional days), or the day after ``through``. Rows before it sit in parts
+    with the same content hash as then. None when that cannot be told (a table appeared or went, a
+    part of unknown range): the caller reads all rows and compares their fingerprint instead."""
     if not now or set(now) != set(recorded):
-        return False
-    end = pd.Timestamp(through)
+        return None
+    start = pd.Timestamp(through) + pd.Timedelta(days=1)
     for table, parts in now.items():
-        old = {(str(f), str(h)) for f, h, *_ in recorded[table]}
-        live = {(str(f), str(h)) for f, h, *_ in parts}
-        if not old or not old <= live:
-            return False
-        for f, h, first in parts:
-            if (str(f), str(h)) not in old and (first is None or pd.Timestamp(first) <= end):
-                return False
-    return True
+        old = {(str(p[0]), str(p[1])): p for p in recorded[table]}
+        live = {(str(p[0]), str(p[1])) for p in parts}
+        if not old:
+            return None
+        changed = [p for p in parts if (str(p[0]), str(p[1])) not in old]
+        changed += [p for key, p in old.items() if key not in live]  # replaced or removed since then
+        for p in changed:
+            if len(p) < 3 or p[2] is None:
+                return None
+            start = min(start, pd.Timestamp(p[2]).normalize())
+    return start
 
 
 def _arrow_rows(block: FeatureBlock, fold_kind: str) -> pa.Table:
@@ -302,9 +307,10 @@ def _write_rows(
 def _refresh_plan(
     store: Store, lake: str, prev: dict | None, targets: pd.DataFrame, *, full: bool
 ) -> tuple[str, pd.Timestamp | None, tuple[str, str]]:
-    """How to refresh: ``("tail", since, old)`` when the old driver rows are provably unchanged from the
-    part lists (read only the last days), ``("check", since, old)`` when their fingerprint must be
-    compared (read all), ``("full", None, old)`` otherwise. The targets' fingerprint is checked here."""
+    """How to refresh: ``("tail", since, old)`` when the part lists tell from which date the driver rows
+    may have changed (read only the last days; ``since`` is that date or the day after the old inputs,
+    whichever is first), ``("check", since, old)`` when their fingerprint must be compared (read all),
+    ``("full", None, old)`` otherwise. The targets' fingerprint is checked here."""
     md = (prev or {}).get("metadata", {})
     old = (md.get("drivers_through"), md.get("targets_through"))
     if full or not prev or not store.has_table("features", lake) or not all(old):
@@ -313,8 +319,11 @@ def _refresh_plan(
         return "full", None, old
     since = refresh_start(*old)
     recorded = json.loads(md.get("input_parts") or "{}")
-    if md.get("drivers_first") and _old_rows_unchanged(_driver_parts(store, lake), recorded, old[0]):
-        return "tail", since, old
+    changed_from = _unchanged_before(_driver_parts(store, lake), recorded, old[0])
+    # a part rewritten far back (e.g. a whole table written again) may hold the same old rows: reading all
+    # and comparing fingerprints then saves recomputing them
+    if md.get("drivers_first") and changed_from is not None and changed_from >= since - _TAIL_REACH:
+        return "tail", min(since, changed_from), old
     return "check", since, old
 
 
@@ -464,7 +473,7 @@ def build_features(
         "drivers_first": str(pd.Timestamp(record[0]).date()) if record[0] is not None else "",
         "drivers_digest_at_through": drivers_digest(through[0]),
         "targets_digest_at_through": _targets_digest(targets, through[1]),
-        "input_parts": json.dumps({t: [p[:2] for p in ps] for t, ps in _driver_parts(store, lake.id).items()}),
+        "input_parts": json.dumps(_driver_parts(store, lake.id)),
         "options_hash": options_hash,
         "driver_zone": opts.driver_zone,
         "fold_kind": opts.fold_kind,
