@@ -136,3 +136,35 @@ def test_missing_path_or_empty_glob(tmp_path):
         open_grid(str(tmp_path / "none_*.nc"))
     with pytest.raises(SourceError, match="file not found"):
         open_grid(tmp_path / "none.nc")
+
+
+def test_decoded_values_are_not_decoded_twice(tmp_path):
+    """decode() replaces the CF packing attributes, so a zonal mean of decoded data leaves it as it is."""
+    import shapely
+
+    from lakefeed.extract.zonal import zonal_mean
+    from lakefeed.geometry.weights import zone_weights
+
+    ds = _ds("2024-01-01", 4)
+    grid = open_grid(_write(ds, tmp_path / "a.nc"))
+    t2 = decode(grid.dataset["t2"])
+    assert not {"scale_factor", "add_offset", "_FillValue"} & set(t2.attrs)
+    assert t2.attrs["packing_step"] == pytest.approx(0.01) and t2.attrs["units"] == "K"
+    w = zone_weights({"box": shapely.box(0.5, 50.2, 2.5, 50.8)}, grid.lat, grid.lon)
+    packed = zonal_mean(grid.dataset["t2"], w)["mean"].values  # decoded inside the blocks
+    decoded = zonal_mean(t2, w)["mean"].values
+    np.testing.assert_allclose(decoded, packed, rtol=1e-12)
+    assert 270 < decoded.min() and decoded.max() < 271  # field = 270 + 0.1 * lon + 0.01 * hour
+
+
+def test_files_packed_differently_are_decoded_each_with_its_own_packing(tmp_path):
+    # separately downloaded months of a reanalysis carry their own scale_factor/add_offset
+    a, b = _ds("2024-01-01", 24), _ds("2024-01-02", 24)
+    _write(a, tmp_path / "g_1.nc")
+    enc = {"t2": {"dtype": "int16", "scale_factor": 0.002, "add_offset": 265.0, "_FillValue": -32767, "zlib": True}}
+    b.to_netcdf(tmp_path / "g_2.nc", encoding=enc)
+    grid = open_grid(str(tmp_path / "g_*.nc"))
+    t2 = decode(grid.dataset["t2"])
+    want = xr.concat([a["t2"], b["t2"]], dim="time").transpose(*t2.dims).values
+    np.testing.assert_allclose(t2.values, want, atol=0.006)  # within the coarser packing step
+    assert t2.attrs["packing_step"] == pytest.approx(0.01)  # the larger of the two

@@ -45,10 +45,9 @@ def zonal(
     """Area-weighted means of every grid variable over every polygon (exact coverage x cell area)."""
     import geopandas as gpd
 
-    from lakefeed.config.sources import Accumulation, WeatherSource
+    from lakefeed.config.sources import Accumulation
     from lakefeed.exceptions import ConfigError
-    from lakefeed.extract.daily import DAILY_UNITS, to_daily
-    from lakefeed.geometry.zones import to_crs, zone_latitudes
+    from lakefeed.geometry.zones import to_crs
     from lakefeed.sources.grids import open_grid
     from lakefeed.sources.vectors import read_layer
     from lakefeed.stages.weather import get_weights, hourly_drivers, use_processes, zonal_long
@@ -80,7 +79,11 @@ def zonal(
         def progress(description: str, done: int, total: int) -> None:
             bar.update(task, description=description, completed=done, total=total)
 
-        if daily:
+        if daily:  # imported only here: the daily aggregation's modules are not needed for the long table
+            from lakefeed.config.sources import WeatherSource
+            from lakefeed.extract.daily import DAILY_UNITS, to_daily
+            from lakefeed.geometry.zones import zone_latitudes
+
             source = WeatherSource(paths=[], accumulation={"precipitation": acc, "shortwave_radiation": acc})
             hourly, _clipped = hourly_drivers(g, weights, source=source, progress=progress)
             flags = {z: weights.flags(z) for z in weights.zones}

@@ -84,19 +84,23 @@ def apply_weights(
     """
     cols, w, total = weights_t if isinstance(weights_t, tuple) else _prepare(weights_t)
     nt = block.shape[0]
-    x = np.asarray(block).reshape(nt, -1)[:, cols]
+    x = np.asarray(block).reshape(nt, -1)[:, cols]  # a copy (fancy indexing): changed in place below
+    bad = None
     if packing is not None:
         scale, offset, fills = packing
-        bad = np.isin(x, fills) if fills else np.zeros(x.shape, bool)
+        for f in fills:  # exact comparisons with the stored values
+            bad = x == f if bad is None else bad | (x == f)
+        if x.dtype.kind not in "iu":  # stored floats may hold NaN besides the fill values
+            bad = np.isnan(x) if bad is None else bad | np.isnan(x)
         x = x.astype(np.float64)
         if scale != 1.0:
             x *= scale
         if offset != 0.0:
             x += offset
-        x[bad] = np.nan
-    nan = np.isnan(x)
+    nan = np.isnan(x) if bad is None else bad
     if nan.any():
-        num = np.asarray(np.where(nan, 0.0, x) @ w)
+        x[nan] = 0.0
+        num = np.asarray(x @ w)
         den = np.asarray((~nan).astype(w.dtype) @ w)
     else:
         num = np.asarray(x @ w)

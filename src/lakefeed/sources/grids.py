@@ -13,11 +13,20 @@ so (CF ``standard_name`` latitude/longitude or units degrees_north/degrees_east)
 is opened and probed on entry: a corrupt or truncated file is named in the error; with
 ``on_error="skip"`` the other files are kept and the bad ones listed in ``Grid.skipped``.
 
+NetCDF-4 files are read through h5py (:mod:`lakefeed.sources._h5grid`): the first file is opened
+with xarray, every other file laid out like it only has its time, coordinates, attributes and a
+probe read (about 2 ms a file instead of 20), and a record of such files becomes one lazily indexed
+array per variable, so that a window selection reads only the window. Other files (classic NetCDF,
+Zarr, files laid out differently) go through xarray; the values are the same either way. A
+variable packed differently in different files (own ``scale_factor``/``add_offset``, as separately
+downloaded months often are) is decoded file by file to float64 before the files are joined.
+
 Must not: compute the data (only one probe element per variable and file is read), do science.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import glob
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
@@ -30,6 +39,7 @@ import xarray as xr
 
 from lakefeed.exceptions import SourceError
 from lakefeed.geometry.weights import grid_signature
+from lakefeed.sources._h5grid import Layout, Record, layout_of, open_like, stack, to_h5
 
 __all__ = [
     "Grid",
@@ -157,7 +167,8 @@ def _engine(path: Path) -> str:
     )
 
 
-def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
+def _open_one(path: Path, chunk_time: int | None) -> tuple[xr.Dataset, Layout | None]:
+    """One file opened the general way, and its fast-path layout for the record's other files."""
     engine = _engine(path)
     try:
         if engine == "zarr":
@@ -180,6 +191,7 @@ def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
             f"weather grid {path}: cannot open ({type(err).__name__}: {err}); the file may be corrupt "
             "or truncated: download it again"
         ) from err
+    raw = ds
     if "time" not in ds.dims:
         cand = [n for n, v in ds.variables.items() if v.ndim == 1 and np.issubdtype(v.dtype, np.datetime64)]
         if not cand:
@@ -211,7 +223,44 @@ def _open_one(path: Path, chunk_time: int | None) -> xr.Dataset:
             nt = max(int(native[0]), nt // int(native[0]) * int(native[0]))
         chunk_time = nt
     # one dask chunk per time block over the whole grid; a later window selection reads only the window
-    return ds.chunk({"time": min(chunk_time, max(1, ds.sizes["time"])), "latitude": -1, "longitude": -1})
+    ds = ds.chunk({"time": min(chunk_time, max(1, ds.sizes["time"])), "latitude": -1, "longitude": -1})
+    lay = layout_of(path, raw, ds, ("time", ydim, xdim), chunk_time, CHUNK_CACHE_BYTES) if engine == "netcdf4" else None
+    if lay is not None:  # read through h5py too (fresh handles in worker processes); netCDF4 closes the file
+        ds = to_h5(path, ds, lay)
+        lay = dataclasses.replace(lay, template=ds)
+        raw.close()
+    return ds, lay
+
+
+_PACKING = ("scale_factor", "add_offset", "_FillValue", "missing_value")
+
+
+def _same_packing(dsets: list[xr.Dataset]) -> list[xr.Dataset]:
+    """The files' Datasets, a variable packed differently in different files decoded (float64) in each.
+
+    Joining keeps the first file's attributes, so such a variable would be decoded with the first
+    file's scale and offset (as separately downloaded reanalysis months often differ). ``packing_step``
+    keeps the largest scale factor (packing noise).
+    """
+
+    def key(attrs: Mapping) -> str:
+        return repr([attrs.get(k) for k in _PACKING])
+
+    first = dsets[0]
+    differ = [n for n in first.data_vars if any(n in d and key(d[n].attrs) != key(first[n].attrs) for d in dsets[1:])]
+    if not differ:
+        return dsets
+    step = {n: max(float(d[n].attrs.get("scale_factor", 0.0) or 0.0) for d in dsets if n in d) for n in differ}
+    return [d.assign({n: decode(d[n]).assign_attrs(packing_step=step[n]) for n in differ if n in d}) for d in dsets]
+
+
+def _first_time(o: xr.Dataset | Record) -> np.datetime64:
+    t = o.time if isinstance(o, Record) else o["time"].values
+    return t[0] if t.size else np.datetime64("NaT")
+
+
+def _n_time(o: xr.Dataset | Record) -> int:
+    return o.time.size if isinstance(o, Record) else o.sizes["time"]
 
 
 def normalise_lon(ds: xr.Dataset) -> xr.Dataset:
@@ -265,37 +314,49 @@ def open_grid(
         file's own chunking).
     """
     files = expand_paths(paths)
-    opened: list[tuple[Path, xr.Dataset]] = []
+    opened: list[tuple[Path, xr.Dataset | Record]] = []
     problems: list[str] = []
+    layout: Layout | None = None  # of the first NetCDF-4 file: the others are read like it when they match
     for f in files:
         try:
-            opened.append((f, _open_one(f, chunk_time)))
+            rec = open_like(f, layout) if layout is not None else None
+            if rec is None:
+                ds, lay = _open_one(f, chunk_time)
+                layout = layout or lay
+                rec = Record(f, ds["time"].values) if lay is not None and lay is layout else ds
+            opened.append((f, rec))
         except SourceError as err:
             problems.append(str(err))
     if problems and (on_error == "raise" or not opened):
         ok = f" ({len(opened)} other file(s) opened fine)" if opened else ""
         raise SourceError("\n".join(problems) + ok)
-    opened.sort(key=lambda fd: fd[1]["time"].values[0] if fd[1].sizes["time"] else np.datetime64("NaT"))
-    ref_f, ref = opened[0]
-    for f, ds in opened[1:]:
+    # a Record's coordinates are its layout's (checked equal when it was read)
+    grids = [(f, layout.template if isinstance(o, Record) and layout else o) for f, o in opened]
+    order = sorted(range(len(opened)), key=lambda k: _first_time(opened[k][1]))
+    opened, grids = [opened[k] for k in order], [grids[k] for k in order]
+    ref_f, ref = grids[0]
+    for f, g in grids[1:]:
         for c in ("latitude", "longitude"):
-            if ds.sizes[c] != ref.sizes[c] or not np.allclose(ds[c].values, ref[c].values):
+            if g.sizes[c] != ref.sizes[c] or not np.allclose(g[c].values, ref[c].values):
                 raise SourceError(f"weather grid {f}: its {c} differs from {ref_f}'s; all files must share one grid")
-    dsets = [ds for _, ds in opened]
-    ds = (
-        dsets[0]
-        if len(dsets) == 1
-        else xr.concat(
-            dsets,
-            dim="time",
-            data_vars="minimal",
-            coords="minimal",
-            compat="override",
-            join="override",
-            combine_attrs="override",
+    if layout is not None and all(isinstance(o, Record) for _, o in opened):
+        ds = stack([o for _, o in opened], layout)  # type: ignore[misc]
+    else:
+        dsets = _same_packing([o.dataset(layout) if isinstance(o, Record) and layout else o for _, o in opened])
+        ds = (
+            dsets[0]
+            if len(dsets) == 1
+            else xr.concat(
+                dsets,
+                dim="time",
+                data_vars="minimal",
+                coords="minimal",
+                compat="override",
+                join="override",
+                combine_attrs="override",
+            )
         )
-    )
-    starts = list(np.cumsum([0] + [d.sizes["time"] for d in dsets[:-1]]))
+    starts = list(np.cumsum([0] + [_n_time(o) for _, o in opened[:-1]]))
     _check_time(ds, [f for f, _ in opened], starts)
     if time_zone != "UTC":
         t = pd.DatetimeIndex(ds["time"].values).tz_localize(time_zone).tz_convert("UTC").tz_localize(None)
@@ -346,7 +407,9 @@ def decode(var: xr.DataArray) -> xr.DataArray:
     if scale != 1.0 or offset != 0.0:
         out = out * scale + offset
     attrs["packing_step"] = float(var.attrs.get("packing_step", 0.0)) or (scale if "scale_factor" in var.attrs else 0.0)
-    return out.assign_attrs(attrs).rename(var.name)
+    out = out.rename(var.name)
+    out.attrs = attrs  # replaced, not updated: arithmetic keeps the packing attributes (xarray keep_attrs)
+    return out
 
 
 def select_roles(
@@ -377,7 +440,8 @@ def select_roles(
             )
         parse_unit(unit)
         attrs = dict(var.attrs)
-        attrs.update(units=unit, source_name=name, packing_step=float(var.attrs.get("scale_factor", 0.0) or 0.0))
+        step = var.attrs.get("scale_factor", 0.0) or var.attrs.get("packing_step", 0.0)  # decoded: its record's
+        attrs.update(units=unit, source_name=name, packing_step=float(step or 0.0))
         var = var.copy(deep=False).assign_attrs(attrs)
         out[role] = var if packed else decode(var)
     return out
