@@ -20,6 +20,12 @@ outside the timings):
 6. ``full-dask-again`` full rebuild of the same (now complete) record on the local Dask cluster
 7. ``noop-dask`` refresh with nothing new (the cost of change detection alone)
 
+In the incremental runs only the stages whose inputs changed run: the weather stage reads the grid from a
+day before the new month and recomputes only the days from that month on (older part files untouched; the
+run summary's ``mode`` says ``weather: incremental from <day>``), the features stage extends its table
+from the first new date; hydrology and target find their inputs unchanged and do not run. A full rebuild
+(``full``) runs every stage over the whole record.
+
 Wall time per run, and peak resident memory of this process plus all its children (Dask workers, Prefect
 server) sampled every 0.2 s. Ratios: sequential / Dask, full / incremental. Not part of the test suite.
 """

@@ -87,8 +87,14 @@ def get_progress() -> Progress | None:
     return _PROGRESS[0] if _PROGRESS else None
 
 
-def run_stage(stage: str, lake_file: str, store_root: str, *, progress: Progress | None = None) -> StageResult:
-    """Load the lake config and run one stage for it (the single library call a task makes)."""
+def run_stage(
+    stage: str, lake_file: str, store_root: str, *, progress: Progress | None = None, since: str | None = None
+) -> StageResult:
+    """Load the lake config and run one stage for it (the single library call a task makes).
+
+    ``since`` (first day of the earliest changed source month) is passed to stages that take it (the
+    weather stage: only the days from that month on are recomputed); None runs the stage in full.
+    """
     from lakefeed.config import load_project
     from lakefeed.store import Store
 
@@ -96,7 +102,8 @@ def run_stage(stage: str, lake_file: str, store_root: str, *, progress: Progress
     project = load_project(lake_file)
     if stage not in stages:
         return StageResult(stage, project.id, skipped=True, reason=missing.get(stage, f"unknown stage {stage!r}"))
-    return stages[stage](project, Store(store_root), progress=progress)
+    extra = {"since": since} if since is not None else {}
+    return stages[stage](project, Store(store_root), progress=progress, **extra)
 
 
 # --- Prefect API for local mode ---------------------------------------------------------------------------

@@ -1,7 +1,8 @@
 """What changed since the last run: content hashes of each lake's sources, by kind and month.
 
 Takes a loaded :class:`~lakefeed.config.Project` and the store root; returns fingerprints
-(``{kind: {month: sha256}}``), the stages a lake needs, and reads/writes the per-lake record
+(``{kind: {month: sha256}}``), the stages a lake needs, the first day of the earliest changed month for a
+stage that processes only changed months (the weather stage), and reads/writes the per-lake record
 ``<store>/_state/source_state/lake=<id>.json``. Months come from ``YYYY-MM`` / ``YYYYMM`` in file names
 (files without one count as ``all``). Must not run any stage.
 
@@ -23,7 +24,17 @@ from typing import Any
 from lakefeed.config import Project
 from lakefeed.exceptions import SourceError
 
-__all__ = ["STAGE_INPUTS", "changes", "fingerprint", "plan_stages", "read_state", "state_path"]
+__all__ = [
+    "INCREMENTAL",
+    "STAGE_INPUTS",
+    "changes",
+    "fingerprint",
+    "plan_stages",
+    "read_state",
+    "stage_since",
+    "state_path",
+    "table_complete",
+]
 
 _MONTH = re.compile(r"(?<!\d)(\d{4})-?(0[1-9]|1[0-2])(?:-?\d{2})?(?!\d)")
 
@@ -35,6 +46,9 @@ STAGE_INPUTS: dict[str, tuple[str, ...]] = {
     "features": ("config", "weather", "hydrology", "samples", "scenes"),
     "forecast": ("config", "forecast", "weather"),
 }
+
+#: Stages that can process only the changed months of one source kind (their ``since`` argument).
+INCREMENTAL: dict[str, str] = {"weather": "weather"}
 
 
 def _hash_file(path: Path) -> str:
@@ -132,8 +146,9 @@ def plan_stages(
     """Stages to run for one lake.
 
     A stage runs when one of its inputs changed, when it has no record of a successful run, or when a
-    table it wrote last time is missing from the store. ``features`` runs when any earlier stage runs,
-    and ``forecast`` (which extends the feature table with forecast leads) when ``features`` runs.
+    table it wrote last time is missing from the store or unfinished (``has_table``: :func:`table_complete`).
+    ``features`` runs when any earlier stage runs, and ``forecast`` (which extends the feature table with
+    forecast leads) when ``features`` runs.
     """
     order = list(stages)
     plan = {
@@ -148,3 +163,29 @@ def plan_stages(
     if "forecast" in order and "features" in plan:
         plan.add("forecast")
     return sorted(plan, key=order.index)
+
+
+def stage_since(stage: str, changed: dict[str, list[str]], *, recorded: dict[str, list[str]]) -> str | None:
+    """First day (``YYYY-MM-01``) of the earliest changed month of the source an incremental stage reads.
+
+    None (a full build) when the stage is not incremental, has no record of a successful run, when the
+    configuration changed, or when a change has no month (``all``) or removes a month. The stage checks
+    the stored table itself and falls back to a full build when it cannot extend it.
+    """
+    kind = INCREMENTAL.get(stage)
+    months = changed.get(kind or "", [])
+    if kind is None or stage not in recorded or "config" in changed or not months:
+        return None
+    if any(m == "all" or m.startswith("removed:") for m in months):
+        return None
+    return f"{min(months)}-01"
+
+
+def table_complete(store: Any, table: str, lake: str) -> bool:
+    """True when ``table`` has a partition for ``lake`` whose last write finished (a stage that writes in two
+    steps marks the state between them in the manifest metadata; a run stopped there counts as not done)."""
+    from lakefeed.stages._weather_refresh import PENDING
+
+    if not store.has_table(table, lake):
+        return False
+    return PENDING not in ((store.entry(table, lake) or {}).get("metadata") or {})

@@ -6,6 +6,13 @@ Dask cluster: a local one sized to the machine by default, or an existing one (`
 or ``dask_address:`` in sources.yaml). Each lake is isolated: its failure is recorded with the reason,
 its later stages are not run, and the other lakes go on. Only one run writes a store at a time
 (:func:`lakefeed.flows._runtime.store_lock`). Must not hold any science.
+
+What a refresh processes: the stages whose inputs changed (content hashes by source month,
+:mod:`lakefeed.flows._state`). The weather stage gets the first day of the earliest changed weather month
+and recomputes only the days from there on (its older part files stay as they are); it runs in full when
+the change has no month, removes a month, the configuration changed, or ``full``. The features stage
+extends its table from the first new date by itself. The hydrology, target and forecast stages rerun for
+the whole record when one of their inputs changed.
 """
 
 from __future__ import annotations
@@ -68,7 +75,16 @@ def process_lakes(
     store = Store(store_root)
     clock = {lake: time.perf_counter() for lake in lakes}
     rec: dict[str, dict[str, Any]] = {
-        lake: {"lake": lake, "status": "ok", "stages_run": [], "tables": {}, "skipped": [], "warnings": [], "error": ""}
+        lake: {
+            "lake": lake,
+            "status": "ok",
+            "stages_run": [],
+            "tables": {},
+            "skipped": [],
+            "warnings": [],
+            "error": "",
+            "mode": [],
+        }
         for lake in lakes
     }
     plans: dict[str, dict[str, Any]] = {}
@@ -87,7 +103,7 @@ def process_lakes(
         rec[lake].update(status="unchanged", skipped=["no new or changed source months"])
     for stage in order:
         running = {
-            lake: stage_task.submit(stage, lake, lakes[lake], store_root)
+            lake: stage_task.submit(stage, lake, lakes[lake], store_root, plans[lake].get("since", {}).get(stage))
             for lake in sorted(alive)
             if stage in plans[lake]["stages"]
         }
@@ -104,6 +120,8 @@ def process_lakes(
             if result["skipped"]:
                 rec[lake]["skipped"].append(f"{stage}: {result['reason']}")
             rec[lake]["warnings"] += [f"{stage}: {w}" for w in result["warnings"]]
+            if result["reason"] and not result["skipped"]:  # how an incremental stage ran (from a day, or in full)
+                rec[lake]["mode"].append(f"{stage}: {result['reason']}")
             plans[lake]["recorded"][stage] = sorted(result["tables"])
     for lake, plan in plans.items():  # remember what the store now reflects; unfinished stages run next time
         recorded = {
@@ -122,6 +140,7 @@ def process_lakes(
                 "new_rows": int(new),
                 "rows_written": int(sum(r["tables"].values())),
                 "changed": r.get("changed", ""),
+                "mode": "; ".join(r["mode"]),
                 "skipped": "; ".join(r["skipped"]),
                 "error": r["error"],
                 "warnings": "; ".join(r["warnings"]),
@@ -187,6 +206,8 @@ def format_summary(summaries: list[dict[str, Any]]) -> str:
     lines = [f"{'lake':<20} {'status':<10} {'new rows':>9}  stages / reason"]
     for s in summaries:
         why = s.get("error") or s.get("skipped") or s.get("stages_run", "")
+        if not s.get("error") and s.get("mode"):
+            why = f"{why} ({s['mode']})"
         lines.append(f"{s['lake']:<20} {s['status']:<10} {s.get('new_rows', 0):>9}  {why}")
     return "\n".join(lines)
 
@@ -248,8 +269,10 @@ def refresh(
     Returns
     -------
     list of dict
-        Per lake: status (ok, unchanged, failed), stages_run, new_rows, rows_written, changed, skipped,
-        error, seconds. Also appended to the store's ``run_summary`` table.
+        Per lake: status (ok, unchanged, failed), stages_run, new_rows (growth of the lake's tables),
+        rows_written (rows the stages wrote, recomputed ones included), changed (source months), mode (how
+        the incremental stages ran, e.g. ``weather: incremental from 2022-12-01`` or ``weather: full build
+        (configuration changed)``), skipped, error, seconds. Also appended to the store's ``run_summary`` table.
     """
     return _run(
         configs,

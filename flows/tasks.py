@@ -20,7 +20,7 @@ from prefect.cache_policies import NO_CACHE
 from prefect.tasks import exponential_backoff
 
 from lakefeed.flows._runtime import get_progress, run_stage
-from lakefeed.flows._state import changes, fingerprint, plan_stages, read_state
+from lakefeed.flows._state import changes, fingerprint, plan_stages, read_state, stage_since, table_complete
 
 __all__ = ["is_transient", "plan_task", "stage_task"]
 
@@ -86,12 +86,13 @@ def _cluster_client() -> Any:
     retry_condition_fn=_retry_transient,
     cache_policy=NO_CACHE,
 )
-def stage_task(stage: str, lake: str, lake_file: str, store_root: str) -> dict[str, Any]:
-    """Run one stage for one lake; returns the :class:`StageResult` as a dict."""
+def stage_task(stage: str, lake: str, lake_file: str, store_root: str, since: str | None = None) -> dict[str, Any]:
+    """Run one stage for one lake (``since``: see :func:`run_stage`); returns the :class:`StageResult` as a dict."""
     progress = get_progress() or _logging_progress(lake, stage)
     with _cluster_client():
-        result = run_stage(stage, lake_file, store_root, progress=progress)
-    get_run_logger().info("lake %s, %s: %s", lake, stage, result.reason if result.skipped else result.tables)
+        result = run_stage(stage, lake_file, store_root, progress=progress, since=since)
+    done = result.reason if result.skipped else f"{result.tables} {result.reason}".strip()
+    get_run_logger().info("lake %s, %s: %s", lake, stage, done)
     return asdict(result)
 
 
@@ -104,7 +105,10 @@ def stage_task(stage: str, lake: str, lake_file: str, store_root: str) -> dict[s
     cache_policy=NO_CACHE,
 )
 def plan_task(lake: str, lake_file: str, store_root: str, stages: list[str], full: bool = False) -> dict[str, Any]:
-    """Hash the lake's sources and decide which stages must run (all of them when ``full``)."""
+    """Hash the lake's sources; decide which stages must run (all of them when ``full``) and from which day.
+
+    ``since`` maps an incremental stage to the first day of its earliest changed source month (absent: in full).
+    """
     from lakefeed.config import load_project
     from lakefeed.store import Store
 
@@ -114,6 +118,13 @@ def plan_task(lake: str, lake_file: str, store_root: str, stages: list[str], ful
     old = {"sources": {}, "stages": {}} if full else read_state(store_root, lake)
     changed = changes(old.get("sources", {}), new)
     recorded = old.get("stages", {}) if isinstance(old.get("stages"), dict) else {}
-    plan = plan_stages(stages, changed, recorded=recorded, has_table=lambda t: store.has_table(t, lake))
-    get_run_logger().info("lake %s: changed %s; stages to run: %s", lake, changed or "nothing", plan or "none")
-    return {"lake": lake, "sources": new, "changed": changed, "stages": plan, "recorded": recorded}
+    plan = plan_stages(stages, changed, recorded=recorded, has_table=lambda t: table_complete(store, t, lake))
+    since = {s: d for s in plan if (d := stage_since(s, changed, recorded=recorded)) is not None}
+    get_run_logger().info(
+        "lake %s: changed %s; stages to run: %s%s",
+        lake,
+        changed or "nothing",
+        plan or "none",
+        "".join(f"; {s} from {d}" for s, d in since.items()),
+    )
+    return {"lake": lake, "sources": new, "changed": changed, "stages": plan, "recorded": recorded, "since": since}

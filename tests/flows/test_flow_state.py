@@ -8,7 +8,7 @@ import pytest
 
 from lakefeed.exceptions import SourceError, StoreError
 from lakefeed.flows._runtime import available_stages, store_lock
-from lakefeed.flows._state import changes, plan_stages
+from lakefeed.flows._state import changes, plan_stages, stage_since
 from lakefeed.flows.tasks import is_transient
 
 ORDER = ["weather", "hydrology", "target", "features", "forecast"]
@@ -41,6 +41,19 @@ def test_plan_reruns_a_stage_whose_table_vanished() -> None:
     plan = plan_stages(ORDER, {}, recorded=recorded, has_table=lambda t: t != "drivers_daily")
     assert plan == ["weather", "features", "forecast"]
     assert plan_stages(ORDER, {}, recorded={}, has_table=lambda t: True) == ORDER  # never ran
+
+
+def test_weather_gets_its_earliest_changed_month() -> None:
+    recorded = {s: [] for s in ORDER}
+    assert stage_since("weather", {"weather": ["2022-12", "2022-11"]}, recorded=recorded) == "2022-11-01"
+    assert stage_since("weather", {"weather": ["2022-12"], "scenes": ["all"]}, recorded=recorded) == "2022-12-01"
+    # in full: the configuration changed, a file without a month, a month removed, no record of a run
+    assert stage_since("weather", {"weather": ["2022-12"], "config": ["all"]}, recorded=recorded) is None
+    assert stage_since("weather", {"weather": ["2022-12", "all"]}, recorded=recorded) is None
+    assert stage_since("weather", {"weather": ["removed:2022-01"]}, recorded=recorded) is None
+    assert stage_since("weather", {"weather": ["2022-12"]}, recorded={}) is None
+    assert stage_since("weather", {}, recorded=recorded) is None  # rerun for a vanished table: in full
+    assert stage_since("hydrology", {"hydrology": ["2022-12"]}, recorded=recorded) is None  # not incremental
 
 
 def test_transient_errors_only() -> None:

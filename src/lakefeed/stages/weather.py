@@ -8,19 +8,17 @@ grid once for every zone and variable at once, de-accumulates and converts units
 aggregates to the lake's local days. Writes ``drivers_daily`` (columns and units of DESIGN.md).
 
 The helpers :func:`get_weights`, :func:`hourly_drivers`, :func:`zonal_long` and
-:func:`compute_by_time` (time chunks read in forked worker processes where that is safe) are
-shared with the ``lakefeed zonal`` command and the benchmark. Must not: hold science.
+:func:`compute_by_time` (time chunks read in forked worker processes where that is safe; defined in
+:mod:`lakefeed.stages._pool`) are shared with the ``lakefeed zonal`` command and the benchmark.
+Must not: hold science.
 """
 
 from __future__ import annotations
 
 import hashlib
-import multiprocessing
 import os
-import sys
-import threading
 from collections.abc import Mapping
-from concurrent.futures import ProcessPoolExecutor
+from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -28,8 +26,6 @@ import dask
 import numpy as np
 import pandas as pd
 import xarray as xr
-from dask.callbacks import Callback
-from dask.local import get_sync
 
 from lakefeed.exceptions import SourceError
 from lakefeed.extract.accumulation import Deaccumulated, deaccumulate, step_of
@@ -37,6 +33,14 @@ from lakefeed.extract.meteo import wind_speed
 from lakefeed.extract.zonal import zonal_mean
 from lakefeed.geometry.weights import ZoneWeights, zone_hash, zone_weights
 from lakefeed.sources.grids import Grid, decode, open_grid, select_roles
+from lakefeed.stages._pool import (
+    _DaskProgress,
+    _Null,
+    _one_blas_thread,
+    compute_by_time,
+    local_scheduler,
+    use_processes,
+)
 from lakefeed.stages._result import Progress, StageResult, no_progress
 
 if TYPE_CHECKING:  # heavy imports (geopandas, pint, pydantic, pyarrow) are deferred to keep start-up short
@@ -63,86 +67,6 @@ _AMOUNT_NAMES = {
 }
 #: Density of liquid water for precipitation mass -> depth, kg m-3 (common practice).
 WATER_DENSITY_KG_M3 = 1000.0
-
-
-class _DaskProgress(Callback):
-    def __init__(self, progress: Progress, description: str) -> None:
-        super().__init__()
-        self._p, self._d, self._n, self._done = progress, description, 0, 0
-
-    def _start_state(self, dsk, state) -> None:
-        self._n = len(state["ready"]) + len(state["waiting"]) + len(state["running"])
-
-    def _posttask(self, key, result, dsk, state, worker_id) -> None:
-        self._done += 1
-        self._p(self._d, self._done, max(self._n, self._done))
-
-
-def _cores() -> int:
-    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1
-
-
-def use_processes() -> bool:
-    """Whether :func:`compute_by_time` may fork worker processes here (the ``processes=None`` default).
-
-    Only in a plain single-threaded process on Linux with more than one core: not inside a
-    Dask worker, not when a Dask scheduler or client is configured, not when other threads run (a
-    Prefect task, a server): forking a multi-threaded process can deadlock.
-    """
-    if not sys.platform.startswith("linux") or _cores() < 2:
-        return False
-    if threading.active_count() > 1 or dask.config.get("scheduler", None) is not None:
-        return False
-    distributed = sys.modules.get("distributed")  # a Dask worker has it imported; importing it costs ~0.3 s
-    if distributed is None:
-        return True
-    try:
-        distributed.get_worker()
-    except ValueError:
-        return True
-    return False
-
-
-_FORKED: tuple[list[xr.Dataset], list[slice]] | None = None  # set in the parent just before forking
-
-
-def _compute_slice(i: int) -> list[xr.Dataset]:
-    objs, slices = _FORKED  # type: ignore[misc]
-    # a callable scheduler: dask does not look for (and import) dask.distributed in every worker
-    return list(dask.compute(*(o.isel(time=slices[i]) for o in objs), scheduler=get_sync))
-
-
-def compute_by_time(
-    objs: list[xr.Dataset], *, processes: bool | None = None, progress: Progress | None = None, what: str = ""
-) -> list[xr.Dataset]:
-    """Compute lazy (time, ...) Datasets together, one time chunk per task, in forked processes.
-
-    xarray reads HDF5 under one lock, so dask threads hardly overlap the reads; forked workers (each
-    reading its own time chunks, returning only the small zonal result) do. ``processes``: None
-    decides by :func:`use_processes`; False uses the current Dask scheduler. Identical results.
-    """
-    chunks = next((v.chunks[0] for o in objs for v in o.data_vars.values() if v.chunks), None)
-    if processes is None:
-        processes = use_processes()
-    if not processes or chunks is None or len(chunks) < 2:
-        cb = _DaskProgress(progress, what) if progress else None
-        with cb if cb else _Null():
-            return list(dask.compute(*objs))
-    global _FORKED
-    ends = np.cumsum(chunks)
-    slices = [slice(int(e - c), int(e)) for c, e in zip(chunks, ends, strict=True)]
-    _FORKED = (objs, slices)
-    parts: list[list[xr.Dataset]] = []
-    try:
-        n = max(1, min(_cores(), len(slices)))
-        with ProcessPoolExecutor(n, mp_context=multiprocessing.get_context("fork")) as pool:
-            for k, part in enumerate(pool.map(_compute_slice, range(len(slices)))):
-                parts.append(part)
-                if progress:
-                    progress(what, k + 1, len(slices))
-    finally:
-        _FORKED = None
-    return [xr.concat([p[j] for p in parts], dim="time") for j in range(len(objs))]
 
 
 def get_weights(
@@ -258,14 +182,6 @@ def hourly_drivers(
     return out, clipped
 
 
-class _Null:
-    def __enter__(self) -> None:
-        return None
-
-    def __exit__(self, *exc: object) -> None:
-        return None
-
-
 def zonal_long(
     grid: Grid,
     weights: ZoneWeights,
@@ -308,9 +224,13 @@ def zonal_long(
         res = {k: (d, None, None) for k, d in zip(names, done, strict=True)}
     else:
         cb = _DaskProgress(progress, "zonal: reading grid") if progress else None
-        with cb if cb else _Null():
+        with cb if cb else _Null(), _one_blas_thread():
             (res,) = dask.compute(
-                {k: (v[0], getattr(v[1], "bad_steps", None), getattr(v[1], "n_clipped", None)) for k, v in lazy.items()}
+                {
+                    k: (v[0], getattr(v[1], "bad_steps", None), getattr(v[1], "n_clipped", None))
+                    for k, v in lazy.items()
+                },
+                scheduler=local_scheduler(),
             )
     frames = []
     for name, (z, bad, ncl) in res.items():
@@ -334,8 +254,25 @@ def zonal_long(
     return out[["zone", "time", "variable", "value", "unit", "valid_fraction"]]
 
 
-def build_weather(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
-    """Build ``drivers_daily`` for one lake.
+def build_weather(
+    project: Project, store: Store, *, progress: Progress | None = None, since: str | date | None = None
+) -> StageResult:
+    """Build ``drivers_daily`` for one lake: in full, or only the days a changed source month touches.
+
+    Parameters
+    ----------
+    project, store
+        The lake's configuration and the store to write to.
+    progress
+        Progress callback.
+    since
+        First day of the earliest new or changed weather month (the files' calendar; None: full build).
+        The grid is read only from shortly before the first local day that month touches, rows from that
+        day on are recomputed and replace the stored ones; older part files are not rewritten. A full
+        build runs instead when there is no stored table, the configuration, columns, grid or geometry
+        differ from the stored ones, a recorded file is gone or a changed file starts earlier than the
+        stored record (see :mod:`lakefeed.stages._weather_refresh`). Either way the table read back equals
+        a full build's. ``StageResult.reason`` says which (e.g. ``"incremental from 2022-12-01"``).
 
     Examples
     --------
@@ -343,10 +280,11 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
     >>> build_weather(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
     StageResult(stage='weather', lake='tallow', tables={'drivers_daily': 1098}, ...)
     """
-    from lakefeed.extract.daily import DAILY_UNITS, to_daily
+    from lakefeed.extract.daily import DAILY_COLUMNS, DAILY_UNITS, to_daily
     from lakefeed.geometry.zones import build_zones, zone_latitudes
     from lakefeed.sources.vectors import read_layer
     from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
+    from lakefeed.stages._weather_refresh import read_window, refresh_start, tail_day, write_drivers
 
     p = progress or no_progress
     lake = project.lake
@@ -379,22 +317,43 @@ def build_weather(project: Project, store: Store, *, progress: Progress | None =
         allow_partial_coverage=lake.zones.allow_partial_coverage,
     )
     p("weather: weights", 2, 3)
-    hourly, clipped = hourly_drivers(grid, weights, source=src, progress=progress)
+    inputs = input_hashes([*grid.files, *layer_paths(*layers)])
+    cfg = config_hash(project)
+    start, how = None, "full build"
+    if since is not None:
+        plan = refresh_start(
+            store.entry("drivers_daily", lake.id),
+            since=since,
+            grid=grid,
+            inputs=inputs,
+            config_hash=cfg,
+            columns=list(DAILY_COLUMNS),
+            signature=weights.signature,
+            tz=lake.timezone,
+            source_tz=src.time_zone,
+        )
+        start = plan.day
+        how = f"incremental from {start}" if start is not None else f"full build ({plan.reason})"
+    window = read_window(grid, start, lake.timezone) if start is not None else grid
+    hourly, clipped = hourly_drivers(window, weights, source=src, progress=progress)
     warn += [f"{k}: {n} value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
     flags = {z: weights.flags(z) for z in weights.zones}
     # the lake surface's elevation for every zone (FAO-56 Eq. 37); a catchment zone may lie higher
     elevation = 0.0 if lake.elevation_m is None else float(lake.elevation_m)
     daily = to_daily(hourly, tz=lake.timezone, latitude=zone_latitudes(zones), elevation_m=elevation, zone_flags=flags)
-    daily.insert(0, "lake", lake.id)
     daily["date"] = daily["date"].dt.date
-    store.write_table(
-        "drivers_daily",
+    if start is not None:
+        daily = daily[daily["date"] >= start].reset_index(drop=True)
+    write_drivers(
+        store,
         lake.id,
         daily,
+        start=start,
+        tail=tail_day(grid, lake.timezone),
         units=DAILY_UNITS,
         metadata={"grid_signature": weights.signature, "files": str(len(grid.files))},
-        inputs=input_hashes([*grid.files, *layer_paths(*layers)]),
-        config_hash=config_hash(project),
+        inputs=inputs,
+        config_hash=cfg,
     )
     p("weather: done", 3, 3)
-    return StageResult("weather", lake.id, tables={"drivers_daily": len(daily)}, warnings=warn)
+    return StageResult("weather", lake.id, tables={"drivers_daily": len(daily)}, warnings=warn, reason=how)
