@@ -351,3 +351,17 @@ def test_leftover_temporary_files_of_a_dead_writer_are_removed(tmp_path: Path) -
     assert len(_glob_rows(tmp_path, "drivers_daily")) == 3
     store.write_table("drivers_daily", "tallow", frame.assign(v=2.0))
     assert not list(part_dir.glob(".tmp-*"))
+
+
+def test_empty_append_with_nothing_to_replace_touches_no_file(tmp_path: Path) -> None:
+    """A refresh with no new rows (no new target dates) keeps every part file and records the new provenance."""
+    store = Store(tmp_path)
+    base = pd.DataFrame({"aoi": "a", "target_date": pd.date_range("2024-01-01", periods=4), "chla": 1.0})
+    store.write_table("features", "tallow", base, time_column="target_date", metadata={"drivers_through": "2024-01-04"})
+    before = {p: Path(p).read_bytes() for p in store.part_files("features", "tallow")}
+    empty = pa.Table.from_pandas(base.iloc[:0], preserve_index=False)
+    store.append_arrow("features", "tallow", empty, since="2024-01-05", time_column="target_date",
+                       metadata={"drivers_through": "2024-01-31"})  # fmt: skip
+    assert {p: Path(p).read_bytes() for p in store.part_files("features", "tallow")} == before
+    assert store.entry("features", "tallow")["metadata"]["drivers_through"] == "2024-01-31"
+    pd.testing.assert_frame_equal(store.read_table("features", "tallow").drop(columns="lake"), base)

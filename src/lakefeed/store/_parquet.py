@@ -284,6 +284,12 @@ class Store:
                     f"cannot append to {table}/lake={lake}: columns differ from the stored ones; rewrite it in full"
                 )
             after = [i for i, p in enumerate(parts) if p.get("last") is None or pd.Timestamp(p["last"]) >= since]
+            if not after and arrow.num_rows == 0:  # nothing to add or replace: new provenance, same files
+                new = make_entry(arrow, parts, entry.get("time_column") or time_column, inputs, config_hash, metadata,
+                                 sort_by)  # fmt: skip
+                manifest.setdefault("tables", {}).setdefault(table, {})[lake] = new
+                write_manifest(self.fs, self.path, manifest, local=self.local)
+                return f"{part_dir}/{parts[-1]['file']}" if self.local else self._url(f"{part_dir}/{parts[-1]['file']}")
             if after and after != [len(parts) - 1]:
                 return self._rewrite(table, lake, [(since, arrow)], **kw)
             if after:  # the last part holds spill-over rows: keep its rows before `since`, add the new ones
