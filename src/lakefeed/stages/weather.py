@@ -158,8 +158,8 @@ def hourly_drivers(
     zonal = {k: zonal_mean(v, weights) for k, v in fields.items()}
     checks = {k: (d.bad_steps, d.n_clipped) for k, d in deacc.items()}
     cb = _DaskProgress(progress, "weather: reading grid") if progress else None
-    with cb if cb else _Null():
-        zonal, checks = dask.compute(zonal, checks)
+    with cb if cb else _Null(), _one_blas_thread():  # small weight products: one BLAS thread is faster
+        zonal, checks = dask.compute(zonal, checks, scheduler=local_scheduler())
     clipped = {k: deacc[k].check(bad_steps=b, n_clipped=n) for k, (b, n) in checks.items()}
     out = xr.Dataset(
         {
