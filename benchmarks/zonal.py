@@ -150,13 +150,16 @@ def child(tool: str, files: list[Path]) -> dict:
 
         t_imp = time.perf_counter()
         grid = open_grid(files)
-        w, cached = get_weights(_zones(), grid, cache_dir=CACHE)
+        zones = _zones()
+        t_w = time.perf_counter()
+        w, cached = get_weights(zones, grid, cache_dir=CACHE)
         t1 = time.perf_counter()
         # as `lakefeed zonal` does: one task per time chunk, in forked worker processes where safe
         (res,) = compute_by_time([zonal_mean(grid.dataset["t2m"], w)])
         out = {
             "cached": cached,
             "weights_s": t1 - t0,
+            "weights_only_s": t1 - t_w,
             "sum": float(np.nansum(res["mean"].values)),
             "first": res["mean"].values[0].tolist(),
         }
@@ -291,6 +294,11 @@ def main() -> None:
                     f"{lf['inner_s'] / med[floor]['inner_s']:.2f} (in-process), "
                     f"{lf['work_s'] / med[floor]['work_s']:.2f} (after imports)"
                 )
+        wc = [r["weights_only_s"] for r in results.get("lakefeed-cached", []) if "weights_only_s" in r]
+        wn = [r["weights_only_s"] for r in results.get("lakefeed", []) if not r.get("cached", True)]
+        if wc and wn:
+            w_new, w_cached = statistics.median(wn), statistics.median(wc)
+            print(f"  weights step: computed {w_new:.3f} s, from the cache {w_cached:.3f} s")
         if "lakefeed-1y" in med:
             print(f"  peak memory 1 year / 2 years: {med['lakefeed-1y']['maxrss_mb']:.0f} / {lf['maxrss_mb']:.0f} MiB")
         ee = [r for r in results.get("exactextract", []) if "first" in r]
