@@ -93,7 +93,8 @@ def run_stage(
     """Load the lake config and run one stage for it (the single library call a task makes).
 
     ``since`` (first day of the earliest changed source month) is passed to stages that take it (the
-    weather stage: only the days from that month on are recomputed); None runs the stage in full.
+    weather stage: only the days from that month on are recomputed; the target stage: only those scenes are
+    read); None runs the stage in full.
     """
     from lakefeed.config import load_project
     from lakefeed.store import Store

@@ -2,7 +2,7 @@
 
 Takes a loaded :class:`~lakefeed.config.Project` and the store root; returns fingerprints
 (``{kind: {month: sha256}}``), the stages a lake needs, the first day of the earliest changed month for a
-stage that processes only changed months (the weather stage), and reads/writes the per-lake record
+stage that processes only changed months (the weather and target stages), and reads/writes the per-lake record
 ``<store>/_state/source_state/lake=<id>.json``. Months come from ``YYYY-MM`` / ``YYYYMM`` in file names
 (files without one count as ``all``). Must not run any stage.
 
@@ -48,7 +48,11 @@ STAGE_INPUTS: dict[str, tuple[str, ...]] = {
 }
 
 #: Stages that can process only the changed months of one source kind (their ``since`` argument).
-INCREMENTAL: dict[str, str] = {"weather": "weather"}
+INCREMENTAL: dict[str, str] = {"weather": "weather", "target": "scenes"}
+
+#: Source kinds whose undated file (the scene catalogue, listing the items) changes with every new month: the
+#: stage checks such a change against its stored input hashes itself, so with dated changes it is no full build.
+CHECKS_UNDATED: frozenset[str] = frozenset({"scenes"})
 
 
 def _hash_file(path: Path) -> str:
@@ -169,16 +173,18 @@ def stage_since(stage: str, changed: dict[str, list[str]], *, recorded: dict[str
     """First day (``YYYY-MM-01``) of the earliest changed month of the source an incremental stage reads.
 
     None (a full build) when the stage is not incremental, has no record of a successful run, when the
-    configuration changed, or when a change has no month (``all``) or removes a month. The stage checks
-    the stored table itself and falls back to a full build when it cannot extend it.
+    configuration changed, or when a change has no month (``all``; for the kinds in :data:`CHECKS_UNDATED`
+    only when no dated month changed too) or removes a month. The stage checks the stored table itself and
+    falls back to a full build when it cannot extend it.
     """
     kind = INCREMENTAL.get(stage)
     months = changed.get(kind or "", [])
     if kind is None or stage not in recorded or "config" in changed or not months:
         return None
-    if any(m == "all" or m.startswith("removed:") for m in months):
+    if any(m.startswith("removed:") for m in months) or ("all" in months and kind not in CHECKS_UNDATED):
         return None
-    return f"{min(months)}-01"
+    dated = [m for m in months if m != "all"]
+    return f"{min(dated)}-01" if dated else None
 
 
 def table_complete(store: Any, table: str, lake: str) -> bool:

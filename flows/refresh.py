@@ -8,11 +8,13 @@ its later stages are not run, and the other lakes go on. Only one run writes a s
 (:func:`lakefeed.flows._runtime.store_lock`). Must not hold any science.
 
 What a refresh processes: the stages whose inputs changed (content hashes by source month,
-:mod:`lakefeed.flows._state`). The weather stage gets the first day of the earliest changed weather month
-and recomputes only the days from there on (its older part files stay as they are); it runs in full when
-the change has no month, removes a month, the configuration changed, or ``full``. The features stage
-extends its table from the first new date by itself. The hydrology, target and forecast stages rerun for
-the whole record when one of their inputs changed.
+:mod:`lakefeed.flows._state`). The weather and target stages get the first day of the earliest changed
+month of their source: the weather stage recomputes only the days from there on (its older part files stay
+as they are), the target stage reads only the scenes from there on (it reuses the stored statistics of the
+older scenes); both run in full when the change has no month (except the scene catalogue, which the target
+stage checks itself), removes a month, the configuration changed, or ``full``. The features stage extends
+its table from the first new date by itself. The hydrology and forecast stages rerun for the whole record
+when one of their inputs changed.
 """
 
 from __future__ import annotations

@@ -1,11 +1,17 @@
-"""A monthly refresh processes only the new weather month and leaves the table a full rebuild would write.
+"""A monthly refresh processes only the new weather (scene) month and leaves the tables a full rebuild would write.
 
 On the reduced sample scenario, against the session's Prefect server on loopback: a lake variant whose
 weather folder holds links to the first eleven monthly files; the twelfth "arrives" before the refresh.
-The reference is a full build of the weather stage from all twelve files into another store.
+The reference is a full build of the weather stage from all twelve files into another store. The same
+for the target stage: a scene folder of links to the items and rasters before December and a catalogue
+listing them; December's scenes arrive (and the catalogue lists them) before the refresh.
 """
 
 from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -13,6 +19,8 @@ import yaml
 from _variants import write_variants
 
 from lakefeed.config import load_project
+from lakefeed.flows._state import stage_since
+from lakefeed.stages.target import build_target
 from lakefeed.stages.weather import build_weather
 from lakefeed.store import Store
 
@@ -51,3 +59,63 @@ def test_refresh_recomputes_only_the_new_month(small_sample, prefect_server, tmp
     pd.testing.assert_frame_equal(
         store.read_table("drivers_daily", "alder"), reference.read_table("drivers_daily", "alder"), check_exact=True
     )
+
+
+def _link_scenes(sample: Path, dest: Path, *, before: str | None = None) -> None:
+    """``dest``: links to the sample's scene item and raster files dated before ``before`` (YYYYMMDD; all when
+    None) and a catalogue listing those items."""
+    src = sample / "scenes"
+
+    def keep(name: str) -> bool:
+        return before is None or re.search(r"_(\d{8})", name).group(1) < before
+
+    for f in sorted(src.rglob("*")):
+        link = dest / f.relative_to(src)
+        if f.is_file() and f.name != "catalog.json" and keep(f.name) and not link.exists():
+            link.parent.mkdir(parents=True, exist_ok=True)
+            link.symlink_to(f)
+    cat = json.loads((src / "catalog.json").read_text())
+    cat["links"] = [x for x in cat["links"] if x["rel"] != "item" or keep(x["href"])]
+    (dest / "catalog.json").write_text(json.dumps(cat, indent=1))
+
+
+def test_target_since_follows_scene_months() -> None:
+    recorded = {"target": ["target_obs", "target_daily", "sensor_bias"]}
+    # the catalogue (undated) changes with every new month: the stage checks it itself
+    assert stage_since("target", {"scenes": ["2022-12", "all"]}, recorded=recorded) == "2022-12-01"
+    assert stage_since("target", {"scenes": ["all"]}, recorded=recorded) is None  # nothing dated: in full
+    assert stage_since("target", {"scenes": ["2022-12", "removed:2022-01"]}, recorded=recorded) is None
+    assert stage_since("target", {"scenes": ["2022-12"], "config": ["all"]}, recorded=recorded) is None
+    assert stage_since("target", {"scenes": ["2022-12"]}, recorded={}) is None
+    assert stage_since("weather", {"weather": ["2022-12", "all"]}, recorded={"weather": []}) is None  # unchanged
+
+
+def test_refresh_reads_only_the_new_scene_month(small_sample, prefect_server, tmp_path) -> None:
+    from lakefeed.flows.refresh import refresh
+
+    scenes = tmp_path / "scenes"
+    _link_scenes(small_sample, scenes, before="20221201")
+    cfg = write_variants(small_sample, tmp_path / "config", ["birch"])
+    sources = yaml.safe_load((cfg / "sources.yaml").read_text())
+    sources["scenes"]["catalog"] = str(scenes / "catalog.json")
+    (cfg / "sources.yaml").write_text(yaml.safe_dump(sources))
+    (first,) = refresh([str(cfg)], sequential=True, stages=["target"])
+    assert first["status"] == "ok" and first["mode"] == "target: full build"
+    store = Store(str(tmp_path / "store"))
+    before = store.read_table("target_obs", "birch")
+
+    _link_scenes(small_sample, scenes)  # December's scenes arrive
+    (again,) = refresh([str(cfg)], sequential=True, stages=["target"])
+    assert again["status"] == "ok" and again["changed"] == "scenes: 2022-12,all"
+    assert again["mode"] == "target: incremental from 2022-12-01"
+    after = store.read_table("target_obs", "birch")
+    assert set(after["scene_id"]) - set(before["scene_id"]) == {
+        s for s in after["scene_id"] if re.search(r"_202212\d\d$", s)
+    }
+
+    reference = Store(str(tmp_path / "reference"))
+    build_target(load_project(cfg / "lake-birch.yaml"), reference)
+    for table in ("target_obs", "target_daily", "sensor_bias"):
+        pd.testing.assert_frame_equal(
+            store.read_table(table, "birch"), reference.read_table(table, "birch"), check_exact=True
+        )

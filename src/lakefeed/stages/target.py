@@ -10,6 +10,7 @@ values (:mod:`lakefeed.extract`), and writes the store tables ``target_obs``, ``
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from datetime import date
 from pathlib import Path
 
 import numpy as np
@@ -23,13 +24,25 @@ from lakefeed.extract.screening import accept, flag_outliers
 from lakefeed.extract.trophic import CAUTION, carlson_tsi, exceedance_flags, oecd_category
 from lakefeed.sources.scenes import SceneReader, list_scenes, read_scenes
 from lakefeed.sources.vectors import read_layer
+from lakefeed.stages import _target_refresh
 from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store
 
-__all__ = ["OBS_COLUMNS", "OBS_UNITS", "build_target", "cross_sensor_outliers", "daily_target", "extract_observations"]
+__all__ = [
+    "OBS_COLUMNS",
+    "OBS_UNITS",
+    "RAW_COLUMNS",
+    "build_target",
+    "cross_sensor_outliers",
+    "daily_target",
+    "extract_observations",
+    "scene_statistics",
+    "screen_observations",
+]
 
-OBS_COLUMNS = ["lake", "aoi", "scene_id", "sensor", "time", "date", *STAT_COLUMNS, "accepted", "reason", "outlier"]
+RAW_COLUMNS = ["lake", "aoi", "scene_id", "sensor", "time", "date", *STAT_COLUMNS, "reason"]
+OBS_COLUMNS = [*RAW_COLUMNS[:-1], "accepted", "reason", "outlier"]
 OBS_UNITS = {
     "median": "mg m-3",
     "mean": "mg m-3",
@@ -53,7 +66,7 @@ _DESCRIPTIONS = {
 }
 
 
-def extract_observations(
+def scene_statistics(
     scenes: pd.DataFrame,
     reader: SceneReader,
     *,
@@ -65,12 +78,10 @@ def extract_observations(
     bad_quality_bits: Sequence[int] | None = None,
     progress: Progress | None = None,
 ) -> pd.DataFrame:
-    """One row per AOI and scene with statistics, acceptance and outlier flags (``OBS_COLUMNS``).
+    """Raw rows (``RAW_COLUMNS``): one per AOI and scene with the statistics, before any screening.
 
-    ``shore_buffer_m`` overrides every sensor's buffer (metres); sensors without a config use one
-    pixel of the scene. ``bad_quality_bits`` overrides every sensor's bad quality bits (and values);
-    sensors without a config and no override count any non-zero flag as bad. Unreadable scenes and
-    skipped AOIs are rows with ``reason`` set.
+    ``reason`` holds only read failures (unreadable scene, item rejected by the catalogue, AOI not read);
+    acceptance is :func:`screen_observations`. Options as in :func:`extract_observations`.
     """
     sensors = dict(sensors or {})
     options = options or TargetOptions()
@@ -99,21 +110,75 @@ def extract_observations(
                 rows.append(base | stats | {"aoi": aoi, "reason": ""})
             else:
                 rows.append(base | empty | {"aoi": aoi, "reason": win.skipped.get(aoi, "AOI not read")})
-    obs = pd.DataFrame(rows)
-    if obs.empty:
+    obs = pd.DataFrame(rows, columns=[c for c in RAW_COLUMNS if c not in ("lake", "date")])
+    return _normalised(obs.assign(lake=lake), timezone)
+
+
+def _normalised(raw: pd.DataFrame, timezone: str) -> pd.DataFrame:
+    """Raw rows with the canonical dtypes, local ``date`` from ``time``, sorted by AOI, time and scene."""
+    raw = raw.copy()
+    raw["time"] = pd.to_datetime(raw["time"], utc=True).astype("datetime64[ns, UTC]")
+    raw["date"] = raw["time"].dt.tz_convert(timezone).dt.date
+    raw["n_valid"] = raw["n_valid"].fillna(0).astype("int64")
+    for c in STAT_COLUMNS:
+        if c != "n_valid":
+            raw[c] = raw[c].astype("float64")
+    raw["reason"] = raw["reason"].fillna("").astype(str)
+    raw = raw[RAW_COLUMNS].sort_values(["aoi", "time", "scene_id"], kind="stable")
+    return raw.reset_index(drop=True)
+
+
+def screen_observations(raw: pd.DataFrame, *, options: TargetOptions | None = None) -> pd.DataFrame:
+    """Acceptance and per-sensor outlier flags of raw rows (:func:`scene_statistics`): ``OBS_COLUMNS``.
+
+    Works on the whole record at once (the outlier window looks at neighbours in time); the rows come
+    back sorted by AOI, time and scene id.
+    """
+    options = options or TargetOptions()
+    if raw.empty:
         return pd.DataFrame(columns=OBS_COLUMNS)
-    obs["time"] = pd.to_datetime(obs["time"], utc=True)
-    obs["date"] = obs["time"].dt.tz_convert(timezone).dt.date
-    obs["lake"] = lake
     obs = accept(
-        obs,
+        raw.sort_values(["aoi", "time", "scene_id"], kind="stable").reset_index(drop=True),
         min_valid_fraction=options.min_valid_fraction,
         min_valid_pixels=options.min_valid_pixels,
         max_cv=options.max_cv,
     )
     obs["outlier"] = flag_outliers(obs, window_days=options.outlier_window_days, threshold=options.outlier_threshold)
-    obs["n_valid"] = obs["n_valid"].astype("int64")
-    return obs[OBS_COLUMNS].sort_values(["aoi", "time", "scene_id"]).reset_index(drop=True)
+    return obs[OBS_COLUMNS]
+
+
+def extract_observations(
+    scenes: pd.DataFrame,
+    reader: SceneReader,
+    *,
+    lake: str,
+    timezone: str = "UTC",
+    sensors: Mapping[str, SensorConfig] | None = None,
+    options: TargetOptions | None = None,
+    shore_buffer_m: float | None = None,
+    bad_quality_bits: Sequence[int] | None = None,
+    progress: Progress | None = None,
+) -> pd.DataFrame:
+    """One row per AOI and scene with statistics, acceptance and outlier flags (``OBS_COLUMNS``).
+
+    ``shore_buffer_m`` overrides every sensor's buffer (metres); sensors without a config use one
+    pixel of the scene. ``bad_quality_bits`` overrides every sensor's bad quality bits (and values);
+    sensors without a config and no override count any non-zero flag as bad. Unreadable scenes and
+    skipped AOIs are rows with ``reason`` set. The same as :func:`screen_observations` of
+    :func:`scene_statistics`.
+    """
+    raw = scene_statistics(
+        scenes,
+        reader,
+        lake=lake,
+        timezone=timezone,
+        sensors=sensors,
+        options=options,
+        shore_buffer_m=shore_buffer_m,
+        bad_quality_bits=bad_quality_bits,
+        progress=progress,
+    )
+    return screen_observations(raw, options=options)
 
 
 def daily_target(
@@ -198,16 +263,55 @@ def cross_sensor_outliers(obs: pd.DataFrame, fits: pd.DataFrame, *, options: Tar
     return flags
 
 
-def _input_files(scenes: pd.DataFrame, lake: LakeConfig) -> dict[str, str]:
+def _input_files(scenes: pd.DataFrame, lake: LakeConfig, *, known: Mapping[str, str] | None = None) -> dict[str, str]:
     """Content hashes of the catalogue and item JSONs, every local raster asset of the listed scenes
-    and the AOI/lake layers (the rasters too: a re-processed GeoTIFF under the same item changes them)."""
+    and the AOI/lake layers (the rasters too: a re-processed GeoTIFF under the same item changes them).
+    ``known``: hashes already recorded for unchanged files ({absolute path: sha256}), not hashed again."""
+    known = dict(known or {})
     hrefs = scenes[["value_href", "quality_href", "uncertainty_href"]].to_numpy().ravel()
     rasters = [Path(h) for h in pd.unique(hrefs[pd.notna(hrefs)]) if "://" not in str(h) and Path(h).is_file()]
-    return input_hashes([*scenes.attrs.get("source_files", []), *rasters, *layer_paths(lake.lake, lake.aois)])
+    files = [*scenes.attrs.get("source_files", []), *rasters, *layer_paths(lake.lake, lake.aois)]
+    todo = [f for f in files if str(Path(f).absolute()) not in known]
+    return dict(sorted((known | input_hashes(todo)).items()))
 
 
-def build_target(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+def _plan(
+    project: Project, store: Store, scenes: pd.DataFrame, aoi_ids: list[str], since: object
+) -> _target_refresh.RefreshPlan:
+    """What a build from ``since`` can reuse of the stored ``target_obs`` (see :mod:`._target_refresh`)."""
+    lake = project.lake
+    entry = store.entry("target_obs", lake.id) if store.has_table("target_obs", lake.id) else None
+    stored = store.read_table("target_obs", lake.id) if entry else None
+    return _target_refresh.refresh_plan(
+        entry,
+        stored,
+        scenes,
+        since=since,
+        config_hash=config_hash(project),
+        columns=OBS_COLUMNS,
+        aoi_ids=aoi_ids,
+        layer_hashes=input_hashes(layer_paths(lake.lake, lake.aois)),
+        json_hashes=input_hashes(scenes.attrs.get("source_files", [])),
+        catalog=project.sources.scenes.catalog if project.sources.scenes else None,
+        options=lake.target,
+    )
+
+
+def build_target(
+    project: Project, store: Store, *, progress: Progress | None = None, since: str | date | None = None
+) -> StageResult:
     """Build ``target_obs``, ``target_daily`` and ``sensor_bias`` for one lake.
+
+    Parameters
+    ----------
+    since
+        First day (UTC) of the earliest new or changed scene month (``YYYY-MM-DD``); None: a full build.
+        With it, the stored per-scene statistics of the scenes before that day are reused and only the
+        scenes from that day on are read; acceptance, outlier screening, harmonisation and fusion are
+        redone on the whole record, so the tables equal a full build's. The stage falls back to a full
+        build when it cannot reuse the stored rows (no table, configuration, layers, columns or the
+        scenes before ``since`` differ: see :mod:`lakefeed.stages._target_refresh`).
+        ``StageResult.reason`` says which (e.g. ``"incremental from 2022-12-01"``).
 
     Examples
     --------
@@ -225,15 +329,20 @@ def build_target(project: Project, store: Store, *, progress: Progress | None = 
     lake_poly = read_layer(lake.lake, what="lake polygon")
     reader = SceneReader(aois, id_field=lake.aois.id_field, lake=lake_poly)
     scenes = list_scenes(source)
-    obs = extract_observations(
-        scenes,
-        reader,
-        lake=lake.id,
-        timezone=lake.timezone,
-        sensors=lake.sensors,
-        options=lake.target,
-        progress=progress,
+    plan = _target_refresh.RefreshPlan(None)
+    result.reason = "full build"
+    if since is not None:
+        plan = _plan(project, store, scenes, list(reader.aois.index), since)
+        result.reason = plan.reason if plan.reuse is not None else f"full build ({plan.reason})"
+    read = scenes if plan.reuse is None else scenes[~scenes["scene_id"].isin(set(plan.reuse["scene_id"]))]
+    raw = scene_statistics(
+        read, reader, lake=lake.id, timezone=lake.timezone, sensors=lake.sensors, options=lake.target, progress=progress
     )
+    if plan.reuse is not None and len(plan.reuse):
+        raw = _normalised(
+            pd.concat([plan.reuse.assign(lake=lake.id), raw] if len(raw) else [plan.reuse]), lake.timezone
+        )
+    obs = screen_observations(raw, options=lake.target)
     reference = lake.reference_sensor
     seen = set(obs.loc[obs["sensor"].fillna("") != "", "sensor"])
     unknown = sorted(seen - set(lake.sensors))
@@ -277,7 +386,7 @@ def build_target(project: Project, store: Store, *, progress: Progress | None = 
         c: f"chla >= threshold '{c.removeprefix('exceeds_')}'. {CAUTION}" for c in daily if c.startswith("exceeds_")
     }
     fit_meta = {"sensor_bias": fits.to_json(orient="records")}
-    prov = {"inputs": _input_files(scenes, lake), "config_hash": config_hash(project)}
+    prov = {"inputs": _input_files(scenes, lake, known=plan.known), "config_hash": config_hash(project)}
     store.write_table("target_obs", lake.id, obs, units=OBS_UNITS, descriptions=_DESCRIPTIONS, metadata=meta, **prov)
     store.write_table(
         "target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=descriptions, metadata=meta | fit_meta, **prov
