@@ -9,14 +9,13 @@ listing them; December's scenes arrive (and the catalogue lists them) before the
 
 from __future__ import annotations
 
-import json
 import re
-from pathlib import Path
 
 import pandas as pd
 import pytest
 import yaml
 from _variants import write_variants
+from scene_factory import link_scenes
 
 from lakefeed.config import load_project
 from lakefeed.flows._state import stage_since
@@ -61,24 +60,6 @@ def test_refresh_recomputes_only_the_new_month(small_sample, prefect_server, tmp
     )
 
 
-def _link_scenes(sample: Path, dest: Path, *, before: str | None = None) -> None:
-    """``dest``: links to the sample's scene item and raster files dated before ``before`` (YYYYMMDD; all when
-    None) and a catalogue listing those items."""
-    src = sample / "scenes"
-
-    def keep(name: str) -> bool:
-        return before is None or re.search(r"_(\d{8})", name).group(1) < before
-
-    for f in sorted(src.rglob("*")):
-        link = dest / f.relative_to(src)
-        if f.is_file() and f.name != "catalog.json" and keep(f.name) and not link.exists():
-            link.parent.mkdir(parents=True, exist_ok=True)
-            link.symlink_to(f)
-    cat = json.loads((src / "catalog.json").read_text())
-    cat["links"] = [x for x in cat["links"] if x["rel"] != "item" or keep(x["href"])]
-    (dest / "catalog.json").write_text(json.dumps(cat, indent=1))
-
-
 def test_target_since_follows_scene_months() -> None:
     recorded = {"target": ["target_obs", "target_daily", "sensor_bias"]}
     # the catalogue (undated) changes with every new month: the stage checks it itself
@@ -94,7 +75,7 @@ def test_refresh_reads_only_the_new_scene_month(small_sample, prefect_server, tm
     from lakefeed.flows.refresh import refresh
 
     scenes = tmp_path / "scenes"
-    _link_scenes(small_sample, scenes, before="20221201")
+    link_scenes(small_sample, scenes, before="2022-12-01")
     cfg = write_variants(small_sample, tmp_path / "config", ["birch"])
     sources = yaml.safe_load((cfg / "sources.yaml").read_text())
     sources["scenes"]["catalog"] = str(scenes / "catalog.json")
@@ -104,7 +85,7 @@ def test_refresh_reads_only_the_new_scene_month(small_sample, prefect_server, tm
     store = Store(str(tmp_path / "store"))
     before = store.read_table("target_obs", "birch")
 
-    _link_scenes(small_sample, scenes)  # December's scenes arrive
+    link_scenes(small_sample, scenes)  # December's scenes arrive
     (again,) = refresh([str(cfg)], sequential=True, stages=["target"])
     assert again["status"] == "ok" and again["changed"] == "scenes: 2022-12,all"
     assert again["mode"] == "target: incremental from 2022-12-01"

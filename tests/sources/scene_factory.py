@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -101,3 +102,22 @@ TARGET_OBS_COLUMNS = [
     "reason",
     "outlier",
 ]
+
+
+def link_scenes(sample: Path, dest: Path, *, before: str | None = None) -> None:
+    """``dest`` as a scene folder: links to the sample's item and raster files dated before ``before``
+    (YYYY-MM-DD; all when None) and a catalogue listing those items."""
+    src = sample / "scenes"
+    stop = before.replace("-", "") if before else None
+
+    def keep(name: str) -> bool:
+        return stop is None or re.search(r"_(\d{8})", name).group(1) < stop
+
+    for f in sorted(src.rglob("*")):
+        link = dest / f.relative_to(src)
+        if f.is_file() and f.name != "catalog.json" and keep(f.name) and not link.exists():
+            link.parent.mkdir(parents=True, exist_ok=True)
+            link.symlink_to(f)
+    cat = json.loads((src / "catalog.json").read_text())
+    cat["links"] = [x for x in cat["links"] if x["rel"] != "item" or keep(x["href"])]
+    (dest / "catalog.json").write_text(json.dumps(cat, indent=1))

@@ -14,6 +14,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 import yaml
+from scene_factory import link_scenes
 
 from lakefeed.config import load_project
 from lakefeed.sources.scenes import SceneReader
@@ -25,25 +26,6 @@ pytestmark = pytest.mark.slow
 
 TABLES = ("target_obs", "target_daily", "sensor_bias")
 SINCE = "2022-12-01"
-
-
-def link_scenes(sample: Path, dest: Path, *, before: str | None = None) -> None:
-    """``dest`` as a scene folder: links to the sample's item and raster files dated before ``before``
-    (YYYY-MM-DD; all when None) and a catalogue listing those items."""
-    src = sample / "scenes"
-    stop = before.replace("-", "") if before else None
-
-    def keep(name: str) -> bool:
-        return stop is None or re.search(r"_(\d{8})", name).group(1) < stop
-
-    for f in sorted(src.rglob("*")):
-        link = dest / f.relative_to(src)
-        if f.is_file() and f.name != "catalog.json" and keep(f.name) and not link.exists():
-            link.parent.mkdir(parents=True, exist_ok=True)
-            link.symlink_to(f)
-    cat = json.loads((src / "catalog.json").read_text())
-    cat["links"] = [x for x in cat["links"] if x["rel"] != "item" or keep(x["href"])]
-    (dest / "catalog.json").write_text(json.dumps(cat, indent=1))
 
 
 def project_with(sample: Path, dest: Path, scenes: Path) -> Path:

@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from datetime import date
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -81,7 +82,9 @@ def scene_statistics(
     """Raw rows (``RAW_COLUMNS``): one per AOI and scene with the statistics, before any screening.
 
     ``reason`` holds only read failures (unreadable scene, item rejected by the catalogue, AOI not read);
-    acceptance is :func:`screen_observations`. Options as in :func:`extract_observations`.
+    acceptance is :func:`screen_observations`. ``shore_buffer_m`` overrides every sensor's buffer (metres);
+    sensors without a config use one pixel of the scene. ``bad_quality_bits`` overrides every sensor's bad
+    quality bits (and values); sensors without a config and no override count any non-zero flag as bad.
     """
     sensors = dict(sensors or {})
     options = options or TargetOptions()
@@ -148,37 +151,13 @@ def screen_observations(raw: pd.DataFrame, *, options: TargetOptions | None = No
 
 
 def extract_observations(
-    scenes: pd.DataFrame,
-    reader: SceneReader,
-    *,
-    lake: str,
-    timezone: str = "UTC",
-    sensors: Mapping[str, SensorConfig] | None = None,
-    options: TargetOptions | None = None,
-    shore_buffer_m: float | None = None,
-    bad_quality_bits: Sequence[int] | None = None,
-    progress: Progress | None = None,
+    scenes: pd.DataFrame, reader: SceneReader, *, options: TargetOptions | None = None, **kwargs: Any
 ) -> pd.DataFrame:
-    """One row per AOI and scene with statistics, acceptance and outlier flags (``OBS_COLUMNS``).
-
-    ``shore_buffer_m`` overrides every sensor's buffer (metres); sensors without a config use one
-    pixel of the scene. ``bad_quality_bits`` overrides every sensor's bad quality bits (and values);
-    sensors without a config and no override count any non-zero flag as bad. Unreadable scenes and
-    skipped AOIs are rows with ``reason`` set. The same as :func:`screen_observations` of
-    :func:`scene_statistics`.
-    """
-    raw = scene_statistics(
-        scenes,
-        reader,
-        lake=lake,
-        timezone=timezone,
-        sensors=sensors,
-        options=options,
-        shore_buffer_m=shore_buffer_m,
-        bad_quality_bits=bad_quality_bits,
-        progress=progress,
-    )
-    return screen_observations(raw, options=options)
+    """One row per AOI and scene with statistics, acceptance and outlier flags (``OBS_COLUMNS``):
+    :func:`screen_observations` of :func:`scene_statistics` (``lake``, ``timezone``, ``sensors``,
+    ``shore_buffer_m``, ``bad_quality_bits``, ``progress`` as there). Unreadable scenes and skipped
+    AOIs are rows with ``reason`` set."""
+    return screen_observations(scene_statistics(scenes, reader, options=options, **kwargs), options=options)
 
 
 def daily_target(
