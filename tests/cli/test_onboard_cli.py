@@ -70,3 +70,31 @@ def test_init_rejects_a_bad_id(tmp_path) -> None:
     result = CliRunner().invoke(app, ["init", "../up", "--lake", "x.gpkg", "--subbasins", "y.gpkg"])
     assert result.exit_code != 0
     assert "plain slug" in str(result.exception) + result.output
+
+
+def test_detect_fields_when_most_basins_drain_straight_to_the_lake() -> None:
+    """Few chains: most downstream values are outlet codes, not ids; the content still tells the pair."""
+    subs = _layer(BASIN=["A", "B", "C", "D", "E"], DOWN=["LAKE", "LAKE", "A", "C", "SEA"], area=[1.0, 2, 3, 4, 5])
+    assert detect_fields(subs) == ("BASIN", "DOWN")
+    only_lake = _layer(code=["A", "B", "C"], drains_to=["LAKE", "LAKE", "LAKE"])  # no chain at all: the name tells
+    assert detect_fields(only_lake) == ("code", "drains_to")
+
+
+def test_init_with_an_own_outside_code(small_sample, tmp_path) -> None:
+    """A layer whose basins leaving the area point to 'SEA': refused with the way out named, then accepted
+    with --outside-id, which the written config keeps."""
+    from lakefeed.cli._app import app as cli
+
+    subs = gpd.read_file(small_sample / "geometry" / "subbasins.gpkg")
+    subs = subs.rename(columns={"subbasin_id": "BASIN", "downstream_id": "DOWN"})
+    subs["DOWN"] = subs["DOWN"].replace({"OUTSIDE": "SEA"})
+    subs.to_file(tmp_path / "basins.gpkg")
+    args = ["init", "pond", "--lake", str(small_sample / "geometry" / "lake.gpkg"), "--subbasins",
+            str(tmp_path / "basins.gpkg"), "--sources", str(small_sample / "config" / "sources.yaml"),
+            "--out", str(tmp_path / "cfg")]  # fmt: skip
+    refused = CliRunner().invoke(cli, args)
+    assert refused.exit_code != 0
+    assert "--outside-id CODE" in " ".join((str(refused.exception) + refused.output).split())
+    done = CliRunner().invoke(cli, [*args, "--outside-id", "SEA"])
+    assert done.exit_code == 0, done.output
+    assert "SEA" in load_project(tmp_path / "cfg" / "lake-pond.yaml").lake.subbasins.outside_ids

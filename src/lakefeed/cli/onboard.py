@@ -46,8 +46,9 @@ def detect_fields(subbasins: gpd.GeoDataFrame) -> tuple[str, str]:
     """The (id field, downstream-id field) pair of a sub-basin layer, when only one pair fits.
 
     The id field has unique non-empty values; the downstream field is another field whose values are
-    mostly ids of that field (the rest mark the lake or the outside). Raises :class:`GeometryError` with the
-    candidates when none or several pairs fit.
+    mostly ids of that field, or else a few distinct codes (the lake, the outside) besides some ids or
+    under a name that says downstream (``DOWN``, ``to_basin``, ``next``, ``outlet``...). Raises
+    :class:`GeometryError` with the candidates when none or several pairs fit.
     """
     cols = [c for c in subbasins.columns if c != subbasins.geometry.name]
     as_str = {c: subbasins[c].dropna().astype(str).str.strip() for c in cols}
@@ -59,11 +60,17 @@ def detect_fields(subbasins: gpd.GeoDataFrame) -> tuple[str, str]:
             vals = as_str[g][as_str[g] != ""]
             if g == f or not len(vals):
                 continue
-            share = vals.isin(ids).mean()
-            if share >= 0.5 and (vals != as_str[f].reindex(vals.index)).all():
-                pairs.append((f, g))
+            inside = vals.isin(ids)
+            outlets = set(vals[~inside])  # codes for the lake and the outside: a few distinct values
+            fits = inside.mean() >= 0.5 or (len(outlets) <= 3 and (inside.any() or _says_downstream(g)))
+            if fits and (vals != as_str[f].reindex(vals.index)).all():
+                pairs.append((f, g, float(inside.mean())))
+    if len(pairs) > 1:  # prefer the pair whose downstream values are most often ids of the other field
+        best = max(share for _, _, share in pairs)
+        pairs = [p for p in pairs if p[2] == best]
+    pairs = [(f, g) for f, g, _ in pairs]
     if len(pairs) > 1:  # prefer names that say what they are
-        named = [(f, g) for f, g in pairs if "id" in f.lower() and any(k in g.lower() for k in ("down", "to", "next"))]
+        named = [(f, g) for f, g in pairs if "id" in f.lower() and _says_downstream(g)]
         pairs = named if named else pairs
     if len(pairs) != 1:
         found = ", ".join(f"{f} -> {g}" for f, g in pairs) or "none"
@@ -72,6 +79,10 @@ def detect_fields(subbasins: gpd.GeoDataFrame) -> tuple[str, str]:
             f"{cols}); pass --id-field NAME --downstream-field NAME"
         )
     return pairs[0]
+
+
+def _says_downstream(name: str) -> bool:
+    return any(k in name.lower() for k in ("down", "to", "next", "outlet", "receiv"))
 
 
 def _lake_value(subbasins: gpd.GeoDataFrame, id_field: str, downstream_field: str) -> str | None:
@@ -105,11 +116,14 @@ def init_command(
     sources: Path | None = typer.Option(None, "--sources", help="sources.yaml to use; default: a template."),
     out: Path = typer.Option(Path("config"), "--out", help="Folder for the lake YAML (and AOI layer)."),
     name: str | None = typer.Option(None, "--name", help="Display name of the lake; default from the id."),
+    outside_id: list[str] | None = typer.Option(
+        None, "--outside-id", help="Downstream code meaning 'drains out of the area' (repeatable), e.g. SEA."
+    ),
 ) -> None:
     """Write a ready lake config from a lake polygon and a sub-basin layer, run the checks, say what to review."""
     import geopandas as gpd
 
-    from lakefeed.geometry.network import trace_catchment
+    from lakefeed.geometry.network import DEFAULT_OUTSIDE_IDS, trace_catchment
     from lakefeed.sources.vectors import read_layer
 
     if not SLUG.fullmatch(lake_id):
@@ -121,7 +135,12 @@ def init_command(
         id_field, downstream_field = id_field or f, downstream_field or g
     subs = read_layer(subbasins, what="sub-basin layer", id_field=id_field)
     lake_value = _lake_value(subs, id_field, downstream_field)
-    catchment = trace_catchment(subs, lake_g, id_field=id_field, downstream_field=downstream_field, lake_id=lake_value)
+    outside_ids = list(DEFAULT_OUTSIDE_IDS) + [
+        str(v) for v in outside_id or [] if str(v).upper() not in DEFAULT_OUTSIDE_IDS
+    ]
+    catchment = trace_catchment(
+        subs, lake_g, id_field=id_field, downstream_field=downstream_field, lake_id=lake_value, outside_ids=outside_ids
+    )
     area_km2 = catchment.area_km2
     out.mkdir(parents=True, exist_ok=True)
     review: list[str] = []
@@ -160,6 +179,8 @@ def init_command(
     ]
     if lake_value:
         lines.append(f"  lake_id: {lake_value}")
+    if outside_id:
+        lines.append(f"  outside_ids: [{', '.join(repr(v) for v in outside_ids if v)}]")
     lines += [
         "# sensors: add your satellite sensors, e.g.",
         "#   sensor_a: {pixel_size_m: 20, reference: true, bad_quality_bits: [0, 1]}",

@@ -340,8 +340,9 @@ def trace_catchment(
         pairs = [f"{a} -> {b}" for a, b in zip(dangling["id"], dangling["down"], strict=True)]
         raise GeometryError(
             f"{where}: dangling downstream ids in {downstream_field!r} (neither a sub-basin, the lake "
-            f"{lake_node!r}, nor an outside marker {sorted(outside - {''})}): {pairs}; fix the ids or add the "
-            "missing sub-basins"
+            f"{lake_node!r}, nor an outside marker {sorted(outside - {''})}): {pairs}; fix the ids, add the "
+            "missing sub-basins, or declare the code as draining out of the area (subbasins.outside_ids in the "
+            "lake config; `lakefeed init --outside-id CODE`)"
         )
     unlisted = sorted(set(terminal.loc[terminal["down"] == lake_node, "id"]) - set(direct))
     if unlisted:
