@@ -48,7 +48,7 @@ STAGE_INPUTS: dict[str, tuple[str, ...]] = {
 }
 
 #: Stages that can process only the changed months of one source kind (their ``since`` argument).
-INCREMENTAL: dict[str, str] = {"weather": "weather", "target": "scenes"}
+INCREMENTAL: dict[str, str] = {"weather": "weather", "target": "scenes", "forecast": "forecast"}
 
 #: Source kinds whose undated file (the scene catalogue, listing the items) changes with every new month: the
 #: stage checks such a change against its stored input hashes itself, so with dated changes it is no full build.

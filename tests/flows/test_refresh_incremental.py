@@ -100,3 +100,35 @@ def test_refresh_reads_only_the_new_scene_month(small_sample, prefect_server, tm
         pd.testing.assert_frame_equal(
             store.read_table(table, "birch"), reference.read_table(table, "birch"), check_exact=True
         )
+
+
+def test_refresh_reads_only_the_new_forecast_month(small_sample, prefect_server, tmp_path) -> None:
+    from lakefeed.flows.refresh import refresh
+    from lakefeed.stages.forecast import build_forecast
+
+    folder = tmp_path / "forecast"
+    folder.mkdir()
+    files = sorted((small_sample / "forecast").glob("forecast_*.nc"))
+    for f in files[:-1]:
+        (folder / f.name).symlink_to(f)
+    cfg = write_variants(small_sample, tmp_path / "config", ["cedar"])
+    sources = yaml.safe_load((cfg / "sources.yaml").read_text())
+    sources["forecast"]["paths"] = [str(folder / "forecast_*.nc")]
+    (cfg / "sources.yaml").write_text(yaml.safe_dump(sources))
+    (first,) = refresh([str(cfg)], sequential=True, stages=["weather", "forecast"])
+    assert first["status"] == "ok" and first["mode"] == "weather: full build; forecast: full build (no stored table)"
+
+    (folder / files[-1].name).symlink_to(files[-1])  # the new forecast month arrives
+    (again,) = refresh([str(cfg)], sequential=True, stages=["weather", "forecast"])
+    assert again["status"] == "ok" and again["changed"] == "forecast: 2022-12"
+    assert again["mode"] == "forecast: incremental from 2022-12-01"
+
+    store = Store(str(tmp_path / "store"))
+    reference = Store(str(tmp_path / "reference"))
+    project = load_project(cfg / "lake-cedar.yaml")
+    build_weather(project, reference)
+    build_forecast(project, reference)
+    for table in ("forecast_drivers_daily", "bias_adjustment", "forecast_evaluation"):
+        pd.testing.assert_frame_equal(
+            store.read_table(table, "cedar"), reference.read_table(table, "cedar"), check_exact=True
+        )

@@ -5,13 +5,15 @@ that already holds ``drivers_daily`` (the weather stage) and, for re-forecast ro
 ``target_daily``. Reads the forecast archive (:mod:`lakefeed.sources.forecasts`), builds the lake's
 zones and exact weights on the forecast grid (cached like the reanalysis'), de-accumulates, aggregates
 to zones with the reanalysis' machinery and to local days per lead, fits and applies the quantile
-mapping without look-ahead (monthly expanding refits) and writes:
+mapping without look-ahead (monthly expanding refits) and writes (a refresh reads only the new or
+changed issues and reuses the stored raw rows of the others: :mod:`lakefeed.stages._forecast_refresh`):
 
 - ``forecast_drivers_daily``: keys ``zone, issue_date, lead_days, adjustment`` (``raw`` or
   ``quantile_mapping``), then ``issue_time, date``, the ``drivers_daily`` columns, ``flags`` and
   ``fitted_through`` (last reanalysis date the adjustment's fit used);
 - ``bias_adjustment``: the quantile table fitted on the whole overlap (reused by later runs while the
-  reanalysis has not advanced and the settings are unchanged; used for forecasts issued after it);
+  reanalysis has not advanced and the settings and raw forecasts are unchanged; used for forecasts issued
+  after it);
 - ``forecast_evaluation``: the before/after table per variable and lead (out-of-sample);
 - ``features``: re-forecast rows (leads ``features.forecast_leads``) appended to the hindcast rows.
 
@@ -22,6 +24,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from datetime import date
 from pathlib import Path
 
 import numpy as np
@@ -43,7 +46,8 @@ from lakefeed.geometry.zones import build_zones, zone_latitudes
 from lakefeed.sources.forecasts import ISSUE, LEAD, ForecastArchive, open_forecasts
 from lakefeed.sources.grids import find_variable
 from lakefeed.sources.vectors import read_layer
-from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
+from lakefeed.stages._forecast_refresh import SIGNATURE, content_hash, raw_drivers, raw_signature
+from lakefeed.stages._provenance import config_hash
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.stages.weather import get_weights, hourly_drivers
 from lakefeed.store import Store
@@ -255,8 +259,9 @@ def _reforecast(
     rows["fold"] = rows["fold"].astype(np.int16)
     if "fold_kind" in hind:
         rows["fold_kind"] = opts.fold_kind
-    out = pd.concat([hind, rows[[c for c in hind.columns if c in rows] + ["forecast_days", "forecast_fraction"]]],
-                    ignore_index=True)  # fmt: skip
+    cols = [c for c in hind.columns if c in rows]
+    cols += [c for c in ("forecast_days", "forecast_fraction") if c not in cols]  # a rerun finds them in hind
+    out = pd.concat([hind, rows[cols]], ignore_index=True)
     out = out.sort_values(["aoi", "target_date", "lead_days"], kind="stable").reset_index(drop=True)
     units |= {"forecast_days": "d", "forecast_fraction": "1", "lead_days": "d"}
     return out, units
@@ -293,8 +298,20 @@ def _reforecast_folds(rows: pd.DataFrame, hind: pd.DataFrame, meta: dict, opts: 
     return np.asarray(fold, dtype=np.int16)
 
 
-def build_forecast(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+def build_forecast(
+    project: Project,
+    store: Store,
+    *,
+    progress: Progress | None = None,
+    since: str | date | None = None,
+    full: bool = False,
+) -> StageResult:
     """Build ``forecast_drivers_daily``, ``bias_adjustment``, ``forecast_evaluation`` and re-forecast ``features``.
+
+    ``since`` (first day of the earliest changed forecast month): its issues (UTC) are read again; the
+    stored raw daily drivers of earlier issues whose files' hashes equal the recorded ones are reused (with
+    nothing changed no grid is read; ``full``: read everything). The adjustment, evaluation and re-forecast
+    rows are redone over the whole record: the tables equal a full build's (:mod:`._forecast_refresh`).
 
     Examples
     --------
@@ -313,13 +330,16 @@ def build_forecast(project: Project, store: Store, *, progress: Progress | None 
     p("forecast: reading archive", 0, 5)
     archive = open_forecasts(src.paths)
     result.warnings += [f"forecast issue gap: {g}" for g in archive.issue_gaps]
-    cache = Path(store.root) / "_cache" / "weights"
-    raw, warn = daily_forecasts(archive, project, cache_dir=cache, progress=progress)
+    raw, warn, inputs, result.reason = raw_drivers(
+        project, store, archive, since=since, full=full, extract=daily_forecasts, progress=progress
+    )
     result.warnings += warn
     p("forecast: bias adjustment", 2, 5)
     reference = _reference(store, lake.id)
     stored = None
-    if store.has_table("bias_adjustment", lake.id):
+    raw_hash = content_hash(raw)
+    bias_meta = (store.entry("bias_adjustment", lake.id) or {}).get("metadata") or {}
+    if store.has_table("bias_adjustment", lake.id) and bias_meta.get("raw_hash") == raw_hash:
         stored = store.read_table("bias_adjustment", lake.id).drop(columns=["lake"], errors="ignore")
     adjusted, table, evaluation, info = adjust_forecasts(raw, reference, src, stored=stored)
     if info["unadjusted_issues"]:
@@ -328,9 +348,6 @@ def build_forecast(project: Project, store: Store, *, progress: Progress | None 
             f"min_overlap_days = {src.min_overlap_days} days of earlier overlap to fit on"
         )
     p("forecast: writing", 3, 5)
-    zone_layers = [lake.lake, lake.aois if lake.zones.aois else None]
-    zone_layers += [lake.subbasins] if lake.zones.catchment or lake.zones.subbasins else []
-    inputs = input_hashes([*archive.files, *layer_paths(*zone_layers)])
     ref_entry = store.entry("drivers_daily", lake.id) or {}
     inputs[f"drivers_daily/lake={lake.id}"] = str(ref_entry.get("content_hash", ""))  # the adjustment's reference
     prov = {"inputs": dict(sorted(inputs.items())), "config_hash": config_hash(project)}
@@ -348,7 +365,8 @@ def build_forecast(project: Project, store: Store, *, progress: Progress | None 
                       "before it (fitted_through); groups: zone x lead group x calendar month of the valid date "
                       "+- month_window, pooled over months when a group has < 20 pairs",
             "fit_options": json.dumps(fit_options(src) | {"kinds": DEFAULT_KINDS}, default=str),
-            "min_overlap_days": str(src.min_overlap_days)}  # fmt: skip
+            "min_overlap_days": str(src.min_overlap_days), "raw_hash": raw_hash,
+            SIGNATURE: raw_signature(project)}  # fmt: skip
     descr = {
         "issue_date": "the forecast's issue date: lead 1 (the first full local day after the issue time) minus 1 day",
         "lead_days": "date - issue_date (lead 1 = first full local day after the issue time)",
