@@ -7,6 +7,11 @@ zone geometry hashes, so later runs and other files on the same grid reuse them)
 grid once for every zone and variable at once, de-accumulates and converts units, and
 aggregates to the lake's local days. Writes ``drivers_daily`` (columns and units of DESIGN.md).
 
+Monthly refresh (``since``, from the flow: the first day of the earliest changed weather month):
+only the grid hours from the day before that month's first local day are read and only the local
+days from there on are recomputed and appended; older part files are left as they are (see
+:mod:`lakefeed.stages._weather_refresh` for when it falls back to a full build, and why).
+
 The helpers :func:`get_weights`, :func:`hourly_drivers`, :func:`zonal_long` and
 :func:`compute_by_time` (time chunks read in forked worker processes where that is safe; defined in
 :mod:`lakefeed.stages._pool`) are shared with the ``lakefeed zonal`` command and the benchmark.
