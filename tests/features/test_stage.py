@@ -459,3 +459,32 @@ def test_rewritten_provisional_driver_day_is_recomputed_from_the_tail(tmp_path: 
     got, want = load_features(store, "tallow"), load_features(full, "tallow")
     pd.testing.assert_frame_equal(got, want)
     assert (got["air_temperature_mean__min_1d"] > -50).all()  # no row kept the provisional value
+
+
+def test_refresh_keeps_columns_added_by_the_forecast_stage(tmp_path: Path) -> None:
+    """The forecast stage adds forecast_days/forecast_fraction to the stored table; the next features refresh
+    still appends (new hindcast rows with those columns missing) instead of rebuilding in full."""
+    import pyarrow as pa
+
+    project = _project(tmp_path, windows=[1, 5])
+    store = Store(tmp_path / "s")
+    _write(store, *_inputs(end="2022-10-31"))
+    build_features(project, store)
+    stored = load_features(store, "tallow").drop(columns="lake")
+    entry = store.entry("features", "tallow")
+    with_fc = stored.assign(forecast_days=np.nan, forecast_fraction=np.nan)  # as the forecast stage writes it
+    store.write_table("features", "tallow", with_fc, units=stored.attrs["units"], metadata=entry["metadata"],
+                      inputs=entry["inputs"], config_hash=entry["config_hash"], time_column="target_date")  # fmt: skip
+    drivers, hyd, target = _inputs(end="2022-11-30")
+    for table, frame in [("drivers_daily", drivers), ("hydrology_daily", hyd)]:
+        new = pa.Table.from_pandas(frame[frame["date"] >= "2022-11-01"], preserve_index=False)
+        store.append_arrow(table, "tallow", new, since="2022-11-01", time_column="date")
+    store.write_table("target_daily", "tallow", target, units={"chla": "mg m-3"})
+    res = build_features(project, store)
+    assert not any("columns changed" in w for w in res.warnings)
+    got = load_features(store, "tallow")
+    assert got[["forecast_days", "forecast_fraction"]].isna().all().all()
+    full = _full_copy(store, tmp_path, "full", project)
+    pd.testing.assert_frame_equal(
+        got.drop(columns=["forecast_days", "forecast_fraction"]), load_features(full, "tallow")
+    )

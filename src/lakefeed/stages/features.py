@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
+import pyarrow.parquet as pq
 
 from lakefeed.config import Project
 from lakefeed.config.lake import FeatureOptions
@@ -50,6 +51,7 @@ from lakefeed.store import Store, read_units
 __all__ = ["build_features", "feature_units", "load_drivers"]
 
 _DRIVER_TABLES = ("drivers_daily", "hydrology_daily")
+_ADDED_LATER = ("forecast_days", "forecast_fraction")  # features columns written by the forecast stage
 _TAIL_REACH = pd.Timedelta(days=62)  # driver changes reaching further back are checked by fingerprint
 _NOT_DRIVERS = {"valid_fraction", "flags", "load_method", "zone", "date", "lake"}
 KEYS = ["aoi", "target_date", "lead_days"]
@@ -212,6 +214,20 @@ def _arrow_rows(block: FeatureBlock, fold_kind: str) -> pa.Table:
     n = len(block)
     extra = {"fold": ("doy_cos", np.zeros(n, dtype=np.int16)), "fold_kind": ("fold", np.full(n, fold_kind, object))}
     return block.to_arrow(extra=extra)
+
+
+def _with_stored_extras(store: Store, lake: str, arrow: pa.Table, prev: dict | None) -> pa.Table:
+    """The rows with the columns that a later stage added to the stored table (the forecast stage's
+    ``forecast_days``/``forecast_fraction``, missing for these hindcast rows) at their stored places, so an
+    incremental refresh appends to the table instead of rewriting it."""
+    stored = list((prev or {}).get("columns") or [])
+    extra = [c for c in stored if c not in arrow.column_names and c in _ADDED_LATER]
+    if not extra or [c for c in stored if c not in extra] != arrow.column_names:
+        return arrow
+    schema = pq.read_schema(store.part_files("features", lake)[0])
+    for c in extra:
+        arrow = arrow.add_column(stored.index(c), c, pa.nulls(arrow.num_rows, schema.field(c).type))
+    return arrow
 
 
 def _input_hashes(store: Store, lake: str) -> dict[str, str]:
@@ -437,7 +453,7 @@ def build_features(
             else:
                 block = feature_block(tg, drivers, **kw)
             blocks.append(_arrow_rows(block, opts.fold_kind))
-    arrow = pa.concat_tables(blocks)
+    arrow = _with_stored_extras(store, lake.id, pa.concat_tables(blocks), prev if since is not None else None)
     if since is not None and prev.get("columns") != arrow.column_names:  # e.g. a driver table gained a column
         result.warnings.append("features: columns changed since the last build; rebuilt in full")
         return _full_again(project, store, progress, result)

@@ -49,6 +49,7 @@ from lakefeed.sources.vectors import read_layer
 from lakefeed.stages._forecast_refresh import SIGNATURE, content_hash, raw_drivers, raw_signature
 from lakefeed.stages._provenance import config_hash
 from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages._rewrite_tail import write_from_first_change
 from lakefeed.stages.weather import get_weights, hourly_drivers
 from lakefeed.store import Store
 from lakefeed.units import convert
@@ -200,10 +201,17 @@ def adjust_forecasts(
     return adj, final, evaluation.reset_index(drop=True), info
 
 
+_FORECAST_COLUMNS = {
+    "forecast_days": "re-forecast rows: window days after the issue date filled by forecasts (missing: hindcast row)",
+    "forecast_fraction": "re-forecast rows: forecast_days / longest window (missing: hindcast row)",
+}
+
+
 def _reforecast(
     project: Project, store: Store, adjusted: pd.DataFrame, result: StageResult
-) -> tuple[pd.DataFrame, dict[str, str]] | None:
-    """Features table with the re-forecast rows appended (or None when it cannot be built yet)."""
+) -> tuple[pd.DataFrame, dict[str, str], dict[str, str], pd.DataFrame] | None:
+    """Features table with the re-forecast rows appended, its units and descriptions, and the stored table
+    (or None when it cannot be built yet)."""
     from lakefeed.stages.features import load_drivers
 
     lake, opts = project.lake, project.lake.features
@@ -212,6 +220,7 @@ def _reforecast(
         return None
     existing = store.read_table("features", lake.id)
     units = dict(existing.attrs.get("units", {}))
+    descriptions = dict(existing.attrs.get("descriptions", {}))
     existing = existing.drop(columns=["lake"], errors="ignore")
     td = store.read_table("target_daily", lake.id)
     targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
@@ -264,7 +273,8 @@ def _reforecast(
     out = pd.concat([hind, rows[cols]], ignore_index=True)
     out = out.sort_values(["aoi", "target_date", "lead_days"], kind="stable").reset_index(drop=True)
     units |= {"forecast_days": "d", "forecast_fraction": "1", "lead_days": "d"}
-    return out, units
+    descriptions |= {k: v for k, v in _FORECAST_COLUMNS.items() if k in out}
+    return out, units, descriptions, existing
 
 
 def _reforecast_folds(rows: pd.DataFrame, hind: pd.DataFrame, meta: dict, opts: FeatureOptions) -> np.ndarray:
@@ -388,12 +398,10 @@ def build_forecast(
                      "forecast_evaluation": len(evaluation)}  # fmt: skip
     p("forecast: re-forecast features", 4, 5)
     feats = _reforecast(project, store, adjusted, result)
-    if feats is not None:
-        frame, funits = feats
-        entry = store.entry("features", lake.id) or {}
-        store.write_table("features", lake.id, frame, units=funits, metadata=entry.get("metadata"),
-                          inputs=entry.get("inputs"), config_hash=entry.get("config_hash"),
-                          time_column="target_date")  # fmt: skip
+    if feats is not None:  # only the rows from the first changed target date on are written
+        frame, funits, fdescr, stored = feats
+        write_from_first_change(store, "features", lake.id, stored, frame, keys=["aoi", "target_date", "lead_days"],
+                                date="target_date", units=funits, descriptions=fdescr)  # fmt: skip
         result.tables["features"] = len(frame)
     p("forecast: done", 5, 5)
     return result
