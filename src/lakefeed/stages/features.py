@@ -226,7 +226,8 @@ def _with_stored_extras(store: Store, lake: str, arrow: pa.Table, prev: dict | N
         return arrow
     schema = pq.read_schema(store.part_files("features", lake)[0])
     for c in extra:
-        arrow = arrow.add_column(stored.index(c), c, pa.nulls(arrow.num_rows, schema.field(c).type))
+        kind = schema.field(c).type if c in schema.names else pa.float64()
+        arrow = arrow.add_column(stored.index(c), c, pa.nulls(arrow.num_rows, kind))
     return arrow
 
 
