@@ -10,10 +10,8 @@ import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
 import pytest
-import rasterio
 import shapely
-from affine import Affine
-from scene_factory import TARGET_OBS_COLUMNS
+from scene_factory import TARGET_OBS_COLUMNS, write_tif
 from typer.testing import CliRunner
 
 from lakefeed.cli import app
@@ -24,20 +22,7 @@ OBS_COLUMNS = TARGET_OBS_COLUMNS
 
 
 def _tif(path: Path, data: np.ndarray, nodata: float | None) -> str:
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=data.shape[1],
-        height=data.shape[0],
-        count=1,
-        dtype=data.dtype,
-        crs="EPSG:32633",
-        transform=Affine(10.0, 0, X0, 0, -10.0, Y0),
-        nodata=nodata,
-    ) as dst:
-        dst.write(data, 1)
-    return str(path)
+    return str(write_tif(path, data, res=10.0, crs="EPSG:32633", nodata=nodata, origin=(X0, Y0)))
 
 
 def _setup(tmp: Path) -> tuple[Path, Path]:

@@ -10,9 +10,9 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 import pytest
-import rasterio
 import shapely
 from affine import Affine
+from scene_factory import write_tif
 from typer.testing import CliRunner
 
 from lakefeed.cli import app
@@ -24,22 +24,7 @@ PATTERN = r"(?P<sensor>[a-z]+)_(?P<date>\d{8})T(?P<time>\d{6})_(?P<asset>[a-z]+)
 
 
 def _tif(path: Path, data: np.ndarray, nodata: float | None, scale: float | None = None) -> Path:
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=data.shape[1],
-        height=data.shape[0],
-        count=1,
-        dtype=data.dtype,
-        crs="EPSG:32631",
-        transform=TRANSFORM,
-        nodata=nodata,
-    ) as dst:
-        dst.write(data, 1)
-        if scale is not None:
-            dst.scales = (scale,)
-    return path
+    return write_tif(path, data, res=20.0, crs="EPSG:32631", nodata=nodata, origin=(X0, Y0), scale=scale)
 
 
 def _setup(tmp: Path) -> tuple[Path, Path, dict[str, np.ndarray]]:

@@ -21,8 +21,9 @@ def write_tif(
     crs: str | None = "EPSG:32632",
     nodata: float | None = -9999.0,
     origin: tuple[float, float] = ORIGIN,
+    scale: float | None = None,
 ) -> Path:
-    """Write a single-band GeoTIFF, north-up, top-left corner at ``origin``."""
+    """Write a single-band GeoTIFF, north-up, top-left corner at ``origin`` (``scale``: its scale tag)."""
     path.parent.mkdir(parents=True, exist_ok=True)
     profile = dict(
         driver="GTiff",
@@ -37,6 +38,8 @@ def write_tif(
         profile["crs"] = crs
     with rasterio.open(path, "w", **profile) as dst:
         dst.write(data, 1)
+        if scale is not None:
+            dst.scales = (scale,)
     return path
 
 

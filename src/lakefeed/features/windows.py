@@ -259,21 +259,41 @@ def reduce_windows(
         (targets, features) float64 and bool arrays in ``plan.names`` order; ``incomplete``
         marks values set missing because the window had too many missing days.
     """
-    k_max, t, d = gathered.shape
+    _, t, d = gathered.shape
     needed = {s for ss in plan.stats.values() for s in ss}
-    want = {k - 1: w for w, k in enumerate(plan.windows)}
     n_w, n_s = len(plan.windows), len(STATISTICS)
     si = {s: i for i, s in enumerate(STATISTICS)}
     # results laid out (targets, drivers, statistics, windows): reshaped, the columns are in plan order
     res = np.empty((t, d, n_s, n_w))
+    reduce = _reduce_few if t <= _FEW_TARGETS else _reduce_by_day  # few targets (a refresh): whole-array calls
+    counts = reduce(gathered, needed, plan.windows, res)
+    ks = np.asarray(plan.windows)
+    bad = ((ks - counts) > np.floor(max_missing_fraction * ks + 1e-9)) | (counts == 0)  # (t, d, windows)
+    if "mean" in needed:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            res[:, :, si["mean"], :] = res[:, :, si["sum"], :] / counts
+    res[np.broadcast_to(bad[:, :, None, :], res.shape)] = np.nan
+    flat = plan.layout(columns)
+    values = res.reshape(t, d * n_s * n_w)
+    flags = np.broadcast_to(bad[:, :, None, :], res.shape).reshape(t, d * n_s * n_w)
+    if flat is None:
+        return values, np.ascontiguousarray(flags)
+    return values[:, flat], flags[:, flat]
+
+
+def _reduce_by_day(gathered: np.ndarray, needed: set[str], windows: Sequence[int], res: np.ndarray) -> np.ndarray:
+    """Accumulate outward from the target, one day at a time over all targets and drivers; fills ``res``
+    (targets, drivers, statistics, windows) and returns the valid-day counts (targets, drivers, windows)."""
+    k_max, t, d = gathered.shape
+    si = {s: i for i, s in enumerate(STATISTICS)}
+    want = {k - 1: w for w, k in enumerate(windows)}
+    n_w = len(windows)
     counts = np.empty((t, d, n_w), dtype=np.int32)
     count = np.zeros((t, d), dtype=np.int32)
     total = np.zeros((t, d)) if needed & {"sum", "mean"} else None
     low = np.full((t, d), np.nan) if "min" in needed else None
     high = np.full((t, d), np.nan) if "max" in needed else None
-    if t <= _FEW_TARGETS:  # few targets (a monthly refresh): a handful of whole-array calls
-        counts, res = _reduce_few(gathered, needed, plan.windows, res)
-    for j in range(k_max if t > _FEW_TARGETS else 0):
+    for j in range(k_max):
         day = gathered[j]
         ok = ~np.isnan(day)
         count += ok
@@ -292,29 +312,16 @@ def reduce_windows(
                 res[:, :, si["min"], w] = low
             if high is not None:
                 res[:, :, si["max"], w] = high
-    ks = np.asarray(plan.windows)
-    bad = ((ks - counts) > np.floor(max_missing_fraction * ks + 1e-9)) | (counts == 0)  # (t, d, windows)
-    if "mean" in needed:
-        with np.errstate(invalid="ignore", divide="ignore"):
-            res[:, :, si["mean"], :] = res[:, :, si["sum"], :] / counts
-    res[np.broadcast_to(bad[:, :, None, :], res.shape)] = np.nan
-    flat = plan.layout(columns)
-    values = res.reshape(t, d * n_s * n_w)
-    flags = np.broadcast_to(bad[:, :, None, :], res.shape).reshape(t, d * n_s * n_w)
-    if flat is None:
-        return values, np.ascontiguousarray(flags)
-    return values[:, flat], flags[:, flat]
+    return counts
 
 
 _FEW_TARGETS = 16  # measured: below this the accumulate form is faster, above it the day loop
 
 
-def _reduce_few(
-    gathered: np.ndarray, needed: set[str], windows: Sequence[int], res: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """The day loop of :func:`reduce_windows` as running reductions along the day axis (``cumsum`` and
-    ``fmin``/``fmax.accumulate`` are sequential too: identical results); fills ``res``, returns
-    (counts, res)."""
+def _reduce_few(gathered: np.ndarray, needed: set[str], windows: Sequence[int], res: np.ndarray) -> np.ndarray:
+    """:func:`_reduce_by_day` as running reductions along the day axis (``cumsum`` and
+    ``fmin``/``fmax.accumulate`` are sequential too: identical results); fills ``res``, returns the
+    valid-day counts."""
     si = {s: i for i, s in enumerate(STATISTICS)}
     at = np.asarray(windows) - 1  # the window of k days ends k - 1 days out from the nearest day
     ok = ~np.isnan(gathered)
@@ -325,7 +332,7 @@ def _reduce_few(
         res[:, :, si["min"], :] = np.moveaxis(np.fmin.accumulate(gathered, axis=0)[at], 0, -1)
     if "max" in needed:
         res[:, :, si["max"], :] = np.moveaxis(np.fmax.accumulate(gathered, axis=0)[at], 0, -1)
-    return counts, res
+    return counts
 
 
 def window_features(

@@ -221,8 +221,9 @@ def _with_stored_extras(store: Store, lake: str, arrow: pa.Table, prev: dict | N
     ``forecast_days``/``forecast_fraction``, missing for these hindcast rows) at their stored places, so an
     incremental refresh appends to the table instead of rewriting it."""
     stored = list((prev or {}).get("columns") or [])
-    extra = [c for c in stored if c not in arrow.column_names and c in _ADDED_LATER]
-    if not extra or [c for c in stored if c not in extra] != arrow.column_names:
+    names = arrow.column_names  # a new list at every access: taken once
+    extra = [c for c in _ADDED_LATER if c in stored and c not in names]
+    if not extra or [c for c in stored if c not in extra] != names:
         return arrow
     schema = pq.read_schema(store.part_files("features", lake)[0])
     for c in extra:

@@ -53,6 +53,7 @@ from lakefeed.store._parts import (
     BASE,
     _read_one,
     date_part_name,
+    folder_names,
     glob_parts,
     live_parts,
     pending_files,
@@ -228,8 +229,7 @@ class Store:
             manifest.setdefault("tables", {}).setdefault(table, {})[lake] = entry
             write_manifest(self.fs, self.path, manifest, local=self.local)
             self._remove_unlisted(part_dir, [name])
-        final = f"{part_dir}/{name}"
-        return final if self.local else self._url(final)
+        return self._located(f"{part_dir}/{name}")
 
     def append_arrow(
         self,
@@ -289,7 +289,7 @@ class Store:
                                  sort_by)  # fmt: skip
                 manifest.setdefault("tables", {}).setdefault(table, {})[lake] = new
                 write_manifest(self.fs, self.path, manifest, local=self.local)
-                return f"{part_dir}/{parts[-1]['file']}" if self.local else self._url(f"{part_dir}/{parts[-1]['file']}")
+                return self._located(f"{part_dir}/{parts[-1]['file']}")
             if after and after != [len(parts) - 1]:
                 return self._rewrite(table, lake, [(since, arrow)], **kw)
             if after:  # the last part holds spill-over rows: keep its rows before `since`, add the new ones
@@ -313,8 +313,7 @@ class Store:
             manifest.setdefault("tables", {}).setdefault(table, {})[lake] = new
             write_manifest(self.fs, self.path, manifest, local=self.local)
             self._remove_unlisted(part_dir, [p["file"] for p in parts])
-        final = f"{part_dir}/{name}"
-        return final if self.local else self._url(final)
+        return self._located(f"{part_dir}/{name}")
 
     def _rewrite(
         self, table: str, lake: str, replace: list[tuple[pd.Timestamp, pa.Table]] | None = None, **kw: Any
@@ -346,7 +345,8 @@ class Store:
     def _remove_unlisted(self, part_dir: str, keep: Sequence[str]) -> None:
         """Remove part files the manifest no longer lists (superseded parts, leftovers of a crash) and
         temporary files of writers that died mid-write (under the lock no other writer is busy here)."""
-        stale = [n for n in glob_parts(self.fs, part_dir) if n not in keep] + pending_files(self.fs, part_dir)
+        names = folder_names(self.fs, part_dir)
+        stale = [n for n in glob_parts(self.fs, part_dir, names) if n not in keep] + pending_files(names)
         for n in stale:
             try:
                 self.fs.rm(f"{part_dir}/{n}")
@@ -355,6 +355,10 @@ class Store:
 
     def _url(self, path: str) -> str:
         return self.fs.unstrip_protocol(path)
+
+    def _located(self, path: str) -> str:
+        """A written file as the caller names it: a local path, or a URL on a remote filesystem."""
+        return path if self.local else self._url(path)
 
     # -- reading ----------------------------------------------------------------------------
     def lakes(self, table: str) -> list[str]:

@@ -33,7 +33,16 @@ import pyarrow.parquet as pq
 
 from lakefeed.exceptions import StoreError
 
-__all__ = ["BASE", "date_part_name", "glob_parts", "live_parts", "pending_files", "read_parts", "write_file"]
+__all__ = [
+    "BASE",
+    "date_part_name",
+    "folder_names",
+    "glob_parts",
+    "live_parts",
+    "pending_files",
+    "read_parts",
+    "write_file",
+]
 
 BASE = "part-0.parquet"
 _RETRIES = 50
@@ -46,21 +55,22 @@ def date_part_name(since: object) -> str:
     return f"part-{pd.Timestamp(since):%Y%m%d}.parquet"
 
 
-def glob_parts(fs: Any, part_dir: str) -> list[str]:
-    """Part files present in a partition folder (sorted: base first, then by date)."""
+def folder_names(fs: Any, part_dir: str) -> list[str]:
+    """Names in a partition folder (empty when there is none)."""
     try:
-        names = [p.rstrip("/").rsplit("/", 1)[-1] for p in fs.ls(part_dir, detail=False)]
+        return [p.rstrip("/").rsplit("/", 1)[-1] for p in fs.ls(part_dir, detail=False)]
     except (FileNotFoundError, NotADirectoryError):
         return []
+
+
+def glob_parts(fs: Any, part_dir: str, names: list[str] | None = None) -> list[str]:
+    """Part files present in a partition folder (sorted: base first, then by date); ``names``: its listing."""
+    names = folder_names(fs, part_dir) if names is None else names
     return sorted(n for n in names if n.startswith("part-") and n.endswith(".parquet"))
 
 
-def pending_files(fs: Any, part_dir: str) -> list[str]:
-    """Temporary files of unfinished writes in a partition folder (``.tmp-*.pending``)."""
-    try:
-        names = [p.rstrip("/").rsplit("/", 1)[-1] for p in fs.ls(part_dir, detail=False)]
-    except (FileNotFoundError, NotADirectoryError):
-        return []
+def pending_files(names: list[str]) -> list[str]:
+    """Temporary files of unfinished writes (``.tmp-*.pending``) among a partition folder's names."""
     return sorted(n for n in names if n.startswith(".tmp-") and n.endswith(".pending"))
 
 
