@@ -16,12 +16,14 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Sequence
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from lakefeed.features.pit import FeatureBlock, feature_block
+from lakefeed.features.batch import Series, feature_block_many
+from lakefeed.features.pit import FeatureBlock
 from lakefeed.features.windows import as_dates, day_numbers
 
 __all__ = ["new_feature_block", "new_feature_rows", "prefix_digest", "refresh_feature_rows", "refresh_start"]
@@ -79,19 +81,14 @@ def new_feature_block(
     """As :func:`new_feature_rows`, as a :class:`~lakefeed.features.pit.FeatureBlock` (no pandas frame
     of the rows is built; the stage converts it to Arrow directly). ``options`` as for
     :func:`~lakefeed.features.pit.feature_block`."""
-    since = pd.Timestamp(since)
-    tcol = "target_date" if "target_date" in targets.columns else "date"
-    new_targets = targets.iloc[_on_or_after(targets[tcol], since)]
-    spill = since - pd.Timedelta(days=max(windows) + 1 + lead)
-    window_drivers = drivers.iloc[_on_or_after(drivers.index, spill)]
-    return feature_block(
-        new_targets,
-        window_drivers,
-        lead=lead,
-        windows=windows,
-        observations=targets,
-        **options,  # type: ignore[arg-type]
-    )
+    forecasts = options.pop("forecast_drivers", None)
+    one = Series(targets, drivers, lead=lead, observations=targets, forecast_drivers=forecasts, since=since)  # type: ignore[arg-type]
+    [chunk] = feature_block_many([one], windows=windows, **options)  # type: ignore[arg-type]
+    return replace(chunk.block, index=targets.index[_on_or_after(targets[_date_column(targets)], pd.Timestamp(since))])
+
+
+def _date_column(targets: pd.DataFrame) -> str:
+    return "target_date" if "target_date" in targets.columns else "date"
 
 
 def _on_or_after(dates: pd.Index | pd.Series, start: pd.Timestamp) -> slice | np.ndarray:

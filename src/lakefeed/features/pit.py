@@ -26,7 +26,7 @@ days; ``incomplete_windows`` counts them), ``no_prior_observation`` (no persiste
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import lru_cache
 from typing import Any
 
@@ -35,7 +35,7 @@ import pandas as pd
 import pyarrow as pa
 
 from lakefeed.exceptions import FeatureError
-from lakefeed.features.windows import WindowPlan, as_dates, day_numbers, gather_windows, reduce_windows, to_daily
+from lakefeed.features.windows import as_dates, day_numbers
 
 __all__ = [
     "FLAG_CODES",
@@ -45,6 +45,7 @@ __all__ = [
     "feature_block",
     "flag_strings",
     "forecast_array",
+    "last_known",
     "persistence",
 ]
 
@@ -107,7 +108,7 @@ def persistence(
     (values, dates)
         Value (NaN when none) and date (NaT when none) of the baseline observation, per row.
     """
-    vals, days = _last_known(
+    vals, days = last_known(
         observations,
         target_dates.to_numpy().astype("datetime64[D]").astype(np.int64),
         issue_dates.to_numpy().astype("datetime64[D]").astype(np.int64),
@@ -119,7 +120,7 @@ def persistence(
     return vals, np.where(found, days.astype("datetime64[D]").astype("datetime64[ns]"), np.datetime64("NaT", "ns"))
 
 
-def _last_known(
+def last_known(
     observations: pd.DataFrame,
     tdays: np.ndarray,
     idays: np.ndarray,
@@ -128,7 +129,9 @@ def _last_known(
     value: str,
     by: str | None,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """(value, day number) of the last observation on or before the issue day and before the target day."""
+    """(value, day number) of the last observation on or before the issue day and before the target day.
+
+    ``tdays``/``idays``: target and issue day numbers per row; ``groups``: the row's ``by`` label."""
     ovals = observations[value].to_numpy(dtype=float)
     keep = ~np.isnan(ovals)
     ovals = ovals[keep]
@@ -288,73 +291,11 @@ def feature_block(
     FeatureBlock
         The columns of :func:`build_feature_rows`, in the order of ``targets``.
     """
-    if lead < 0:
-        raise FeatureError(f"lead time must be >= 0 days; got {lead}")
-    tcol = "target_date" if "target_date" in targets.columns else "date"
-    if by is not None and by not in targets.columns:
-        by = None
-    tdays = day_numbers(targets[tcol])
-    tdates = tdays.astype("datetime64[D]").astype("datetime64[ns]")
-    numeric = drivers if all(dt.kind in "fiu" for dt in drivers.dtypes) else drivers.select_dtypes("number")
-    daily = to_daily(numeric)
-    columns = list(daily.columns)
-    plan = WindowPlan.build(columns, windows=windows, stats=stats)
-    k_max = max(plan.windows)
-    # features depend on the target date only: compute once per unique date
-    uniq, inv = np.unique(tdays, return_inverse=True)
-    start = daily.index[0].to_datetime64().astype("datetime64[D]").astype(np.int64) if len(daily) else 0
-    shift = 1 if include_target_day else 0
-    end = uniq - start + shift
-    gathered = gather_windows(daily.to_numpy(dtype=np.float64), end, k_max)
-    day_pos = end[None, :] - 1 - np.arange(k_max)[:, None]  # (k_max, u)
-    issue_pos = uniq - lead - start
-    after = day_pos > issue_pos[None, :]  # unknown at issue
-    used_forecast = np.zeros(len(uniq), dtype=bool)
-    if after.any():
-        gathered[after] = np.nan
-        if forecast_drivers is not None:
-            uissue = pd.DatetimeIndex((uniq - lead).astype("datetime64[D]").astype("datetime64[ns]"))
-            fc = forecast_array(forecast_drivers, columns, uissue, max(lead + shift, 1))
-            o = np.clip(day_pos - issue_pos[None, :], 0, fc.shape[1] - 1)
-            filled = fc[np.arange(len(uniq))[None, :], o]  # (k_max, u, drivers)
-            gathered = np.where(after[:, :, None], filled, gathered)
-            used_forecast = (after[:, :, None] & np.isfinite(filled)).any(axis=(0, 2))
-    values, incomplete = reduce_windows(gathered, plan, columns, max_missing_fraction=max_missing_fraction)
-    n_days = len(daily)
-    last_day = end - 1
-    outside = (last_day < 0) | (last_day >= n_days) if n_days else np.ones(len(uniq), dtype=bool)
+    from lakefeed.features.batch import Series, feature_block_many  # the engine; it builds on this module
 
-    groups = targets[by].to_numpy() if by else None
-    obs = observations if observations is not None else targets
-    idays = tdays - lead
-    p_val, p_day = _last_known(obs, tdays, idays, groups, value=value, by=by)
-    none = np.isnan(p_val)
-    sin, cos = calendar_features(tdays)
-    head: dict[str, np.ndarray] = {}
-    if by:
-        head[by] = targets[by].to_numpy()
-    head.update(
-        target_date=tdates,
-        lead_days=np.full(len(tdates), lead, dtype=np.int16),
-        issue_date=idays.astype("datetime64[D]").astype("datetime64[ns]"),
-        chla=targets[value].to_numpy(float),
-        persistence_chla=p_val,
-        persistence_age_days=np.where(none, np.nan, (tdays - p_day).astype(float)),
-        days_since_prev_obs=np.where(none, np.nan, (idays - p_day).astype(float)),
-        doy_sin=sin,
-        doy_cos=cos,
-    )
-    n_incomplete = incomplete.sum(axis=1)[inv].astype(np.int16)
-    codes = {
-        "outside_driver_record": outside[inv],
-        "incomplete_window": n_incomplete > 0,
-        "no_prior_observation": none,
-        "forecast_drivers": used_forecast[inv],
-    }
-    tail = {
-        "incomplete_windows": n_incomplete,
-        "outside_driver_record": codes["outside_driver_record"],
-        "flags": flag_strings(codes),
-    }
-    rows = values if len(uniq) == len(tdays) and (inv == np.arange(len(inv))).all() else values[inv]
-    return FeatureBlock(head=head, values=rows, names=plan.names, tail=tail, index=targets.index)
+    one = Series(targets, drivers, lead=lead, observations=observations, forecast_drivers=forecast_drivers)
+    [chunk] = feature_block_many(
+        [one], windows=windows, stats=stats, include_target_day=include_target_day,
+        max_missing_fraction=max_missing_fraction, by=by, value=value,
+    )  # fmt: skip
+    return replace(chunk.block, index=targets.index)
