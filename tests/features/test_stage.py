@@ -15,6 +15,7 @@ from lakefeed.config.lake import AoiLayer, FeatureOptions, LakeConfig, SubbasinL
 from lakefeed.config.sources import SourcesConfig
 from lakefeed.exceptions import FeatureError
 from lakefeed.features import build_feature_rows
+from lakefeed.stages._result import StageResult
 from lakefeed.stages.features import build_features
 from lakefeed.store import Store, load_features
 
@@ -144,8 +145,13 @@ def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: py
     import lakefeed.stages.features as stage
 
     calls = []
-    real = stage.new_feature_block
-    monkeypatch.setattr(stage, "new_feature_block", lambda *a, **k: calls.append(k["since"]) or real(*a, **k))
+    real = stage.feature_block_many
+
+    def spy(series, **kw):  # the refresh date every series was computed from
+        calls.append(sorted({str(s.since) for s in series}))
+        return real(series, **kw)
+
+    monkeypatch.setattr(stage, "feature_block_many", spy)
     for step, end in enumerate(["2022-11-30", "2022-12-31"]):
         _write(inc, *_inputs(end=end))  # one more month of every input
         build_features(project, inc)
@@ -161,7 +167,7 @@ def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: py
         assert (old_rows["fold_x"] == old_rows["fold_y"]).all() and len(old_rows) == len(before)
         assert set(got.loc[got["target_date"] > before["target_date"].max(), "fold"]) <= {4, -1}
     # the refresh starts the day after the last old target (the old drivers reach further) and appends one part
-    assert calls and calls[0] == old[2]["date"].max() + pd.Timedelta(days=1)
+    assert calls and calls[0] == [str(old[2]["date"].max() + pd.Timedelta(days=1))]
     assert len(inc.part_files("features", "tallow")) == 3
     # re-running with the same inputs changes no byte anywhere in the store (idempotent)
     snapshot = _files(inc)
@@ -275,7 +281,14 @@ def test_changed_old_data_triggers_full_rebuild(tmp_path: Path, monkeypatch: pyt
     _write(store, drivers, hyd, target)
     import lakefeed.stages.features as stage
 
-    monkeypatch.setattr(stage, "new_feature_block", lambda *a, **k: pytest.fail("must rebuild in full"))
+    real = stage.feature_block_many
+
+    def spy(series, **kw):
+        if any(s.since is not None for s in series):
+            pytest.fail("must rebuild in full")
+        return real(series, **kw)
+
+    monkeypatch.setattr(stage, "feature_block_many", spy)
     build_features(project, store)
 
 
@@ -417,6 +430,17 @@ def test_cli_features_and_query(tmp_path: Path) -> None:
     assert lines[0] == "aoi,n" and lines[1].startswith("intake,")
     t = runner.invoke(app, ["query", "SELECT count(*) AS n FROM diagnostics", "--store", str(tmp_path / "store")])
     assert t.exit_code == 0 and "2" in t.output
+    # two lakes of one store, one with a driver no table provides: that one is reported, the other written
+    _write_lake(Store(tmp_path / "store"), "rowan", "2022-12-31", seed=3)
+    cfg = yaml.safe_load((tmp_path / "lake-tallow.yaml").read_text())
+    cfg |= {"id": "rowan", "name": "Rowan Pond", "features": {"windows": [3], "drivers": {"snow_depth": ["mean"]}}}
+    (tmp_path / "lake-rowan.yaml").write_text(yaml.safe_dump(cfg))
+    out = runner.invoke(
+        app, ["features", str(tmp_path / "lake-rowan.yaml"), str(tmp_path / "lake-tallow.yaml"), "--full"]
+    )
+    assert out.exit_code == 1
+    assert "rowan: features failed" in out.output and "snow_depth" in out.output
+    assert "tallow: features" in out.output and "failed for 1 lake(s): rowan" in out.output
 
 
 def test_rewritten_provisional_driver_day_is_recomputed_from_the_tail(tmp_path: Path) -> None:
@@ -488,3 +512,94 @@ def test_refresh_keeps_columns_added_by_the_forecast_stage(tmp_path: Path) -> No
     pd.testing.assert_frame_equal(
         got.drop(columns=["forecast_days", "forecast_fraction"]), load_features(full, "tallow")
     )
+
+
+# --- many lakes in one pass ------------------------------------------------------------------------------
+
+
+def _lake(tmp_path: Path, lake: str, **features: object) -> Project:
+    p = _project(tmp_path, **features)
+    return Project(lake=p.lake.model_copy(update={"id": lake}), sources=p.sources, lake_file=p.lake_file,
+                   sources_file=p.sources_file)  # fmt: skip
+
+
+def _write_lake(store: Store, lake: str, end: str, seed: int, marker: float | None = None) -> None:
+    drivers, hyd, target = _inputs(end=end, seed=seed)
+    if marker is not None:
+        target.loc[0, "chla"] = marker
+    store.write_table("drivers_daily", lake, drivers, units=DRIVER_UNITS)
+    store.write_table("hydrology_daily", lake, hyd, units={"inflow_discharge": "m3 s-1", "tp_load": "kg d-1"})
+    store.write_table("target_daily", lake, target, units={"chla": "mg m-3"})
+
+
+def _three_lakes(tmp_path: Path) -> list[Project]:
+    same = dict(leads=[0, 3], windows=[1, 5, 30], embargo_days=10)
+    return [_lake(tmp_path, "alder", **same), _lake(tmp_path, "birch", **same),
+            _lake(tmp_path, "cedar", windows=[1, 7], fold_kind="random")]  # fmt: skip
+
+
+def test_many_lakes_in_one_pass_equal_each_lake_alone(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Lakes computed together (one pass per window plan) give the tables each lake gets on its own, for the
+    first build and for a monthly refresh (incremental, appended)."""
+    import lakefeed.stages.features as stage
+    from lakefeed.stages.features import build_features_many
+
+    projects = _three_lakes(tmp_path)
+    together, alone = Store(tmp_path / "together"), Store(tmp_path / "alone")
+    passes: list[tuple[list[str], int]] = []
+    real = stage.feature_block_many
+
+    def spy(series, **kw):
+        passes.append((sorted({str(s.since) for s in series}), len(series)))
+        return real(series, **kw)
+
+    monkeypatch.setattr(stage, "feature_block_many", spy)
+    for end in ["2022-10-31", "2022-11-30"]:
+        for i, p in enumerate(projects):
+            for store in (together, alone):
+                _write_lake(store, p.id, end, seed=i)
+        passes.clear()
+        results = build_features_many(projects, together)
+        # alder and birch share the window plan: one pass of their 2 x 2 (driver frame, lead) series; cedar alone
+        assert sorted(n for _, n in passes) == [1, 4]
+        assert all((s == ["None"]) == (end == "2022-10-31") for s, _ in passes)  # the refresh is incremental
+        for p in projects:
+            assert isinstance(results[p.id], StageResult) and not results[p.id].skipped
+            build_features(p, alone)
+            pd.testing.assert_frame_equal(load_features(together, p.id), load_features(alone, p.id))
+            pd.testing.assert_frame_equal(
+                together.read_table("diagnostics", p.id), alone.read_table("diagnostics", p.id)
+            )
+    assert len(together.part_files("features", "alder")) == len(alone.part_files("features", "alder")) > 1
+
+
+def test_a_failing_lake_does_not_stop_the_others(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    import lakefeed.stages.features as stage
+    from lakefeed.stages.features import build_features_many
+
+    projects = _three_lakes(tmp_path)
+    store = Store(tmp_path / "s")
+    for i, p in enumerate(projects):
+        _write_lake(store, p.id, "2022-10-31", seed=i, marker=9999.0 if p.id == "birch" else None)
+    real = stage.feature_block_many
+
+    def fails_for_birch(series, **kw):  # a fault inside the shared pass, caused by one lake's rows
+        if any(s.targets["chla"].max() > 9000 for s in series):
+            raise FeatureError("synthetic fault")
+        return real(series, **kw)
+
+    monkeypatch.setattr(stage, "feature_block_many", fails_for_birch)
+    results = build_features_many(projects, store)
+    assert isinstance(results["birch"], FeatureError) and not store.has_table("features", "birch")
+    for lake in ("alder", "cedar"):  # alder shared birch's pass: recomputed on its own
+        assert isinstance(results[lake], StageResult) and store.has_table("features", lake)
+    # a lake whose configuration names a driver no table provides fails while reading, alone
+    bad = _lake(tmp_path, "birch", drivers={"snow_depth": ["mean"]})
+    monkeypatch.setattr(stage, "feature_block_many", real)
+    results = build_features_many([projects[0], bad], store)
+    assert isinstance(results["birch"], FeatureError) and "snow_depth" in str(results["birch"])
+    assert isinstance(results["alder"], StageResult)
+    with pytest.raises(FeatureError, match="snow_depth"):
+        build_features_many([bad], store, isolate=False)
+    with pytest.raises(FeatureError, match="more than once"):
+        build_features_many([projects[0], projects[0]], store)

@@ -1,11 +1,13 @@
 """`lakefeed features CONFIG... [--store DIR] [--full | --rebuild] [--compact]`: build feature tables and
 print the sampling diagnostics.
 
-Parses arguments, loads the lake configurations and calls :func:`lakefeed.stages.features.build_features`
-for each lake (incremental by default: only new dates are computed and appended as one part file;
-``--full`` recomputes every row keeping the frozen cross-validation folds; ``--rebuild`` also
-re-balances the fold blocks over all dates; ``--compact`` merges the table's part files into one);
-prints the diagnostics as a rich table. Holds no science.
+Parses arguments, loads the lake configurations and calls
+:func:`lakefeed.stages.features.build_features_many` for the lakes of each store: their rows are computed
+together, each lake is read and written on its own, and a lake that fails is reported while the others
+are written (the exit code is then 1). Incremental by default: only new dates are computed and appended
+as one part file; ``--full`` recomputes every row keeping the frozen cross-validation folds;
+``--rebuild`` also re-balances the fold blocks over all dates; ``--compact`` merges the table's part
+files into one. Prints the diagnostics as a rich table. Holds no science.
 """
 
 from __future__ import annotations
@@ -78,22 +80,37 @@ def features(
 ) -> None:
     """Build point-in-time feature tables, folds and sampling diagnostics; print the diagnostics."""
     from lakefeed.config import load_projects
-    from lakefeed.stages.features import build_features
+    from lakefeed.stages.features import build_features_many
 
     projects = load_projects(list(configs))
-    for project in projects:
+    stores: dict[str, tuple[Store, list[Project]]] = {}
+    for project in projects:  # lakes of one store are computed together
         st = store_for(project, store)
-        result = build_features(project, st, full=full, rebalance_folds=rebuild)
-        if compact and st.has_table("features", project.id):
-            st.compact("features", project.id)
-        if result.skipped:
-            console.print(f"[yellow]{project.id}: features skipped[/]: {result.reason}")
-            continue
+        stores.setdefault(st.url, (st, []))[1].append(project)
+    failed = []
+    for st, group in stores.values():
+        results = build_features_many(group, st, full=full, rebalance_folds=rebuild)
+        for project in group:
+            result = results[project.id]
+            if isinstance(result, Exception):
+                failed.append(project.id)
+                console.print(f"[red]{project.id}: features failed[/]: {result}", highlight=False)
+                continue
+            if compact and st.has_table("features", project.id):
+                st.compact("features", project.id)
+            if result.skipped:
+                console.print(f"[yellow]{project.id}: features skipped[/]: {result.reason}")
+                continue
+            console.print(
+                f"{project.id}: features {result.tables.get('features', 0)} rows, "
+                f"diagnostics {result.tables.get('diagnostics', 0)} rows -> {st.url}"
+            )
+            diag = st.read_table("diagnostics", project.id)
+            console.print(diagnostics_table(diag, title=f"Sampling diagnostics: {project.lake.name}"))
+            for w in result.warnings:
+                console.print(f"[yellow]warning:[/] {w}", highlight=False)
+    if failed:
         console.print(
-            f"{project.id}: features {result.tables.get('features', 0)} rows, "
-            f"diagnostics {result.tables.get('diagnostics', 0)} rows -> {st.url}"
+            f"[red]features failed for {len(failed)} lake(s): {', '.join(failed)}[/] (the others are written)"
         )
-        diag = st.read_table("diagnostics", project.id)
-        console.print(diagnostics_table(diag, title=f"Sampling diagnostics: {project.lake.name}"))
-        for w in result.warnings:
-            console.print(f"[yellow]warning:[/] {w}", highlight=False)
+        raise typer.Exit(1)

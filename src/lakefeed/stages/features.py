@@ -23,7 +23,8 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -42,13 +43,14 @@ from lakefeed.features import (
     refresh_start,
     sampling_diagnostics,
 )
-from lakefeed.features.incremental import new_feature_block, prefix_digest
-from lakefeed.features.pit import FeatureBlock, feature_block
+from lakefeed.features.batch import Series, feature_block_many
+from lakefeed.features.incremental import prefix_digest
+from lakefeed.features.pit import FeatureBlock
 from lakefeed.features.windows import as_dates
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store, read_units
 
-__all__ = ["build_features", "feature_units", "load_drivers"]
+__all__ = ["build_features", "build_features_many", "feature_units", "load_drivers"]
 
 _DRIVER_TABLES = ("drivers_daily", "hydrology_daily")
 _ADDED_LATER = ("forecast_days", "forecast_fraction")  # features columns written by the forecast stage
@@ -209,10 +211,10 @@ def _unchanged_before(
     return start
 
 
-def _arrow_rows(block: FeatureBlock, fold_kind: str) -> pa.Table:
-    """A feature block as Arrow, with ``fold`` (assigned later) and ``fold_kind`` after ``doy_cos``."""
+def _arrow_rows(block: FeatureBlock, fold_kinds: np.ndarray) -> pa.Table:
+    """A feature block as Arrow, with ``fold`` (assigned later) and ``fold_kind`` (per row) after ``doy_cos``."""
     n = len(block)
-    extra = {"fold": ("doy_cos", np.zeros(n, dtype=np.int16)), "fold_kind": ("fold", np.full(n, fold_kind, object))}
+    extra = {"fold": ("doy_cos", np.zeros(n, dtype=np.int16)), "fold_kind": ("fold", fold_kinds)}
     return block.to_arrow(extra=extra)
 
 
@@ -345,33 +347,53 @@ def _refresh_plan(
     return "check", since, old
 
 
-def build_features(
-    project: Project,
-    store: Store,
-    *,
-    progress: Progress | None = None,
-    full: bool = False,
-    rebalance_folds: bool = False,
-) -> StageResult:
-    """Build ``features`` and ``diagnostics`` for one lake from the store's driver and target tables.
+@dataclass(eq=False)
+class _Job:
+    """One lake's build between reading its inputs and writing its tables."""
 
-    Incremental when possible: with the same configuration and unchanged old inputs, only rows from
-    the first new date on are recomputed and appended (one part file; the stored rows are not read).
-    When the driver tables only gained part files of later dates since the last build (an appended
-    month), only their last days (the longest window and lead before the first new date) are read;
-    otherwise all driver rows are read and their fingerprint is compared with the last build's.
-    ``full=True`` recomputes every row (keeping the frozen fold boundaries); ``rebalance_folds=True``
-    also re-derives the fold boundaries from all target dates (a fresh start). The table read back
-    equals a full rebuild's.
+    project: Project
+    result: StageResult
+    progress: Progress
+    mode: str  # "tail", "check" or "full" (see _refresh_plan)
+    since: pd.Timestamp | None  # first recomputed target date; None: every row
+    prev: dict | None
+    frames: dict[str | None, pd.DataFrame]
+    columns: list[str]
+    driver_units: dict[str, str]
+    read: list[str]
+    targets: pd.DataFrame
+    plan: WindowPlan
+    record: tuple[pd.Timestamp | None, pd.Timestamp | None]
+    through: tuple[pd.Timestamp, pd.Timestamp]
+    bounds: dict[str, list[list[str]]]
+    inputs: dict[str, str]
+    options_hash: str
+    config_hash: str
 
-    Examples
-    --------
-    >>> from lakefeed.config import load_project
-    >>> build_features(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
-    """
+    def series(self) -> list[Series]:
+        """The lake's series: per driver frame (all AOIs, or each AOI's own zone) and lead."""
+        out = []
+        for key, drivers in self.frames.items():
+            tg = self.targets if key is None else self.targets[self.targets["aoi"] == key]
+            out += [Series(tg, drivers, lead=h, since=self.since) for h in self.project.lake.features.leads]
+        return out
+
+    def batch_key(self) -> tuple:
+        """Lakes computed in one pass share the window plan and the window options."""
+        o = self.project.lake.features
+        return (id(self.plan), tuple(self.columns), o.include_target_day, o.max_missing_fraction)
+
+    def drivers_digest(self, day: object) -> str:
+        """Fingerprint of the drivers up to ``day``; unknown (empty) when only the tail was read: the next
+        check then rebuilds instead of trusting it."""
+        return "" if self.mode == "tail" else _drivers_digest(self.frames, day)
+
+
+def _prepare(
+    project: Project, store: Store, *, progress: Progress, full: bool, rebalance_folds: bool
+) -> _Job | StageResult:
+    """Read what the lake's build needs and decide how to refresh; a result when there is nothing to compute."""
     lake, opts = project.lake, project.lake.features
-    progress = progress or no_progress
-    full = full or rebalance_folds
     result = StageResult(stage="features", lake=lake.id)
     if not store.has_table("target_daily", lake.id):
         if opts.drivers:
@@ -434,43 +456,38 @@ def build_features(
     if mode == "tail":
         record = (pd.Timestamp(md["drivers_first"]), record[1])
     through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
-
-    def drivers_digest(day: object) -> str:  # unknown when only the tail was read: the next check rebuilds
-        return "" if mode == "tail" else _drivers_digest(frames, day)
-
     frozen = {}
     if prev and not rebalance_folds and md.get("fold_options") == _fold_options(opts):
         frozen = json.loads(md.get("fold_boundaries") or "{}")
-    bounds = _boundaries(targets, opts, frozen)
+    return _Job(
+        project=project, result=result, progress=progress, mode=mode, since=since, prev=prev, frames=frames,
+        columns=columns, driver_units=driver_units, read=read, targets=targets, plan=plan, record=record,
+        through=through, bounds=_boundaries(targets, opts, frozen), inputs=inputs, options_hash=options_hash,
+        config_hash=cfg,
+    )  # fmt: skip
 
-    progress("features: computing", 1, 3)
-    blocks = []
-    for key, drivers in frames.items():
-        tg = targets if key is None else targets[targets["aoi"] == key]
-        for h in opts.leads:
-            kw = dict(lead=h, windows=plan.windows, stats=plan.stats, include_target_day=opts.include_target_day,
-                      max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
-            if since is not None:
-                block = new_feature_block(tg, drivers, since=since, **kw)
-            else:
-                block = feature_block(tg, drivers, **kw)
-            blocks.append(_arrow_rows(block, opts.fold_kind))
-    arrow = _with_stored_extras(store, lake.id, pa.concat_tables(blocks), prev if since is not None else None)
-    if since is not None and prev.get("columns") != arrow.column_names:  # e.g. a driver table gained a column
+
+def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
+    """Folds, diagnostics and the writes of one lake's computed rows."""
+    project, result, progress, since = job.project, job.result, job.progress, job.since
+    lake, opts = project.lake, project.lake.features
+    arrow = _with_stored_extras(store, lake.id, arrow, job.prev if since is not None else None)
+    if since is not None and job.prev.get("columns") != arrow.column_names:  # e.g. a driver table gained a column
         result.warnings.append("features: columns changed since the last build; rebuilt in full")
         return _full_again(project, store, progress, result)
-    arrow = arrow.sort_by([(k, "ascending") for k in KEYS])
+    if not _sorted_by_keys(arrow):
+        arrow = arrow.sort_by([(k, "ascending") for k in KEYS])
     arrow = arrow.set_column(
-        arrow.column_names.index("fold"), "fold", pa.array(_folds(arrow, opts, bounds), pa.int16())
+        arrow.column_names.index("fold"), "fold", pa.array(_folds(arrow, opts, job.bounds), pa.int16())
     )
     n_outside = int(pc.sum(arrow["outside_driver_record"]).as_py() or 0)
-    if n_outside and columns:
+    if n_outside and job.columns:
         where = " refreshed" if since is not None else ""
         result.warnings.append(
             f"{n_outside}{where} feature row(s) have target dates outside the driver record (kept, flagged)"
         )
 
-    diag = sampling_diagnostics(targets, by="aoi", record=record, min_observations=opts.min_observations)
+    diag = sampling_diagnostics(job.targets, by="aoi", record=job.record, min_observations=opts.min_observations)
     for _, d in diag.iterrows():
         if d["warnings"]:
             result.warnings.append(f"AOI {d['aoi']}: {d['warnings']}")
@@ -478,34 +495,209 @@ def build_features(
     progress("features: writing", 2, 3)
     units = {"chla": "mg m-3", "persistence_chla": "mg m-3", "persistence_age_days": "d", "days_since_prev_obs": "d",
              "doy_sin": "1", "doy_cos": "1", "lead_days": "d", "fold": "1", "incomplete_windows": "1"}  # fmt: skip
-    units |= feature_units(plan, driver_units)
+    units |= feature_units(job.plan, job.driver_units)
     descr = dict(_DESCRIPTIONS)
     descr["fold"] = (
         "cross-validation fold: contiguous time blocks per AOI (-1: dropped by the embargo)"
         if opts.fold_kind == "blocked"
         else "RANDOM cross-validation fold (not time-blocked: ignores autocorrelation, overstates skill)"
     )
+    through, record = job.through, job.record
     meta = {
         "drivers_through": str(pd.Timestamp(through[0]).date()),
         "targets_through": str(pd.Timestamp(through[1]).date()),
         "drivers_first": str(pd.Timestamp(record[0]).date()) if record[0] is not None else "",
-        "drivers_digest_at_through": drivers_digest(through[0]),
-        "targets_digest_at_through": _targets_digest(targets, through[1]),
+        "drivers_digest_at_through": job.drivers_digest(through[0]),
+        "targets_digest_at_through": _targets_digest(job.targets, through[1]),
         "input_parts": json.dumps(_driver_parts(store, lake.id)),
-        "options_hash": options_hash,
+        "options_hash": job.options_hash,
         "driver_zone": opts.driver_zone,
         "fold_kind": opts.fold_kind,
         "fold_options": _fold_options(opts),
-        "fold_boundaries": json.dumps(bounds, sort_keys=True),
-        "tables_read": "; ".join(["target_daily", *read]),
+        "fold_boundaries": json.dumps(job.bounds, sort_keys=True),
+        "tables_read": "; ".join(["target_daily", *job.read]),
     }
-    _write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), drivers_digest=drivers_digest,
-                targets=targets, write=dict(units=units, descriptions=descr, metadata=meta, inputs=inputs,
-                                            config_hash=cfg, time_column="target_date", sort_by=KEYS))  # fmt: skip
+    _write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), drivers_digest=job.drivers_digest,
+                targets=job.targets, write=dict(units=units, descriptions=descr, metadata=meta, inputs=job.inputs,
+                                                config_hash=job.config_hash, time_column="target_date",
+                                                sort_by=KEYS))  # fmt: skip
     dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")} | {"coverage_fraction": "1"}
     store.write_table(
-        "diagnostics", lake.id, diag, units=dunits, inputs=inputs, config_hash=cfg, time_column="first_date"
-    )
+        "diagnostics", lake.id, diag, units=dunits, inputs=job.inputs, config_hash=job.config_hash,
+        time_column="first_date",
+    )  # fmt: skip
     progress("features: done", 3, 3)
     result.tables = {"features": int((store.entry("features", lake.id) or {}).get("rows", 0)), "diagnostics": len(diag)}
     return result
+
+
+def _sorted_by_keys(arrow: pa.Table) -> bool:
+    """Whether the rows are already in (aoi, target_date, lead_days) order (one lead per AOI and date block)."""
+    if arrow.num_rows < 2:
+        return True
+    aoi = np.asarray(arrow["aoi"].to_numpy(zero_copy_only=False)).astype(str)
+    date = arrow["target_date"].to_numpy().astype(np.int64)
+    lead = arrow["lead_days"].to_numpy().astype(np.int64)
+    a0, a1 = aoi[:-1], aoi[1:]
+    same_aoi = a0 == a1
+    if (a1 < a0).any():
+        return False
+    d0, d1 = date[:-1], date[1:]
+    if (same_aoi & (d1 < d0)).any():
+        return False
+    return not (same_aoi & (d1 == d0) & (lead[1:] <= lead[:-1])).any()
+
+
+def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | BaseException], None]) -> None:
+    """Compute the rows of lakes that share a window plan in one pass, and hand each lake's rows to ``done``
+    as soon as they are complete (so only about one lake's rows are held at a time). A failure of the pass
+    computes the lakes one by one, so only the lake at fault fails."""
+    series: list[Series] = []
+    owner: list[int] = []
+    for i, job in enumerate(jobs):
+        s = job.series()
+        series += s
+        owner += [i] * len(s)
+    last = {o: k for k, o in enumerate(owner)}  # each lake's last series
+    for i, job in enumerate(jobs):
+        job.progress("features: computing", 1, 3)
+        if i not in last:  # no series (cannot happen: one driver frame at least); nothing to write
+            done(job, FeatureError(f"lake {job.project.id!r}: no feature series to compute"))
+    opts = jobs[0].project.lake.features
+    try:
+        chunks = feature_block_many(
+            series, windows=jobs[0].plan.windows, stats=jobs[0].plan.stats,
+            include_target_day=opts.include_target_day, max_missing_fraction=opts.max_missing_fraction,
+        )  # fmt: skip
+    except Exception as err:
+        if len(jobs) == 1:
+            done(jobs[0], err)
+            return
+        for job in jobs:
+            _compute([job], store, done)
+        return
+    pieces: dict[int, list[pa.Table]] = {i: [] for i in last}
+    for chunk in chunks:
+        sizes = np.diff(chunk.bounds)
+        kinds = [jobs[owner[chunk.first + k]].project.lake.features.fold_kind for k in range(len(sizes))]
+        table = _arrow_rows(chunk.block, np.repeat(np.array(kinds, dtype=object), sizes))
+        for k, n in enumerate(sizes):
+            g = chunk.first + k
+            i = owner[g]
+            pieces[i].append(table.slice(int(chunk.bounds[k]), int(n)))
+            if g == last[i]:
+                parts = pieces.pop(i)
+                done(jobs[i], parts[0] if len(parts) == 1 else pa.concat_tables(parts))
+
+
+def build_features_many(
+    projects: Sequence[Project],
+    store: Store,
+    *,
+    progress: Progress | None = None,
+    full: bool = False,
+    rebalance_folds: bool = False,
+    isolate: bool = True,
+    lakes_per_pass: int = 64,
+) -> dict[str, StageResult | Exception]:
+    """Build ``features`` and ``diagnostics`` for many lakes, computing the lakes' rows together.
+
+    Each lake is read, checked and written on its own, exactly as :func:`build_features` does; the rows
+    of lakes with the same window plan are computed in one pass (:func:`lakefeed.features.batch.
+    feature_block_many`), so a monthly refresh that adds a few rows per lake pays the fixed cost of
+    computing and converting hundreds of feature columns once per pass instead of once per lake.
+
+    Parameters
+    ----------
+    projects
+        Lake configurations (distinct lake ids), all written to ``store``.
+    progress
+        Called per lake and step; the description names the lake when there are several.
+    full, rebalance_folds
+        As for :func:`build_features`.
+    isolate
+        True: a lake that fails gets its exception as its result, the other lakes go on. False: the
+        first failure is raised (lakes finished before it keep their tables).
+    lakes_per_pass
+        Lakes read and computed together at most (bounds the memory held for a full rebuild).
+
+    Returns
+    -------
+    dict
+        Lake id -> its :class:`StageResult`, or the exception that stopped it (``isolate=True``), in
+        the order of ``projects``.
+    """
+    ids = [p.id for p in projects]
+    dup = sorted({i for i in ids if ids.count(i) > 1})
+    if dup:
+        raise FeatureError(f"lake id(s) {dup} given more than once; each lake's configuration once")
+    report = progress or no_progress
+    out: dict[str, StageResult | Exception] = {}
+
+    def lake_progress(lake: str) -> Progress:
+        if len(projects) == 1:
+            return report
+        return lambda text, done, total: report(f"{text} ({lake})", done, total)
+
+    def finished(job: _Job, rows: pa.Table | BaseException) -> None:
+        try:
+            if isinstance(rows, BaseException):
+                raise rows
+            out[job.project.id] = _finish(job, store, rows)
+        except Exception as err:
+            if not isolate:
+                raise
+            out[job.project.id] = err
+
+    for at in range(0, len(projects), max(1, lakes_per_pass)):
+        jobs: dict[tuple, list[_Job]] = {}
+        for project in projects[at : at + max(1, lakes_per_pass)]:
+            try:
+                job = _prepare(
+                    project, store, progress=lake_progress(project.id), full=full or rebalance_folds,
+                    rebalance_folds=rebalance_folds,
+                )  # fmt: skip
+            except Exception as err:
+                if not isolate:
+                    raise
+                out[project.id] = err
+                continue
+            if isinstance(job, StageResult):
+                out[project.id] = job
+            else:
+                jobs.setdefault(job.batch_key(), []).append(job)
+        for group in jobs.values():
+            _compute(group, store, finished)
+    return {i: out[i] for i in ids}
+
+
+def build_features(
+    project: Project,
+    store: Store,
+    *,
+    progress: Progress | None = None,
+    full: bool = False,
+    rebalance_folds: bool = False,
+) -> StageResult:
+    """Build ``features`` and ``diagnostics`` for one lake from the store's driver and target tables.
+
+    Incremental when possible: with the same configuration and unchanged old inputs, only rows from
+    the first new date on are recomputed and appended (one part file; the stored rows are not read).
+    When the driver tables only gained part files of later dates since the last build (an appended
+    month), only their last days (the longest window and lead before the first new date) are read;
+    otherwise all driver rows are read and their fingerprint is compared with the last build's.
+    ``full=True`` recomputes every row (keeping the frozen fold boundaries); ``rebalance_folds=True``
+    also re-derives the fold boundaries from all target dates (a fresh start). The table read back
+    equals a full rebuild's. All AOIs and leads of the lake are computed in one pass; for many lakes
+    use :func:`build_features_many`.
+
+    Examples
+    --------
+    >>> from lakefeed.config import load_project
+    >>> build_features(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
+    """
+    out = build_features_many(
+        [project], store, progress=progress, full=full, rebalance_folds=rebalance_folds, isolate=False
+    )[project.id]
+    assert isinstance(out, StageResult)  # isolate=False raises instead
+    return out
