@@ -37,6 +37,7 @@ import pandas as pd
 import pyarrow as pa
 
 from lakefeed.features import feature_name, fold_boundaries, folds_from_boundaries, window_features
+from lakefeed.features.batch import Series, feature_block_many
 from lakefeed.features.incremental import new_feature_block
 from lakefeed.features.pit import feature_block
 from lakefeed.store import Store
@@ -119,9 +120,9 @@ def _with_folds(block, bounds: list):
 
 
 def bench_refresh(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[Clock, Clock]:
-    """Compute only: the new month's rows (folds from the boundaries frozen at the previous build) vs
-    all rows (the same frozen boundaries), both as the stage stores them (Arrow); the new rows equal
-    the full rebuild's rows from the cut on."""
+    """Compute only, lake by lake: the new month's rows (folds from the boundaries frozen at the previous
+    build) vs all rows (the same frozen boundaries), both as the stage stores them (Arrow); the new rows
+    equal the full rebuild's rows from the cut on."""
     stats = {c: STATS for c in lakes[0][0].columns}
     kw = dict(lead=0, windows=WINDOWS, stats=stats, max_missing_fraction=FRAC)
     full_clock, inc_clock = Clock(), Clock()
@@ -134,6 +135,34 @@ def bench_refresh(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[Clock
         )
         tail = full.slice(int((full["target_date"].to_numpy() < cut.to_datetime64()).sum()))
         assert inc.equals(tail)
+    return full_clock, inc_clock
+
+
+def _rows_many(lakes: list[tuple[pd.DataFrame, pd.DataFrame]], cuts: list, bounds: list, *, new_only: bool) -> list:
+    """All lakes in one call as the stage computes them (:func:`feature_block_many`): one Arrow conversion
+    per chunk, then each lake's rows sliced out, with its folds."""
+    stats = {c: STATS for c in lakes[0][0].columns}
+    series = [Series(t, d, since=c if new_only else None) for (d, t), c in zip(lakes, cuts, strict=True)]
+    out = []
+    for chunk in feature_block_many(series, windows=WINDOWS, stats=stats, max_missing_fraction=FRAC):
+        arrow = chunk.block.to_arrow()
+        for i in range(len(chunk.bounds) - 1):
+            rows = arrow.slice(int(chunk.bounds[i]), int(chunk.bounds[i + 1] - chunk.bounds[i]))
+            folds = folds_from_boundaries(rows["target_date"].to_numpy(), bounds[chunk.first + i])
+            out.append(rows.append_column("fold", pa.array(folds, pa.int16())))
+    return out
+
+
+def bench_refresh_many(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[Clock, Clock]:
+    """Compute only, all lakes together (as ``build_features_many`` computes them): the monthly refresh of
+    every lake vs the full rebuild of every lake; the new rows equal the full rebuild's from the cut on."""
+    cuts = [d.index[-1] - pd.offsets.MonthBegin(1) for d, _ in lakes]
+    bounds = [fold_boundaries(t.loc[t["date"] < c, "date"], k=5) for (_, t), c in zip(lakes, cuts, strict=True)]
+    full_clock, inc_clock = Clock(), Clock()
+    full = full_clock(_rows_many, lakes, cuts, bounds, new_only=False)
+    inc = inc_clock(_rows_many, lakes, cuts, bounds, new_only=True)
+    for f, i, c in zip(full, inc, cuts, strict=True):
+        assert i.equals(f.slice(int((f["target_date"].to_numpy() < c.to_datetime64()).sum())))
     return full_clock, inc_clock
 
 
@@ -154,32 +183,51 @@ def _project(lake: str, columns: list[str], root: str):
     return Project(lake=cfg, sources=SourcesConfig(), lake_file=here / "lake.yaml", sources_file=here / "s.yaml")
 
 
-def bench_store(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[Clock, Clock, int]:
-    """Through the features stage and the store (read inputs, check, compute, write with manifest and
-    lock): the monthly refresh (incremental: one appended part) vs a full rebuild on the same inputs."""
-    from lakefeed.stages.features import build_features
+def _store_lakes(lakes: list[tuple[pd.DataFrame, pd.DataFrame]], tmp: str) -> tuple[Store, list]:
+    """Each lake's store state after last month's build, and the new month as its stages write it: the drivers
+    as one appended part file (the weather stage's monthly refresh), the targets rewritten."""
+    from lakefeed.stages.features import build_features_many
+
+    store = Store(f"{tmp}/store")
+    projects, months = [], []
+    for i, (drivers, targets) in enumerate(lakes):
+        lake = f"lake-{i:03d}"
+        projects.append(_project(lake, list(drivers.columns), tmp))
+        cut = drivers.index[-1] - pd.offsets.MonthBegin(1)
+        d = drivers.rename_axis("date").reset_index().assign(zone="lake")
+        store.write_table("drivers_daily", lake, d[d["date"] < cut], time_column="date")
+        store.write_table("target_daily", lake, targets[targets["date"] < cut])
+        months.append((lake, cut, pa.Table.from_pandas(d[d["date"] >= cut], preserve_index=False), targets))
+    build_features_many(projects, store, isolate=False)  # last month's state
+    for lake, cut, new, targets in months:
+        store.append_arrow("drivers_daily", lake, new, since=cut, time_column="date")
+        store.write_table("target_daily", lake, targets)
+    return store, projects
+
+
+def bench_store(lakes: list[tuple[pd.DataFrame, pd.DataFrame]], *, together: bool) -> tuple[Clock, Clock, int]:
+    """Through the features stage and the store (read inputs, check, compute, write with manifest): the
+    monthly refresh (incremental: one appended part per lake) vs a full rebuild of the same inputs, lake by
+    lake (``build_features``) or all lakes in one call (``build_features_many``, ``together``)."""
+    from lakefeed.stages.features import build_features, build_features_many
 
     full_clock, inc_clock = Clock(), Clock()
-    parts = 0
     with tempfile.TemporaryDirectory() as tmp:
-        store = Store(f"{tmp}/store")
-        for i, (drivers, targets) in enumerate(lakes):
-            lake = f"lake-{i:03d}"
-            project = _project(lake, list(drivers.columns), tmp)
-            cut = drivers.index[-1] - pd.offsets.MonthBegin(1)
-            d = drivers.rename_axis("date").reset_index().assign(zone="lake")
-            store.write_table("drivers_daily", lake, d[d["date"] < cut], time_column="date")
-            store.write_table("target_daily", lake, targets[targets["date"] < cut])
-            build_features(project, store)  # last month's state
-            # the new month arrives as the weather stage writes it: one appended part file
-            new = pa.Table.from_pandas(d[d["date"] >= cut], preserve_index=False)
-            store.append_arrow("drivers_daily", lake, new, since=cut, time_column="date")
-            store.write_table("target_daily", lake, targets)
-            inc_clock(build_features, project, store)
-            parts += len(store.part_files("features", lake))
-            inc = store.read_table("features", lake)
-            full_clock(build_features, project, store, full=True)
-            pd.testing.assert_frame_equal(store.read_table("features", lake), inc)
+        store, projects = _store_lakes(lakes, tmp)
+        if together:
+            inc_clock(build_features_many, projects, store, isolate=False)
+        else:
+            for p in projects:
+                inc_clock(build_features, p, store)
+        parts = sum(len(store.part_files("features", p.id)) for p in projects)
+        inc = {p.id: store.read_table("features", p.id) for p in projects}
+        if together:
+            full_clock(build_features_many, projects, store, full=True, isolate=False)
+        else:
+            for p in projects:
+                full_clock(build_features, p, store, full=True)
+        for p in projects:
+            pd.testing.assert_frame_equal(store.read_table("features", p.id), inc[p.id])
     return full_clock, inc_clock, parts
 
 
@@ -200,13 +248,19 @@ def main() -> None:
     print(f"windows  lakefeed {t_lf:8.2f} s | pandas rolling {t_pd:8.2f} s | ratio {t_pd / t_lf:5.1f}x (goal >= 5x)"
           f" | max rel. difference {worst:.1e}")  # fmt: skip
     full, inc = bench_refresh(lakes)
-    print(f"refresh  full rebuild {full.wall:8.2f} s ({full.cpu:.2f} s CPU) | monthly incremental {inc.wall:8.2f} s "
+    print(f"refresh, lake by lake  full rebuild {full.wall:7.2f} s ({full.cpu:.2f} s CPU) | monthly {inc.wall:6.2f} s "
           f"({inc.cpu:.2f} s CPU) | ratio {full.wall / inc.wall:5.1f}x wall, {full.cpu / inc.cpu:5.1f}x CPU "
-          "(compute; goal >= 10x; results identical)")  # fmt: skip
-    full, inc, parts = bench_store(lakes[: args.store_lakes])
-    print(f"stage+store ({args.store_lakes} lakes: read, check, compute, write; {parts} part files)  full rebuild "
-          f"{full.wall:8.2f} s ({full.cpu:.2f} s CPU) | monthly incremental {inc.wall:8.2f} s ({inc.cpu:.2f} s CPU) | "
-          f"ratio {full.wall / inc.wall:5.1f}x wall, {full.cpu / inc.cpu:5.1f}x CPU (results identical)")  # fmt: skip
+          "(compute; results identical)")  # fmt: skip
+    full, inc = bench_refresh_many(lakes)
+    print(f"refresh, all lakes together  full rebuild {full.wall:7.2f} s ({full.cpu:.2f} s CPU) | monthly "
+          f"{inc.wall:6.2f} s ({inc.cpu:.2f} s CPU) | ratio {full.wall / inc.wall:5.1f}x wall, "
+          f"{full.cpu / inc.cpu:5.1f}x CPU (compute, as build_features_many; goal >= 10x; results identical)")  # fmt: skip
+    for together in (False, True):
+        full, inc, parts = bench_store(lakes[: args.store_lakes], together=together)
+        how = "build_features_many" if together else "build_features per lake"
+        print(f"stage+store, {how} ({args.store_lakes} lakes: read, check, compute, write; {parts} part files) "
+              f"full rebuild {full.wall:7.2f} s ({full.cpu:.2f} s CPU) | monthly {inc.wall:6.2f} s ({inc.cpu:.2f} s "
+              f"CPU) | ratio {full.wall / inc.wall:5.1f}x wall, {full.cpu / inc.cpu:5.1f}x CPU (results identical)")  # fmt: skip
 
 
 if __name__ == "__main__":

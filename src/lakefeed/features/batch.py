@@ -74,8 +74,9 @@ class Series:
 class _Prepared:
     """One series' target rows as arrays (after the ``since`` selection)."""
 
-    rows: pd.DataFrame
-    tdays: np.ndarray
+    tdays: np.ndarray  # day numbers
+    labels: np.ndarray | None  # the ``by`` group per row
+    values: np.ndarray  # the target value per row
     segment: int
     source: int  # distinct (segment, forecast frame) pair
     observations: pd.DataFrame
@@ -133,7 +134,7 @@ def feature_block_many(
         raise FeatureError("no series to compute feature rows for")
     if by is not None and not all(by in s.targets.columns for s in series):
         by = None
-    prepared, segments, columns = _prepare(series, windows)
+    prepared, segments, columns = _prepare(series, windows, by=by, value=value)
     plan = WindowPlan.build(columns, windows=windows, stats=stats)
     per_row = max(plan.windows) * max(1, len(columns))
     chunks: list[Chunk] = []
@@ -154,18 +155,31 @@ def feature_block_many(
 
 @dataclass
 class _Segment:
-    """One driver record laid out in the shared array: values (days, drivers) and its first day number."""
+    """One driver record on a complete daily calendar, used from position ``start`` on (day number
+    ``first``); its values are laid out in the shared array of the chunk that uses it (not before: a
+    chunk's arrays stay in the caches)."""
 
-    values: np.ndarray
+    frame: pd.DataFrame
+    start: int
     first: int
 
+    @property
+    def values(self) -> np.ndarray:
+        """(days, drivers) float64 (a view when the frame holds one float block)."""
+        return self.frame.to_numpy(dtype=np.float64)[self.start :]
 
-def _prepare(series: Sequence[Series], windows: Sequence[int]) -> tuple[list[_Prepared], list[_Segment], list[str]]:
+    def __len__(self) -> int:
+        return len(self.frame) - self.start
+
+
+def _prepare(
+    series: Sequence[Series], windows: Sequence[int], *, by: str | None, value: str
+) -> tuple[list[_Prepared], list[_Segment], list[str]]:
     """Select each series' target rows, lay out each distinct driver frame once (from the earliest day
     any of its series needs), number the (drivers, forecast) sources."""
     k_max = max((int(w) for w in windows), default=1)
     earliest: dict[int, int | None] = {}
-    selected: list[tuple[pd.DataFrame, np.ndarray]] = []
+    selected: list[tuple[slice | np.ndarray, np.ndarray]] = []
     for s in series:
         if s.lead < 0:
             raise FeatureError(f"lead time must be >= 0 days; got {s.lead}")
@@ -173,26 +187,26 @@ def _prepare(series: Sequence[Series], windows: Sequence[int]) -> tuple[list[_Pr
             raise FeatureError(f"lead time {s.lead} d is too long; leads must be below {1 << _LEAD_BITS} days")
         tcol = "target_date" if "target_date" in s.targets.columns else "date"
         tdays = day_numbers(s.targets[tcol])
-        rows = s.targets
+        keep: slice | np.ndarray = slice(None)
         need: int | None = None
         if s.since is not None:
             at = int(np.datetime64(pd.Timestamp(s.since).date(), "D").astype(np.int64))
             keep = _from_day(tdays, at)
-            rows, tdays = rows.iloc[keep], tdays[keep]
+            tdays = tdays[keep]
             need = at - (k_max + 1 + s.lead)  # the spill-over: the longest window and lead before it
         key = id(s.drivers)
         if key not in earliest or earliest[key] is not None:
             earliest[key] = need if key not in earliest or need is None else min(need, earliest[key])  # type: ignore[type-var]
-        selected.append((rows, tdays))
+        selected.append((keep, tdays))
     segment_of: dict[int, int] = {}
     segments: list[_Segment] = []
     columns: list[str] | None = None
     sources: dict[tuple[int, int], int] = {}
     prepared = []
-    for s, (rows, tdays) in zip(series, selected, strict=True):
+    for s, (keep, tdays) in zip(series, selected, strict=True):
         key = id(s.drivers)
         if key not in segment_of:
-            daily, cols = _daily(s.drivers, earliest[key])
+            segment, cols = _segment(s.drivers, earliest[key])
             if columns is None:
                 columns = cols
             elif cols != columns:
@@ -200,13 +214,16 @@ def _prepare(series: Sequence[Series], windows: Sequence[int]) -> tuple[list[_Pr
                     f"series differ in driver columns ({columns[:3]}... vs {cols[:3]}...); "
                     "compute series with different drivers in separate batches"
                 )
-            first = int(daily.index[0].to_datetime64().astype("datetime64[D]").astype(np.int64)) if len(daily) else 0
             segment_of[key] = len(segments)
-            segments.append(_Segment(values=daily.to_numpy(dtype=np.float64), first=first))
+            segments.append(segment)
         seg = segment_of[key]
         src = sources.setdefault((seg, id(s.forecast_drivers) if s.forecast_drivers is not None else 0), len(sources))
         obs = s.observations if s.observations is not None else s.targets
-        prepared.append(_Prepared(rows=rows, tdays=tdays, segment=seg, source=src, observations=obs))
+        labels = s.targets[by].to_numpy()[keep] if by else None
+        prepared.append(
+            _Prepared(tdays=tdays, labels=labels, values=s.targets[value].to_numpy(dtype=float)[keep], segment=seg,
+                      source=src, observations=obs)
+        )  # fmt: skip
     if len(sources) >= 1 << (63 - _LEAD_BITS - _DAY_BITS):
         raise FeatureError(f"too many driver records in one batch ({len(sources)}); split the series")
     return prepared, segments, columns or []
@@ -219,13 +236,13 @@ def _from_day(days: np.ndarray, at: int) -> slice | np.ndarray:
     return np.flatnonzero(days >= at)
 
 
-def _daily(drivers: pd.DataFrame, earliest: int | None) -> tuple[pd.DataFrame, list[str]]:
-    """The numeric drivers from day ``earliest`` on, on a complete daily calendar."""
+def _segment(drivers: pd.DataFrame, earliest: int | None) -> tuple[_Segment, list[str]]:
+    """The numeric drivers on a complete daily calendar, used from day ``earliest`` on (None: all)."""
     numeric = drivers if all(dt.kind in "fiu" for dt in drivers.dtypes) else drivers.select_dtypes("number")
-    if earliest is not None and len(numeric):
-        numeric = numeric.iloc[_from_day(day_numbers(numeric.index), earliest)]
     daily = to_daily(numeric)
-    return daily, list(daily.columns)
+    first = int(daily.index[0].to_datetime64().astype("datetime64[D]").astype(np.int64)) if len(daily) else 0
+    start = 0 if earliest is None else min(max(earliest - first, 0), len(daily))  # a complete calendar: positions
+    return _Segment(frame=daily, start=start, first=first + start), list(daily.columns)
 
 
 def _block(
@@ -250,7 +267,7 @@ def _block(
     for g in used:  # the chunk's driver records end to end, then one all-missing row
         offset[g] = at
         pieces.append(segments[g].values)
-        at += len(segments[g].values)
+        at += len(segments[g])
     stacked = np.concatenate([*pieces, np.full((1, len(columns)), np.nan)]) if pieces else np.full((1, 0), np.nan)
     missing_row = at
     n = sum(len(p.tdays) for p in prepared)
@@ -259,7 +276,7 @@ def _block(
     seg = np.repeat(np.array([p.segment for p in prepared], dtype=np.int64), [len(p.tdays) for p in prepared])
     src = np.repeat(np.array([p.source for p in prepared], dtype=np.int64), [len(p.tdays) for p in prepared])
     first = np.array([s.first for s in segments], dtype=np.int64)
-    length = np.array([len(s.values) for s in segments], dtype=np.int64)
+    length = np.array([len(s) for s in segments], dtype=np.int64)
     end = tdays - first[seg] + shift  # exclusive end of each window, on its own record
     # features depend on (record, forecast input, end day, lead) only: computed once per distinct key
     key = (src << (_DAY_BITS + _LEAD_BITS)) | ((end + (1 << (_DAY_BITS - 1))) << _LEAD_BITS) | lead
@@ -286,12 +303,12 @@ def _block(
     sin, cos = calendar_features(tdays)
     head: dict[str, np.ndarray] = {}
     if by:
-        head[by] = _column(prepared, by, None)
+        head[by] = _joined([p.labels for p in prepared])  # type: ignore[misc]
     head.update(
         target_date=tdays.astype("datetime64[D]").astype("datetime64[ns]"),
         lead_days=lead.astype(np.int16),
         issue_date=idays.astype("datetime64[D]").astype("datetime64[ns]"),
-        chla=_column(prepared, value, float),
+        chla=_joined([p.values for p in prepared]),
         persistence_chla=p_val,
         persistence_age_days=np.where(none, np.nan, (tdays - p_day).astype(float)),
         days_since_prev_obs=np.where(none, np.nan, (idays - p_day).astype(float)),
@@ -357,8 +374,7 @@ def _forecast_used(
     return has & (after[:, :, None] & np.isfinite(gathered)).any(axis=(0, 2))
 
 
-def _column(prepared: Sequence[_Prepared], name: str, dtype: type | None) -> np.ndarray:
-    parts = [p.rows[name].to_numpy(dtype=dtype) for p in prepared]
+def _joined(parts: list[np.ndarray]) -> np.ndarray:
     return np.concatenate(parts) if len(parts) != 1 else parts[0]
 
 
@@ -368,8 +384,7 @@ def _persistence(
     """Persistence baseline per row, each series from its own observations (shared frames once)."""
     if len(prepared) == 1:
         p = prepared[0]
-        groups = p.rows[by].to_numpy() if by else None
-        return last_known(p.observations, tdays, idays, groups, value=value, by=by)
+        return last_known(p.observations, tdays, idays, p.labels, value=value, by=by)
     vals = np.full(len(tdays), np.nan)
     days = np.zeros(len(tdays), dtype=np.int64)
     at = 0
@@ -382,6 +397,6 @@ def _persistence(
         if not len(idx):
             continue
         obs = members[0][1].observations
-        groups = np.concatenate([p.rows[by].to_numpy() for _, p in members]) if by else None
+        groups = np.concatenate([p.labels for _, p in members]) if by else None  # type: ignore[misc]
         vals[idx], days[idx] = last_known(obs, tdays[idx], idays[idx], groups, value=value, by=by)
     return vals, days

@@ -142,9 +142,14 @@ def last_known(
     if by is not None:
         # groups compared as text (1 and "1" are one group); only the distinct labels are converted
         ocodes, olabels = pd.factorize(observations[by].to_numpy(dtype=object)[keep])
-        text_codes, text = pd.factorize(np.asarray(olabels, dtype=object).astype(str))
-        ogrp = text_codes[ocodes].astype(np.int64) if len(ocodes) else np.zeros(0, dtype=np.int64)
-        rgrp = pd.Index(text).get_indexer(np.asarray(groups).astype(str)).astype(np.int64)  # -1: no observations
+        code_of: dict[str, int] = {}
+        for label in olabels.tolist():
+            code_of.setdefault(str(label), len(code_of))
+        to_text = np.array([code_of[str(label)] for label in olabels.tolist()], dtype=np.int64)
+        ogrp = to_text[ocodes] if len(ocodes) else np.zeros(0, dtype=np.int64)
+        rcodes, rlabels = pd.factorize(np.asarray(groups, dtype=object))
+        rmap = np.array([code_of.get(str(label), -1) for label in rlabels.tolist()], dtype=np.int64)
+        rgrp = rmap[rcodes] if len(rcodes) else np.zeros(0, dtype=np.int64)  # -1: no observations
         okey, rkey = ogrp * span + odays, rgrp * span + cutoff
     else:
         okey, rkey = odays, cutoff
