@@ -231,15 +231,14 @@ def test_interrupted_refresh_leaves_the_previous_table(
     if crash_at == "os.replace":
         monkeypatch.setattr(parts.os, "replace", crash)
     else:
-        real = parquet.write_manifest
+        real = parquet.write_entry
 
-        def crash_on_append(fs: object, root: str, manifest: dict, **k: object) -> None:
-            entry = manifest["tables"].get("features", {}).get("tallow", {})
-            if len(entry.get("parts", [])) > 1:  # the refresh's new part is on disk, the manifest not yet switched
+        def crash_on_append(fs: object, root: str, table: str, lake: str, entry: dict, **k: object) -> None:
+            if table == "features" and len(entry.get("parts", [])) > 1:  # new part on disk, manifest not switched
                 crash()
-            real(fs, root, manifest, **k)
+            real(fs, root, table, lake, entry, **k)
 
-        monkeypatch.setattr(parquet, "write_manifest", crash_on_append)
+        monkeypatch.setattr(parquet, "write_entry", crash_on_append)
     with pytest.raises(KeyboardInterrupt):
         build_features(project, store)
     monkeypatch.undo()

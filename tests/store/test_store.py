@@ -110,7 +110,10 @@ def test_manifest_records_provenance(tmp_path: Path) -> None:
     store.write_table("features", "tallow", _frame(), inputs=[str(src)], config_hash="cfg1")
     m = json.loads((tmp_path / "s" / MANIFEST_NAME).read_text())
     assert m["schema_version"] == SCHEMA_VERSION and m["package_version"]
-    e = m["tables"]["features"]["tallow"]
+    doc = json.loads((tmp_path / "s" / "_manifest" / "features" / "tallow.json").read_text())
+    assert doc["schema_version"] == SCHEMA_VERSION and doc["package_version"]
+    e = doc["entry"]
+    assert store.entry("features", "tallow") == e == store.manifest()["tables"]["features"]["tallow"]
     assert e["config_hash"] == "cfg1" and e["rows"] == 5
     assert e["time_range"] == ["2024-05-01T00:00:00", "2024-05-13T00:00:00"]
     # sha256 of b"a,b\n1,2\n" (computed with hashlib; an independent value)
@@ -122,9 +125,10 @@ def test_manifest_records_provenance(tmp_path: Path) -> None:
 def test_idempotent_same_inputs_same_bytes(tmp_path: Path) -> None:
     store = Store(tmp_path)
     p = store.write_table("features", "tallow", _frame(), units={"chla": "mg m-3"}, config_hash="c")
-    first = Path(p).read_bytes(), (tmp_path / MANIFEST_NAME).read_bytes()
+    entry = tmp_path / "_manifest" / "features" / "tallow.json"
+    first = Path(p).read_bytes(), (tmp_path / MANIFEST_NAME).read_bytes(), entry.read_bytes()
     store.write_table("features", "tallow", _frame(), units={"chla": "mg m-3"}, config_hash="c")
-    assert (Path(p).read_bytes(), (tmp_path / MANIFEST_NAME).read_bytes()) == first
+    assert (Path(p).read_bytes(), (tmp_path / MANIFEST_NAME).read_bytes(), entry.read_bytes()) == first
 
 
 def test_interrupted_write_leaves_previous_table_intact(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
@@ -332,9 +336,10 @@ def test_append_to_a_partition_without_part_list_keeps_the_old_rows(tmp_path: Pa
     store = Store(tmp_path)
     base = pd.DataFrame({"date": pd.date_range("2024-01-01", periods=5), "v": np.arange(5.0)})
     store.write_table("hydrology_daily", "tallow", base, time_column="date")
-    manifest = json.loads((tmp_path / MANIFEST_NAME).read_text())
-    del manifest["tables"]["hydrology_daily"]["tallow"]["parts"]
-    (tmp_path / MANIFEST_NAME).write_text(json.dumps(manifest))
+    entry = tmp_path / "_manifest" / "hydrology_daily" / "tallow.json"
+    doc = json.loads(entry.read_text())
+    del doc["entry"]["parts"]
+    entry.write_text(json.dumps(doc))
     new = pd.DataFrame({"date": pd.date_range("2024-01-05", periods=3), "v": [40.0, 50.0, 60.0]})
     store.append_arrow("hydrology_daily", "tallow", pa.Table.from_pandas(new, preserve_index=False),
                        since="2024-01-05", time_column="date")  # fmt: skip
@@ -365,3 +370,55 @@ def test_empty_append_with_nothing_to_replace_touches_no_file(tmp_path: Path) ->
     assert {p: Path(p).read_bytes() for p in store.part_files("features", "tallow")} == before
     assert store.entry("features", "tallow")["metadata"]["drivers_through"] == "2024-01-31"
     pd.testing.assert_frame_equal(store.read_table("features", "tallow").drop(columns="lake"), base)
+
+
+def test_a_newer_entry_file_is_refused(tmp_path: Path) -> None:
+    store = Store(tmp_path)
+    store.write_table("features", "tallow", _frame())
+    entry = tmp_path / "_manifest" / "features" / "tallow.json"
+    doc = json.loads(entry.read_text())
+    doc["schema_version"] = SCHEMA_VERSION + 1
+    entry.write_text(json.dumps(doc))
+    with pytest.raises(StoreError, match="Upgrade lakefeed"):
+        store.read_table("features", "tallow")
+
+
+def test_a_write_touches_only_its_own_entry(tmp_path: Path) -> None:
+    """The manifest is one file per table and lake: writing one lake neither reads nor rewrites the entries of
+    the others, however many input files they list (a single document would grow with every lake)."""
+    store = Store(tmp_path)
+    many = {f"scenes/scene-{i:05d}.tif": f"{i:064x}" for i in range(20_000)}  # a target table's inputs
+    store.write_table("target_obs", "alder", _frame(), inputs=many)
+    big = tmp_path / "_manifest" / "target_obs" / "alder.json"
+    before = big.stat()
+    assert before.st_size > 1_000_000
+    store.write_table("features", "birch", _frame(), config_hash="c")
+    small = tmp_path / "_manifest" / "features" / "birch.json"
+    assert small.stat().st_size < 5_000
+    after = big.stat()
+    assert (after.st_ino, after.st_mtime_ns) == (before.st_ino, before.st_mtime_ns)  # not rewritten
+    assert store.entry("target_obs", "alder")["inputs"] == many
+    assert set(store.manifest()["tables"]) == {"target_obs", "features"}
+
+
+def test_a_version_1_store_is_read_and_split_at_its_first_write(tmp_path: Path) -> None:
+    """Stores written before entry files (schema version 1: every entry in _manifest.json) stay readable;
+    the first write moves their entries into entry files."""
+    import shutil
+
+    store = Store(tmp_path)
+    store.write_table("features", "tallow", _frame(), config_hash="c1")
+    store.write_table("diagnostics", "tallow", _frame(), config_hash="c2")
+    old = {"schema_version": 1, "package_version": "0.1.0", "tables": store.manifest()["tables"]}
+    shutil.rmtree(tmp_path / "_manifest")
+    (tmp_path / MANIFEST_NAME).write_text(json.dumps(old))
+    fresh = Store(tmp_path)
+    assert fresh.entry("features", "tallow")["config_hash"] == "c1"
+    pd.testing.assert_frame_equal(fresh.read_table("features", "tallow"), store.read_table("features", "tallow"))
+    fresh.write_table("features", "rowan", _frame(), config_hash="c3")
+    head = json.loads((tmp_path / MANIFEST_NAME).read_text())
+    assert head["schema_version"] == SCHEMA_VERSION and "tables" not in head
+    for table, lake in [("features", "tallow"), ("diagnostics", "tallow"), ("features", "rowan")]:
+        assert (tmp_path / "_manifest" / table / f"{lake}.json").exists()
+    assert fresh.entry("diagnostics", "tallow")["config_hash"] == "c2"
+    assert fresh.lakes("features") == ["rowan", "tallow"]

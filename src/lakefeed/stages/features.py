@@ -236,10 +236,9 @@ def _with_stored_extras(store: Store, lake: str, arrow: pa.Table, prev: dict | N
 
 def _input_hashes(store: Store, lake: str) -> dict[str, str]:
     """Content hashes of the input partitions (from the manifest): provenance and the up-to-date check."""
-    tables = store.manifest().get("tables", {})
     out = {}
     for t in ("target_daily", "drivers_daily", "hydrology_daily"):
-        entry = tables.get(t, {}).get(lake)
+        entry = store.entry(t, lake)
         if entry and store.has_table(t, lake):
             out[f"{t}/lake={lake}"] = entry.get("content_hash", "")
     return out

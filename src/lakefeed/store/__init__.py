@@ -2,8 +2,9 @@
 
 Takes pandas DataFrames and writes ``<store>/<table>/lake=<id>/part-*.parquet`` (Hive
 partitioning; readable by pyarrow.dataset, pandas, DuckDB and Spark) on a local folder or any
-fsspec URL, with a manifest (``_manifest.json``: schema version, package version, config hash,
-input content hashes, time range and live part files per table) and a writer lock; reads them
+fsspec URL, with a manifest (``_manifest.json``: the schema version; ``_manifest/<table>/<lake>.json``:
+package version, config hash, input content hashes, time range and live part files of each
+partition) and a writer lock; reads them
 back with their units. A full write gives one part (``part-0.parquet``); an incremental refresh
 appends one part (``part-<first date>.parquet``) or rewrites the last one
 (:meth:`Store.append_arrow`); :meth:`Store.compact` merges them. Must not compute any science.

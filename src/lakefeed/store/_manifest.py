@@ -1,11 +1,17 @@
-"""The store manifest ``<store>/_manifest.json``: provenance of every table partition.
+"""The store manifest: provenance of every table partition, one small file per table and lake.
 
-One JSON document per store: ``schema_version`` (of the store layout and manifest),
-``package_version`` (lakefeed that last wrote), and per table and lake: rows, columns, time
-column and time range, config hash, content hashes of every input file, the content hash of
-the written file, and free-form metadata. No timestamps, so the same inputs give the same
-manifest (idempotent writes). A store with a newer schema version than this lakefeed knows is
-refused.
+- ``<store>/_manifest.json``: ``schema_version`` (of the store layout and manifest) and
+  ``package_version`` (lakefeed that created or migrated the store).
+- ``<store>/_manifest/<table>/<lake>.json``: the partition's entry: rows, columns, time column
+  and range, config hash, content hashes of every input file, the live part files with their
+  content hashes, and free-form metadata; plus the schema and package version that wrote it.
+
+A write replaces one entry file (aside, then one rename), so its cost does not grow with the
+number of lakes or tables in the store: with one document for the whole store, a store of 200
+lakes whose target tables list thousands of scene files each would rewrite hundreds of MB at every
+write. No timestamps, so the same inputs give the same bytes (idempotent writes). A store with a
+newer schema version than this lakefeed knows is refused. Stores of schema version 1 (every entry
+in ``_manifest.json``) are read as they are and split into entry files at their first write.
 """
 
 from __future__ import annotations
@@ -18,11 +24,20 @@ from typing import Any
 from lakefeed import __version__
 from lakefeed.exceptions import StoreError
 
-__all__ = ["MANIFEST_NAME", "SCHEMA_VERSION", "check_schema_version", "read_manifest", "write_manifest"]
+__all__ = [
+    "ENTRY_DIR",
+    "MANIFEST_NAME",
+    "SCHEMA_VERSION",
+    "check_schema_version",
+    "read_entry",
+    "read_manifest",
+    "write_entry",
+]
 
-#: Version of the store layout and manifest this lakefeed writes and reads.
-SCHEMA_VERSION = 1
+#: Version of the store layout and manifest this lakefeed writes and reads (2: one entry file per partition).
+SCHEMA_VERSION = 2
 MANIFEST_NAME = "_manifest.json"
+ENTRY_DIR = "_manifest"
 
 
 def empty_manifest() -> dict[str, Any]:
@@ -43,65 +58,128 @@ def check_schema_version(manifest: dict[str, Any], root: str) -> None:
         )
 
 
-_CACHE: dict[str, tuple[tuple[int, int, int], dict[str, Any]]] = {}
+_CACHE: dict[str, tuple[tuple[int, int, int], Any]] = {}
 
 
-def read_manifest(fs: Any, root: str, *, shared: bool = False) -> dict[str, Any]:
-    """The store's manifest (an empty one when the store has none); checks the schema version.
-
-    Local manifests are parsed once per version (cached on inode, size and modification time; the
-    manifest is always replaced by a rename, so a new version has a new inode). ``shared=True`` returns
-    the cached object itself (read-only use: do not modify it); otherwise a fresh copy.
-    """
-    path = f"{root}/{MANIFEST_NAME}"
+def _load(fs: Any, path: str) -> Any | None:
+    """A JSON file (None when absent). Local files are parsed once per version (cached on inode, size and
+    modification time; files are always replaced by a rename, so a new version has a new inode)."""
     key = None
     if _is_local(fs):
         try:
             st = os.stat(path)
         except FileNotFoundError:
-            return empty_manifest()
+            return None
         key = (st.st_ino, st.st_size, st.st_mtime_ns)
         hit = _CACHE.get(path)
         if hit is not None and hit[0] == key:
-            return hit[1] if shared else _copy(hit[1])
+            return hit[1]
     elif not fs.exists(path):
-        return empty_manifest()
+        return None
     try:
         with fs.open(path, "rb") as f:
-            manifest = json.loads(f.read())
+            data = json.loads(f.read())
     except (OSError, ValueError) as err:
         raise StoreError(f"store manifest {path} cannot be read ({err}); restore it or rebuild the store") from err
-    check_schema_version(manifest, root)
     if key is not None:
-        _CACHE[path] = (key, manifest)
-        return manifest if shared else _copy(manifest)
-    return manifest
+        if len(_CACHE) > 4096:
+            _CACHE.clear()
+        _CACHE[path] = (key, data)
+    return data
 
 
-def _copy(manifest: dict[str, Any]) -> dict[str, Any]:
-    """A copy whose top level, ``tables`` and per-table dicts are new: a writer replaces a partition's
-    entry (never edits one in place), so the entries themselves can be shared."""
-    tables = {t: dict(v) for t, v in manifest.get("tables", {}).items()}
-    return {**manifest, "tables": tables}
+def _head(fs: Any, root: str) -> dict[str, Any]:
+    """The top-level manifest (checked; an empty one when the store has none). Shared: do not modify."""
+    head = _load(fs, f"{root}/{MANIFEST_NAME}")
+    if head is None:
+        return empty_manifest()
+    check_schema_version(head, root)
+    return head
+
+
+def read_entry(fs: Any, root: str, table: str, lake: str) -> dict[str, Any] | None:
+    """One partition's entry, or None (read-only: do not modify it); checks the schema version."""
+    head = _head(fs, root)
+    if "tables" in head and head.get("schema_version", 0) < 2:  # a version-1 store: every entry in the head
+        return head.get("tables", {}).get(table, {}).get(lake)
+    doc = _load(fs, _entry_path(root, table, lake))
+    if doc is None:
+        return None
+    check_schema_version(doc, root)
+    return doc.get("entry")
+
+
+def read_manifest(fs: Any, root: str, *, shared: bool = False) -> dict[str, Any]:
+    """The whole manifest: schema and package version, and ``tables`` -> lake -> entry (reads every entry
+    file: for listings and reports, not for one partition; see :func:`read_entry`).
+
+    The entries are shared with the cache (read-only); ``shared`` is accepted for callers of version 1.
+    """
+    head = _head(fs, root)
+    out = {k: v for k, v in head.items() if k != "tables"}
+    tables: dict[str, dict[str, Any]] = {t: dict(v) for t, v in head.get("tables", {}).items()}
+    base = f"{root}/{ENTRY_DIR}"
+    for table in _names(fs, base):
+        for name in _names(fs, f"{base}/{table}"):
+            if name.endswith(".json") and not name.startswith("."):
+                doc = _load(fs, f"{base}/{table}/{name}")
+                if doc is not None:
+                    check_schema_version(doc, root)
+                    tables.setdefault(table, {})[name[: -len(".json")]] = doc.get("entry")
+    out["tables"] = tables
+    return out
+
+
+def write_entry(fs: Any, root: str, table: str, lake: str, entry: dict[str, Any], *, local: bool) -> None:
+    """Replace one partition's entry atomically (aside, then one rename); keys sorted for stable bytes.
+
+    The first write to a store creates ``_manifest.json``; the first write to a version-1 store moves its
+    entries into entry files first (each written atomically; the head is replaced last, so a crash in
+    between leaves a version-1 store that the next write migrates again)."""
+    head = _load(fs, f"{root}/{MANIFEST_NAME}")
+    if head is not None:
+        check_schema_version(head, root)
+    if head is not None and "tables" in head and head.get("schema_version", 0) < 2:
+        for t, lakes in head["tables"].items():
+            for lk, e in lakes.items():
+                _write_json(fs, _entry_path(root, t, lk), _entry_doc(e), local=local)
+        head = None
+    if head is None:
+        _write_json(fs, f"{root}/{MANIFEST_NAME}", {"schema_version": SCHEMA_VERSION, "package_version": __version__},
+                    local=local)  # fmt: skip
+    _write_json(fs, _entry_path(root, table, lake), _entry_doc(entry), local=local)
+
+
+def _entry_doc(entry: dict[str, Any]) -> dict[str, Any]:
+    return {"schema_version": SCHEMA_VERSION, "package_version": __version__, "entry": entry}
+
+
+def _entry_path(root: str, table: str, lake: str) -> str:
+    return f"{root}/{ENTRY_DIR}/{table}/{lake}.json"
+
+
+def _names(fs: Any, folder: str) -> list[str]:
+    try:
+        return sorted(p.rstrip("/").rsplit("/", 1)[-1] for p in fs.ls(folder, detail=False))
+    except (FileNotFoundError, NotADirectoryError):
+        return []
+
+
+def _write_json(fs: Any, path: str, doc: dict[str, Any], *, local: bool) -> None:
+    data = json.dumps(doc, sort_keys=True, separators=(",", ":"), default=str).encode()  # C encoder: fast
+    folder = path.rsplit("/", 1)[0]
+    fs.makedirs(folder, exist_ok=True)
+    tmp = f"{folder}/.tmp-manifest-{uuid.uuid4().hex}.json"
+    with fs.open(tmp, "wb") as f:
+        f.write(data)
+    _CACHE.pop(path, None)
+    if local:
+        os.replace(tmp, path)
+    else:
+        fs.mv(tmp, path)
 
 
 def _is_local(fs: Any) -> bool:
     from lakefeed.store._fs import is_local
 
     return is_local(fs)
-
-
-def write_manifest(fs: Any, root: str, manifest: dict[str, Any], *, local: bool) -> None:
-    """Write the manifest atomically (aside, then replace); keys sorted for stable bytes."""
-    manifest = dict(manifest, schema_version=SCHEMA_VERSION, package_version=__version__)
-    data = json.dumps(manifest, sort_keys=True, separators=(",", ":"), default=str).encode()  # C encoder: fast
-    path = f"{root}/{MANIFEST_NAME}"
-    tmp = f"{root}/.tmp-manifest-{uuid.uuid4().hex}.json"
-    with fs.open(tmp, "wb") as f:
-        f.write(data)
-    if local:
-        os.replace(tmp, path)
-        st = os.stat(path)
-        _CACHE[path] = ((st.st_ino, st.st_size, st.st_mtime_ns), manifest)
-    else:
-        fs.mv(tmp, path)

@@ -95,10 +95,6 @@ def time_range(arrow: pa.Table, time_column: str | None) -> tuple[str | None, li
         return col, [None, None]
 
 
-def entry_of(manifest: Mapping[str, Any], table: str, lake: str) -> dict[str, Any] | None:
-    return manifest.get("tables", {}).get(table, {}).get(lake)
-
-
 def make_entry(
     arrow: pa.Table,
     parts: list[dict[str, Any]],

@@ -38,9 +38,8 @@ import pyarrow.parquet as pq
 from lakefeed.exceptions import StoreError
 from lakefeed.store._fs import is_local, resolve
 from lakefeed.store._lock import store_lock
-from lakefeed.store._manifest import read_manifest, write_manifest
+from lakefeed.store._manifest import read_entry, read_manifest, write_entry
 from lakefeed.store._meta import (
-    entry_of,
     make_entry,
     read_descriptions,
     read_units,
@@ -125,16 +124,17 @@ class Store:
             yield
 
     def manifest(self) -> dict[str, Any]:
-        """The store's manifest (schema version, package version, per-table provenance)."""
+        """The store's whole manifest (schema version, package version, per-table provenance of every
+        lake; reads every entry: use :meth:`entry` for one partition)."""
         return read_manifest(self.fs, self.path)
 
-    def _view(self) -> dict[str, Any]:
-        """The manifest for reading only (shared, not copied)."""
-        return read_manifest(self.fs, self.path, shared=True)
-
     def entry(self, table: str, lake: str) -> dict[str, Any] | None:
-        """Manifest entry of one table partition, or None (read-only: do not modify it)."""
-        return self._view().get("tables", {}).get(table, {}).get(lake)
+        """Manifest entry of one table partition, or None (read-only: do not modify it); refuses a store
+        of a newer schema version."""
+        return read_entry(self.fs, self.path, table, lake)
+
+    def _set_entry(self, table: str, lake: str, entry: dict[str, Any]) -> None:
+        write_entry(self.fs, self.path, table, lake, entry, local=self.local)
 
     # -- writing ----------------------------------------------------------------------------
     def write_table(
@@ -216,8 +216,7 @@ class Store:
         arrow = with_schema(arrow, schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
         part_dir = partition_path(self.path, table, lake)
         with self.lock():
-            manifest = self.manifest()
-            old = live_parts(entry_of(manifest, table, lake), self.fs, part_dir)
+            old = live_parts(self.entry(table, lake), self.fs, part_dir)
             # a single base part is replaced in place (one rename: atomic for every reader); a partition
             # of several parts gets a new, content-named base, listed in the manifest before the old
             # parts are removed (lakefeed's readers switch at the manifest; see the module docstring)
@@ -225,9 +224,7 @@ class Store:
             name, digest = write_file(self.fs, self.local, part_dir, name, arrow, write_options(arrow.schema))
             col, trange = time_range(arrow, time_column)
             parts = [{"file": name, "rows": arrow.num_rows, "first": trange[0], "last": trange[1], "sha256": digest}]
-            entry = make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by)
-            manifest.setdefault("tables", {}).setdefault(table, {})[lake] = entry
-            write_manifest(self.fs, self.path, manifest, local=self.local)
+            self._set_entry(table, lake, make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by))
             self._remove_unlisted(part_dir, [name])
         return self._located(f"{part_dir}/{name}")
 
@@ -272,10 +269,9 @@ class Store:
         kw = dict(units=units, descriptions=descriptions, metadata=metadata, inputs=inputs, config_hash=config_hash,
                   time_column=time_column, sort_by=sort_by)  # fmt: skip
         with self.lock():
-            manifest = self.manifest()
-            entry = entry_of(manifest, table, lake)
+            entry = self.entry(table, lake)
             parts = [dict(p) for p in (entry or {}).get("parts") or []]
-            if not parts and self._present(table, lake, manifest.get("tables", {}).get(table, {})):
+            if not parts and self._present(table, lake, entry):
                 return self._rewrite(table, lake, [(since, arrow)], **kw)  # a store without part list: merge
             if not parts or not self.fs.exists(f"{part_dir}/{parts[0]['file']}"):
                 return self.write_arrow(table, lake, arrow, **kw)  # type: ignore[arg-type]
@@ -287,8 +283,7 @@ class Store:
             if not after and arrow.num_rows == 0:  # nothing to add or replace: new provenance, same files
                 new = make_entry(arrow, parts, entry.get("time_column") or time_column, inputs, config_hash, metadata,
                                  sort_by)  # fmt: skip
-                manifest.setdefault("tables", {}).setdefault(table, {})[lake] = new
-                write_manifest(self.fs, self.path, manifest, local=self.local)
+                self._set_entry(table, lake, new)
                 return self._located(f"{part_dir}/{parts[-1]['file']}")
             if after and after != [len(parts) - 1]:
                 return self._rewrite(table, lake, [(since, arrow)], **kw)
@@ -309,9 +304,7 @@ class Store:
             col, trange = time_range(arrow, time_column)
             parts.append({"file": name, "rows": arrow.num_rows, "first": trange[0], "last": trange[1],
                           "sha256": digest})  # fmt: skip
-            new = make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by)
-            manifest.setdefault("tables", {}).setdefault(table, {})[lake] = new
-            write_manifest(self.fs, self.path, manifest, local=self.local)
+            self._set_entry(table, lake, make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by))
             self._remove_unlisted(part_dir, [p["file"] for p in parts])
         return self._located(f"{part_dir}/{name}")
 
@@ -366,17 +359,18 @@ class Store:
         root = table_path(self.path, table)
         if not self.fs.exists(root):
             return []
-        entries = self._view().get("tables", {}).get(table, {})
         out = []
         for p in self.fs.ls(root, detail=False):
             name = p.rstrip("/").rsplit("/", 1)[-1]
-            if name.startswith("lake=") and self._present(table, name.split("=", 1)[1], entries):
-                out.append(name.split("=", 1)[1])
+            if name.startswith("lake="):
+                lake = name.split("=", 1)[1]
+                if self._present(table, lake, self.entry(table, lake)):
+                    out.append(lake)
         return sorted(out)
 
-    def _present(self, table: str, lake: str, entries: Mapping[str, Any]) -> bool:
+    def _present(self, table: str, lake: str, entry: Mapping[str, Any] | None) -> bool:
         part_dir = partition_path(self.path, table, lake)
-        names = live_parts(entries.get(lake), self.fs, part_dir)
+        names = live_parts(dict(entry) if entry else None, self.fs, part_dir)
         return bool(names) and bool(self.fs.exists(f"{part_dir}/{names[0]}"))
 
     def tables(self) -> list[str]:
@@ -414,7 +408,6 @@ class Store:
         column (recorded at write time) is on or after it, reading only the part files that can
         hold them (an incremental refresh reads the tail of a long record, not all of it).
         """
-        self._view()  # refuses newer schema versions
         part_dir = partition_path(self.path, table, lake)
         arrow, entry = read_parts(
             self.fs, self.local, part_dir, lambda: self.entry(table, lake), columns=columns, since=since
@@ -463,7 +456,7 @@ class Store:
 
     def has_table(self, table: str, lake: str) -> bool:
         """True when ``table`` has a partition for ``lake``."""
-        return self._present(table, lake, self._view().get("tables", {}).get(table, {}))
+        return self._present(table, lake, self.entry(table, lake))
 
 
 def _bound(day: pd.Timestamp, kind: pa.DataType) -> pa.Scalar:
