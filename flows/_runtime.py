@@ -29,11 +29,13 @@ from lakefeed.stages._result import Progress, StageResult
 
 __all__ = [
     "STAGES",
+    "STAGES_MANY",
     "available_stages",
     "dask_task_runner",
     "get_progress",
     "prefect_api",
     "run_stage",
+    "run_stage_many",
     "set_progress",
     "store_lock",
 ]
@@ -46,6 +48,9 @@ STAGES: dict[str, tuple[str, str]] = {
     "features": ("lakefeed.stages.features", "build_features"),
     "forecast": ("lakefeed.stages.forecast", "build_forecast"),
 }
+
+#: Stages with an entry point for many lakes at once (lakes sharing its work; each lake read and written alone).
+STAGES_MANY: dict[str, tuple[str, str]] = {"features": ("lakefeed.stages.features", "build_features_many")}
 
 StageFn = Callable[..., StageResult]
 
@@ -105,6 +110,27 @@ def run_stage(
         return StageResult(stage, project.id, skipped=True, reason=missing.get(stage, f"unknown stage {stage!r}"))
     extra = {"since": since} if since is not None else {}
     return stages[stage](project, Store(store_root), progress=progress, **extra)
+
+
+def run_stage_many(
+    stage: str, lake_files: dict[str, str], store_root: str, *, progress: Progress | None = None
+) -> dict[str, StageResult | Exception]:
+    """Run a stage of :data:`STAGES_MANY` for many lakes in one call; lake id -> its result, or the
+    exception that stopped that lake (the other lakes go on)."""
+    from lakefeed.config import load_project
+    from lakefeed.store import Store
+
+    module, func = STAGES_MANY[stage]
+    fn = getattr(importlib.import_module(module), func)
+    out: dict[str, StageResult | Exception] = {}
+    projects = []
+    for lake, lake_file in lake_files.items():
+        try:
+            projects.append(load_project(lake_file))
+        except Exception as err:  # this lake's configuration: reported for it alone
+            out[lake] = err
+    out.update(fn(projects, Store(store_root), progress=progress, isolate=True))
+    return {lake: out[lake] for lake in lake_files if lake in out}
 
 
 # --- Prefect API for local mode ---------------------------------------------------------------------------

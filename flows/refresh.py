@@ -34,6 +34,7 @@ from lakefeed.config import Project, find_lake_files, load_project
 from lakefeed.exceptions import ConfigError, LakefeedError
 from lakefeed.flows._runtime import (
     STAGES,
+    STAGES_MANY,
     available_stages,
     dask_task_runner,
     prefect_api,
@@ -41,7 +42,7 @@ from lakefeed.flows._runtime import (
     write_json_atomic,
 )
 from lakefeed.flows._state import state_path
-from lakefeed.flows.tasks import plan_task, stage_task
+from lakefeed.flows.tasks import lakes_task, plan_task, stage_task
 from lakefeed.store import Store
 
 __all__ = ["SUMMARY_UNITS", "build_lake", "format_summary", "onboard_lake", "process_lakes", "refresh"]
@@ -104,14 +105,10 @@ def process_lakes(
     for lake in set(plans) - alive:
         rec[lake].update(status="unchanged", skipped=["no new or changed source months"])
     for stage in order:
-        running = {
-            lake: stage_task.submit(stage, lake, lakes[lake], store_root, plans[lake].get("since", {}).get(stage))
-            for lake in sorted(alive)
-            if stage in plans[lake]["stages"]
-        }
-        for lake, fut in running.items():
+        todo = [lake for lake in sorted(alive) if stage in plans[lake]["stages"]]
+        for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans).items():
             try:
-                result = fut.result()
+                result = outcome.result() if not isinstance(outcome, dict) else outcome
             except Exception as err:
                 rec[lake].update(status="failed", error=f"{stage}: {_error_text(err)}")
                 alive.discard(lake)
@@ -150,6 +147,37 @@ def process_lakes(
             }
         )
     return summaries
+
+
+_LAKES_PER_TASK = 32  # lakes of one task of a stage that shares work between lakes (STAGES_MANY)
+
+
+def _run_stage(
+    stage: str, todo: list[str], lakes: dict[str, str], store_root: str, plans: dict[str, dict[str, Any]]
+) -> dict[str, Any]:
+    """Run a stage for the lakes ``todo``: lake -> its result dict, or a future of one. Stages that share work
+    between lakes run in tasks of up to :data:`_LAKES_PER_TASK` lakes; a lake that failed there is run
+    again alone (a task of its own, with retries), so its error and retries stay its own."""
+    if stage not in STAGES_MANY or len(todo) < 2:
+        return {lake: _one(stage, lake, lakes, store_root, plans) for lake in todo}
+    batches = [todo[i : i + _LAKES_PER_TASK] for i in range(0, len(todo), _LAKES_PER_TASK)]
+    futures = [lakes_task.submit(stage, {lk: lakes[lk] for lk in b}, store_root, b[0]) for b in batches]
+    out: dict[str, Any] = {}
+    for batch, fut in zip(batches, futures, strict=True):
+        try:
+            got = fut.result()
+        except Exception:  # the task itself failed (a lost worker...): each lake alone
+            got = {}
+        for lake in batch:
+            if "result" in got.get(lake, {}):
+                out[lake] = got[lake]["result"]
+            else:
+                out[lake] = _one(stage, lake, lakes, store_root, plans)
+    return out
+
+
+def _one(stage: str, lake: str, lakes: dict[str, str], store_root: str, plans: dict[str, dict[str, Any]]) -> Any:
+    return stage_task.submit(stage, lake, lakes[lake], store_root, plans[lake].get("since", {}).get(stage))
 
 
 def _load(configs: Sequence[str | Path]) -> tuple[dict[str, Project], list[dict[str, Any]]]:

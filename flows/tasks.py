@@ -19,10 +19,10 @@ from prefect import get_run_logger, task
 from prefect.cache_policies import NO_CACHE
 from prefect.tasks import exponential_backoff
 
-from lakefeed.flows._runtime import get_progress, run_stage
+from lakefeed.flows._runtime import get_progress, run_stage, run_stage_many
 from lakefeed.flows._state import changes, fingerprint, plan_stages, read_state, stage_since, table_complete
 
-__all__ = ["is_transient", "plan_task", "stage_task"]
+__all__ = ["is_transient", "lakes_task", "plan_task", "stage_task"]
 
 _PERMANENT_ERRNO = {errno.ENOENT, errno.EACCES, errno.EPERM, errno.EISDIR, errno.ENOTDIR, errno.EINVAL}
 
@@ -94,6 +94,28 @@ def stage_task(stage: str, lake: str, lake_file: str, store_root: str, since: st
     done = result.reason if result.skipped else f"{result.tables} {result.reason}".strip()
     get_run_logger().info("lake %s, %s: %s", lake, stage, done)
     return asdict(result)
+
+
+@task(name="stage-lakes", task_run_name="{stage}:{first_lake}+", cache_policy=NO_CACHE)
+def lakes_task(stage: str, lakes: dict[str, str], store_root: str, first_lake: str = "") -> dict[str, dict[str, Any]]:
+    """Run one stage for several lakes in one call (the stage shares work between them; see
+    :data:`lakefeed.flows._runtime.STAGES_MANY`). Lake id -> ``{"result": StageResult as a dict}`` or
+    ``{"error": text, "transient": bool}``; the flow reruns the failed lakes one by one (with retries), so
+    a lake's failure stays its own. Not retried itself: its lakes' errors are reported, not raised."""
+    logger = get_run_logger()
+    progress = get_progress() or (lambda text, done, total: None)
+    with _cluster_client():
+        results = run_stage_many(stage, lakes, store_root, progress=progress)
+    out: dict[str, dict[str, Any]] = {}
+    for lake, r in results.items():
+        if isinstance(r, Exception):
+            out[lake] = {"error": f"{type(r).__name__}: {r}", "transient": is_transient(r)}
+            logger.warning("lake %s, %s: %s (rerun alone)", lake, stage, out[lake]["error"])
+        else:
+            out[lake] = {"result": asdict(r)}
+            done = r.reason if r.skipped else f"{r.tables} {r.reason}".strip()
+            logger.info("lake %s, %s: %s", lake, stage, done)
+    return out
 
 
 @task(

@@ -611,7 +611,7 @@ def build_features_many(
     projects
         Lake configurations (distinct lake ids), all written to ``store``.
     progress
-        Called per lake and step; the description names the lake when there are several.
+        Called per step for one lake; for several, once per finished lake (``features: lakes``, done, total).
     full, rebalance_folds
         As for :func:`build_features`.
     isolate
@@ -633,20 +633,23 @@ def build_features_many(
     report = progress or no_progress
     out: dict[str, StageResult | Exception] = {}
 
-    def lake_progress(lake: str) -> Progress:
-        if len(projects) == 1:
-            return report
-        return lambda text, done, total: report(f"{text} ({lake})", done, total)
+    def lake_progress(lake: str) -> Progress:  # one lake: its steps; several: one bar counting lakes
+        return report if len(projects) == 1 else no_progress
+
+    def settle(lake: str, outcome: StageResult | Exception) -> None:
+        out[lake] = outcome
+        if len(projects) > 1:
+            report("features: lakes", len(out), len(projects))
 
     def finished(job: _Job, rows: pa.Table | BaseException) -> None:
         try:
             if isinstance(rows, BaseException):
                 raise rows
-            out[job.project.id] = _finish(job, store, rows)
+            settle(job.project.id, _finish(job, store, rows))
         except Exception as err:
             if not isolate:
                 raise
-            out[job.project.id] = err
+            settle(job.project.id, err)
 
     for at in range(0, len(projects), max(1, lakes_per_pass)):
         jobs: dict[tuple, list[_Job]] = {}
@@ -659,10 +662,10 @@ def build_features_many(
             except Exception as err:
                 if not isolate:
                     raise
-                out[project.id] = err
+                settle(project.id, err)
                 continue
             if isinstance(job, StageResult):
-                out[project.id] = job
+                settle(project.id, job)
             else:
                 jobs.setdefault(job.batch_key(), []).append(job)
         for group in jobs.values():
