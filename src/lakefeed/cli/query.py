@@ -30,7 +30,7 @@ def query_command(
 
     st = Store(store)
     if not st.tables():
-        st.manifest()
+        st.check_version()
         raise StoreError(f"store {store!r} holds no tables; build some first (e.g. lakefeed demo DIR)")
     frame = query(st, sql)
     if csv:

@@ -30,6 +30,7 @@ __all__ = [
     "SCHEMA_VERSION",
     "check_schema_version",
     "read_entry",
+    "read_head",
     "read_manifest",
     "write_entry",
 ]
@@ -88,7 +89,7 @@ def _load(fs: Any, path: str) -> Any | None:
     return data
 
 
-def _head(fs: Any, root: str) -> dict[str, Any]:
+def read_head(fs: Any, root: str) -> dict[str, Any]:
     """The top-level manifest (checked; an empty one when the store has none). Shared: do not modify."""
     head = _load(fs, f"{root}/{MANIFEST_NAME}")
     if head is None:
@@ -99,7 +100,7 @@ def _head(fs: Any, root: str) -> dict[str, Any]:
 
 def read_entry(fs: Any, root: str, table: str, lake: str) -> dict[str, Any] | None:
     """One partition's entry, or None (read-only: do not modify it); checks the schema version."""
-    head = _head(fs, root)
+    head = read_head(fs, root)
     if "tables" in head and head.get("schema_version", 0) < 2:  # a version-1 store: every entry in the head
         return head.get("tables", {}).get(table, {}).get(lake)
     doc = _load(fs, _entry_path(root, table, lake))
@@ -115,7 +116,7 @@ def read_manifest(fs: Any, root: str, *, shared: bool = False) -> dict[str, Any]
 
     The entries are shared with the cache (read-only); ``shared`` is accepted for callers of version 1.
     """
-    head = _head(fs, root)
+    head = read_head(fs, root)
     out = {k: v for k, v in head.items() if k != "tables"}
     tables: dict[str, dict[str, Any]] = {t: dict(v) for t, v in head.get("tables", {}).items()}
     base = f"{root}/{ENTRY_DIR}"

@@ -38,7 +38,7 @@ import pyarrow.parquet as pq
 from lakefeed.exceptions import StoreError
 from lakefeed.store._fs import is_local, resolve
 from lakefeed.store._lock import store_lock
-from lakefeed.store._manifest import read_entry, read_manifest, write_entry
+from lakefeed.store._manifest import read_entry, read_head, read_manifest, write_entry
 from lakefeed.store._meta import (
     make_entry,
     read_descriptions,
@@ -127,6 +127,10 @@ class Store:
         """The store's whole manifest (schema version, package version, per-table provenance of every
         lake; reads every entry: use :meth:`entry` for one partition)."""
         return read_manifest(self.fs, self.path)
+
+    def check_version(self) -> None:
+        """Refuse a store written by a newer schema version (reads only the store's head file)."""
+        read_head(self.fs, self.path)
 
     def entry(self, table: str, lake: str) -> dict[str, Any] | None:
         """Manifest entry of one table partition, or None (read-only: do not modify it); refuses a store
@@ -439,7 +443,7 @@ class Store:
         """
         lakes = [lake] if lake is not None else self.lakes(table)
         if not lakes:
-            self.manifest()
+            self.check_version()
             raise StoreError(f"table {table!r} not found in {self.url}; run the stage first")
         frames, units, descr = [], {}, {}
         for lk in lakes:

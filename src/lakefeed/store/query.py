@@ -36,7 +36,7 @@ def connect(store: Store, *, tables: list[str] | None = None) -> Any:
     """
     import duckdb
 
-    store.manifest()  # refuses newer schema versions
+    store.check_version()  # refuses newer schema versions
     con = duckdb.connect(":memory:")
     if not store.local:
         con.register_filesystem(store.fs)
