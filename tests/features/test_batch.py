@@ -122,3 +122,20 @@ def test_negative_or_huge_leads_are_refused() -> None:
         feature_block_many([Series(t, d, lead=-1)], **OPTIONS)
     with pytest.raises(FeatureError, match="below 1024 days"):
         feature_block_many([Series(t, d, lead=5000)], **OPTIONS)
+
+
+def test_series_without_rows_or_drivers_keep_their_place() -> None:
+    """A refresh date after every target gives a series no rows; a lake without driver days gets rows that are
+    flagged outside the record; neither disturbs the other series."""
+    world = _world()
+    t, d = world[4].targets, world[4].drivers
+    odd = [world[0], Series(t, d, since="2030-01-01"), Series(t, d.iloc[:0]), world[4]]
+    with pytest.raises(FeatureError, match="differ in driver columns"):
+        feature_block_many([world[0], Series(t, pd.DataFrame(index=pd.DatetimeIndex([])))], **OPTIONS)
+    chunks = feature_block_many(odd, **OPTIONS)
+    assert len(_rows(chunks, 1)) == 0
+    empty_drivers = _rows(chunks, 2)
+    assert len(empty_drivers) == len(t) and empty_drivers["outside_driver_record"].all()
+    assert empty_drivers["rain__sum_10d"].isna().all()
+    for i in (0, 3):
+        pd.testing.assert_frame_equal(_rows(chunks, i), _alone(odd[i]), check_dtype=False)
