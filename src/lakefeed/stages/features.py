@@ -30,33 +30,40 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.parquet as pq
 
 from lakefeed.config import Project
-from lakefeed.config.lake import FeatureOptions
 from lakefeed.exceptions import FeatureError
 from lakefeed.features import (
     WindowPlan,
-    date_hash_folds,
-    fold_boundaries,
-    folds_from_boundaries,
     refresh_start,
     sampling_diagnostics,
 )
 from lakefeed.features.batch import Series, feature_block_many
-from lakefeed.features.incremental import prefix_digest
-from lakefeed.features.pit import FeatureBlock
 from lakefeed.features.windows import as_dates
+from lakefeed.stages._features_inputs import (
+    driver_parts,
+    drivers_digest,
+    input_hashes,
+    load_drivers,
+    read_dated,
+    refresh_plan,
+    targets_digest,
+)
+from lakefeed.stages._features_output import (
+    KEYS,
+    arrow_rows,
+    boundaries,
+    fold_options,
+    folds,
+    sorted_by_keys,
+    with_stored_extras,
+    write_rows,
+)
 from lakefeed.stages._result import Progress, StageResult, no_progress
-from lakefeed.store import Store, read_units
+from lakefeed.store import Store
 
 __all__ = ["build_features", "build_features_many", "feature_units", "load_drivers"]
 
-_DRIVER_TABLES = ("drivers_daily", "hydrology_daily")
-_ADDED_LATER = ("forecast_days", "forecast_fraction")  # features columns written by the forecast stage
-_TAIL_REACH = pd.Timedelta(days=62)  # driver changes reaching further back are checked by fingerprint
-_NOT_DRIVERS = {"valid_fraction", "flags", "load_method", "zone", "date", "lake"}
-KEYS = ["aoi", "target_date", "lead_days"]
 _DESCRIPTIONS = {
     "issue_date": "issue date = target_date - lead_days; only data dated on or before it is used",
     "chla": "chlorophyll-a on the target date (the label)",
@@ -88,191 +95,9 @@ def feature_units(plan: WindowPlan, driver_units: dict[str, str]) -> dict[str, s
     return out
 
 
-def _read_dated(store: Store, table: str, lake: str, since: object) -> pd.DataFrame:
-    """A store table as pandas with its ``date`` column as datetime64 (converted in Arrow: fast),
-    only the rows from ``since`` on when given; units in ``attrs``."""
-    arrow = store.read_arrow(table, lake, since=since)
-    units = read_units(arrow.schema)
-    if "date" in arrow.column_names and pa.types.is_date(arrow["date"].type):
-        at = arrow.column_names.index("date")
-        arrow = arrow.set_column(at, "date", arrow["date"].cast(pa.timestamp("s")).cast(pa.timestamp("ns")))
-    frame = arrow.to_pandas()
-    frame.attrs["units"] = units
-    return frame
-
-
-def load_drivers(
-    store: Store, lake: str, *, zone: str, aois: list[str], wanted: list[str] | None, since: object = None
-) -> tuple[dict[str | None, pd.DataFrame], dict[str, str], list[str]]:
-    """Daily driver frames (indexed by date) per AOI (key None: the same for all), units, tables read.
-
-    ``since`` (a date): only the driver days from it on (the spill-over of an incremental refresh).
-    """
-    units: dict[str, str] = {}
-    read: list[str] = []
-    per_zone: dict[str, pd.DataFrame] = {}
-    hyd = None
-    if store.has_table("drivers_daily", lake):
-        dd = _read_dated(store, "drivers_daily", lake, since)
-        units.update(dd.attrs.get("units", {}))
-        zones = sorted(dd["zone"].astype(str).unique())
-        need = [f"aoi:{a}" for a in aois] if zone == "aoi" else [zone]
-        missing = [z for z in need if z not in zones]
-        if missing:
-            raise FeatureError(
-                f"drivers_daily of lake {lake!r} has no zone {missing[0]!r} (features.driver_zone = {zone!r}); "
-                f"zones present: {zones}. Set features.driver_zone to one of them or enable that zone."
-            )
-        for z in need:
-            per_zone[z] = _values(dd[dd["zone"].astype(str) == z])
-        read.append(f"drivers_daily (zone {zone!r})")
-    if store.has_table("hydrology_daily", lake):
-        h = _read_dated(store, "hydrology_daily", lake, since)
-        units.update(h.attrs.get("units", {}))
-        hyd = _values(h)
-        read.append("hydrology_daily")
-    keys: list[str | None] = [f"aoi:{a}" for a in aois] if zone == "aoi" and per_zone else [None]
-    frames: dict[str | None, pd.DataFrame] = {}
-    for key in keys:
-        parts = [per_zone[key if key else zone]] if per_zone else []
-        if hyd is not None:
-            parts.append(hyd)
-        empty = pd.DataFrame(index=pd.DatetimeIndex([]))
-        frame = pd.concat(parts, axis=1, join="outer").sort_index() if parts else empty
-        frames[key.split(":", 1)[1] if key else None] = frame
-    available = sorted({c for f in frames.values() for c in f.columns})
-    if wanted is not None:
-        absent = [c for c in wanted if c not in available]
-        if absent:
-            raise FeatureError(
-                f"driver {absent[0]!r} named in features.drivers of lake {lake!r} is provided by no store table "
-                f"(read: {', '.join(read) or 'none: no drivers_daily or hydrology_daily table'}); "
-                f"available drivers: {available}. Fix the name or run the stage that writes it."
-            )
-        frames = {k: f[list(wanted)] for k, f in frames.items()}
-    return frames, units, read
-
-
-def _values(frame: pd.DataFrame) -> pd.DataFrame:
-    kinds = {c: dt.kind for c, dt in frame.dtypes.items()}  # numeric, not bool
-    cols = [c for c in frame.columns if c not in _NOT_DRIVERS and kinds[c] in "iuf"]
-    out = frame.set_index(as_dates(frame["date"]))[cols].astype(float)
-    return out[~out.index.duplicated(keep="first")].sort_index()
-
-
 def _config_hash(project: Project, columns: list[str]) -> str:
     payload = {"lake": project.lake.id, "features": project.lake.features.model_dump(mode="json"), "drivers": columns}
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
-
-
-def _drivers_digest(frames: dict[str | None, pd.DataFrame], through: object) -> str:
-    """Fingerprint of the driver frames up to the 'known through' date."""
-    ordered = sorted(frames.items(), key=lambda kv: str(kv[0]))
-    return ";".join(prefix_digest(f, date_column=None, through=through) for _, f in ordered)
-
-
-def _targets_digest(targets: pd.DataFrame, through: object) -> str:
-    """Fingerprint of the accepted targets up to the 'known through' date."""
-    return prefix_digest(targets, date_column="date", through=through)
-
-
-def _driver_parts(store: Store, lake: str) -> dict[str, list[list[object]]]:
-    """Live part files of the driver tables (name, SHA-256, first key date), from the manifest."""
-    out: dict[str, list[list[object]]] = {}
-    for t in _DRIVER_TABLES:
-        entry = store.entry(t, lake)
-        if entry and store.has_table(t, lake):
-            out[t] = [[p.get("file"), p.get("sha256"), p.get("first")] for p in entry.get("parts") or []]
-    return out
-
-
-def _unchanged_before(
-    now: dict[str, list[list[object]]], recorded: dict[str, list[list[object]]], through: object
-) -> pd.Timestamp | None:
-    """First date from which the driver rows may differ from the previous build's, from the part lists
-    alone: the earliest first date of a part that is new or was replaced since then (an appended month,
-    or a rewritten tail of provisional days), or the day after ``through``. Rows before it sit in parts
-    with the same content hash as then. None when that cannot be told (a table appeared or went, a
-    part of unknown range): the caller reads all rows and compares their fingerprint instead."""
-    if not now or set(now) != set(recorded):
-        return None
-    start = pd.Timestamp(through) + pd.Timedelta(days=1)
-    for table, parts in now.items():
-        old = {(str(p[0]), str(p[1])): p for p in recorded[table]}
-        live = {(str(p[0]), str(p[1])) for p in parts}
-        if not old:
-            return None
-        changed = [p for p in parts if (str(p[0]), str(p[1])) not in old]
-        changed += [p for key, p in old.items() if key not in live]  # replaced or removed since then
-        for p in changed:
-            if len(p) < 3 or p[2] is None:
-                return None
-            start = min(start, pd.Timestamp(p[2]).normalize())
-    return start
-
-
-def _arrow_rows(block: FeatureBlock, fold_kinds: np.ndarray) -> pa.Table:
-    """A feature block as Arrow, with ``fold`` (assigned later) and ``fold_kind`` (per row) after ``doy_cos``."""
-    n = len(block)
-    extra = {"fold": ("doy_cos", np.zeros(n, dtype=np.int16)), "fold_kind": ("fold", fold_kinds)}
-    return block.to_arrow(extra=extra)
-
-
-def _with_stored_extras(store: Store, lake: str, arrow: pa.Table, prev: dict | None) -> pa.Table:
-    """The rows with the columns that a later stage added to the stored table (the forecast stage's
-    ``forecast_days``/``forecast_fraction``, missing for these hindcast rows) at their stored places, so an
-    incremental refresh appends to the table instead of rewriting it."""
-    stored = list((prev or {}).get("columns") or [])
-    names = arrow.column_names  # a new list at every access: taken once
-    extra = [c for c in _ADDED_LATER if c in stored and c not in names]
-    if not extra or [c for c in stored if c not in extra] != names:
-        return arrow
-    schema = pq.read_schema(store.part_files("features", lake)[0])
-    for c in extra:
-        kind = schema.field(c).type if c in schema.names else pa.float64()
-        arrow = arrow.add_column(stored.index(c), c, pa.nulls(arrow.num_rows, kind))
-    return arrow
-
-
-def _input_hashes(store: Store, lake: str) -> dict[str, str]:
-    """Content hashes of the input partitions (from the manifest): provenance and the up-to-date check."""
-    out = {}
-    for t in ("target_daily", "drivers_daily", "hydrology_daily"):
-        entry = store.entry(t, lake)
-        if entry and store.has_table(t, lake):
-            out[f"{t}/lake={lake}"] = entry.get("content_hash", "")
-    return out
-
-
-def _fold_options(opts: FeatureOptions) -> str:
-    return json.dumps({"k": opts.folds, "kind": opts.fold_kind, "embargo_days": opts.embargo_days}, sort_keys=True)
-
-
-def _boundaries(
-    targets: pd.DataFrame, opts: FeatureOptions, frozen: dict[str, list[list[str]]]
-) -> dict[str, list[list[str]]]:
-    """Block boundaries per AOI: the frozen ones, derived from its target dates for an AOI without."""
-    if opts.fold_kind != "blocked":
-        return {}
-    out = dict(frozen)
-    for a, g in targets.groupby("aoi", sort=True):
-        if str(a) not in out:
-            out[str(a)] = [list(b) for b in fold_boundaries(g["date"], k=opts.folds)]
-    return dict(sorted(out.items()))
-
-
-def _folds(arrow: pa.Table, opts: FeatureOptions, bounds: dict[str, list[list[str]]]) -> np.ndarray:
-    """Fold per row, from its AOI and target date only (the same target date shares a fold across leads):
-    blocked folds from the frozen boundaries, random folds from a hash of the date."""
-    aoi = np.asarray(arrow["aoi"].to_numpy(zero_copy_only=False)).astype(str)
-    dates = arrow["target_date"].to_numpy()
-    if opts.fold_kind == "random":
-        return date_hash_folds(dates, k=opts.folds)
-    fold = np.zeros(len(aoi), dtype=np.int16)
-    for a in np.unique(aoi):
-        sel = aoi == a
-        fold[sel] = folds_from_boundaries(dates[sel], bounds.get(str(a), []), embargo_days=opts.embargo_days)
-    return fold
 
 
 def _full_again(project: Project, store: Store, progress: Progress, result: StageResult) -> StageResult:
@@ -280,70 +105,6 @@ def _full_again(project: Project, store: Store, progress: Progress, result: Stag
     out = build_features(project, store, progress=progress, full=True)
     out.warnings = result.warnings + out.warnings
     return out
-
-
-def _write_rows(
-    store: Store,
-    lake: str,
-    arrow: pa.Table,
-    *,
-    since: pd.Timestamp | None,
-    split: pd.Timestamp,
-    drivers_digest: Callable[[object], str],
-    targets: pd.DataFrame,
-    write: dict[str, object],
-) -> None:
-    """Write the rows as settled rows (target date before ``split``, the next refresh's first date) and
-    provisional ones (from ``split`` on: target dates after the end of an input, recomputed by the next
-    refresh), each in one store operation of one file (atomic on its own). The provisional rows get a
-    part of their own, so the next refresh replaces only that small part. The first operation's state
-    is a valid table of the inputs up to ``split - 1`` (its manifest says so), so a crash between the two
-    leaves a table that the next run completes incrementally."""
-    tcol = arrow["target_date"]
-    late = pc.greater_equal(tcol, pa.scalar(split.to_pydatetime(), tcol.type))
-    provisional = arrow.filter(late)
-    settled = arrow.filter(pc.invert(late)) if provisional.num_rows else arrow
-    steps = []
-    if settled.num_rows or not provisional.num_rows or since is None:
-        first = provisional if not settled.num_rows else settled
-        steps.append((since, first))
-    if provisional.num_rows and settled.num_rows:
-        steps.append((split, provisional))
-    for i, (start, rows) in enumerate(steps):
-        kw = dict(write)
-        if i < len(steps) - 1:  # the state after this step: the table of the inputs up to split - 1
-            day = str((split - pd.Timedelta(days=1)).date())
-            md = dict(kw["metadata"])  # type: ignore[call-overload]
-            md |= {"drivers_through": day, "targets_through": day, "drivers_digest_at_through": drivers_digest(day),
-                   "targets_digest_at_through": _targets_digest(targets, day)}  # fmt: skip
-            kw |= {"metadata": md, "inputs": {}}
-        if start is None:
-            store.write_arrow("features", lake, rows, **kw)  # type: ignore[arg-type]
-        else:
-            store.append_arrow("features", lake, rows, since=start, **kw)  # type: ignore[arg-type]
-
-
-def _refresh_plan(
-    store: Store, lake: str, prev: dict | None, targets: pd.DataFrame, *, full: bool
-) -> tuple[str, pd.Timestamp | None, tuple[str, str]]:
-    """How to refresh: ``("tail", since, old)`` when the part lists tell from which date the driver rows
-    may have changed (read only the last days; ``since`` is that date or the day after the old inputs,
-    whichever is first), ``("check", since, old)`` when their fingerprint must be compared (read all),
-    ``("full", None, old)`` otherwise. The targets' fingerprint is checked here."""
-    md = (prev or {}).get("metadata", {})
-    old = (md.get("drivers_through"), md.get("targets_through"))
-    if full or not prev or not store.has_table("features", lake) or not all(old):
-        return "full", None, old
-    if _targets_digest(targets, old[1]) != md.get("targets_digest_at_through"):
-        return "full", None, old
-    since = refresh_start(*old)
-    recorded = json.loads(md.get("input_parts") or "{}")
-    changed_from = _unchanged_before(_driver_parts(store, lake), recorded, old[0])
-    # a part rewritten far back (e.g. a whole table written again) may hold the same old rows: reading all
-    # and comparing fingerprints then saves recomputing them
-    if md.get("drivers_first") and changed_from is not None and changed_from >= since - _TAIL_REACH:
-        return "tail", min(since, changed_from), old
-    return "check", since, old
 
 
 @dataclass(eq=False)
@@ -385,7 +146,7 @@ class _Job:
     def drivers_digest(self, day: object) -> str:
         """Fingerprint of the drivers up to ``day``; unknown (empty) when only the tail was read: the next
         check then rebuilds instead of trusting it."""
-        return "" if self.mode == "tail" else _drivers_digest(self.frames, day)
+        return "" if self.mode == "tail" else drivers_digest(self.frames, day)
 
 
 def _prepare(
@@ -399,7 +160,7 @@ def _prepare(
             load_drivers(store, lake.id, zone=opts.driver_zone, aois=[], wanted=list(opts.drivers))
         result.skipped, result.reason = True, "no target_daily table for this lake; run the target (scenes) stage first"
         return result
-    inputs = _input_hashes(store, lake.id)
+    inputs = input_hashes(store, lake.id)
     options_hash = _config_hash(project, [])
     prev = store.entry("features", lake.id)
     if (
@@ -416,7 +177,7 @@ def _prepare(
         progress("features: up to date", 3, 3)
         return result
     progress("features: reading", 0, 3)
-    td = _read_dated(store, "target_daily", lake.id, None)
+    td = read_dated(store, "target_daily", lake.id, None)
     targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
     targets["aoi"] = targets["aoi"].astype(str)
     targets["date"] = as_dates(targets["date"])
@@ -427,7 +188,7 @@ def _prepare(
     aois = sorted(targets["aoi"].unique())
     wanted = list(opts.drivers) if opts.drivers else None
     md = (prev or {}).get("metadata", {})
-    mode, since, old = _refresh_plan(store, lake.id, prev, targets, full=full)
+    mode, since, old = refresh_plan(store, lake.id, prev, targets, full=full)
     tail_from = since - pd.Timedelta(days=max(opts.windows) + max(opts.leads) + 1) if mode == "tail" else None
     frames, driver_units, read = load_drivers(
         store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted, since=tail_from
@@ -446,7 +207,7 @@ def _prepare(
             frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
             frames = {k: f.reindex(columns=columns) for k, f in frames.items()}
         mode, since = "full", None
-    if mode == "check" and _drivers_digest(frames, old[0]) != md.get("drivers_digest_at_through"):
+    if mode == "check" and drivers_digest(frames, old[0]) != md.get("drivers_digest_at_through"):
         mode, since = "full", None
     stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
     plan = WindowPlan.build(columns, windows=opts.windows, stats=stats)
@@ -456,12 +217,12 @@ def _prepare(
         record = (pd.Timestamp(md["drivers_first"]), record[1])
     through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
     frozen = {}
-    if prev and not rebalance_folds and md.get("fold_options") == _fold_options(opts):
+    if prev and not rebalance_folds and md.get("fold_options") == fold_options(opts):
         frozen = json.loads(md.get("fold_boundaries") or "{}")
     return _Job(
         project=project, result=result, progress=progress, mode=mode, since=since, prev=prev, frames=frames,
         columns=columns, driver_units=driver_units, read=read, targets=targets, plan=plan, record=record,
-        through=through, bounds=_boundaries(targets, opts, frozen), inputs=inputs, options_hash=options_hash,
+        through=through, bounds=boundaries(targets, opts, frozen), inputs=inputs, options_hash=options_hash,
         config_hash=cfg,
     )  # fmt: skip
 
@@ -470,14 +231,14 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
     """Folds, diagnostics and the writes of one lake's computed rows."""
     project, result, progress, since = job.project, job.result, job.progress, job.since
     lake, opts = project.lake, project.lake.features
-    arrow = _with_stored_extras(store, lake.id, arrow, job.prev if since is not None else None)
+    arrow = with_stored_extras(store, lake.id, arrow, job.prev if since is not None else None)
     if since is not None and job.prev.get("columns") != arrow.column_names:  # e.g. a driver table gained a column
         result.warnings.append("features: columns changed since the last build; rebuilt in full")
         return _full_again(project, store, progress, result)
-    if not _sorted_by_keys(arrow):
+    if not sorted_by_keys(arrow):
         arrow = arrow.sort_by([(k, "ascending") for k in KEYS])
     arrow = arrow.set_column(
-        arrow.column_names.index("fold"), "fold", pa.array(_folds(arrow, opts, job.bounds), pa.int16())
+        arrow.column_names.index("fold"), "fold", pa.array(folds(arrow, opts, job.bounds), pa.int16())
     )
     n_outside = int(pc.sum(arrow["outside_driver_record"]).as_py() or 0)
     if n_outside and job.columns:
@@ -507,16 +268,16 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
         "targets_through": str(pd.Timestamp(through[1]).date()),
         "drivers_first": str(pd.Timestamp(record[0]).date()) if record[0] is not None else "",
         "drivers_digest_at_through": job.drivers_digest(through[0]),
-        "targets_digest_at_through": _targets_digest(job.targets, through[1]),
-        "input_parts": json.dumps(_driver_parts(store, lake.id)),
+        "targets_digest_at_through": targets_digest(job.targets, through[1]),
+        "input_parts": json.dumps(driver_parts(store, lake.id)),
         "options_hash": job.options_hash,
         "driver_zone": opts.driver_zone,
         "fold_kind": opts.fold_kind,
-        "fold_options": _fold_options(opts),
+        "fold_options": fold_options(opts),
         "fold_boundaries": json.dumps(job.bounds, sort_keys=True),
         "tables_read": "; ".join(["target_daily", *job.read]),
     }
-    _write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), drivers_digest=job.drivers_digest,
+    write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), drivers_digest=job.drivers_digest,
                 targets=job.targets, write=dict(units=units, descriptions=descr, metadata=meta, inputs=job.inputs,
                                                 config_hash=job.config_hash, time_column="target_date",
                                                 sort_by=KEYS))  # fmt: skip
@@ -528,23 +289,6 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
     progress("features: done", 3, 3)
     result.tables = {"features": int((store.entry("features", lake.id) or {}).get("rows", 0)), "diagnostics": len(diag)}
     return result
-
-
-def _sorted_by_keys(arrow: pa.Table) -> bool:
-    """Whether the rows are already in (aoi, target_date, lead_days) order (one lead per AOI and date block)."""
-    if arrow.num_rows < 2:
-        return True
-    aoi = np.asarray(arrow["aoi"].to_numpy(zero_copy_only=False)).astype(str)
-    date = arrow["target_date"].to_numpy().astype(np.int64)
-    lead = arrow["lead_days"].to_numpy().astype(np.int64)
-    a0, a1 = aoi[:-1], aoi[1:]
-    same_aoi = a0 == a1
-    if (a1 < a0).any():
-        return False
-    d0, d1 = date[:-1], date[1:]
-    if (same_aoi & (d1 < d0)).any():
-        return False
-    return not (same_aoi & (d1 == d0) & (lead[1:] <= lead[:-1])).any()
 
 
 def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | BaseException], None]) -> None:
@@ -579,7 +323,7 @@ def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | Ba
     for chunk in chunks:
         sizes = np.diff(chunk.bounds)
         kinds = [jobs[owner[chunk.first + k]].project.lake.features.fold_kind for k in range(len(sizes))]
-        table = _arrow_rows(chunk.block, np.repeat(np.array(kinds, dtype=object), sizes))
+        table = arrow_rows(chunk.block, np.repeat(np.array(kinds, dtype=object), sizes))
         for k, n in enumerate(sizes):
             g = chunk.first + k
             i = owner[g]
