@@ -37,7 +37,7 @@ import pandas as pd
 import pyarrow as pa
 
 from lakefeed.features import feature_name, fold_boundaries, folds_from_boundaries, window_features
-from lakefeed.features.batch import Series, feature_block_many
+from lakefeed.features.batch import Series, iter_feature_blocks
 from lakefeed.features.incremental import new_feature_block
 from lakefeed.features.pit import feature_block
 from lakefeed.store import Store
@@ -140,13 +140,13 @@ def bench_refresh(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[Clock
 
 def _rows_many(lakes: list[tuple[pd.DataFrame, pd.DataFrame]], cuts: list, bounds: list, *, new_only: bool,
                keep: bool = False) -> list:  # fmt: skip
-    """All lakes in one call as the stage computes them (:func:`feature_block_many`): one Arrow conversion
+    """All lakes in one call as the stage computes them (:func:`iter_feature_blocks`): one Arrow conversion
     per chunk, then each lake's rows sliced out, with its folds, and handed on (the stage writes them and
     lets them go; ``keep`` returns them, for the check)."""
     stats = {c: STATS for c in lakes[0][0].columns}
     series = [Series(t, d, since=c if new_only else None) for (d, t), c in zip(lakes, cuts, strict=True)]
     out = []
-    for chunk in feature_block_many(series, windows=WINDOWS, stats=stats, max_missing_fraction=FRAC):
+    for chunk in iter_feature_blocks(series, windows=WINDOWS, stats=stats, max_missing_fraction=FRAC):
         arrow = chunk.block.to_arrow()
         for i in range(len(chunk.bounds) - 1):
             rows = arrow.slice(int(chunk.bounds[i]), int(chunk.bounds[i + 1] - chunk.bounds[i]))

@@ -145,13 +145,13 @@ def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: py
     import lakefeed.stages.features as stage
 
     calls = []
-    real = stage.feature_block_many
+    real = stage.iter_feature_blocks
 
     def spy(series, **kw):  # the refresh date every series was computed from
         calls.append(sorted({str(s.since) for s in series}))
         return real(series, **kw)
 
-    monkeypatch.setattr(stage, "feature_block_many", spy)
+    monkeypatch.setattr(stage, "iter_feature_blocks", spy)
     for step, end in enumerate(["2022-11-30", "2022-12-31"]):
         _write(inc, *_inputs(end=end))  # one more month of every input
         build_features(project, inc)
@@ -280,14 +280,14 @@ def test_changed_old_data_triggers_full_rebuild(tmp_path: Path, monkeypatch: pyt
     _write(store, drivers, hyd, target)
     import lakefeed.stages.features as stage
 
-    real = stage.feature_block_many
+    real = stage.iter_feature_blocks
 
     def spy(series, **kw):
         if any(s.since is not None for s in series):
             pytest.fail("must rebuild in full")
         return real(series, **kw)
 
-    monkeypatch.setattr(stage, "feature_block_many", spy)
+    monkeypatch.setattr(stage, "iter_feature_blocks", spy)
     build_features(project, store)
 
 
@@ -546,13 +546,13 @@ def test_many_lakes_in_one_pass_equal_each_lake_alone(tmp_path: Path, monkeypatc
     projects = _three_lakes(tmp_path)
     together, alone = Store(tmp_path / "together"), Store(tmp_path / "alone")
     passes: list[tuple[list[str], int]] = []
-    real = stage.feature_block_many
+    real = stage.iter_feature_blocks
 
     def spy(series, **kw):
         passes.append((sorted({str(s.since) for s in series}), len(series)))
         return real(series, **kw)
 
-    monkeypatch.setattr(stage, "feature_block_many", spy)
+    monkeypatch.setattr(stage, "iter_feature_blocks", spy)
     for end in ["2022-10-31", "2022-11-30"]:
         for i, p in enumerate(projects):
             for store in (together, alone):
@@ -580,21 +580,21 @@ def test_a_failing_lake_does_not_stop_the_others(tmp_path: Path, monkeypatch: py
     store = Store(tmp_path / "s")
     for i, p in enumerate(projects):
         _write_lake(store, p.id, "2022-10-31", seed=i, marker=9999.0 if p.id == "birch" else None)
-    real = stage.feature_block_many
+    real = stage.iter_feature_blocks
 
     def fails_for_birch(series, **kw):  # a fault inside the shared pass, caused by one lake's rows
         if any(s.targets["chla"].max() > 9000 for s in series):
             raise FeatureError("synthetic fault")
         return real(series, **kw)
 
-    monkeypatch.setattr(stage, "feature_block_many", fails_for_birch)
+    monkeypatch.setattr(stage, "iter_feature_blocks", fails_for_birch)
     results = build_features_many(projects, store)
     assert isinstance(results["birch"], FeatureError) and not store.has_table("features", "birch")
     for lake in ("alder", "cedar"):  # alder shared birch's pass: recomputed on its own
         assert isinstance(results[lake], StageResult) and store.has_table("features", lake)
     # a lake whose configuration names a driver no table provides fails while reading, alone
     bad = _lake(tmp_path, "birch", drivers={"snow_depth": ["mean"]})
-    monkeypatch.setattr(stage, "feature_block_many", real)
+    monkeypatch.setattr(stage, "iter_feature_blocks", real)
     results = build_features_many([projects[0], bad], store)
     assert isinstance(results["birch"], FeatureError) and "snow_depth" in str(results["birch"])
     assert isinstance(results["alder"], StageResult)
@@ -602,3 +602,39 @@ def test_a_failing_lake_does_not_stop_the_others(tmp_path: Path, monkeypatch: py
         build_features_many([bad], store, isolate=False)
     with pytest.raises(FeatureError, match="more than once"):
         build_features_many([projects[0], projects[0]], store)
+
+
+def test_a_fault_midway_through_a_shared_pass_keeps_the_lakes_already_written(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Chunks are computed one after the other and each lake is written once its rows are complete; a fault in
+    a later chunk leaves those lakes as written (not recomputed) and fails only the lakes still open."""
+    import lakefeed.stages.features as stage
+    from lakefeed.stages.features import build_features_many
+
+    projects = _three_lakes(tmp_path)
+    store = Store(tmp_path / "s")
+    for i, p in enumerate(projects):
+        _write_lake(store, p.id, "2022-10-31", seed=i, marker=9999.0 if p.id == "birch" else None)
+    real = stage.iter_feature_blocks
+    calls: list[int] = []
+
+    def fails_midway(series, **kw):  # one series per chunk; the first chunk of birch fails
+        calls.append(len(series))
+        for chunk in real(series, max_cells=1, **kw):
+            if series[chunk.first].targets["chla"].max() > 9000:
+                raise FeatureError("synthetic fault mid-pass")
+            yield chunk
+
+    monkeypatch.setattr(stage, "iter_feature_blocks", fails_midway)
+    results = build_features_many(projects, store)
+    assert calls == [4, 1]  # alder and birch together (2 leads each), cedar alone; nothing recomputed
+    assert isinstance(results["birch"], FeatureError) and "mid-pass" in str(results["birch"])
+    assert not store.has_table("features", "birch")
+    for lake in ("alder", "cedar"):
+        assert isinstance(results[lake], StageResult) and store.has_table("features", lake)
+    monkeypatch.setattr(stage, "iter_feature_blocks", real)
+    alone = Store(tmp_path / "alone")
+    _write_lake(alone, "alder", "2022-10-31", seed=0)
+    build_features(projects[0], alone)
+    pd.testing.assert_frame_equal(load_features(store, "alder"), load_features(alone, "alder"))

@@ -21,8 +21,9 @@ Pure: no file I/O.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -31,7 +32,7 @@ from lakefeed.exceptions import FeatureError
 from lakefeed.features.pit import FeatureBlock, calendar_features, flag_strings, forecast_array, last_known
 from lakefeed.features.windows import WindowPlan, day_numbers, reduce_windows, to_daily
 
-__all__ = ["Chunk", "Series", "feature_block_many"]
+__all__ = ["Chunk", "Series", "feature_block_many", "iter_feature_blocks"]
 
 _MAX_CELLS = 1 << 20  # gathered window values per chunk: 8 MiB of float64
 _LEAD_BITS = 10  # leads below 1024 days
@@ -96,7 +97,7 @@ class Chunk:
         return slice(int(self.bounds[i]), int(self.bounds[i + 1]))
 
 
-def feature_block_many(
+def iter_feature_blocks(
     series: Sequence[Series],
     *,
     windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
@@ -106,8 +107,10 @@ def feature_block_many(
     by: str | None = "aoi",
     value: str = "chla",
     max_cells: int = _MAX_CELLS,
-) -> list[Chunk]:
-    """Feature rows of many series (columns of :func:`lakefeed.features.pit.feature_block`), in chunks.
+) -> Iterator[Chunk]:
+    """Feature rows of many series (columns of :func:`lakefeed.features.pit.feature_block`), chunk by chunk:
+    each chunk is computed when the previous one has been taken, so a caller that writes each chunk's rows
+    before asking for the next holds one chunk at a time.
 
     Parameters
     ----------
@@ -125,9 +128,9 @@ def feature_block_many(
         set in the processor caches (measured: larger chunks are slower per row); a refresh of a
         few rows per lake fits hundreds of lakes in one chunk.
 
-    Returns
-    -------
-    list of Chunk
+    Yields
+    ------
+    Chunk
         In series order, covering every series once.
     """
     if not series:
@@ -137,7 +140,6 @@ def feature_block_many(
     prepared, segments, columns = _prepare(series, windows, by=by, value=value)
     plan = WindowPlan.build(columns, windows=windows, stats=stats)
     per_row = max(plan.windows) * max(1, len(columns))
-    chunks: list[Chunk] = []
     start = 0
     while start < len(series):
         stop, cells = start, 0
@@ -148,9 +150,13 @@ def feature_block_many(
                        include_target_day=include_target_day, max_missing_fraction=max_missing_fraction, by=by,
                        value=value)  # fmt: skip
         sizes = np.array([0] + [len(p.tdays) for p in prepared[start:stop]], dtype=np.int64)
-        chunks.append(Chunk(block=block, first=start, bounds=np.cumsum(sizes)))
+        yield Chunk(block=block, first=start, bounds=np.cumsum(sizes))
         start = stop
-    return chunks
+
+
+def feature_block_many(series: Sequence[Series], **options: Any) -> list[Chunk]:
+    """All chunks of :func:`iter_feature_blocks` (the same arguments) as a list."""
+    return list(iter_feature_blocks(series, **options))
 
 
 @dataclass

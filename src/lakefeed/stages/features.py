@@ -38,7 +38,7 @@ from lakefeed.features import (
     refresh_start,
     sampling_diagnostics,
 )
-from lakefeed.features.batch import Series, feature_block_many
+from lakefeed.features.batch import Series, iter_feature_blocks
 from lakefeed.features.windows import as_dates
 from lakefeed.stages._features_inputs import (
     driver_parts,
@@ -292,9 +292,9 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
 
 
 def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | BaseException], None]) -> None:
-    """Compute the rows of lakes that share a window plan in one pass, and hand each lake's rows to ``done``
-    as soon as they are complete (so only about one lake's rows are held at a time). A failure of the pass
-    computes the lakes one by one, so only the lake at fault fails."""
+    """Compute the rows of lakes that share a window plan in one pass, chunk by chunk, and hand each lake's
+    rows to ``done`` as soon as they are complete (so about one chunk of rows is held at a time). A failure
+    of the pass computes the lakes not yet handed on one by one, so only the lake at fault fails."""
     series: list[Series] = []
     owner: list[int] = []
     for i, job in enumerate(jobs):
@@ -307,30 +307,43 @@ def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | Ba
         if i not in last:  # no series (cannot happen: one driver frame at least); nothing to write
             done(job, FeatureError(f"lake {job.project.id!r}: no feature series to compute"))
     opts = jobs[0].project.lake.features
+    pieces: dict[int, list[pa.Table]] = {i: [] for i in last}  # rows of the lakes not yet handed on
     try:
-        chunks = feature_block_many(
+        chunks = iter_feature_blocks(
             series, windows=jobs[0].plan.windows, stats=jobs[0].plan.stats,
             include_target_day=opts.include_target_day, max_missing_fraction=opts.max_missing_fraction,
         )  # fmt: skip
     except Exception as err:
-        if len(jobs) == 1:
-            done(jobs[0], err)
-            return
-        for job in jobs:
-            _compute([job], store, done)
+        _compute_alone(jobs, store, done, err)
         return
-    pieces: dict[int, list[pa.Table]] = {i: [] for i in last}
-    for chunk in chunks:
-        sizes = np.diff(chunk.bounds)
-        kinds = [jobs[owner[chunk.first + k]].project.lake.features.fold_kind for k in range(len(sizes))]
-        table = arrow_rows(chunk.block, np.repeat(np.array(kinds, dtype=object), sizes))
+    while True:
+        try:  # only the computation is guarded: an error raised by ``done`` (isolate=False) propagates
+            chunk = next(chunks, None)
+            if chunk is None:
+                return
+            sizes = np.diff(chunk.bounds)
+            kinds = [jobs[owner[chunk.first + k]].project.lake.features.fold_kind for k in range(len(sizes))]
+            table = arrow_rows(chunk.block, np.repeat(np.array(kinds, dtype=object), sizes))
+        except Exception as err:
+            _compute_alone([jobs[i] for i in sorted(pieces)], store, done, err)
+            return
         for k, n in enumerate(sizes):
-            g = chunk.first + k
-            i = owner[g]
-            pieces[i].append(table.slice(int(chunk.bounds[k]), int(n)))
-            if g == last[i]:
-                parts = pieces.pop(i)
-                done(jobs[i], parts[0] if len(parts) == 1 else pa.concat_tables(parts))
+            pieces[owner[chunk.first + k]].append(table.slice(int(chunk.bounds[k]), int(n)))
+        end = chunk.first + len(sizes)
+        for i in [i for i in sorted(pieces) if last[i] < end]:  # complete: hand the lake's rows on
+            parts = pieces.pop(i)
+            done(jobs[i], parts[0] if len(parts) == 1 else pa.concat_tables(parts))
+
+
+def _compute_alone(
+    jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | BaseException], None], err: Exception
+) -> None:
+    """After a failed shared pass: each lake on its own (a single lake gets the error)."""
+    if len(jobs) == 1:
+        done(jobs[0], err)
+        return
+    for job in jobs:
+        _compute([job], store, done)
 
 
 def build_features_many(
