@@ -1,11 +1,12 @@
 """Prefect flows over many lakes: ``refresh`` (incremental) and ``build_lake`` / ``onboard_lake`` (full backfill).
 
 Takes lake config files or folders of them and a store folder; returns one summary dict per lake and
-stores them in the ``run_summary`` table. Lakes fan out as coarse tasks (one per lake per stage) on a
-Dask cluster: a local one sized to the machine by default, or an existing one (``dask_address`` argument
-or ``dask_address:`` in sources.yaml). Each lake is isolated: its failure is recorded with the reason,
-its later stages are not run, and the other lakes go on. Only one run writes a store at a time
-(:func:`lakefeed.flows._runtime.store_lock`). Must not hold any science.
+stores them in the ``run_summary`` table. Lakes fan out as coarse tasks (one per lake per stage; the
+features stage, whose work lakes share, in tasks of up to 32 lakes) on a Dask cluster: a local one sized to
+the machine by default, or an existing one (``dask_address`` argument or ``dask_address:`` in sources.yaml).
+Each lake is isolated: its failure is recorded with the reason, its later stages are not run, and the other
+lakes go on. Only one run writes a store at a time (:func:`lakefeed.flows._runtime.store_lock`). Must not
+hold any science.
 
 What a refresh processes: the stages whose inputs changed (content hashes by source month,
 :mod:`lakefeed.flows._state`). The weather and target stages get the first day of the earliest changed

@@ -1,4 +1,5 @@
-"""Prefect tasks: coarse (one per lake per stage), each a single call into the library.
+"""Prefect tasks: coarse (one per lake per stage, or per group of lakes for a stage they share), each a
+single call into the library.
 
 Takes lake config paths and the store root (plain strings, so tasks serialise to Dask workers and
 their parameters never include open handles); returns plain dicts. Retries only transient I/O errors,
