@@ -149,7 +149,8 @@ def _rows_many(lakes: list[tuple[pd.DataFrame, pd.DataFrame]], cuts: list, bound
     for chunk in iter_feature_blocks(series, windows=WINDOWS, stats=stats, max_missing_fraction=FRAC):
         arrow = chunk.block.to_arrow()
         for i in range(len(chunk.bounds) - 1):
-            rows = arrow.slice(int(chunk.bounds[i]), int(chunk.bounds[i + 1] - chunk.bounds[i]))
+            lo, hi = int(chunk.bounds[i]), int(chunk.bounds[i + 1])
+            rows = arrow if (lo, hi) == (0, arrow.num_rows) else arrow.slice(lo, hi - lo)
             folds = folds_from_boundaries(rows["target_date"].to_numpy(), bounds[chunk.first + i])
             rows = rows.append_column("fold", pa.array(folds, pa.int16()))
             if keep:

@@ -327,9 +327,16 @@ def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | Ba
         except Exception as err:
             _compute_alone([jobs[i] for i in sorted(pieces)], store, done, err)
             return
-        for k, n in enumerate(sizes):
-            pieces[owner[chunk.first + k]].append(table.slice(int(chunk.bounds[k]), int(n)))
         end = chunk.first + len(sizes)
+        k = 0
+        while k < len(sizes):  # a lake's series are consecutive: one slice per lake and chunk (none when whole)
+            stop = k + 1
+            while stop < len(sizes) and owner[chunk.first + stop] == owner[chunk.first + k]:
+                stop += 1
+            lo, hi = int(chunk.bounds[k]), int(chunk.bounds[stop])
+            rows = table if (lo, hi) == (0, table.num_rows) else table.slice(lo, hi - lo)
+            pieces[owner[chunk.first + k]].append(rows)
+            k = stop
         for i in [i for i in sorted(pieces) if last[i] < end]:  # complete: hand the lake's rows on
             parts = pieces.pop(i)
             done(jobs[i], parts[0] if len(parts) == 1 else pa.concat_tables(parts))
