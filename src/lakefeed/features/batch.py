@@ -5,10 +5,10 @@ A series is the targets of one lake (one AOI or all) at one lead time with their
 their driver records are laid end to end, each target's window is gathered from its own record
 only (days outside it are missing, exactly as for one series), all windows are reduced in one
 call and the rows come out as one :class:`~lakefeed.features.pit.FeatureBlock` per chunk of
-series, converted to Arrow once. Per-call costs that do not depend on the number of rows (building hundreds of Arrow
-columns is about 0.5 ms for 570 columns, whatever the row count) are then paid once per batch,
-not once per lake, AOI and lead: a monthly refresh of a few new rows for many lakes costs about
-what one lake costs.
+series, which the caller converts to Arrow once. Per-call costs that do not depend on the number
+of rows (building 570 Arrow columns takes about 0.5 ms whatever the row count) are then paid once
+per chunk, not once per lake, AOI and lead: a monthly refresh of a few new rows for many lakes
+costs little more than one lake.
 
 Rows with the same drivers, target date, lead and forecast input are computed once (AOIs that
 share the lake's drivers are typically observed on the same scene dates). The rows of the block
