@@ -1,4 +1,5 @@
-"""Stage `features`: point-in-time feature rows, folds and sampling diagnostics of one lake.
+"""Stage `features`: point-in-time feature rows, folds and sampling diagnostics of one lake, or of many
+lakes computed together (:func:`build_features_many`; each lake read, checked and written on its own).
 
 Reads from the store ``target_daily`` (the accepted chlorophyll-a per AOI and date) and the
 driver tables that exist: ``drivers_daily`` (the zone named by ``features.driver_zone``:
