@@ -112,8 +112,6 @@ def bench_windows(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[float
 
 def _with_folds(block, bounds: list):
     """A feature block as the stage stores it: Arrow, folds from the frozen boundaries."""
-    import pyarrow as pa
-
     arrow = block.to_arrow()
     folds = folds_from_boundaries(arrow["target_date"].to_numpy(), bounds)
     return arrow.append_column("fold", pa.array(folds, pa.int16()))

@@ -14,10 +14,10 @@ import shutil
 import numpy as np
 import pandas as pd
 import pytest
+from forecast_setup import lake_zone_project, weather_targets_features
 
 import lakefeed.stages._forecast_refresh as fr
 import lakefeed.stages.forecast as fc
-from lakefeed.config import load_project
 from lakefeed.flows._state import stage_since
 from lakefeed.store import Store
 
@@ -27,25 +27,12 @@ TABLES = ("forecast_drivers_daily", "bias_adjustment", "forecast_evaluation", "f
 @pytest.fixture(scope="module")
 def prepared(small_sample, tmp_path_factory):
     """A store with weather, synthetic targets and hindcast features; a project reading a forecast folder."""
-    from lakefeed.stages.features import build_features
-    from lakefeed.stages.weather import build_weather
-
     base = tmp_path_factory.mktemp("fcrefresh")
     folder = base / "forecast"
     folder.mkdir()
-    project = load_project(next((small_sample / "config").glob("lake-*.yaml")))
-    lake = project.lake.model_copy(
-        update={"zones": project.lake.zones.model_copy(update={"aois": False, "catchment": False})}
-    )
-    src = project.sources.forecast.model_copy(update={"min_overlap_days": 30, "paths": [str(folder / "forecast_*.nc")]})
-    project = dataclasses.replace(project, lake=lake, sources=project.sources.model_copy(update={"forecast": src}))
+    project = lake_zone_project(small_sample, min_overlap_days=30, paths=[str(folder / "forecast_*.nc")])
     store = Store(base / "store")
-    build_weather(project, store)
-    first = pd.Timestamp(store.read_table("drivers_daily", project.id)["date"].min())
-    days = pd.date_range(first + pd.Timedelta(days=60), first + pd.Timedelta(days=330), freq="5D")
-    td = pd.DataFrame({"aoi": "intake", "date": days.date, "chla": 5 + np.arange(len(days)) % 7})
-    store.write_table("target_daily", project.id, td)
-    build_features(project, store)
+    weather_targets_features(project, store)
     files = sorted((small_sample / "forecast").glob("forecast_*.nc"))
     return project, base, folder, files
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
 import importlib.util
 import json
 from pathlib import Path
@@ -11,9 +10,9 @@ import numpy as np
 import pandas as pd
 import pytest
 import shapely
+from forecast_setup import lake_zone_project, weather_targets_features
 from typer.testing import CliRunner
 
-from lakefeed.config import load_project
 from lakefeed.config.sources import Accumulation, ForecastSource
 from lakefeed.exceptions import ExtractError, SourceError
 from lakefeed.extract.quantile_mapping import DEFAULT_KINDS
@@ -110,22 +109,9 @@ def sample_run(small_sample, tmp_path_factory):
 
     The reduced sample covers one year, so the minimum overlap is lowered to 30 days (the config's floor).
     """
-    from lakefeed.stages.features import build_features
-    from lakefeed.stages.weather import build_weather
-
-    project = load_project(next((small_sample / "config").glob("lake-*.yaml")))
-    lake = project.lake.model_copy(
-        update={"zones": project.lake.zones.model_copy(update={"aois": False, "catchment": False})}
-    )
-    src = project.sources.forecast.model_copy(update={"min_overlap_days": 30})
-    project = dataclasses.replace(project, lake=lake, sources=project.sources.model_copy(update={"forecast": src}))
+    project = lake_zone_project(small_sample, min_overlap_days=30)
     store = Store(tmp_path_factory.mktemp("fcstore"))
-    build_weather(project, store)
-    first = pd.Timestamp(store.read_table("drivers_daily", project.id)["date"].min())
-    days = pd.date_range(first + pd.Timedelta(days=60), first + pd.Timedelta(days=330), freq="5D")
-    td = pd.DataFrame({"aoi": "intake", "date": days.date, "chla": 5 + np.arange(len(days)) % 7})
-    store.write_table("target_daily", project.id, td)
-    build_features(project, store)
+    weather_targets_features(project, store)
     result = build_forecast(project, store)
     truth = json.loads((small_sample / "truth" / "truth.json").read_text())["forecast_bias"]["variables"]
     return project, store, result, truth

@@ -30,7 +30,7 @@ import pandas as pd
 
 from lakefeed.exceptions import FeatureError
 from lakefeed.features.pit import FeatureBlock, calendar_features, flag_strings, forecast_array, last_known
-from lakefeed.features.windows import WindowPlan, day_numbers, reduce_windows, to_daily
+from lakefeed.features.windows import WindowPlan, day_numbers, on_or_after, reduce_windows, to_daily
 
 __all__ = ["Chunk", "Series", "feature_block_many", "iter_feature_blocks"]
 
@@ -197,12 +197,14 @@ def _prepare(
         need: int | None = None
         if s.since is not None:
             at = int(np.datetime64(pd.Timestamp(s.since).date(), "D").astype(np.int64))
-            keep = _from_day(tdays, at)
+            keep = on_or_after(tdays, at)
             tdays = tdays[keep]
             need = at - (k_max + 1 + s.lead)  # the spill-over: the longest window and lead before it
-        key = id(s.drivers)
-        if key not in earliest or earliest[key] is not None:
-            earliest[key] = need if key not in earliest or need is None else min(need, earliest[key])  # type: ignore[type-var]
+        key = id(s.drivers)  # a frame shared by several series is laid out once, from the earliest day needed
+        if key not in earliest:
+            earliest[key] = need
+        elif earliest[key] is not None:
+            earliest[key] = None if need is None else min(need, earliest[key])  # type: ignore[type-var]
         selected.append((keep, tdays))
     segment_of: dict[int, int] = {}
     segments: list[_Segment] = []
@@ -233,13 +235,6 @@ def _prepare(
     if len(sources) >= 1 << (63 - _LEAD_BITS - _DAY_BITS):
         raise FeatureError(f"too many driver records in one batch ({len(sources)}); split the series")
     return prepared, segments, columns or []
-
-
-def _from_day(days: np.ndarray, at: int) -> slice | np.ndarray:
-    """Positions of the day numbers on or after ``at``: a slice when sorted, else indices."""
-    if len(days) < 2 or (days[1:] >= days[:-1]).all():
-        return slice(int(np.searchsorted(days, at, side="left")), None)
-    return np.flatnonzero(days >= at)
 
 
 def _segment(drivers: pd.DataFrame, earliest: int | None) -> tuple[_Segment, list[str]]:
@@ -276,11 +271,12 @@ def _block(
         at += len(segments[g])
     stacked = np.concatenate([*pieces, np.full((1, len(columns)), np.nan)]) if pieces else np.full((1, 0), np.nan)
     missing_row = at
-    n = sum(len(p.tdays) for p in prepared)
+    counts = [len(p.tdays) for p in prepared]
+    n = sum(counts)
     tdays = np.concatenate([p.tdays for p in prepared]) if prepared else np.zeros(0, np.int64)
-    lead = np.repeat(np.array([s.lead for s in series], dtype=np.int64), [len(p.tdays) for p in prepared])
-    seg = np.repeat(np.array([p.segment for p in prepared], dtype=np.int64), [len(p.tdays) for p in prepared])
-    src = np.repeat(np.array([p.source for p in prepared], dtype=np.int64), [len(p.tdays) for p in prepared])
+    lead = np.repeat(np.array([s.lead for s in series], dtype=np.int64), counts)
+    seg = np.repeat(np.array([p.segment for p in prepared], dtype=np.int64), counts)
+    src = np.repeat(np.array([p.source for p in prepared], dtype=np.int64), counts)
     first = np.array([s.first for s in segments], dtype=np.int64)
     length = np.array([len(s) for s in segments], dtype=np.int64)
     end = tdays - first[seg] + shift  # exclusive end of each window, on its own record

@@ -24,7 +24,7 @@ import pandas as pd
 
 from lakefeed.features.batch import Series, feature_block_many
 from lakefeed.features.pit import FeatureBlock
-from lakefeed.features.windows import as_dates, day_numbers
+from lakefeed.features.windows import as_dates, day_numbers, on_or_after
 
 __all__ = ["new_feature_block", "new_feature_rows", "prefix_digest", "refresh_feature_rows", "refresh_start"]
 
@@ -84,20 +84,9 @@ def new_feature_block(
     forecasts = options.pop("forecast_drivers", None)
     one = Series(targets, drivers, lead=lead, observations=targets, forecast_drivers=forecasts, since=since)  # type: ignore[arg-type]
     [chunk] = feature_block_many([one], windows=windows, **options)  # type: ignore[arg-type]
-    return replace(chunk.block, index=targets.index[_on_or_after(targets[_date_column(targets)], pd.Timestamp(since))])
-
-
-def _date_column(targets: pd.DataFrame) -> str:
-    return "target_date" if "target_date" in targets.columns else "date"
-
-
-def _on_or_after(dates: pd.Index | pd.Series, start: pd.Timestamp) -> slice | np.ndarray:
-    """Positions of the dates on or after ``start``: a slice when sorted (no copy of the mask), else indices."""
-    day = day_numbers(dates)
-    at = int(np.datetime64(start.date(), "D").astype(np.int64))
-    if len(day) < 2 or (day[1:] >= day[:-1]).all():
-        return slice(int(np.searchsorted(day, at, side="left")), None)
-    return np.flatnonzero(day >= at)
+    tdays = day_numbers(targets["target_date" if "target_date" in targets.columns else "date"])
+    at = int(np.datetime64(pd.Timestamp(since).date(), "D").astype(np.int64))
+    return replace(chunk.block, index=targets.index[on_or_after(tdays, at)])
 
 
 def refresh_feature_rows(

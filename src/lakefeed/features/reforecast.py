@@ -3,7 +3,8 @@
 Takes the targets (accepted chlorophyll-a per AOI and date), the observed daily drivers (indexed by
 local date) and daily forecast drivers (``issue_date``, ``date`` and driver columns, usually the
 bias-adjusted ones of :mod:`lakefeed.extract.forecast_evaluation`). Returns, for each lead h, the
-feature rows of :func:`lakefeed.features.pit.build_feature_rows` for issue date t - h: days on or
+feature rows of :func:`lakefeed.features.pit.build_feature_rows` for issue date t - h (all leads computed in
+one pass, :mod:`lakefeed.features.batch`): days on or
 before the issue date come from the observed drivers, days after it from the forecast issued on that
 date (so nothing after the issue is used, forecasts included), plus the persistence baseline at the
 issue date. Same columns as the hindcast rows, plus:
@@ -25,7 +26,7 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.exceptions import FeatureError
-from lakefeed.features.pit import build_feature_rows
+from lakefeed.features.batch import Series, iter_feature_blocks
 
 __all__ = ["forecast_days", "reforecast_rows"]
 
@@ -82,23 +83,16 @@ def reforecast_rows(
             "pass one zone and one adjustment at a time"
         )
     k_max = max(int(w) for w in windows)
-    blocks = []
-    for h in sorted({int(x) for x in leads}):
-        rows = build_feature_rows(
-            targets,
-            drivers,
-            lead=h,
-            windows=windows,
-            stats=stats,
-            include_target_day=include_target_day,
-            max_missing_fraction=max_missing_fraction,
-            forecast_drivers=forecast_drivers,
-            by=by,
-            value=value,
-        )
-        n = forecast_days(h, include_target_day=include_target_day)
-        at = rows.columns.get_loc("flags")
-        rows.insert(at, "forecast_days", np.int16(n))
-        rows.insert(at + 1, "forecast_fraction", min(n, k_max) / k_max)
-        blocks.append(rows)
-    return pd.concat(blocks, ignore_index=True)
+    lead_days = sorted({int(x) for x in leads})
+    # all leads in one pass: the drivers and the forecast cube are laid out once
+    series = [Series(targets, drivers, lead=h, forecast_drivers=forecast_drivers) for h in lead_days]
+    chunks = iter_feature_blocks(series, windows=windows, stats=stats, include_target_day=include_target_day,
+                                 max_missing_fraction=max_missing_fraction, by=by, value=value)  # fmt: skip
+    frames = [c.block.to_pandas() for c in chunks]
+    rows = frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)
+    days = np.array([forecast_days(h, include_target_day=include_target_day) for h in lead_days], dtype=np.int16)
+    n = np.repeat(days, len(targets))  # every lead has one row per target
+    at = rows.columns.get_loc("flags")
+    rows.insert(at, "forecast_days", n)
+    rows.insert(at + 1, "forecast_fraction", np.minimum(n, k_max) / k_max)
+    return rows

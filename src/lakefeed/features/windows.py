@@ -40,6 +40,7 @@ __all__ = [
     "default_statistics",
     "feature_name",
     "gather_windows",
+    "on_or_after",
     "reduce_windows",
     "to_daily",
     "window_features",
@@ -184,6 +185,13 @@ def day_numbers(values: object) -> np.ndarray:
     if isinstance(arr, np.ndarray) and arr.dtype.kind == "M":
         return arr.astype("datetime64[D]").astype(np.int64)
     return as_dates(values).to_numpy().astype("datetime64[D]").astype(np.int64)
+
+
+def on_or_after(days: np.ndarray, at: int) -> slice | np.ndarray:
+    """Positions of the day numbers on or after day number ``at``: a slice when sorted (no copy), else indices."""
+    if len(days) < 2 or (days[1:] >= days[:-1]).all():
+        return slice(int(np.searchsorted(days, at, side="left")), None)
+    return np.flatnonzero(days >= at)
 
 
 def as_dates(values: object) -> pd.DatetimeIndex:

@@ -140,9 +140,10 @@ class _Job:
         return out
 
     def batch_key(self) -> tuple:
-        """Lakes computed in one pass share the window plan and the window options."""
+        """Lakes computed in one pass share the window plan (driver columns, windows, statistics) and the
+        window options."""
         o = self.project.lake.features
-        return (id(self.plan), tuple(self.columns), o.include_target_day, o.max_missing_fraction)
+        return (self.plan.windows, tuple(self.plan.stats.items()), o.include_target_day, o.max_missing_fraction)
 
     def drivers_digest(self, day: object) -> str:
         """Fingerprint of the drivers up to ``day``; unknown (empty) when only the tail was read: the next

@@ -110,12 +110,10 @@ def read_entry(fs: Any, root: str, table: str, lake: str) -> dict[str, Any] | No
     return doc.get("entry")
 
 
-def read_manifest(fs: Any, root: str, *, shared: bool = False) -> dict[str, Any]:
+def read_manifest(fs: Any, root: str) -> dict[str, Any]:
     """The whole manifest: schema and package version, and ``tables`` -> lake -> entry (reads every entry
-    file: for listings and reports, not for one partition; see :func:`read_entry`).
-
-    The entries are shared with the cache (read-only); ``shared`` is accepted for callers of version 1.
-    """
+    file: for listings and reports, not for one partition; see :func:`read_entry`). The entries are shared
+    with the cache: read-only."""
     head = read_head(fs, root)
     out = {k: v for k, v in head.items() if k != "tables"}
     tables: dict[str, dict[str, Any]] = {t: dict(v) for t, v in head.get("tables", {}).items()}

@@ -374,7 +374,7 @@ class Store:
 
     def _present(self, table: str, lake: str, entry: Mapping[str, Any] | None) -> bool:
         part_dir = partition_path(self.path, table, lake)
-        names = live_parts(dict(entry) if entry else None, self.fs, part_dir)
+        names = live_parts(entry, self.fs, part_dir)
         return bool(names) and bool(self.fs.exists(f"{part_dir}/{names[0]}"))
 
     def tables(self) -> list[str]:

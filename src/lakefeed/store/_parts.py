@@ -25,7 +25,7 @@ import hashlib
 import os
 import time
 import uuid
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import pyarrow as pa
@@ -74,7 +74,7 @@ def pending_files(names: list[str]) -> list[str]:
     return sorted(n for n in names if n.startswith(".tmp-") and n.endswith(".pending"))
 
 
-def live_parts(entry: dict[str, Any] | None, fs: Any, part_dir: str) -> list[str]:
+def live_parts(entry: Mapping[str, Any] | None, fs: Any, part_dir: str) -> list[str]:
     """Names of the live parts: the manifest's list when it has one, else the folder's part files."""
     if entry and entry.get("parts"):
         return [p["file"] for p in entry["parts"]]
