@@ -2,7 +2,10 @@
 
 One module per subcommand; each parses arguments and calls :mod:`lakefeed.stages` or the
 library. Errors derived from :class:`lakefeed.exceptions.LakefeedError` are printed as one
-clear message and exit with status 1 (no traceback).
+clear message and exit with status 1; any other error is printed as one line too (what failed and
+that ``lakefeed --verbose ...`` shows the traceback). A Ctrl-C exits with 130. Commands that start
+processes (Prefect's temporary server, Dask workers, forked pools) run under
+:func:`lakefeed.cli.children.guard_children`, so none of them outlives the command.
 """
 
 from __future__ import annotations
@@ -15,6 +18,7 @@ from rich.markup import escape
 
 from lakefeed import __version__, show_versions
 from lakefeed.cli._app import app, err_console
+from lakefeed.cli.children import guard_children
 from lakefeed.exceptions import LakefeedError
 
 _COMMANDS = (
@@ -35,22 +39,66 @@ for _name in _COMMANDS:
     importlib.import_module(f"lakefeed.cli.{_name}")
 
 
+#: commands that may start other processes (servers, Dask workers, process pools)
+_STARTS_PROCESSES = frozenset({"build", "refresh", "demo", "schedule", "zonal", "scenes", "features", "forecast"})
+
+
+class _Options:
+    verbose = False
+
+
 @app.callback(invoke_without_command=True)
 def _root(
     version: bool = typer.Option(False, "--version", help="Print the version and exit."),
-    verbose: bool = typer.Option(False, "--verbose", help="With --version: versions of dependencies too."),
+    verbose: bool = typer.Option(
+        False, "--verbose", help="Show the full traceback of an error; with --version: versions of dependencies."
+    ),
 ) -> None:
+    _Options.verbose = verbose
     if version:
         typer.echo(show_versions() if verbose else f"lakefeed {__version__}")
         raise typer.Exit(0)
 
 
+def _command(argv: list[str]) -> str | None:
+    """The subcommand named on the command line (the first word that is not an option)."""
+    return next((a for a in argv if not a.startswith("-")), None)
+
+
+def _fail(err: BaseException, *, expected: bool) -> None:
+    if _Options.verbose:
+        import traceback
+
+        err_console.print(escape("".join(traceback.format_exception(err))), highlight=False)
+    name = type(err).__name__
+    text = escape(str(err)) or "(no message)"
+    if expected:
+        err_console.print(f"[bold red]error:[/] {name}: {text}", highlight=False)
+    else:
+        hint = "" if _Options.verbose else " Run again as `lakefeed --verbose ...` for the traceback."
+        err_console.print(
+            f"[bold red]error:[/] unexpected {name}: {text}.{hint} This is a lakefeed bug unless the message "
+            "names a file or setting of yours: please report it.",
+            highlight=False,
+        )
+
+
 def main() -> None:
     """Console-script entry point."""
+    if _command(sys.argv[1:]) in _STARTS_PROCESSES:
+        guard_children()
     try:
         app()
     except LakefeedError as err:
-        err_console.print(f"[bold red]error:[/] {type(err).__name__}: {escape(str(err))}", highlight=False)
+        _fail(err, expected=True)
+        sys.exit(1)
+    except KeyboardInterrupt:
+        err_console.print(
+            "[bold red]interrupted[/] by Ctrl-C: parts written so far are complete; run the command again to finish."
+        )
+        sys.exit(130)
+    except Exception as err:
+        _fail(err, expected=False)
         sys.exit(1)
 
 
