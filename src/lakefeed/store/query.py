@@ -15,10 +15,9 @@ from typing import Any
 import pandas as pd
 
 from lakefeed.exceptions import DamagedPartError, LakefeedWarning, StoreError
-from lakefeed.store._integrity import damaged, footer_problem, hash_problem
 from lakefeed.store._parquet import Store
-from lakefeed.store._parts import part_hashes
 from lakefeed.store._sql import check_read_only, lock_down, new_connection
+from lakefeed.store.verify import partition_damage
 
 __all__ = ["connect", "load_features", "query"]
 
@@ -33,11 +32,11 @@ def _files(store: Store, table: str, exclude: Collection[tuple[str, str]]) -> tu
     for lake in store.lakes(table):
         if (table, lake) in exclude:
             continue
-        parts = store.part_files(table, lake)
-        problems = [(f, p) for f in parts if (p := footer_problem(store.fs, f))]
+        problems = partition_damage(store, table, lake, deep=False)
         if problems:  # the whole partition is left out: part of a lake's rows would mislead
-            bad += [damaged(f, p) for f, p in problems]
+            bad += problems
             continue
+        parts = store.part_files(table, lake)
         files += parts if store.local else [store.fs.unstrip_protocol(f) for f in parts]
     return files, bad
 
@@ -90,17 +89,13 @@ def connect(store: Store, *, tables: list[str] | None = None, read_only: bool = 
 
 def _hash_damage(store: Store, tables: list[str], exclude: Collection[tuple[str, str]]) -> list[DamagedPartError]:
     """Parts whose bytes differ from the manifest's hash, over the partitions not yet excluded."""
-    out = []
-    for table in tables:
-        for lake in store.lakes(table):
-            if (table, lake) in exclude:
-                continue
-            hashes = part_hashes(store.entry(table, lake))
-            for path in store.part_files(table, lake):
-                sha = hashes.get(path.rsplit("/", 1)[-1])
-                if sha and (problem := hash_problem(store.fs, store.local, path, sha)):
-                    out.append(damaged(path, problem))
-    return out
+    return [
+        err
+        for table in tables
+        for lake in store.lakes(table)
+        if (table, lake) not in exclude
+        for err in partition_damage(store, table, lake)
+    ]
 
 
 def query(store: Store, sql: str) -> pd.DataFrame:
