@@ -170,10 +170,12 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
     except OSError as err:
         raise StoreError(_unwritable(root, err)) from None
     deadline = time.monotonic() + max(0.0, wait)
+    held = False
     try:
         while True:
             try:
                 fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+                held = True
                 break
             except BlockingIOError:
                 if time.monotonic() >= deadline:
@@ -194,12 +196,13 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
             raise StoreError(_unwritable(root, err)) from None
         yield path
     finally:
-        try:
-            fh.seek(0)
-            fh.truncate()
-            fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
-        except OSError:
-            pass
+        if held:  # a refused run must not clear the holder's note
+            try:
+                fh.seek(0)
+                fh.truncate()
+                fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
+            except OSError:
+                pass
         fh.close()
 
 
