@@ -160,7 +160,7 @@ def dask_task_runner(address: str | None = None, *, n_workers: int | None = None
     The local cluster is sized to the machine: one single-threaded worker process per CPU core (stages
     release the GIL little in pandas code, so processes beat threads), on loopback, no dashboard.
     """
-    from prefect_dask import DaskTaskRunner
+    from lakefeed.flows._dask import CleanDaskTaskRunner as DaskTaskRunner
 
     if address:
         return DaskTaskRunner(address=address)

@@ -164,3 +164,31 @@ def test_run_lock_on_a_store_that_cannot_be_written_is_one_line(tmp_path: Path, 
         with run_lock(tmp_path / "store"):
             pass
     assert "\n" not in str(err.value)
+
+
+@pytest.mark.parametrize(
+    ("patch", "words"),
+    [
+        ("access", "no write permission"),
+        ("readonly", "the file system is read-only"),
+        ("full", "the disk is full"),
+    ],
+)
+def test_a_read_only_or_full_store_is_refused_at_the_start(tmp_path: Path, monkeypatch, patch: str, words: str) -> None:
+    """What the operating system would report (simulated: the tests may run as root, who can write anywhere)."""
+    real = os.statvfs(tmp_path)
+
+    class Stat:
+        f_flag = real.f_flag | (os.ST_RDONLY if patch == "readonly" else 0)
+        f_bavail = 0 if patch == "full" else real.f_bavail
+        f_frsize = real.f_frsize
+
+    (tmp_path / "store").mkdir()
+    if patch == "access":
+        monkeypatch.setattr("os.access", lambda *a, **k: False)
+    else:
+        monkeypatch.setattr("os.statvfs", lambda *a: Stat())
+    with pytest.raises(StoreError, match=words) as err:
+        with run_lock(tmp_path / "store"):
+            pass
+    assert "\n" not in str(err.value) and str(tmp_path / "store") in str(err.value)

@@ -166,6 +166,7 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
     path = os.path.join(os.fspath(root), RUN_LOCK_NAME)
     try:
         os.makedirs(os.fspath(root), exist_ok=True)
+        _check_writable(os.fspath(root))
         fh = open(path, "a+")
     except OSError as err:
         raise StoreError(_unwritable(root, err)) from None
@@ -204,6 +205,23 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
             except OSError:
                 pass
         fh.close()
+
+
+#: Free space below which a run is refused at the start (a write would fail part-way).
+MIN_FREE_BYTES = 1 << 20
+
+
+def _check_writable(root: str) -> None:
+    """Raise the OSError a write would raise later: a read-only or unwritable folder, or a full disk."""
+    import errno
+
+    if not os.access(root, os.W_OK):
+        raise OSError(errno.EACCES, "Permission denied", root)
+    st = os.statvfs(root)
+    if st.f_flag & os.ST_RDONLY:
+        raise OSError(errno.EROFS, "Read-only file system", root)
+    if st.f_bavail * st.f_frsize < MIN_FREE_BYTES:
+        raise OSError(errno.ENOSPC, "No space left on device", root)
 
 
 def _unwritable(root: str | os.PathLike[str], err: OSError) -> str:
