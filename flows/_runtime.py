@@ -12,19 +12,13 @@ ships with every task, so workers do not each try to start a server of their own
 from __future__ import annotations
 
 import contextlib
-import fcntl
 import importlib
 import json
 import os
-import socket
-import time
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass
-from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from lakefeed.exceptions import StoreError
 from lakefeed.stages._result import Progress, StageResult
 
 __all__ = [
@@ -166,7 +160,7 @@ def dask_task_runner(address: str | None = None, *, n_workers: int | None = None
     The local cluster is sized to the machine: one single-threaded worker process per CPU core (stages
     release the GIL little in pandas code, so processes beat threads), on loopback, no dashboard.
     """
-    from prefect_dask import DaskTaskRunner
+    from lakefeed.flows._dask import CleanDaskTaskRunner as DaskTaskRunner
 
     if address:
         return DaskTaskRunner(address=address)
@@ -186,51 +180,18 @@ def dask_task_runner(address: str | None = None, *, n_workers: int | None = None
 # --- one refresh at a time per store ------------------------------------------------------------------------
 
 
-@dataclass
-class _Holder:
-    pid: int
-    host: str
-    started: str
-
-
 @contextlib.contextmanager
 def store_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "refresh") -> Iterator[Path]:
-    """Hold the store's write lock (``<store>/.run.lock``) for the duration of a run.
+    """Hold the store's run lock (``<store>/.run.lock``) for the duration of a run.
 
-    A second run on the same store waits up to ``wait`` seconds, then refuses with :class:`StoreError`
-    naming the holder. The lock is an OS file lock: it is released when the holding process dies.
+    A second run, or a command that writes (``features``, ``forecast``, ``verify --repair``), on the same
+    store waits up to ``wait`` seconds, then refuses with :class:`StoreError` naming the holder
+    (:func:`lakefeed.store.run_lock`). The lock is an OS file lock: it is released when the holding process dies.
     """
-    root = Path(root)
-    root.mkdir(parents=True, exist_ok=True)
-    path = root / ".run.lock"
-    fh = open(path, "a+")
-    deadline = time.monotonic() + max(0.0, wait)
-    try:
-        while True:
-            try:
-                fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-                break
-            except BlockingIOError:
-                if time.monotonic() >= deadline:
-                    fh.seek(0)
-                    holder = fh.read().strip() or "unknown process"
-                    raise StoreError(
-                        f"store {root} is in use by another run ({holder}); two runs must not write one store at "
-                        f"once. Wait for it to finish, or pass a longer --wait (waited {wait:g} s)."
-                    ) from None
-                time.sleep(0.2)
-        fh.seek(0)
-        fh.truncate()
-        info = _Holder(os.getpid(), socket.gethostname(), datetime.now(UTC).isoformat(timespec="seconds"))
-        fh.write(f"{what}: pid {info.pid} on {info.host} since {info.started}")
-        fh.flush()
-        yield path
-    finally:
-        with contextlib.suppress(OSError):
-            fh.seek(0)
-            fh.truncate()
-            fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
-        fh.close()
+    from lakefeed.store import run_lock
+
+    with run_lock(root, wait=wait, what=what) as path:
+        yield Path(path)
 
 
 def write_json_atomic(path: Path, data: Any) -> None:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 __all__ = [
     "ConfigError",
+    "DamagedPartError",
     "ExtractError",
     "FeatureError",
     "GeometryError",
@@ -54,6 +55,20 @@ class FeatureError(LakefeedError):
 
 class StoreError(LakefeedError):
     """The store cannot be read or written safely."""
+
+
+class DamagedPartError(StoreError):
+    """A store part file does not match its manifest (content hash) or is not valid Parquet.
+
+    ``table``, ``lake`` and ``path`` name the partition and the file; ``problem`` says what is wrong.
+    """
+
+    def __init__(self, table: str, lake: str, path: str, problem: str) -> None:
+        self.table, self.lake, self.path, self.problem = table, lake, path, problem
+        super().__init__(
+            f"store part {path} (table {table}, lake {lake}) is damaged: {problem}. Run `lakefeed verify --store "
+            "<store> --repair <lake config>` to rebuild it from the sources"
+        )
 
 
 class LakefeedWarning(UserWarning):

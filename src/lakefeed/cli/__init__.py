@@ -34,6 +34,7 @@ _COMMANDS = (
     "onboard",
     "schedule",
     "report",
+    "verify",
 )
 for _name in _COMMANDS:
     importlib.import_module(f"lakefeed.cli.{_name}")

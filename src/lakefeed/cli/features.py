@@ -12,13 +12,14 @@ files into one. Prints the diagnostics as a rich table. Holds no science.
 
 from __future__ import annotations
 
+from contextlib import AbstractContextManager, nullcontext
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import typer
 
 from lakefeed.cli._app import app, console
-from lakefeed.exceptions import ConfigError
+from lakefeed.exceptions import ConfigError, LakefeedError
 
 if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
     import pandas as pd
@@ -27,7 +28,7 @@ if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CL
     from lakefeed.config import Project
     from lakefeed.store import Store
 
-__all__ = ["diagnostics_table", "features", "store_for"]
+__all__ = ["diagnostics_table", "features", "held", "store_for"]
 
 
 def store_for(project: Project, store: str | None) -> Store:
@@ -40,6 +41,41 @@ def store_for(project: Project, store: str | None) -> Store:
             f"{project.sources_file}: no store given; pass --store DIR or set 'store:' in the sources configuration"
         )
     return Store(root)
+
+
+def held(store: Store, *, what: str, wait: float = 0.0) -> AbstractContextManager[object]:
+    """The store's run lock for a command that writes (a local store; other filesystems: each write's own
+    lock only), so that it never interleaves with a build, a refresh or another writing command."""
+    from lakefeed.store import run_lock
+
+    return run_lock(store.path, wait=wait, what=what) if store.local else nullcontext()
+
+
+def _content(store: Store, lake: str) -> str | None:
+    return (store.entry("features", lake) or {}).get("content_hash")
+
+
+def _reforecast(store: Store, projects: list[Project], results: dict[str, object]) -> list[str]:
+    """Rerun the forecast stage for lakes whose feature table the features stage rewrote and whose forecast
+    stage had run: its re-forecast rows (leads > 0) live in the same table and a rewrite drops them (the
+    flows do the same: forecast runs whenever features did). Returns the lakes whose forecast stage failed."""
+    from lakefeed.stages.forecast import build_forecast
+
+    failed = []
+    for project in projects:
+        if isinstance(results.get(project.id), Exception) or project.sources.forecast is None:
+            continue
+        if not store.has_table("forecast_drivers_daily", project.id):
+            continue
+        try:
+            out = build_forecast(project, store)
+        except LakefeedError as err:
+            console.print(f"[red]{project.id}: re-forecast rows not restored[/]: {err}", highlight=False)
+            failed.append(project.id)
+            continue
+        console.print(f"{project.id}: forecast stage rerun: {out.tables.get('features', 0)} feature rows with "
+                      "re-forecast leads")  # fmt: skip
+    return failed
 
 
 def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
@@ -89,15 +125,20 @@ def features(
         stores.setdefault(st.url, (st, []))[1].append(project)
     failed = []
     for st, group in stores.values():
-        results = build_features_many(group, st, full=full, rebalance_folds=rebuild)
+        with held(st, what="features"):
+            before = {p.id: _content(st, p.id) for p in group}
+            results = build_features_many(group, st, full=full, rebalance_folds=rebuild)
+            failed += _reforecast(st, [p for p in group if _content(st, p.id) != before[p.id]], results)
+            if compact:
+                for project in group:
+                    if not isinstance(results[project.id], Exception) and st.has_table("features", project.id):
+                        st.compact("features", project.id)
         for project in group:
             result = results[project.id]
             if isinstance(result, Exception):
                 failed.append(project.id)
                 console.print(f"[red]{project.id}: features failed[/]: {result}", highlight=False)
                 continue
-            if compact and st.has_table("features", project.id):
-                st.compact("features", project.id)
             if result.skipped:
                 console.print(f"[yellow]{project.id}: features skipped[/]: {result.reason}")
                 continue
@@ -110,6 +151,7 @@ def features(
             for w in result.warnings:
                 console.print(f"[yellow]warning:[/] {w}", highlight=False)
     if failed:
+        failed = sorted(set(failed))
         console.print(
             f"[red]features failed for {len(failed)} lake(s): {', '.join(failed)}[/] (the others are written)"
         )

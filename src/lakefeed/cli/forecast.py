@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING
 import typer
 
 from lakefeed.cli._app import app, console
-from lakefeed.cli.features import store_for
+from lakefeed.cli.features import held, store_for
 
 if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
     import pandas as pd
@@ -68,7 +68,8 @@ def forecast(
 
     for project in load_projects(list(configs)):
         st = store_for(project, store)
-        result = build_forecast(project, st)
+        with held(st, what="forecast"):
+            result = build_forecast(project, st)
         if result.skipped:
             console.print(f"[yellow]{project.id}: forecast skipped[/]: {result.reason}")
             continue

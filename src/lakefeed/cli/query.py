@@ -1,8 +1,11 @@
-"""`lakefeed query "SQL" [--store DIR] [--csv]`: SQL over the store through DuckDB.
+"""`lakefeed query "SQL" [--store DIR] [--csv]`: one read-only SQL statement over the store through DuckDB.
 
 Every store table is a view by its name (Hive-partitioned, so ``lake`` is a column), e.g.
-``lakefeed query "SELECT aoi, count(*) FROM features GROUP BY aoi" --store store``. Prints a rich
-table, or CSV with ``--csv``. Holds no science; never writes to the store.
+``lakefeed query "SELECT aoi, count(*) FROM features GROUP BY aoi" --store store``. Accepts one
+SELECT / WITH / DESCRIBE / SHOW / SUMMARIZE / EXPLAIN statement and runs it on a connection that can
+read only the store's part files (:func:`lakefeed.store.query`); anything else is refused. Lakes with a
+damaged part file are left out and named on stderr. Prints a rich table, or CSV with ``--csv``. Holds no
+science; never writes to the store.
 """
 
 from __future__ import annotations
@@ -10,9 +13,10 @@ from __future__ import annotations
 import sys
 
 import typer
+from rich.markup import escape
 from rich.table import Table
 
-from lakefeed.cli._app import app, console
+from lakefeed.cli._app import app, console, err_console
 from lakefeed.exceptions import StoreError
 
 __all__ = ["query_command"]
@@ -20,12 +24,16 @@ __all__ = ["query_command"]
 
 @app.command("query")
 def query_command(
-    sql: str = typer.Argument(..., help="SQL; store tables are views by name (features, diagnostics, ...)."),
+    sql: str = typer.Argument(
+        ...,
+        help="One read-only statement (SELECT, WITH, DESCRIBE, SHOW, SUMMARIZE, EXPLAIN); store tables are "
+        "views by name (features, diagnostics, ...).",
+    ),
     store: str = typer.Option("store", "--store", help="Store folder or fsspec URL."),
     csv: bool = typer.Option(False, "--csv", help="Print CSV instead of a table."),
     limit: int = typer.Option(200, "--max-rows", min=1, help="Rows shown in the table view (CSV prints all)."),
 ) -> None:
-    """Run SQL over the store's tables through DuckDB."""
+    """Run one read-only SQL statement over the store's tables through DuckDB."""
     from lakefeed.store import Store, query
 
     st = Store(store)
@@ -33,6 +41,10 @@ def query_command(
         st.check_version()
         raise StoreError(f"store {store!r} holds no tables; build some first (e.g. lakefeed demo DIR)")
     frame = query(st, sql)
+    for message in frame.attrs.get("damaged", []):
+        err_console.print(
+            f"[yellow]warning:[/] {escape(message)}; this lake is left out of the answer", highlight=False
+        )
     if csv:
         frame.to_csv(sys.stdout, index=False)
         return

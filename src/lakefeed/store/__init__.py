@@ -7,25 +7,34 @@ package version, config hash, input content hashes, time range and live part fil
 partition) and a writer lock; reads them
 back with their units. A full write gives one part (``part-0.parquet``); an incremental refresh
 appends one part (``part-<first date>.parquet``) or rewrites the last one
-(:meth:`Store.append_arrow`); :meth:`Store.compact` merges them. Must not compute any science.
+(:meth:`Store.append_arrow`); :meth:`Store.compact` merges them. Parts are checked against their
+manifest hash when read or extended, and :func:`verify_store` checks a whole store. :func:`query` runs one
+read-only statement on a DuckDB connection locked to the store's part files. Must not compute any science.
 """
 
 from lakefeed.store._fs import file_digest
+from lakefeed.store._lock import run_lock
 from lakefeed.store._manifest import SCHEMA_VERSION
 from lakefeed.store._parquet import Store, read_descriptions, read_units
+from lakefeed.store._sql import check_read_only
 from lakefeed.store.layout import TABLES, partition_path, table_path
 from lakefeed.store.query import connect, load_features, query
+from lakefeed.store.verify import partition_damage, verify_store
 
 __all__ = [
     "SCHEMA_VERSION",
     "TABLES",
     "Store",
+    "check_read_only",
     "connect",
     "file_digest",
     "load_features",
+    "partition_damage",
     "partition_path",
     "query",
     "read_descriptions",
     "read_units",
+    "run_lock",
     "table_path",
+    "verify_store",
 ]

@@ -1,6 +1,13 @@
-"""A store-wide writer lock, so two writers on one store never interleave.
+"""Store locks: a run lock (one run or writing command per store) and a writer lock (one write at a time).
 
-Local stores use ``fcntl.flock`` on ``<store>/.lock`` (released by the OS if the writer
+:func:`run_lock` (``<store>/.run.lock``) is held for a whole run or command that writes (``build``,
+``refresh``, ``features``, ``forecast``, ``verify --repair``): a second one waits, then refuses naming the
+holder. It is an OS file lock, released when the holding process dies; it is not re-entrant (a second
+hold in the same process is refused too). A store that cannot be written gets one clear message here,
+before any work.
+
+:func:`store_lock` (``<store>/.lock``) is taken by every single store write. Local stores use
+``fcntl.flock`` on ``<store>/.lock`` (released by the OS if the writer
 dies) plus a per-process re-entrant lock (threads of one process, nested use). Other fsspec
 filesystems get an advisory lock file (created if absent, removed on release; a lock older
 than ``stale_after`` seconds is taken over). A second writer waits up to ``timeout`` seconds,
@@ -20,9 +27,10 @@ from typing import Any
 from lakefeed.exceptions import StoreError
 from lakefeed.store._fs import is_local
 
-__all__ = ["LOCK_NAME", "store_lock"]
+__all__ = ["LOCK_NAME", "RUN_LOCK_NAME", "run_lock", "store_lock"]
 
 LOCK_NAME = ".lock"
+RUN_LOCK_NAME = ".run.lock"
 _REGISTRY: dict[str, list[Any]] = {}  # lock path -> [RLock, depth, fd]
 _REGISTRY_GUARD = threading.Lock()
 
@@ -132,3 +140,98 @@ def _release(fs: Any, path: str, fd: int | None) -> None:
             fs.rm(path)
         except (OSError, FileNotFoundError):
             pass
+
+
+@contextmanager
+def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "refresh") -> Iterator[str]:
+    """Hold a local store's run lock (``<root>/.run.lock``) for a whole run or writing command.
+
+    Parameters
+    ----------
+    root
+        Store folder (created if absent).
+    wait
+        Seconds to wait for another holder before refusing with :class:`StoreError` naming it.
+    what
+        What holds the lock (``refresh``, ``features``...), written into the lock file for the message.
+
+    Yields
+    ------
+    str
+        The lock file's path.
+    """
+    import fcntl
+    import socket
+
+    path = os.path.join(os.fspath(root), RUN_LOCK_NAME)
+    try:
+        os.makedirs(os.fspath(root), exist_ok=True)
+        _check_writable(os.fspath(root))
+        fh = open(path, "a+")
+    except OSError as err:
+        raise StoreError(_unwritable(root, err)) from None
+    deadline = time.monotonic() + max(0.0, wait)
+    held = False
+    try:
+        while True:
+            try:
+                fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+                held = True
+                break
+            except BlockingIOError:
+                if time.monotonic() >= deadline:
+                    fh.seek(0)
+                    holder = fh.read().strip() or "unknown process"
+                    raise StoreError(
+                        f"store {root} is in use by another run ({holder}); two runs must not write one store at "
+                        f"once. Wait for it to finish, or pass a longer --wait (waited {wait:g} s)."
+                    ) from None
+                time.sleep(0.2)
+        started = time.strftime("%Y-%m-%dT%H:%M:%S+00:00", time.gmtime())
+        try:
+            fh.seek(0)
+            fh.truncate()
+            fh.write(f"{what}: pid {os.getpid()} on {socket.gethostname()} since {started}")
+            fh.flush()
+        except OSError as err:
+            raise StoreError(_unwritable(root, err)) from None
+        yield path
+    finally:
+        if held:  # a refused run must not clear the holder's note
+            try:
+                fh.seek(0)
+                fh.truncate()
+                fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
+            except OSError:
+                pass
+        fh.close()
+
+
+#: Free space below which a run is refused at the start (a write would fail part-way).
+MIN_FREE_BYTES = 1 << 20
+
+
+def _check_writable(root: str) -> None:
+    """Raise the OSError a write would raise later: a read-only or unwritable folder, or a full disk."""
+    import errno
+
+    if not os.access(root, os.W_OK):
+        raise OSError(errno.EACCES, "Permission denied", root)
+    st = os.statvfs(root)
+    if st.f_flag & os.ST_RDONLY:
+        raise OSError(errno.EROFS, "Read-only file system", root)
+    if st.f_bavail * st.f_frsize < MIN_FREE_BYTES:
+        raise OSError(errno.ENOSPC, "No space left on device", root)
+
+
+def _unwritable(root: str | os.PathLike[str], err: OSError) -> str:
+    import errno
+
+    reasons = {errno.ENOSPC: "the disk is full", errno.EDQUOT: "the disk quota is exceeded",
+               errno.EROFS: "the file system is read-only", errno.EACCES: "no write permission",
+               errno.EPERM: "no write permission", errno.ENOTDIR: "a part of the path is a file"}  # fmt: skip
+    why = reasons.get(err.errno or 0)
+    return (
+        f"store {os.fspath(root)!r} cannot be written ({why or err.strerror or err}: {err.filename or root}); "
+        "free space, fix its permissions or choose another folder (--store DIR or 'store:' in sources.yaml)"
+    )

@@ -37,6 +37,7 @@ import pyarrow.parquet as pq
 
 from lakefeed.exceptions import StoreError
 from lakefeed.store._fs import is_local, resolve
+from lakefeed.store._integrity import read_checked
 from lakefeed.store._lock import store_lock
 from lakefeed.store._manifest import read_entry, read_head, read_manifest, write_entry
 from lakefeed.store._meta import (
@@ -50,11 +51,12 @@ from lakefeed.store._meta import (
 )
 from lakefeed.store._parts import (
     BASE,
-    _read_one,
     date_part_name,
+    ensure_intact,
     folder_names,
     glob_parts,
     live_parts,
+    part_hashes,
     pending_files,
     read_parts,
     write_file,
@@ -279,6 +281,7 @@ class Store:
                 return self._rewrite(table, lake, [(since, arrow)], **kw)  # a store without part list: merge
             if not parts or not self.fs.exists(f"{part_dir}/{parts[0]['file']}"):
                 return self.write_arrow(table, lake, arrow, **kw)  # type: ignore[arg-type]
+            ensure_intact(self.fs, self.local, part_dir, entry)  # never extend a damaged partition
             if list(entry.get("columns", [])) != arrow.column_names:
                 raise StoreError(
                     f"cannot append to {table}/lake={lake}: columns differ from the stored ones; rewrite it in full"
@@ -293,7 +296,7 @@ class Store:
                 return self._rewrite(table, lake, [(since, arrow)], **kw)
             if after:  # the last part holds spill-over rows: keep its rows before `since`, add the new ones
                 name = parts[-1]["file"]
-                old = _read_one(self.fs, self.local, f"{part_dir}/{name}", None)
+                old = read_checked(self.fs, self.local, f"{part_dir}/{name}", part_hashes(entry).get(name), None)
                 tcol = old[time_column]
                 kept = old.filter(pc.less(tcol, _bound(since, tcol.type)))
                 arrow = pa.concat_tables([kept, arrow.cast(kept.schema)])
@@ -395,7 +398,10 @@ class Store:
         return files[0] if files else f"{partition_path(self.path, table, lake)}/{BASE}"
 
     def num_rows(self, table: str, lake: str) -> int:
-        """Rows of a partition over all its part files (from the Parquet footers)."""
+        """Rows of a partition over all its part files (from the manifest's part list, else the Parquet footers)."""
+        parts = (self.entry(table, lake) or {}).get("parts")
+        if parts and all("rows" in p for p in parts):
+            return int(sum(p["rows"] for p in parts))
         total = 0
         for path in self.part_files(table, lake):
             with self.fs.open(path, "rb") as f:

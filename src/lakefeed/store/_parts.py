@@ -31,14 +31,17 @@ from typing import Any
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from lakefeed.exceptions import StoreError
+from lakefeed.exceptions import DamagedPartError, StoreError
+from lakefeed.store._integrity import damaged, hash_problem, mark_verified, read_checked
 
 __all__ = [
     "BASE",
     "date_part_name",
+    "ensure_intact",
     "folder_names",
     "glob_parts",
     "live_parts",
+    "part_hashes",
     "pending_files",
     "read_parts",
     "write_file",
@@ -104,6 +107,7 @@ def write_file(
             final = f"{part_dir}/{name(digest)}"
         if local:
             os.replace(tmp, final)
+            mark_verified(fs, local, final, digest)
         else:
             fs.mv(tmp, final)
     except BaseException as err:
@@ -126,12 +130,18 @@ def _digest(fs: Any, path: str) -> str:
     return h.hexdigest()
 
 
-def _read_one(fs: Any, local: bool, path: str, columns: Sequence[str] | None) -> pa.Table:
-    cols = list(columns) if columns else None
-    if local:
-        return pq.read_table(path, columns=cols)
-    with fs.open(path, "rb") as f:
-        return pq.read_table(f, columns=cols)
+def part_hashes(entry: Mapping[str, Any] | None) -> dict[str, str]:
+    """Part file name -> SHA-256 recorded in a manifest entry (empty for stores without a part list)."""
+    return {p["file"]: p["sha256"] for p in (entry or {}).get("parts") or [] if p.get("sha256")}
+
+
+def ensure_intact(fs: Any, local: bool, part_dir: str, entry: Mapping[str, Any] | None) -> None:
+    """Raise :class:`DamagedPartError` for the first live part whose bytes differ from the manifest's hash
+    (files verified before in this process and unchanged since are not read again)."""
+    for name, sha in part_hashes(entry).items():
+        problem = hash_problem(fs, local, f"{part_dir}/{name}", sha)
+        if problem:
+            raise damaged(f"{part_dir}/{name}", problem)
 
 
 def read_parts(
@@ -161,11 +171,17 @@ def read_parts(
             names = names or [entry["parts"][-1]["file"]]  # an empty table of the right schema
         if not names:
             return None, entry
+        hashes = part_hashes(entry)
         try:
-            tables = [_read_one(fs, local, f"{part_dir}/{n}", columns) for n in names]
+            tables = [read_checked(fs, local, f"{part_dir}/{n}", hashes.get(n), columns) for n in names]
         except FileNotFoundError:
             time.sleep(0.01)
             continue
+        except DamagedPartError as err:  # damaged, unless a writer replaced the file since the manifest was read
+            name = err.path.rsplit("/", 1)[-1]
+            if part_hashes(entry_of()).get(name) != hashes.get(name):
+                continue
+            raise
         if len(tables) == 1:
             return tables[0], entry
         return pa.concat_tables(tables, promote_options="default"), entry

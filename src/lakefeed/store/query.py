@@ -8,62 +8,136 @@ table as pandas with its units. Must not write to the store.
 from __future__ import annotations
 
 import re
+import warnings
+from collections.abc import Collection
 from typing import Any
 
 import pandas as pd
 
-from lakefeed.exceptions import StoreError
+from lakefeed.exceptions import DamagedPartError, LakefeedWarning, StoreError
 from lakefeed.store._parquet import Store
+from lakefeed.store._sql import check_read_only, lock_down, new_connection
+from lakefeed.store.verify import partition_damage
 
 __all__ = ["connect", "load_features", "query"]
 
 _IDENT = re.compile(r"^[a-z][a-z0-9_]*$")
 
 
-def _files(store: Store, table: str) -> list[str]:
-    """The live part files of every lake of a table (the manifest's lists: a consistent snapshot)."""
-    files = [f for lake in store.lakes(table) for f in store.part_files(table, lake)]
-    return files if store.local else [store.fs.unstrip_protocol(f) for f in files]
+def _files(store: Store, table: str, exclude: Collection[tuple[str, str]]) -> tuple[list[str], list[DamagedPartError]]:
+    """The live part files of every lake of a table (the manifest's lists: a consistent snapshot), leaving out
+    the partitions in ``exclude`` and those with a part whose Parquet footer is damaged (returned apart)."""
+    files: list[str] = []
+    bad: list[DamagedPartError] = []
+    for lake in store.lakes(table):
+        if (table, lake) in exclude:
+            continue
+        problems = partition_damage(store, table, lake, deep=False)
+        if problems:  # the whole partition is left out: part of a lake's rows would mislead
+            bad += problems
+            continue
+        parts = store.part_files(table, lake)
+        files += parts if store.local else [store.fs.unstrip_protocol(f) for f in parts]
+    return files, bad
 
 
-def connect(store: Store, *, tables: list[str] | None = None) -> Any:
+def _open(
+    store: Store, tables: list[str] | None, *, read_only: bool, exclude: Collection[tuple[str, str]] = ()
+) -> tuple[Any, list[DamagedPartError]]:
+    store.check_version()  # refuses newer schema versions
+    con = new_connection()
+    if not store.local:
+        con.register_filesystem(store.fs)
+    allowed: list[str] = []
+    bad: list[DamagedPartError] = []
+    for name in tables or store.tables():
+        if not _IDENT.fullmatch(name):
+            continue
+        files, problems = _files(store, name, exclude)
+        bad += problems
+        if not files:
+            continue
+        allowed += files
+        listed = ", ".join("'" + f.replace("'", "''") + "'" for f in files)
+        con.execute(
+            f"CREATE VIEW {name} AS SELECT * FROM read_parquet([{listed}], hive_partitioning = true, "
+            "union_by_name = true)"
+        )
+    if read_only:
+        lock_down(con, allowed)
+    return con, bad
+
+
+def connect(store: Store, *, tables: list[str] | None = None, read_only: bool = True) -> Any:
     """An in-memory DuckDB connection with a view per store table (``SELECT * FROM features``).
 
     Views read the live part files ``<store>/<table>/lake=*/part-*.parquet`` listed in the manifest
     (so a write in progress is never half seen) with Hive partitioning; remote stores are read
     through the store's fsspec filesystem. A plain ``read_parquet('<store>/features/*/*.parquet',
     hive_partitioning = true)`` reads the same rows once no write is in progress.
-    """
-    import duckdb
 
-    store.check_version()  # refuses newer schema versions
-    con = duckdb.connect(":memory:")
-    if not store.local:
-        con.register_filesystem(store.fs)
-    for name in tables or store.tables():
-        if not _IDENT.fullmatch(name):
-            continue
-        files = ", ".join("'" + f.replace("'", "''") + "'" for f in _files(store, name))
-        if not files:
-            continue
-        con.execute(
-            f"CREATE VIEW {name} AS SELECT * FROM read_parquet([{files}], hive_partitioning = true, "
-            "union_by_name = true)"
-        )
+    ``read_only`` (default): the connection can read only those part files: it cannot write, attach,
+    export, install or load extensions, read other files or change its settings. Extension
+    auto-install and auto-load are off either way (no network). A lake whose part has a damaged
+    Parquet footer is left out of the views, with a :class:`LakefeedWarning` naming the file.
+    """
+    con, bad = _open(store, tables, read_only=read_only)
+    for err in bad:
+        warnings.warn(f"{err}; left out of the views", LakefeedWarning, stacklevel=2)
     return con
 
 
+def _hash_damage(store: Store, tables: list[str], exclude: Collection[tuple[str, str]]) -> list[DamagedPartError]:
+    """Parts whose bytes differ from the manifest's hash, over the partitions not yet excluded."""
+    return [
+        err
+        for table in tables
+        for lake in store.lakes(table)
+        if (table, lake) not in exclude
+        for err in partition_damage(store, table, lake)
+    ]
+
+
 def query(store: Store, sql: str) -> pd.DataFrame:
-    """Run SQL over the store's tables (as views by name) and return a pandas frame."""
+    """Run one read-only SQL statement over the store's tables (as views by name) and return a pandas frame.
+
+    Refuses (:class:`StoreError`) anything but one SELECT / WITH / DESCRIBE / SHOW / SUMMARIZE / EXPLAIN
+    statement, and runs it on a :func:`connect` connection that can read only the store's part files.
+    Lakes with a damaged part file are left out and named in ``frame.attrs['damaged']`` (one message
+    each): a Parquet footer check first, and, when DuckDB fails on a file, a content-hash check of
+    every part against the manifest, then one more try without the damaged lakes.
+    """
     import duckdb
 
-    con = connect(store)
-    try:
-        return con.execute(sql).fetchdf()
-    except duckdb.Error as err:
-        raise StoreError(f"query failed: {err}; tables in {store.url}: {', '.join(store.tables()) or 'none'}") from err
-    finally:
-        con.close()
+    statement = check_read_only(sql)
+    tables = store.tables()
+    bad: list[DamagedPartError] = []
+    retried = False
+    while True:  # at most twice: once more without the lakes a hash check finds damaged
+        exclude = {(e.table, e.lake) for e in bad}
+        con, found = _open(store, tables, read_only=True, exclude=exclude)
+        bad += found
+        try:
+            frame = con.execute(statement).fetchdf()
+            frame.attrs["damaged"] = [str(e) for e in bad]
+            return frame
+        except duckdb.PermissionException as err:
+            raise StoreError(
+                f"query refused: it reaches outside the store ({err}). lakefeed query reads only the store's "
+                "tables, by name (e.g. SELECT * FROM features)"
+            ) from err
+        except duckdb.Error as err:
+            more = [] if retried else _hash_damage(store, tables, exclude | {(e.table, e.lake) for e in bad})
+            if more:
+                bad += more
+                retried = True
+                continue
+            hint = "".join(f"; {e}" for e in bad)
+            raise StoreError(
+                f"query failed: {err}; tables in {store.url}: {', '.join(tables) or 'none'}{hint}"
+            ) from err
+        finally:
+            con.close()
 
 
 def load_features(store: Store | str, lake: str, aoi: str | None = None, *, lead: int | None = None) -> pd.DataFrame:
