@@ -266,6 +266,12 @@ def _print_summary(summaries: list[dict]) -> bool:
     return all(s["status"] != "failed" for s in summaries)
 
 
+_SHRINK_HELP = (
+    "Write even when a stage's new rows shorten a table's stored date range or turn stored values into missing "
+    "ones (a source file removed on purpose); without it such a lake fails and its tables stay as they were."
+)
+
+
 @app.command("build")
 def build_command(
     configs: list[Path] = typer.Argument(..., help="Lake YAML files or folders of them."),
@@ -274,6 +280,7 @@ def build_command(
     sequential: bool = typer.Option(False, "--sequential", help="No Dask: lakes one after the other here."),
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
     report: bool = typer.Option(True, "--report/--no-report", help="Write each lake's quality report."),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=_SHRINK_HELP),
 ) -> None:
     """Full build: validate, derive geometry and weights, backfill the whole record, write the reports."""
     from lakefeed.flows.refresh import build_lake
@@ -286,6 +293,7 @@ def build_command(
             sequential=sequential,
             wait=wait,
             report=report,
+            allow_shrink=allow_shrink,
         )
     if not _print_summary(summaries):
         raise typer.Exit(1)
@@ -298,6 +306,7 @@ def refresh_command(
     dask_address: str | None = typer.Option(None, "--dask-address", help="Existing Dask scheduler address."),
     sequential: bool = typer.Option(False, "--sequential", help="No Dask: lakes one after the other here."),
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=_SHRINK_HELP),
 ) -> None:
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
@@ -309,6 +318,7 @@ def refresh_command(
             dask_address=dask_address,
             sequential=sequential,
             wait=wait,
+            allow_shrink=allow_shrink,
         )
     if not _print_summary(summaries):
         raise typer.Exit(1)
