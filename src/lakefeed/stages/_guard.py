@@ -58,10 +58,22 @@ def _ranges(dates: pd.Series | pd.Index) -> str:
 
 
 def _label(groups: Sequence[str], key: object) -> str:
-    if not groups:
-        return ""
     values = key if isinstance(key, tuple) else (key,)
-    return " ".join(f"{g} {v}" for g, v in zip(groups, values, strict=True)) + ": "
+    return " ".join(f"{g} {v}" for g, v in zip(groups, values, strict=True))
+
+
+def _times(frame: pd.DataFrame, time_column: str) -> pd.Series:
+    """The dates of the rows of ``frame`` (indexed by its keys), from the index level or the column."""
+    values = frame.index.get_level_values(time_column) if time_column in frame.index.names else frame[time_column]
+    return pd.Series(pd.to_datetime(pd.Series(values)).to_numpy())
+
+
+def _merged(found: list[tuple[str, str]], what: str) -> list[str]:
+    """``(name, text)`` pairs as one line per text naming every name with it (``zone a, zone b: text``)."""
+    names: dict[str, list[str]] = {}
+    for name, text in found:
+        names.setdefault(text, []).append(name)
+    return [f"{what}{', '.join(ns)}: {t}" if any(ns) else t for t, ns in names.items()]
 
 
 def shrinkage(
@@ -94,28 +106,29 @@ def shrinkage(
         return []
     old = old.drop(columns=["lake"], errors="ignore")
     new = new.drop(columns=["lake"], errors="ignore")
-    problems: list[str] = []
+    ranges: list[tuple[str, str]] = []
     t_old, t_new = pd.to_datetime(old[time_column]), pd.to_datetime(new[time_column])
     by_old = t_old.groupby([old[g] for g in groups]) if groups else t_old.groupby(lambda _: "")
     by_new = dict(iter(t_new.groupby([new[g] for g in groups]))) if groups and len(new) else {}
     for key, dates in by_old:
         got = (by_new.get(key) if groups else t_new) if len(new) else None
-        label = _label(groups, key)
+        label = _label(groups, key) if groups else ""
         if got is None or got.empty:
-            problems.append(f"{label}all {len(dates)} row(s) of {_ranges(dates)} would be removed")
+            ranges.append((label, f"all {len(dates)} row(s) of {_ranges(dates)} would be removed"))
             continue
         lo, hi = got.min(), got.max()
         if lo > dates.min():
-            problems.append(f"{label}the record would start on {_day(lo)} instead of {_day(dates.min())} "
-                            f"(lost: {_ranges(dates[dates < lo])})")  # fmt: skip
+            ranges.append((label, f"the record would start on {_day(lo)} instead of {_day(dates.min())} "
+                                  f"(lost: {_ranges(dates[dates < lo])})"))  # fmt: skip
         if hi < dates.max():
-            problems.append(f"{label}the record would end on {_day(hi)} instead of {_day(dates.max())} "
-                            f"(lost: {_ranges(dates[dates > hi])})")  # fmt: skip
+            ranges.append((label, f"the record would end on {_day(hi)} instead of {_day(dates.max())} "
+                                  f"(lost: {_ranges(dates[dates > hi])})"))  # fmt: skip
+    problems = _merged(ranges, "")
     if new.empty:
         return problems
     a, b = old.set_index(list(keys)), new.set_index(list(keys))
     if complete:
-        t = pd.to_datetime(a.index.get_level_values(time_column))
+        t = _times(a, time_column)
         inside = (t >= t_new.min()) & (t <= t_new.max())
         gone = inside & ~a.index.isin(b.index)
         if gone.any():
@@ -123,13 +136,15 @@ def shrinkage(
     both = a.index.intersection(b.index)
     common = [c for c in a.columns if c in b.columns]
     if len(both) and common:
-        a, b = a.loc[both, common], b.loc[both, common]
-        t = pd.to_datetime(pd.Series(both.get_level_values(time_column)))
+        a, b = a.loc[both], b.loc[both, common]
+        t = _times(a, time_column)
+        a = a[common]
+        emptied = []
         for c in common:
             lost = (a[c].notna() & b[c].isna()).to_numpy()
             if lost.any():
-                problems.append(f"column {c}: {int(lost.sum())} valid value(s) would become missing on "
-                                f"{_ranges(t[lost])}")  # fmt: skip
+                emptied.append((c, f"{int(lost.sum())} valid value(s) would become missing on {_ranges(t[lost])}"))
+        problems += _merged(emptied, "column(s) ")
     return problems
 
 

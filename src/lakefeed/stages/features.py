@@ -33,7 +33,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from lakefeed.config import Project
-from lakefeed.exceptions import FeatureError
+from lakefeed.exceptions import ConfigError, FeatureError
 from lakefeed.features import (
     WindowPlan,
     refresh_start,
@@ -219,6 +219,9 @@ def _prepare(
     record = (min(i.min() for i in all_days), max(i.max() for i in all_days)) if all_days else (None, None)
     if mode == "tail":
         record = (pd.Timestamp(md["drivers_first"]), record[1])
+    if record[0] is not None and (too_long := opts.record_problems(record[0].date(), record[1].date(),
+                                                                   record="the stored driver record")):  # fmt: skip
+        raise ConfigError(f"{project.lake_file}: features cannot be built for lake {lake.id}", too_long)
     through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
     frozen = {}
     if prev and not rebalance_folds and md.get("fold_options") == fold_options(opts):
