@@ -47,3 +47,18 @@ def test_quality_bits_beyond_the_band_depth_are_a_problem(small_sample) -> None:
     assert len(bad) == 1
     assert bad[0].message.startswith("sensors.kite.bad_quality_bits: bit(s) [9, 12] outside the 8-bit quality band")
     assert "use bits 0..7" in bad[0].hint
+
+
+def test_check_command_refuses_windows_longer_than_the_record(mini: Path) -> None:
+    """The mini scenario's weather record is 4 days: the default 30-day windows are a problem line."""
+    import yaml
+    from typer.testing import CliRunner
+
+    from lakefeed.cli import app
+
+    cfg = yaml.safe_load(mini.read_text())
+    del cfg["features"]
+    mini.write_text(yaml.safe_dump(cfg))
+    result = CliRunner().invoke(app, ["check", str(mini)])
+    assert result.exit_code == 1
+    assert "the longest window (30 d) plus lead(s) [0] d do not fit in the record" in " ".join(result.output.split())

@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING
 
 import typer
 
-from lakefeed.cli._app import app, console
+from lakefeed.cli._app import SHRINK_HELP, app, console
 from lakefeed.exceptions import ConfigError
 
 if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
@@ -77,6 +77,7 @@ def features(
     full: bool = typer.Option(False, "--full", help="Recompute every row (folds stay as frozen)."),
     rebuild: bool = typer.Option(False, "--rebuild", help="Recompute every row and re-balance the fold blocks."),
     compact: bool = typer.Option(False, "--compact", help="Merge the feature table's part files into one."),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
 ) -> None:
     """Build point-in-time feature tables, folds and sampling diagnostics; print the diagnostics."""
     from lakefeed.config import load_projects
@@ -89,7 +90,7 @@ def features(
         stores.setdefault(st.url, (st, []))[1].append(project)
     failed = []
     for st, group in stores.values():
-        results = build_features_many(group, st, full=full, rebalance_folds=rebuild)
+        results = build_features_many(group, st, full=full, rebalance_folds=rebuild, allow_shrink=allow_shrink)
         for project in group:
             result = results[project.id]
             if isinstance(result, Exception):

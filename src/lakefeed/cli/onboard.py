@@ -18,7 +18,7 @@ import typer
 from rich.markup import escape
 from rich.table import Table
 
-from lakefeed.cli._app import app, console
+from lakefeed.cli._app import SHRINK_HELP, app, console
 from lakefeed.config.lake import SLUG
 from lakefeed.exceptions import ConfigError, GeometryError
 
@@ -266,12 +266,6 @@ def _print_summary(summaries: list[dict]) -> bool:
     return all(s["status"] != "failed" for s in summaries)
 
 
-_SHRINK_HELP = (
-    "Write even when a stage's new rows shorten a table's stored date range or turn stored values into missing "
-    "ones (a source file removed on purpose); without it such a lake fails and its tables stay as they were."
-)
-
-
 @app.command("build")
 def build_command(
     configs: list[Path] = typer.Argument(..., help="Lake YAML files or folders of them."),
@@ -280,7 +274,7 @@ def build_command(
     sequential: bool = typer.Option(False, "--sequential", help="No Dask: lakes one after the other here."),
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
     report: bool = typer.Option(True, "--report/--no-report", help="Write each lake's quality report."),
-    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=_SHRINK_HELP),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
 ) -> None:
     """Full build: validate, derive geometry and weights, backfill the whole record, write the reports."""
     from lakefeed.flows.refresh import build_lake
@@ -306,7 +300,7 @@ def refresh_command(
     dask_address: str | None = typer.Option(None, "--dask-address", help="Existing Dask scheduler address."),
     sequential: bool = typer.Option(False, "--sequential", help="No Dask: lakes one after the other here."),
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
-    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=_SHRINK_HELP),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
 ) -> None:
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
