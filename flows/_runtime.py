@@ -87,13 +87,20 @@ def get_progress() -> Progress | None:
 
 
 def run_stage(
-    stage: str, lake_file: str, store_root: str, *, progress: Progress | None = None, since: str | None = None
+    stage: str,
+    lake_file: str,
+    store_root: str,
+    *,
+    progress: Progress | None = None,
+    since: str | None = None,
+    allow_shrink: bool = False,
 ) -> StageResult:
     """Load the lake config and run one stage for it (the single library call a task makes).
 
     ``since`` (first day of the earliest changed source month) is passed to stages that take it (the
     weather stage: only the days from that month on are recomputed; the target stage: only those scenes are
-    read); None runs the stage in full.
+    read); None runs the stage in full. ``allow_shrink``: the stage writes even when its new rows would
+    lose stored dates or values (:mod:`lakefeed.stages._guard`); otherwise it refuses and fails.
     """
     from lakefeed.config import load_project
     from lakefeed.store import Store
@@ -102,15 +109,22 @@ def run_stage(
     project = load_project(lake_file)
     if stage not in stages:
         return StageResult(stage, project.id, skipped=True, reason=missing.get(stage, f"unknown stage {stage!r}"))
-    extra = {"since": since} if since is not None else {}
+    extra: dict[str, Any] = {"since": since} if since is not None else {}
+    if allow_shrink:
+        extra["allow_shrink"] = True
     return stages[stage](project, Store(store_root), progress=progress, **extra)
 
 
 def run_stage_many(
-    stage: str, lake_files: dict[str, str], store_root: str, *, progress: Progress | None = None
+    stage: str,
+    lake_files: dict[str, str],
+    store_root: str,
+    *,
+    progress: Progress | None = None,
+    allow_shrink: bool = False,
 ) -> dict[str, StageResult | Exception]:
     """Run a stage of :data:`STAGES_MANY` for many lakes in one call; lake id -> its result, or the
-    exception that stopped that lake (the other lakes go on)."""
+    exception that stopped that lake (the other lakes go on); ``allow_shrink`` as for :func:`run_stage`."""
     from lakefeed.config import load_project
     from lakefeed.store import Store
 
@@ -123,7 +137,8 @@ def run_stage_many(
             projects.append(load_project(lake_file))
         except Exception as err:  # this lake's configuration: reported for it alone
             out[lake] = err
-    out.update(fn(projects, Store(store_root), progress=progress, isolate=True))
+    extra = {"allow_shrink": True} if allow_shrink else {}
+    out.update(fn(projects, Store(store_root), progress=progress, isolate=True, **extra))
     return {lake: out[lake] for lake in lake_files if lake in out}
 
 

@@ -65,11 +65,17 @@ def _error_text(err: BaseException) -> str:
 
 @flow(name="process-lakes", log_prints=True)
 def process_lakes(
-    lakes: dict[str, str], store_root: str, *, full: bool = False, stages: list[str] | None = None
+    lakes: dict[str, str],
+    store_root: str,
+    *,
+    full: bool = False,
+    stages: list[str] | None = None,
+    allow_shrink: bool = False,
 ) -> list[dict[str, Any]]:
     """Run the stages each lake needs, stage by stage across lakes; one summary dict per lake.
 
-    ``lakes`` maps lake id to its config file; ``stages`` limits the stages (default: all that exist).
+    ``lakes`` maps lake id to its config file; ``stages`` limits the stages (default: all that exist);
+    ``allow_shrink``: stages write even when their new rows lose stored dates or values (else they fail).
     """
     logger = get_run_logger()
     found, missing = available_stages()
@@ -107,7 +113,7 @@ def process_lakes(
         rec[lake].update(status="unchanged", skipped=["no new or changed source months"])
     for stage in order:
         todo = [lake for lake in sorted(alive) if stage in plans[lake]["stages"]]
-        for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans).items():
+        for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans, allow_shrink).items():
             try:
                 result = outcome.result() if not isinstance(outcome, dict) else outcome
             except Exception as err:
@@ -154,15 +160,20 @@ _LAKES_PER_TASK = 32  # lakes of one task of a stage that shares work between la
 
 
 def _run_stage(
-    stage: str, todo: list[str], lakes: dict[str, str], store_root: str, plans: dict[str, dict[str, Any]]
+    stage: str,
+    todo: list[str],
+    lakes: dict[str, str],
+    store_root: str,
+    plans: dict[str, dict[str, Any]],
+    allow_shrink: bool = False,
 ) -> dict[str, Any]:
     """Run a stage for the lakes ``todo``: lake -> its result dict, or a future of one. Stages that share work
     between lakes run in tasks of up to :data:`_LAKES_PER_TASK` lakes; a lake that failed there is run
     again alone (a task of its own, with retries), so its error and retries stay its own."""
     if stage not in STAGES_MANY or len(todo) < 2:
-        return {lake: _one(stage, lake, lakes, store_root, plans) for lake in todo}
+        return {lake: _one(stage, lake, lakes, store_root, plans, allow_shrink) for lake in todo}
     batches = [todo[i : i + _LAKES_PER_TASK] for i in range(0, len(todo), _LAKES_PER_TASK)]
-    futures = [lakes_task.submit(stage, {lk: lakes[lk] for lk in b}, store_root, b[0]) for b in batches]
+    futures = [lakes_task.submit(stage, {lk: lakes[lk] for lk in b}, store_root, b[0], allow_shrink) for b in batches]
     out: dict[str, Any] = {}
     for batch, fut in zip(batches, futures, strict=True):
         try:
@@ -173,12 +184,15 @@ def _run_stage(
             if "result" in got.get(lake, {}):
                 out[lake] = got[lake]["result"]
             else:
-                out[lake] = _one(stage, lake, lakes, store_root, plans)
+                out[lake] = _one(stage, lake, lakes, store_root, plans, allow_shrink)
     return out
 
 
-def _one(stage: str, lake: str, lakes: dict[str, str], store_root: str, plans: dict[str, dict[str, Any]]) -> Any:
-    return stage_task.submit(stage, lake, lakes[lake], store_root, plans[lake].get("since", {}).get(stage))
+def _one(
+    stage: str, lake: str, lakes: dict[str, str], store_root: str, plans: dict[str, dict[str, Any]], allow: bool
+) -> Any:
+    since = plans[lake].get("since", {}).get(stage)
+    return stage_task.submit(stage, lake, lakes[lake], store_root, since, allow)
 
 
 def _load(configs: Sequence[str | Path]) -> tuple[dict[str, Project], list[dict[str, Any]]]:
@@ -253,6 +267,7 @@ def _run(
     wait: float,
     what: str,
     stages: list[str] | None = None,
+    allow_shrink: bool = False,
 ) -> list[dict[str, Any]]:
     started = datetime.now(UTC)
     run_id = uuid.uuid4().hex[:12]
@@ -263,7 +278,9 @@ def _run(
     lakes = {lake: str(p.lake_file) for lake, p in projects.items()}
     with store_lock(root, wait=wait, what=what), prefect_api():
         runner = _task_runner(dask_address, sequential, projects)
-        summaries = process_lakes.with_options(task_runner=runner)(lakes, root, full=full, stages=stages)
+        summaries = process_lakes.with_options(task_runner=runner)(
+            lakes, root, full=full, stages=stages, allow_shrink=allow_shrink
+        )
         summaries += failed
         _write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
     print(format_summary(summaries))
@@ -278,6 +295,7 @@ def refresh(
     sequential: bool = False,
     wait: float = 0.0,
     stages: list[str] | None = None,
+    allow_shrink: bool = False,
 ) -> list[dict[str, Any]]:
     """Monthly refresh: for every lake in ``configs`` (files or folders), process what is new or changed.
 
@@ -296,6 +314,10 @@ def refresh(
         Seconds to wait for another run holding the store before refusing.
     stages
         Run only these stages (default: every stage that exists).
+    allow_shrink
+        Let a stage write although its new rows shorten a table's stored date range or turn stored values into
+        missing ones (a source file removed on purpose). Without it such a stage refuses (nothing written) and
+        the lake fails, with the dates and columns in its error.
 
     Returns
     -------
@@ -314,6 +336,7 @@ def refresh(
         wait=wait,
         what="refresh",
         stages=stages,
+        allow_shrink=allow_shrink,
     )
 
 
@@ -326,12 +349,14 @@ def build_lake(
     wait: float = 0.0,
     report: bool = True,
     stages: list[str] | None = None,
+    allow_shrink: bool = False,
 ) -> list[dict[str, Any]]:
     """Full build of lakes: validate, backfill the whole record (all stages), write each lake's report.
 
     Geometry (zones, catchment) and exact grid-cell weights are derived by the weather stage and cached
     in the store; the run records its source hashes, so the next :func:`refresh` is incremental.
-    Lakes whose checks fail are not built (reported as failed with the problems).
+    Lakes whose checks fail are not built (reported as failed with the problems). ``allow_shrink`` as for
+    :func:`refresh` (a rebuild over a store that holds more than the sources give now).
     """
     from lakefeed.checks import check_project
 
@@ -359,6 +384,7 @@ def build_lake(
         wait=wait,
         what="build",
         stages=stages,
+        allow_shrink=allow_shrink,
     )
     summaries += rejected
     if report:

@@ -87,18 +87,23 @@ def _cluster_client() -> Any:
     retry_condition_fn=_retry_transient,
     cache_policy=NO_CACHE,
 )
-def stage_task(stage: str, lake: str, lake_file: str, store_root: str, since: str | None = None) -> dict[str, Any]:
-    """Run one stage for one lake (``since``: see :func:`run_stage`); returns the :class:`StageResult` as a dict."""
+def stage_task(
+    stage: str, lake: str, lake_file: str, store_root: str, since: str | None = None, allow_shrink: bool = False
+) -> dict[str, Any]:
+    """Run one stage for one lake (``since``, ``allow_shrink``: see :func:`run_stage`); returns the
+    :class:`StageResult` as a dict."""
     progress = get_progress() or _logging_progress(lake, stage)
     with _cluster_client():
-        result = run_stage(stage, lake_file, store_root, progress=progress, since=since)
+        result = run_stage(stage, lake_file, store_root, progress=progress, since=since, allow_shrink=allow_shrink)
     done = result.reason if result.skipped else f"{result.tables} {result.reason}".strip()
     get_run_logger().info("lake %s, %s: %s", lake, stage, done)
     return asdict(result)
 
 
 @task(name="stage-lakes", task_run_name="{stage}:{first_lake}+", cache_policy=NO_CACHE)
-def lakes_task(stage: str, lakes: dict[str, str], store_root: str, first_lake: str = "") -> dict[str, dict[str, Any]]:
+def lakes_task(
+    stage: str, lakes: dict[str, str], store_root: str, first_lake: str = "", allow_shrink: bool = False
+) -> dict[str, dict[str, Any]]:
     """Run one stage for several lakes in one call (the stage shares work between them; see
     :data:`lakefeed.flows._runtime.STAGES_MANY`). Lake id -> ``{"result": StageResult as a dict}`` or
     ``{"error": text, "transient": bool}``; the flow reruns the failed lakes one by one (with retries), so
@@ -106,7 +111,7 @@ def lakes_task(stage: str, lakes: dict[str, str], store_root: str, first_lake: s
     logger = get_run_logger()
     progress = get_progress() or (lambda text, done, total: None)
     with _cluster_client():
-        results = run_stage_many(stage, lakes, store_root, progress=progress)
+        results = run_stage_many(stage, lakes, store_root, progress=progress, allow_shrink=allow_shrink)
     out: dict[str, dict[str, Any]] = {}
     for lake, r in results.items():
         if isinstance(r, Exception):

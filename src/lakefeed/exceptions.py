@@ -18,9 +18,15 @@ __all__ = [
     "GeometryError",
     "LakefeedError",
     "LakefeedWarning",
+    "ShrinkError",
     "SourceError",
     "StoreError",
 ]
+
+
+def _listed(message: str, problems: list[str]) -> str:
+    """The message with one indented line per problem."""
+    return message + "".join(f"\n  - {p}" for p in problems)
 
 
 class LakefeedError(Exception):
@@ -32,9 +38,7 @@ class ConfigError(LakefeedError):
 
     def __init__(self, message: str, problems: list[str] | None = None) -> None:
         self.problems = list(problems or [])
-        if self.problems:
-            message = message + "\n" + "\n".join(f"  - {p}" for p in self.problems)
-        super().__init__(message)
+        super().__init__(_listed(message, self.problems))
 
 
 class SourceError(LakefeedError):
@@ -69,6 +73,14 @@ class DamagedPartError(StoreError):
             f"store part {path} (table {table}, lake {lake}) is damaged: {problem}. Run `lakefeed verify --store "
             "<store> --repair <lake config>` to rebuild it from the sources"
         )
+
+
+class ShrinkError(StoreError):
+    """A write would replace stored data with less (dates or valid values lost); ``problems`` lists each loss."""
+
+    def __init__(self, message: str, problems: list[str] | None = None) -> None:
+        self.problems = list(problems or [])
+        super().__init__(_listed(message, self.problems))
 
 
 class LakefeedWarning(UserWarning):

@@ -34,6 +34,8 @@ LAKE_YAML = {
         "outside_ids": ["OUTSIDE"],
     },
     "sensors": {"kite": {"pixel_size_m": 20, "reference": True}, "dune": {"pixel_size_m": 300}},
+    # the weather record is 4 days long: windows and leads must fit in it (lakefeed.checks.meaning)
+    "features": {"windows": [1, 2], "forecast_leads": [1]},
 }
 
 SOURCES_YAML = {

@@ -232,3 +232,32 @@ def test_slug_rule(text: str) -> None:
     except ValidationError:
         accepted = False
     assert accepted == ok
+
+
+def test_values_without_meaning_are_all_reported_at_once(tmp_path: Path) -> None:
+    """Reversed range, a zero window, a zero forecast lead, a quality bit beyond 64 bits, a lead in two
+    forecast lead groups: one error listing each with its file and key path."""
+    lake = {
+        **LAKE,
+        "sensors": {"kite": {"pixel_size_m": 20, "reference": True, "bad_quality_bits": [0, 70]}},
+        "target": {"valid_range": [1000, 0.01]},
+        "features": {"windows": [0, 7], "forecast_leads": [0, 3], "leads": [-1]},
+    }
+    sources = {**SOURCES, "forecast": {"paths": ["../f/*.nc"], "lead_groups": [[1, 2], [2, 3]]}}
+    with pytest.raises(ConfigError) as err:
+        load_project(write(tmp_path, lake, sources))
+    found = err.value.problems
+    lake_file = str(tmp_path / "config" / "lake-mini.yaml")
+    expected = {
+        "sensors.kite.bad_quality_bits": "quality bits are numbered 0 (lowest) to 63; got [70]",
+        "target.valid_range": "got [1000.0, 0.01] (reversed: every value would be rejected; swap them)",
+        "features.windows": "window lengths must be positive whole days; got [0]",
+        "features.forecast_leads": "forecast lead times must be >= 1 day",
+        "features.leads": "lead times must be >= 0 days (0: the target day itself); got [-1]",
+    }
+    for key, text in expected.items():
+        assert any(lake_file in p and key in p and text in p for p in found), (key, found)
+    # the sources file is read only once the lake file is valid: its problem comes on its own
+    with pytest.raises(ConfigError) as err:
+        load_project(write(tmp_path, LAKE, sources))
+    assert any("forecast.lead_groups" in p and "lead 2 is in groups 0 and 1" in p for p in err.value.problems)

@@ -95,11 +95,12 @@ def test_lake_with_missing_files_fails_alone(small_sample, prefect_server, tmp_p
     assert summary["good"]["status"] == "ok" and summary["good"]["new_rows"] > 0
     assert summary["lost"]["status"] == "failed"
     assert "no file matches" in summary["lost"]["error"] and "nowhere" in summary["lost"]["error"]
-    # the torn file is left out with a warning naming it, or the lake fails naming it; never a crash
+    # the torn file fails its lake, naming it (leaving it out would shorten the record); never a crash
     torn = summary["torn"]
-    assert "reanalysis_2022-06.nc" in torn["warnings"] + torn["error"], torn
+    assert torn["status"] == "failed" and "reanalysis_2022-06.nc" in torn["error"], torn
     store = Store(str(tmp_path / "store"))
     assert store.has_table("drivers_daily", "good") and not store.has_table("drivers_daily", "lost")
+    assert not store.has_table("drivers_daily", "torn")
     assert not state_path(tmp_path / "store", "lost").exists()  # nothing recorded: the next run retries it
     failed = store.read_table("run_summary", "lost")
     assert "no file matches" in failed["error"].iloc[-1]

@@ -18,6 +18,7 @@ import yaml
 
 import lakefeed.stages.weather as weather
 from lakefeed.config import load_project
+from lakefeed.exceptions import ShrinkError
 from lakefeed.stages._weather_refresh import refresh_start
 from lakefeed.stages.weather import build_weather
 from lakefeed.store import Store
@@ -125,8 +126,16 @@ def test_falls_back_to_a_full_build(small_sample, tmp_path) -> None:
         "full build (configuration changed)"
     )
     (tmp_path / "weather" / "reanalysis_2022-03.nc").unlink()
-    got = build_weather(load_project(lake_file), store, since="2022-02-01").reason
-    assert got == "full build (a weather file recorded in the table is gone)"
+    before = store.read_table("drivers_daily", "tallow")
+    # the last month removed shortens the record: refused unless the removal is declared (lakefeed.stages._guard)
+    with pytest.raises(
+        ShrinkError, match=r"(?s)drivers_daily/lake=tallow.*would end on 2022-03-01 instead of 2022-04-01"
+    ):
+        build_weather(load_project(lake_file), store, since="2022-02-01")
+    pd.testing.assert_frame_equal(store.read_table("drivers_daily", "tallow"), before, check_exact=True)
+    got = build_weather(load_project(lake_file), store, since="2022-02-01", allow_shrink=True)
+    assert got.reason == "full build (a weather file recorded in the table is gone)"
+    assert any("written although it loses stored data (--allow-shrink)" in w for w in got.warnings)
     pd.testing.assert_frame_equal(
         store.read_table("drivers_daily", "tallow"), _full(lake_file, tmp_path / "reference"), check_exact=True
     )

@@ -2,7 +2,8 @@
 
 Takes lake YAML files or folders; returns one :class:`LakeReport` per lake config with its
 :class:`CheckResult` lines, in the order the data flows (config, geometry, weather,
-hydrology, samples, scenes, forecast, time coverage). Sources that are not configured are
+hydrology, samples, scenes, forecast, time coverage, feature windows against the weather record, quality
+bits against the quality band). Sources that are not configured are
 reported as skipped. Opens sources for metadata only; never writes anything.
 """
 
@@ -19,6 +20,7 @@ from lakefeed.checks._result import CheckResult, failed, guarded, passed, skippe
 from lakefeed.checks.coverage import check_coverage
 from lakefeed.checks.geometry import Layers, check_geometry
 from lakefeed.checks.grids import check_forecast, check_weather
+from lakefeed.checks.meaning import check_quality_bits, check_record_length
 from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
 from lakefeed.config import Project, SourcesConfig, find_lake_files, load_project
 from lakefeed.exceptions import ConfigError
@@ -84,6 +86,8 @@ def check_project(project: Project) -> list[CheckResult]:
     run("scenes", "scenes", lambda: check_scenes(src.scenes, lake))
     run("forecast", "forecast issues", lambda: check_forecast(src.forecast, zones))
     results += check_coverage(periods)
+    results += guarded("feature windows", lambda: check_record_length(lake, periods.get("weather")))
+    results += guarded("quality bits", lambda: check_quality_bits(src.scenes, lake))
     return results
 
 

@@ -16,6 +16,11 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
+#: Help of the --allow-shrink option of the commands that write stage tables.
+SHRINK_HELP = (
+    "Write even when a stage's new rows shorten a table's stored date range or turn stored values into missing "
+    "ones (a source file removed on purpose); without it such a lake fails and its tables stay as they were."
+)
 # Without a terminal (logs, CI, pipes) rich would wrap tables at 80 columns; use a wider page.
 _WIDTH = None if sys.stdout.isatty() or "COLUMNS" in os.environ else 160
 console = Console(stderr=False, width=_WIDTH)

@@ -18,7 +18,7 @@ from typing import TYPE_CHECKING
 
 import typer
 
-from lakefeed.cli._app import app, console
+from lakefeed.cli._app import SHRINK_HELP, app, console
 from lakefeed.exceptions import ConfigError, LakefeedError
 
 if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
@@ -55,7 +55,9 @@ def _content(store: Store, lake: str) -> str | None:
     return (store.entry("features", lake) or {}).get("content_hash")
 
 
-def _reforecast(store: Store, projects: list[Project], results: dict[str, object]) -> list[str]:
+def _reforecast(
+    store: Store, projects: list[Project], results: dict[str, object], *, allow_shrink: bool = False
+) -> list[str]:
     """Rerun the forecast stage for lakes whose feature table the features stage rewrote and whose forecast
     stage had run: its re-forecast rows (leads > 0) live in the same table and a rewrite drops them (the
     flows do the same: forecast runs whenever features did). Returns the lakes whose forecast stage failed."""
@@ -68,7 +70,7 @@ def _reforecast(store: Store, projects: list[Project], results: dict[str, object
         if not store.has_table("forecast_drivers_daily", project.id):
             continue
         try:
-            out = build_forecast(project, store)
+            out = build_forecast(project, store, allow_shrink=allow_shrink)
         except LakefeedError as err:
             console.print(f"[red]{project.id}: re-forecast rows not restored[/]: {err}", highlight=False)
             failed.append(project.id)
@@ -113,6 +115,7 @@ def features(
     full: bool = typer.Option(False, "--full", help="Recompute every row (folds stay as frozen)."),
     rebuild: bool = typer.Option(False, "--rebuild", help="Recompute every row and re-balance the fold blocks."),
     compact: bool = typer.Option(False, "--compact", help="Merge the feature table's part files into one."),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
 ) -> None:
     """Build point-in-time feature tables, folds and sampling diagnostics; print the diagnostics."""
     from lakefeed.config import load_projects
@@ -127,8 +130,9 @@ def features(
     for st, group in stores.values():
         with held(st, what="features"):
             before = {p.id: _content(st, p.id) for p in group}
-            results = build_features_many(group, st, full=full, rebalance_folds=rebuild)
-            failed += _reforecast(st, [p for p in group if _content(st, p.id) != before[p.id]], results)
+            results = build_features_many(group, st, full=full, rebalance_folds=rebuild, allow_shrink=allow_shrink)
+            changed = [p for p in group if _content(st, p.id) != before[p.id]]
+            failed += _reforecast(st, changed, results, allow_shrink=allow_shrink)
             if compact:
                 for project in group:
                     if not isinstance(results[project.id], Exception) and st.has_table("features", project.id):

@@ -11,7 +11,7 @@ from typing import TYPE_CHECKING
 
 import typer
 
-from lakefeed.cli._app import app, console
+from lakefeed.cli._app import SHRINK_HELP, app, console
 from lakefeed.cli.features import held, store_for
 
 if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
@@ -61,6 +61,7 @@ def bias_rich_table(evaluation: pd.DataFrame, *, title: str) -> Table:
 def forecast(
     configs: list[Path] = typer.Argument(..., help="Lake configuration files or folders of them."),
     store: str | None = typer.Option(None, "--store", help="Store folder or fsspec URL [default: sources.yaml store]."),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
 ) -> None:
     """Build forecast drivers per lead, fit and apply the bias adjustment, append re-forecast feature rows."""
     from lakefeed.config import load_projects
@@ -69,7 +70,7 @@ def forecast(
     for project in load_projects(list(configs)):
         st = store_for(project, store)
         with held(st, what="forecast"):
-            result = build_forecast(project, st)
+            result = build_forecast(project, st, allow_shrink=allow_shrink)
         if result.skipped:
             console.print(f"[yellow]{project.id}: forecast skipped[/]: {result.reason}")
             continue

@@ -18,7 +18,7 @@ import typer
 from rich.markup import escape
 from rich.table import Table
 
-from lakefeed.cli._app import app, console
+from lakefeed.cli._app import SHRINK_HELP, app, console
 from lakefeed.config.lake import SLUG
 from lakefeed.exceptions import ConfigError, GeometryError
 
@@ -274,6 +274,7 @@ def build_command(
     sequential: bool = typer.Option(False, "--sequential", help="No Dask: lakes one after the other here."),
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
     report: bool = typer.Option(True, "--report/--no-report", help="Write each lake's quality report."),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
 ) -> None:
     """Full build: validate, derive geometry and weights, backfill the whole record, write the reports."""
     from lakefeed.flows.refresh import build_lake
@@ -286,6 +287,7 @@ def build_command(
             sequential=sequential,
             wait=wait,
             report=report,
+            allow_shrink=allow_shrink,
         )
     if not _print_summary(summaries):
         raise typer.Exit(1)
@@ -298,6 +300,7 @@ def refresh_command(
     dask_address: str | None = typer.Option(None, "--dask-address", help="Existing Dask scheduler address."),
     sequential: bool = typer.Option(False, "--sequential", help="No Dask: lakes one after the other here."),
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
+    allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
 ) -> None:
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
@@ -309,6 +312,7 @@ def refresh_command(
             dask_address=dask_address,
             sequential=sequential,
             wait=wait,
+            allow_shrink=allow_shrink,
         )
     if not _print_summary(summaries):
         raise typer.Exit(1)

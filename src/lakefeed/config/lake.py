@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import math
 import re
+from datetime import date
 from pathlib import Path
 from typing import Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -12,6 +14,8 @@ from pydantic import Field, field_validator, model_validator
 from lakefeed.config._base import LayerRef, StrictModel, tz_hint
 
 SLUG = re.compile(r"^[a-z0-9][a-z0-9_-]{0,62}$")
+#: Bits of the widest integer quality band (64-bit): bit numbers 0..63.
+MAX_QUALITY_BITS = 64
 
 
 class AoiLayer(LayerRef):
@@ -64,6 +68,17 @@ class SensorConfig(StrictModel):
     bad_quality_bits: list[int] = Field(default_factory=list)
     bad_quality_values: list[int] = Field(default_factory=list)
 
+    @field_validator("bad_quality_bits")
+    @classmethod
+    def _bits(cls, v: list[int]) -> list[int]:
+        bad = [b for b in v if not 0 <= b < MAX_QUALITY_BITS]
+        if bad:
+            raise ValueError(
+                f"quality bits are numbered 0 (lowest) to {MAX_QUALITY_BITS - 1}; got {bad} (the band's own bit "
+                "depth is checked by `lakefeed check` when the scenes are opened)"
+            )
+        return v
+
     @property
     def effective_shore_buffer_m(self) -> float:
         """Inward shoreline buffer in metres: configured, else one pixel of the sensor."""
@@ -82,6 +97,17 @@ class TargetOptions(StrictModel):
     matchup_window_days: int = Field(default=0, ge=0)
     min_matchups: int = Field(default=10, ge=3)
     bias_model: Literal["linear", "ratio"] = "ratio"
+
+    @field_validator("valid_range")
+    @classmethod
+    def _range(cls, v: tuple[float, float]) -> tuple[float, float]:
+        lo, hi = v
+        if not (math.isfinite(lo) and math.isfinite(hi)) or lo < 0 or lo >= hi:
+            raise ValueError(
+                f"[low, high] in mg m-3 with 0 <= low < high; got {[lo, hi]}"
+                + (" (reversed: every value would be rejected; swap them)" if lo > hi else "")
+            )
+        return v
 
 
 class Threshold(StrictModel):
@@ -131,13 +157,44 @@ class FeatureOptions(StrictModel):
             raise ValueError("at least one window length is needed")
         return sorted(set(v))
 
-    @field_validator("leads", "forecast_leads")
+    @field_validator("leads")
     @classmethod
     def _non_negative(cls, v: list[int]) -> list[int]:
         bad = [h for h in v if h < 0]
         if bad:
-            raise ValueError(f"lead times must be >= 0 days; got {bad}")
+            raise ValueError(f"lead times must be >= 0 days (0: the target day itself); got {bad}")
+        if not v:
+            raise ValueError("at least one lead time is needed (0: the target day itself)")
         return sorted(set(v))
+
+    @field_validator("forecast_leads")
+    @classmethod
+    def _positive(cls, v: list[int]) -> list[int]:
+        bad = [h for h in v if h <= 0]
+        if bad:
+            raise ValueError(f"forecast lead times must be >= 1 day (lead 1: the first day after the issue); got {bad}")
+        return sorted(set(v))
+
+    def record_problems(self, first: date, last: date, *, record: str = "the weather record") -> list[str]:
+        """Windows and leads longer than the driver record ``first``..``last`` (dates, inclusive): one text each.
+
+        A row needs its longest window plus its lead within the record, so a longer one leaves its feature
+        columns empty for every row. Used by ``lakefeed check`` (the weather files' period) and at the start
+        of the features stage (the stored drivers), with the same words.
+        """
+        days = (last - first).days + 1
+        span = f"{record} {first:%Y-%m-%d}..{last:%Y-%m-%d} has {days} day(s)"
+        out = []
+        longest = max(self.windows)
+        for key, leads in (("leads", self.leads), ("forecast_leads", self.forecast_leads)):
+            too_long = [h for h in leads if longest + h >= days]
+            if too_long:
+                out.append(
+                    f"features.windows/features.{key}: the longest window ({longest} d) plus lead(s) {too_long} d "
+                    f"do not fit in the record: {span}; no row could have that window complete. Use shorter "
+                    "windows or leads, or a longer record"
+                )
+        return out
 
 
 class LakeConfig(StrictModel):

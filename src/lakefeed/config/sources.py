@@ -157,6 +157,22 @@ class ForecastSource(StrictModel):
     quantiles: int = Field(default=50, ge=5)
     lead_groups: list[list[int]] | None = None
 
+    @field_validator("lead_groups")
+    @classmethod
+    def _groups(cls, v: list[list[int]] | None) -> list[list[int]] | None:
+        problems = []
+        seen: dict[int, int] = {}
+        for i, group in enumerate(v or []):
+            if not group or any(h <= 0 for h in group):
+                problems.append(f"group {i} {group}: needs lead days >= 1")
+            for h in group:
+                if h in seen and seen[h] != i:
+                    problems.append(f"lead {h} is in groups {seen[h]} and {i}")
+                seen.setdefault(h, i)
+        if problems:
+            raise ValueError("; ".join(problems))
+        return v
+
 
 class SourcesConfig(StrictModel):
     """All data sources. Every section is optional: stages without a source are skipped."""

@@ -80,7 +80,10 @@ def _read_dsg(path: Path, roles: list[str], source: HydrologySource) -> dict[str
     try:
         ds = xr.open_dataset(path, decode_times=True)
     except Exception as err:
-        raise SourceError(f"hydrology output {path}: cannot open as NetCDF: {err}") from err
+        raise SourceError(
+            f"hydrology output {path}: cannot open as NetCDF ({type(err).__name__}: {err}); the file may be "
+            "empty, truncated or corrupt: write or download it again"
+        ) from err
     with ds:
         id_vars = [v for v in ds.variables if ds[v].attrs.get("cf_role") == "timeseries_id"]
         if not id_vars:

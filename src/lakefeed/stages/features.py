@@ -33,7 +33,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from lakefeed.config import Project
-from lakefeed.exceptions import FeatureError
+from lakefeed.exceptions import ConfigError, FeatureError
 from lakefeed.features import (
     WindowPlan,
     refresh_start,
@@ -60,6 +60,7 @@ from lakefeed.stages._features_output import (
     with_stored_extras,
     write_rows,
 )
+from lakefeed.stages._guard import refuse_shrink
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store
 
@@ -101,9 +102,9 @@ def _config_hash(project: Project, columns: list[str]) -> str:
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
 
 
-def _full_again(project: Project, store: Store, progress: Progress, result: StageResult) -> StageResult:
+def _full_again(project: Project, store: Store, progress: Progress, result: StageResult, allow: bool) -> StageResult:
     """Rebuild in full (the previous table cannot be extended)."""
-    out = build_features(project, store, progress=progress, full=True)
+    out = build_features(project, store, progress=progress, full=True, allow_shrink=allow)
     out.warnings = result.warnings + out.warnings
     return out
 
@@ -130,6 +131,7 @@ class _Job:
     inputs: dict[str, str]
     options_hash: str
     config_hash: str
+    allow_shrink: bool = False  # write even when stored rows or values would be lost (see stages._guard)
 
     def series(self) -> list[Series]:
         """The lake's series: per driver frame (all AOIs, or each AOI's own zone) and lead."""
@@ -217,6 +219,9 @@ def _prepare(
     record = (min(i.min() for i in all_days), max(i.max() for i in all_days)) if all_days else (None, None)
     if mode == "tail":
         record = (pd.Timestamp(md["drivers_first"]), record[1])
+    if record[0] is not None and (too_long := opts.record_problems(record[0].date(), record[1].date(),
+                                                                   record="the stored driver record")):  # fmt: skip
+        raise ConfigError(f"{project.lake_file}: features cannot be built for lake {lake.id}", too_long)
     through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
     frozen = {}
     if prev and not rebalance_folds and md.get("fold_options") == fold_options(opts):
@@ -236,7 +241,7 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
     arrow = with_stored_extras(store, lake.id, arrow, job.prev if since is not None else None)
     if since is not None and job.prev.get("columns") != arrow.column_names:  # e.g. a driver table gained a column
         result.warnings.append("features: columns changed since the last build; rebuilt in full")
-        return _full_again(project, store, progress, result)
+        return _full_again(project, store, progress, result, job.allow_shrink)
     if not sorted_by_keys(arrow):
         arrow = arrow.sort_by([(k, "ascending") for k in KEYS])
     arrow = arrow.set_column(
@@ -255,6 +260,9 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
             result.warnings.append(f"AOI {d['aoi']}: {d['warnings']}")
 
     progress("features: writing", 2, 3)
+    result.warnings += refuse_shrink(store, "features", lake.id, arrow, keys=KEYS, time_column="target_date",
+                                     since=since, groups=["aoi", "lead_days"], others="forecast_days",
+                                     allow_shrink=job.allow_shrink, why=result.reason)  # fmt: skip
     units = {"chla": "mg m-3", "persistence_chla": "mg m-3", "persistence_age_days": "d", "days_since_prev_obs": "d",
              "doy_sin": "1", "doy_cos": "1", "lead_days": "d", "fold": "1", "incomplete_windows": "1"}  # fmt: skip
     units |= feature_units(job.plan, job.driver_units)
@@ -364,6 +372,7 @@ def build_features_many(
     rebalance_folds: bool = False,
     isolate: bool = True,
     lakes_per_pass: int = 64,
+    allow_shrink: bool = False,
 ) -> dict[str, StageResult | Exception]:
     """Build ``features`` and ``diagnostics`` for many lakes, computing the lakes' rows together.
 
@@ -385,6 +394,10 @@ def build_features_many(
         first failure is raised (lakes finished before it keep their tables).
     lakes_per_pass
         Lakes read and computed together at most (bounds the memory held for a full rebuild).
+    allow_shrink
+        Write even when a lake's new rows would shorten an AOI's stored record or turn stored values into
+        missing ones; otherwise that lake fails with a :class:`~lakefeed.exceptions.ShrinkError` and its
+        tables stay as they were (:mod:`lakefeed.stages._guard`; the forecast stage's rows are not compared).
 
     Returns
     -------
@@ -433,6 +446,7 @@ def build_features_many(
             if isinstance(job, StageResult):
                 settle(project.id, job)
             else:
+                job.allow_shrink = allow_shrink
                 jobs.setdefault(job.batch_key(), []).append(job)
         for group in jobs.values():
             _compute(group, store, finished)
@@ -446,6 +460,7 @@ def build_features(
     progress: Progress | None = None,
     full: bool = False,
     rebalance_folds: bool = False,
+    allow_shrink: bool = False,
 ) -> StageResult:
     """Build ``features`` and ``diagnostics`` for one lake from the store's driver and target tables.
 
@@ -457,7 +472,7 @@ def build_features(
     ``full=True`` recomputes every row (keeping the frozen fold boundaries); ``rebalance_folds=True``
     also re-derives the fold boundaries from all target dates (a fresh start). The table read back
     equals a full rebuild's. All AOIs and leads of the lake are computed in one pass; for many lakes
-    use :func:`build_features_many`.
+    use :func:`build_features_many` (``allow_shrink`` as there).
 
     Examples
     --------
@@ -465,7 +480,8 @@ def build_features(
     >>> build_features(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
     """
     out = build_features_many(
-        [project], store, progress=progress, full=full, rebalance_folds=rebalance_folds, isolate=False
-    )[project.id]
+        [project], store, progress=progress, full=full, rebalance_folds=rebalance_folds, isolate=False,
+        allow_shrink=allow_shrink,
+    )[project.id]  # fmt: skip
     assert isinstance(out, StageResult)  # isolate=False raises instead
     return out

@@ -46,7 +46,9 @@ from lakefeed.geometry.zones import build_zones, zone_latitudes
 from lakefeed.sources.forecasts import ISSUE, LEAD, ForecastArchive, open_forecasts
 from lakefeed.sources.grids import find_variable
 from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._features_output import KEYS as _FEATURE_KEYS
 from lakefeed.stages._forecast_refresh import SIGNATURE, content_hash, raw_drivers, raw_signature
+from lakefeed.stages._guard import refuse_shrink
 from lakefeed.stages._provenance import config_hash
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.stages._rewrite_tail import write_from_first_change
@@ -315,8 +317,13 @@ def build_forecast(
     progress: Progress | None = None,
     since: str | date | None = None,
     full: bool = False,
+    allow_shrink: bool = False,
 ) -> StageResult:
     """Build ``forecast_drivers_daily``, ``bias_adjustment``, ``forecast_evaluation`` and re-forecast ``features``.
+
+    ``allow_shrink``: write even when the new rows would shorten the stored record of a zone, lead and
+    adjustment, or of an AOI's re-forecast features, or turn stored values into missing ones; otherwise that
+    is a :class:`~lakefeed.exceptions.ShrinkError` and no table is written (:mod:`lakefeed.stages._guard`).
 
     ``since`` (first day of the earliest changed forecast month): its issues (UTC) are read again; the
     stored raw daily drivers of earlier issues whose files' hashes equal the recorded ones are reused (with
@@ -384,6 +391,13 @@ def build_forecast(
         "issue_time": "forecast reference time (UTC)",
         "fitted_through": "last reanalysis date used by the adjustment's fit (always before issue_date)",
     }
+    guard = {"allow_shrink": allow_shrink, "why": result.reason}
+    result.warnings += refuse_shrink(store, "forecast_drivers_daily", lake.id, both, keys=keys, time_column="date",
+                                     groups=["zone", "lead_days", "adjustment"], **guard)  # fmt: skip
+    feats = _reforecast(project, store, adjusted, result)
+    if feats is not None:
+        result.warnings += refuse_shrink(store, "features", lake.id, feats[0], keys=_FEATURE_KEYS,
+                                         time_column="target_date", groups=["aoi", "lead_days"], **guard)  # fmt: skip
     store.write_table("forecast_drivers_daily", lake.id, both, units=units, metadata=meta, time_column="date",
                       descriptions=descr, **prov)  # fmt: skip
     tunits = {"quantile": "1", "lead_min": "d", "lead_max": "d", "factor": "1 (multiplicative) or unit (additive)"}
@@ -397,10 +411,9 @@ def build_forecast(
     result.tables = {"forecast_drivers_daily": len(both), "bias_adjustment": len(table),
                      "forecast_evaluation": len(evaluation)}  # fmt: skip
     p("forecast: re-forecast features", 4, 5)
-    feats = _reforecast(project, store, adjusted, result)
     if feats is not None:  # only the rows from the first changed target date on are written
         frame, funits, fdescr, stored = feats
-        write_from_first_change(store, "features", lake.id, stored, frame, keys=["aoi", "target_date", "lead_days"],
+        write_from_first_change(store, "features", lake.id, stored, frame, keys=_FEATURE_KEYS,
                                 date="target_date", units=funits, descriptions=fdescr)  # fmt: skip
         result.tables["features"] = len(frame)
     p("forecast: done", 5, 5)

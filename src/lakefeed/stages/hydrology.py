@@ -37,12 +37,15 @@ from lakefeed.geometry.network import Catchment, trace_configured_catchment
 from lakefeed.sources.hydrology import read_hydrology
 from lakefeed.sources.samples import read_flow, read_samples
 from lakefeed.sources.vectors import read_layer
+from lakefeed.stages._guard import refuse_shrink
 from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store
 from lakefeed.units import CANONICAL
 
 __all__ = ["build_hydrology", "catchment_of", "station_method"]
+
+_EST_KEYS = ["station", "nutrient", "method", "date"]  # one row of load_estimates
 
 
 def catchment_of(project: Project) -> Catchment:
@@ -74,7 +77,9 @@ def _station_estimates(
     return out, station_method(station)
 
 
-def build_hydrology(project: Project, store: Store, *, progress: Progress | None = None) -> StageResult:
+def build_hydrology(
+    project: Project, store: Store, *, progress: Progress | None = None, allow_shrink: bool = False
+) -> StageResult:
     """Build ``hydrology_daily`` (and ``load_estimates`` when stations are sampled) for one lake.
 
     Parameters
@@ -85,6 +90,10 @@ def build_hydrology(project: Project, store: Store, *, progress: Progress | None
         Where the tables are written.
     progress
         Callback (description, done, total).
+    allow_shrink
+        Write even when the new tables would shorten the stored record or turn stored values into missing
+        ones (an input removed or cut short on purpose); otherwise that is a
+        :class:`~lakefeed.exceptions.ShrinkError` and neither table is written (:mod:`lakefeed.stages._guard`).
 
     Returns
     -------
@@ -179,11 +188,17 @@ def build_hydrology(project: Project, store: Store, *, progress: Progress | None
             "inputs": input_hashes([*files, *layer_paths(project.lake.lake, project.lake.subbasins)]),
             "config_hash": config_hash(project),
         }
+        est_frame = pd.concat(estimates, ignore_index=True) if estimates else None
+        if est_frame is not None:
+            est_frame["date"] = est_frame["date"].dt.date
+        guard = {"allow_shrink": allow_shrink, "time_column": "date"}
+        result.warnings += refuse_shrink(store, "hydrology_daily", lake.id, out, keys=["date"], complete=True, **guard)
+        if est_frame is not None:
+            result.warnings += refuse_shrink(store, "load_estimates", lake.id, est_frame, keys=_EST_KEYS,
+                                             groups=_EST_KEYS[:-1], **guard)  # fmt: skip
         store.write_table("hydrology_daily", lake.id, out, units=units, metadata=meta, **provenance)
         result.tables["hydrology_daily"] = len(out)
-        if estimates:
-            est_frame = pd.concat(estimates, ignore_index=True)
-            est_frame["date"] = est_frame["date"].dt.date
+        if est_frame is not None:
             store.write_table(
                 "load_estimates",
                 lake.id,

@@ -26,6 +26,7 @@ from lakefeed.extract.trophic import CAUTION, carlson_tsi, exceedance_flags, oec
 from lakefeed.sources.scenes import SceneReader, list_scenes, read_scenes
 from lakefeed.sources.vectors import read_layer
 from lakefeed.stages import _target_refresh
+from lakefeed.stages._guard import refuse_shrink
 from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
 from lakefeed.stages._result import Progress, StageResult, no_progress
 from lakefeed.store import Store
@@ -56,6 +57,7 @@ OBS_UNITS = {
     "uncertainty": "1",
 }
 DAILY_UNITS = {"chla": "mg m-3", "chla_uncertainty": "mg m-3", "n_obs": "1", "tsi": "1"}
+KEYS = ["aoi", "date"]  # one row of target_daily
 _DESCRIPTIONS = {
     "uncertainty": "mean relative 1-sigma uncertainty of the valid pixels (fraction), NaN without a band",
     "valid_fraction": "valid pixels / pixels whose centre lies in the shore-buffered AOI",
@@ -277,7 +279,12 @@ def _plan(
 
 
 def build_target(
-    project: Project, store: Store, *, progress: Progress | None = None, since: str | date | None = None
+    project: Project,
+    store: Store,
+    *,
+    progress: Progress | None = None,
+    since: str | date | None = None,
+    allow_shrink: bool = False,
 ) -> StageResult:
     """Build ``target_obs``, ``target_daily`` and ``sensor_bias`` for one lake.
 
@@ -291,6 +298,13 @@ def build_target(
         build when it cannot reuse the stored rows (no table, configuration, layers, columns or the
         scenes before ``since`` differ: see :mod:`lakefeed.stages._target_refresh`).
         ``StageResult.reason`` says which (e.g. ``"incremental from 2022-12-01"``).
+    allow_shrink
+        Write even when a scene's statistics that were valid would become missing or an AOI's daily record
+        would shorten (scenes removed or settings narrowed on purpose); otherwise that is a
+        :class:`~lakefeed.exceptions.ShrinkError` and no table is written (:mod:`lakefeed.stages._guard`).
+        An unreadable scene is not an error: it is kept in ``target_obs`` as rejected with the reason naming
+        its file, and counted in the warnings (a scene archive is a set of independent observations);
+        a scene whose stored statistics were valid and that can no longer be read is refused as above.
 
     Examples
     --------
@@ -366,6 +380,9 @@ def build_target(
     }
     fit_meta = {"sensor_bias": fits.to_json(orient="records")}
     prov = {"inputs": _input_files(scenes, lake, known=plan.known), "config_hash": config_hash(project)}
+    guard = {"allow_shrink": allow_shrink, "time_column": "date", "why": result.reason}
+    result.warnings += refuse_shrink(store, "target_obs", lake.id, obs, keys=["aoi", "scene_id"], **guard)
+    result.warnings += refuse_shrink(store, "target_daily", lake.id, daily, keys=KEYS, groups=["aoi"], **guard)
     store.write_table("target_obs", lake.id, obs, units=OBS_UNITS, descriptions=_DESCRIPTIONS, metadata=meta, **prov)
     store.write_table(
         "target_daily", lake.id, daily, units=DAILY_UNITS, descriptions=descriptions, metadata=meta | fit_meta, **prov

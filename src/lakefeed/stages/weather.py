@@ -260,7 +260,12 @@ def zonal_long(
 
 
 def build_weather(
-    project: Project, store: Store, *, progress: Progress | None = None, since: str | date | None = None
+    project: Project,
+    store: Store,
+    *,
+    progress: Progress | None = None,
+    since: str | date | None = None,
+    allow_shrink: bool = False,
 ) -> StageResult:
     """Build ``drivers_daily`` for one lake: in full, or only the days a changed source month touches.
 
@@ -278,6 +283,11 @@ def build_weather(
         differ from the stored ones, a recorded file is gone or a changed file starts earlier than the
         stored record (see :mod:`lakefeed.stages._weather_refresh`). Either way the table read back equals
         a full build's. ``StageResult.reason`` says which (e.g. ``"incremental from 2022-12-01"``).
+    allow_shrink
+        Write even when the new rows would shorten the stored record or turn stored values into missing ones
+        (a weather file removed on purpose); otherwise that is a :class:`~lakefeed.exceptions.ShrinkError`
+        and nothing is written (:mod:`lakefeed.stages._guard`). An unreadable weather file always fails the
+        stage (a :class:`~lakefeed.exceptions.SourceError` naming it), before anything is written.
 
     Examples
     --------
@@ -288,16 +298,19 @@ def build_weather(
     from lakefeed.extract.daily import DAILY_COLUMNS, DAILY_UNITS, to_daily
     from lakefeed.geometry.zones import build_zones, zone_latitudes
     from lakefeed.sources.vectors import read_layer
+    from lakefeed.stages._guard import refuse_shrink
     from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
-    from lakefeed.stages._weather_refresh import read_window, refresh_start, tail_day, write_drivers
+    from lakefeed.stages._weather_refresh import KEYS, read_window, refresh_start, tail_day, write_drivers
 
     p = progress or no_progress
     lake = project.lake
     src = project.sources.weather
     if src is None:
         return StageResult("weather", lake.id, skipped=True, reason="no weather source in sources.yaml")
-    grid = open_grid(src.paths, time_zone=src.time_zone, on_error="skip")
-    warn = [f"file left out: {m}" for m in grid.skipped]
+    # an unreadable file fails the stage (naming it) before anything is written: leaving it out would
+    # replace that month's stored rows with a shorter record
+    grid = open_grid(src.paths, time_zone=src.time_zone)
+    warn: list[str] = []
     p("weather: zones", 0, 3)
     lake_g = read_layer(lake.lake, what="lake polygon")
     aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
@@ -349,6 +362,8 @@ def build_weather(
     daily["date"] = daily["date"].dt.date
     if start is not None:
         daily = daily[daily["date"] >= start].reset_index(drop=True)
+    warn += refuse_shrink(store, "drivers_daily", lake.id, daily, keys=KEYS, time_column="date", since=start,
+                          groups=["zone"], complete=True, allow_shrink=allow_shrink, why=how)  # fmt: skip
     write_drivers(
         store,
         lake.id,
