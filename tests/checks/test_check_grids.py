@@ -41,8 +41,9 @@ def test_missing_standard_name_needs_a_mapping() -> None:
     del ds["air_temp"].attrs["standard_name"]
     res, found = run(ds)
     assert not res.ok and found.ok and "5 of 6 roles" in found.message
-    assert "no variable for 'air_temperature'" in res.message
-    assert res.hint == "add the file's variable name under weather.variables.air_temperature"
+    # the build's own message (lakefeed.sources.grids.find_variable)
+    assert "no variable with standard_name 'air_temperature' and no mapping" in res.message
+    assert "add the file's variable name under that key" in res.message
     (res,) = run(ds, variables={"air_temperature": "air_temp"})
     assert res.ok and "by weather.variables.air_temperature" in res.message
 
@@ -53,7 +54,7 @@ def test_mapping_to_an_absent_variable_and_unknown_role_did_you_mean() -> None:
     res = run(ds, variables={"air_temperature": "t2m", "air_temperatur": "air_temp"})
     msgs = " | ".join(r.message for r in res if not r.ok)
     assert "weather.variables.air_temperatur: unknown role; did you mean 'air_temperature'?" in msgs
-    assert "variable 't2m' named by weather.variables.air_temperature is not in the file" in msgs
+    assert "variable 't2m' (weather.variables.air_temperature in sources.yaml) is not in the file" in msgs
 
 
 def test_units_must_convert() -> None:

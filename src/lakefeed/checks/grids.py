@@ -11,7 +11,6 @@ source's period for the coverage check. Must not read data variables or write an
 
 from __future__ import annotations
 
-import difflib
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
@@ -24,7 +23,8 @@ from lakefeed.checks._open import Period, expand, find_coord, lonlat_bounds, ope
 from lakefeed.checks._result import CheckResult, failed, passed, skipped, warned
 from lakefeed.config import WEATHER_ROLES, Accumulation, ForecastSource, WeatherSource
 from lakefeed.exceptions import SourceError
-from lakefeed.sources.grid_rules import GridPart, role_problems, time_gaps
+from lakefeed.sources.grid_roles import find_variable
+from lakefeed.sources.grid_rules import GridPart, key_problems, role_problems, time_gaps
 
 __all__ = [
     "check_forecast",
@@ -44,54 +44,27 @@ def weather_variables(
     file: Path,
     required: bool = True,
     parts: Sequence[GridPart] | None = None,
+    label: str | None = None,
 ) -> list[CheckResult]:
     """One line per weather role: found (how), units convertible, accumulation declared for amounts.
 
     Variables are found in ``ds`` (the first file); units and accumulation are checked in every file of
-    ``parts`` (default: ``ds`` alone) by the build's own rules (:func:`role_problems`).
+    ``parts`` (default: ``ds`` alone) by the build's own rules (:mod:`lakefeed.sources.grid_rules`);
+    ``label`` names the grid in messages as the build does.
     """
     name = f"{section} variables"
-    out: list[CheckResult] = []
+    problems = key_problems(ds, variables=variables, units=units, accumulation=accumulation, section=section)
+    out: list[CheckResult] = [failed(name, what, fix) for what, fix in problems]
     found: list[str] = []
-    for key, mapping in (("variables", variables), ("units", units), ("accumulation", accumulation)):
-        for role in mapping:
-            if role not in WEATHER_ROLES and (key == "variables" or role not in ds.data_vars):
-                guess = difflib.get_close_matches(role, list(WEATHER_ROLES), n=1)
-                out.append(
-                    failed(
-                        name,
-                        f"{section}.{key}.{role}: unknown role" + (f"; did you mean {guess[0]!r}?" if guess else ""),
-                        f"keys are roles ({', '.join(WEATHER_ROLES)})"
-                        + ("" if key == "variables" else " or variable names of the file"),
-                    )
-                )
-    for role, std_names in WEATHER_ROLES.items():
-        var = next((v for v in ds.data_vars.values() if v.attrs.get("standard_name") in std_names), None)
-        how = "standard_name"
-        if var is None and role in variables:
-            how = f"{section}.variables.{role}"
-            if variables[role] not in ds.data_vars:
-                out.append(
-                    failed(
-                        name,
-                        f"{file.name}: variable {variables[role]!r} named by {how} is not in the file; "
-                        f"it has {sorted(map(str, ds.data_vars))}",
-                        f"fix {how}",
-                    )
-                )
-                continue
-            var = ds[variables[role]]
-        if var is None:
-            make = failed if required else warned
-            out.append(
-                make(
-                    name,
-                    f"{file.name}: no variable for {role!r}: none has standard_name {' or '.join(std_names)} "
-                    f"and {section}.variables.{role} is not set; variables are {sorted(map(str, ds.data_vars))}",
-                    f"add the file's variable name under {section}.variables.{role}",
-                )
-            )
+    for role in WEATHER_ROLES:
+        try:
+            vname = find_variable(ds, role, mapping=variables, where=label or str(file), section=section)
+        except SourceError as err:
+            out.append((failed if required else warned)(name, str(err)))
             continue
+        var = ds[vname]
+        by_name = var.attrs.get("standard_name") in WEATHER_ROLES[role]
+        how = "standard_name" if by_name else f"{section}.variables.{role}"
         probs, each = role_problems(
             role,
             str(var.name),
@@ -184,13 +157,13 @@ def check_weather(
     if src is None:
         return [skipped("weather", "no 'weather' section in the sources config")], None
     out, files = _source_files(src.paths, "weather")
-    if not files:
-        return out, None
     grid = None
-    try:
+    try:  # as the build opens them: every file's metadata, time axis and a probe element
         grid = open_grid(src.paths, time_zone=src.time_zone)
     except SourceError as err:
         out += [failed("weather files", line) for line in str(err).splitlines()]
+    if not files or grid is None:  # the build stops here too, with the same words
+        return out, None
     with open_lazy(files[0]) as ds:
         found = weather_variables(
             ds,
@@ -199,15 +172,14 @@ def check_weather(
             accumulation=src.accumulation,
             section="weather",
             file=files[0],
-            parts=grid.parts if grid is not None else None,
+            parts=grid.parts,
+            label=grid.label,
         )
         out += found + grid_extent_results(ds, zones, section="weather", file=files[0])
-    res, period = scan_files(files, "time", section="weather", gaps=grid is None)
-    out += res
-    if grid is not None:
-        out += [warned("weather time axis", gap) for gap in time_gaps(grid.dataset["time"].values, grid.parts)]
-        if grid_zones is not None and all(r.ok for r in out):
-            out += value_results(grid, src, grid_zones, allow_partial_coverage=allow_partial_coverage)
+    res, period = scan_files(files, "time", section="weather", gaps=False)
+    out += res + [warned("weather time axis", gap) for gap in time_gaps(grid.dataset["time"].values, grid.parts)]
+    if grid_zones is not None and all(r.ok for r in out):
+        out += value_results(grid, src, grid_zones, allow_partial_coverage=allow_partial_coverage)
     return out, period
 
 

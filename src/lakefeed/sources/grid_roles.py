@@ -20,7 +20,7 @@ import numpy as np
 import xarray as xr
 
 from lakefeed.exceptions import SourceError
-from lakefeed.sources.grid_rules import GridPart, role_problems
+from lakefeed.sources.grid_rules import GridPart, key_problems, role_problems
 
 if TYPE_CHECKING:
     from lakefeed.sources.grids import Grid
@@ -28,7 +28,9 @@ if TYPE_CHECKING:
 __all__ = ["decode", "find_variable", "grid_parts", "select_roles"]
 
 
-def find_variable(ds: xr.Dataset, role: str, *, mapping: Mapping[str, str] | None = None, where: str = "") -> str:
+def find_variable(
+    ds: xr.Dataset, role: str, *, mapping: Mapping[str, str] | None = None, where: str = "", section: str = "weather"
+) -> str:
     """Name of the variable playing ``role``: by CF standard_name first, else by the config mapping."""
     from lakefeed.config.sources import WEATHER_ROLES  # imported here: keeps `lakefeed zonal` start-up short
 
@@ -42,12 +44,12 @@ def find_variable(ds: xr.Dataset, role: str, *, mapping: Mapping[str, str] | Non
         if name in ds.data_vars:
             return name
         raise SourceError(
-            f"weather grid {where}: variable {name!r} (weather.variables.{role} in sources.yaml) is not in the file; "
-            f"variables are {sorted(map(str, ds.data_vars))}"
+            f"{section} grid {where}: variable {name!r} ({section}.variables.{role} in sources.yaml) is not in the "
+            f"file; variables are {sorted(map(str, ds.data_vars))}; fix {section}.variables.{role}"
         )
     raise SourceError(
-        f"weather grid {where}: no variable with standard_name {' or '.join(map(repr, wanted))} and no mapping in "
-        f"sources.yaml weather.variables.{role}; add the file's variable name under that key "
+        f"{section} grid {where}: no variable with standard_name {' or '.join(map(repr, wanted))} and no mapping in "
+        f"sources.yaml {section}.variables.{role}; add the file's variable name under that key "
         f"(variables are {sorted(map(str, ds.data_vars))})"
     )
 
@@ -125,8 +127,14 @@ def select_roles(
     always decoded, each file converted to the first file's unit.
     """
     parts = grid_parts(grid)
-    names = {role: find_variable(grid.dataset, role, mapping=mapping, where=grid.label) for role in roles}
-    problems: list[tuple[str, str]] = []
+    problems = key_problems(
+        grid.dataset, variables=mapping or {}, units=units or {}, accumulation=accumulation, section=section
+    )
+    if problems:
+        raise SourceError("\n".join(f"{what}; {fix}" for what, fix in problems))
+    names = {
+        role: find_variable(grid.dataset, role, mapping=mapping, where=grid.label, section=section) for role in roles
+    }
     each_unit: dict[str, list[str | None]] = {}
     for role, name in names.items():
         found, each = role_problems(role, name, parts, units=units or {}, accumulation=accumulation, section=section)

@@ -43,6 +43,7 @@ __all__ = [
     "NoValueError",
     "check_any_value",
     "check_bounds",
+    "key_problems",
     "part_at",
     "resolve_unit",
     "role_problems",
@@ -165,7 +166,12 @@ def role_problems(
     for part in parts:
         unit, where = resolve_unit(role, name, part.attrs.get(name, {}), units, section)
         each.append(unit)
-        if unit is None:
+        if part.attrs and name not in part.attrs:
+            problem = (
+                f"variable {name!r} ({role}) is missing from the file",
+                "every file of a source needs the same variables: download the file again",
+            )
+        elif unit is None:
             problem = (
                 f"variable {name!r} ({role}) has no units",
                 f"declare them under {section}.units.{role} or add a units attribute to the file",
@@ -200,6 +206,34 @@ def role_problems(
         more = f" (and {len(paths) - 1} other file(s) of {len(parts)})" if len(paths) > 1 else ""
         out.append((f"{section} grid {paths[0]}{more}: {what}", fix))
     return out, each
+
+
+def key_problems(
+    ds: Any,
+    *,
+    variables: Mapping[str, str],
+    units: Mapping[str, str],
+    accumulation: Mapping[str, Any] | None,
+    section: str = "weather",
+) -> list[tuple[str, str]]:
+    """Config keys that name neither a role nor (for ``units``/``accumulation``) a variable of the grid ``ds``."""
+    import difflib
+
+    from lakefeed.config.sources import WEATHER_ROLES
+
+    out = []
+    for key, mapping in (("variables", variables), ("units", units), ("accumulation", accumulation or {})):
+        for role in mapping:
+            if role not in WEATHER_ROLES and (key == "variables" or role not in ds.data_vars):
+                guess = difflib.get_close_matches(role, list(WEATHER_ROLES), n=1)
+                out.append(
+                    (
+                        f"{section}.{key}.{role}: unknown role" + (f"; did you mean {guess[0]!r}?" if guess else ""),
+                        f"keys are roles ({', '.join(WEATHER_ROLES)})"
+                        + ("" if key == "variables" else " or variable names of the file"),
+                    )
+                )
+    return out
 
 
 def time_gaps(time: np.ndarray, parts: Sequence[GridPart], *, section: str = "weather") -> list[str]:

@@ -313,8 +313,10 @@ def build_weather(
     src = project.sources.weather
     if src is None:
         return StageResult("weather", lake.id, skipped=True, reason="no weather source in sources.yaml")
-    grid = open_grid(src.paths, time_zone=src.time_zone, on_error="skip")
-    warn = [f"file left out: {m}" for m in grid.skipped] + time_gaps(grid.dataset["time"].values, grid.parts)
+    # an unreadable file fails the stage naming it (as `lakefeed check` reports it): a month left out would
+    # replace its stored rows with missing ones
+    grid = open_grid(src.paths, time_zone=src.time_zone, on_error="raise")
+    warn = time_gaps(grid.dataset["time"].values, grid.parts)
     p("weather: zones", 0, 3)
     lake_g = read_layer(lake.lake, what="lake polygon")
     aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
