@@ -281,3 +281,28 @@ def test_check_predicts_build(case: str, mini_template: Path, tmp_path: Path) ->
     # a config problem's fix is the check's general advice ("fix that key ... then run check again")
     same = [r for r in problems if r.message.split("\n")[0] in refused and (r.hint in refused or r.name == "config")]
     assert same, f"build refused with:\n{refused}\ncheck said: {[(r.message, r.hint) for r in problems]}"
+
+
+def test_each_file_decoded_with_its_own_units(mini_template: Path, tmp_path: Path) -> None:
+    """A month in degC (labelled so) among months in K gives the drivers of an all-K record.
+
+    K -> degC is an offset of 273.15 (SI Brochure, 9th edition, section 2.3.1); the packed copy in degC is
+    stored with its own scale_factor, decoded with it.
+    """
+    from lakefeed.store import Store
+
+    tables = {}
+    for case, variant in (
+        ("kelvin", lambda root: None),
+        ("celsius", CORPUS["second file in degC"][0]),
+        ("packed celsius", CORPUS["second file packed in degC"][0]),
+    ):
+        root = tmp_path / case
+        shutil.copytree(mini_template, root)
+        variant(root)
+        assert _build(root / "config" / "lake-mini.yaml") == ""
+        tables[case] = Store(root / "store").read_table("drivers_daily", "mini")
+    base = tables["kelvin"]
+    assert base["air_temperature_mean"].dropna().round(4).eq(round(280.0 - 273.15, 4)).all()
+    for case in ("celsius", "packed celsius"):
+        pd.testing.assert_frame_equal(tables[case], base, atol=0.002)  # 0.002 degC: the packing step
