@@ -306,3 +306,23 @@ def test_each_file_decoded_with_its_own_units(mini_template: Path, tmp_path: Pat
     assert base["air_temperature_mean"].dropna().round(4).eq(round(280.0 - 273.15, 4)).all()
     for case in ("celsius", "packed celsius"):
         pd.testing.assert_frame_equal(tables[case], base, atol=0.002)  # 0.002 degC: the packing step
+
+
+def test_zarr_store_with_a_missing_chunk(mini_template: Path, tmp_path: Path) -> None:
+    """An absent Zarr chunk is refused by the build and by the check, counted, in the same words."""
+    import _mini
+
+    root = tmp_path / "mini"
+    shutil.copytree(mini_template, root)
+    store = root / "weather" / "grid.zarr"
+    ds = _mini.weather_dataset(pd.date_range("2024-01-01", periods=96, freq="h")).chunk({"time": 24})
+    ds.to_zarr(store, consolidated=False)
+    sources(lambda w: w.update(paths=["../weather/grid.zarr"]))(root)
+    lake = root / "config" / "lake-mini.yaml"
+    assert _build(lake) == ""
+    chunk = sorted(p for p in (store / "air_temp").rglob("*") if p.is_file() and p.name != "zarr.json")[1]
+    chunk.unlink()
+    refused = _build(lake)
+    assert "Zarr chunks missing ('air_temp' 1 of 4)" in refused
+    (report,) = check_paths([lake])
+    assert [r.message for r in report.results if not r.ok] == [refused]

@@ -213,6 +213,8 @@ def _open_one(path: Path, chunk_time: int | None) -> tuple[xr.Dataset, Layout | 
             raise SourceError(f"weather grid {path}: dimension {name} has no coordinate values")
     grid_vars = [n for n, v in ds.data_vars.items() if set(v.dims) == {"time", "latitude", "longitude"}]
     ds = ds[grid_vars].transpose("time", "latitude", "longitude")
+    if engine == "zarr":
+        _zarr_chunks(path, grid_vars)
     # probe: read one element of the last chunk of every variable (truncation shows up here)
     try:
         for n in grid_vars:
@@ -237,6 +239,24 @@ def _open_one(path: Path, chunk_time: int | None) -> tuple[xr.Dataset, Layout | 
         lay = dataclasses.replace(lay, template=ds)
         raw.close()
     return ds, lay
+
+
+def _zarr_chunks(path: Path, names: list[str]) -> None:
+    """Refuse a Zarr store whose grid variables lack chunks: a missing chunk would read as fill values."""
+    import zarr
+
+    group = zarr.open_group(str(path), mode="r")
+    gaps = [
+        (n, a.nchunks - a.nchunks_initialized, a.nchunks)
+        for n in names
+        if (a := group[n]).nchunks_initialized < a.nchunks
+    ]
+    if gaps:
+        said = ", ".join(f"{n!r} {k} of {m}" for n, k, m in gaps)
+        raise SourceError(
+            f"weather grid {path}: Zarr chunks missing ({said}); they would read as missing values: copy the "
+            "store again (or write it with write_empty_chunks=True if those chunks are truly empty)"
+        )
 
 
 _PACKING = ("scale_factor", "add_offset", "_FillValue", "missing_value")
