@@ -148,7 +148,10 @@ BROKEN = {
         ["dangling downstream id 'zz' (of sub-basin(s) 'c')"],
     ),
     "off grid": (_break_lake_off_grid, ["lake (", "is not inside the weather grid of reanalysis_2024-01-01.nc"]),
-    "units": (_break_variable, ["air_temperature ('air_temp') has units 'm s-1' (weather.units.air_temperature)"]),
+    "units": (
+        _break_variable,
+        ["variable 'air_temp' (air_temperature) has units 'm s-1' (weather.units.air_temperature)"],
+    ),
     "sensors": (_break_sensors, ["configured sensor(s) ['owl'] have no scenes"]),
     "hydrology ids": (_break_hydrology_ids, ["missing from the hydrology outputs: ['a']"]),
     "coverage": (_break_coverage, ["the sources do not overlap in time: forecast issues starts 2026-01-05"]),

@@ -14,7 +14,8 @@ import xarray as xr
 from shapely.geometry import box
 
 from lakefeed.checks import CheckResult
-from lakefeed.checks.grids import check_forecast, grid_data_results, grid_extent_results, weather_variables
+from lakefeed.checks._grid_values import zone_cell_results
+from lakefeed.checks.grids import check_forecast, grid_extent_results, weather_variables
 from lakefeed.config import Accumulation, ForecastSource
 
 F = Path("grid.nc")
@@ -40,8 +41,9 @@ def test_missing_standard_name_needs_a_mapping() -> None:
     del ds["air_temp"].attrs["standard_name"]
     res, found = run(ds)
     assert not res.ok and found.ok and "5 of 6 roles" in found.message
-    assert "no variable for 'air_temperature'" in res.message
-    assert res.hint == "add the file's variable name under weather.variables.air_temperature"
+    # the build's own message (lakefeed.sources.grids.find_variable)
+    assert "no variable with standard_name 'air_temperature' and no mapping" in res.message
+    assert "add the file's variable name under that key" in res.message
     (res,) = run(ds, variables={"air_temperature": "air_temp"})
     assert res.ok and "by weather.variables.air_temperature" in res.message
 
@@ -52,22 +54,23 @@ def test_mapping_to_an_absent_variable_and_unknown_role_did_you_mean() -> None:
     res = run(ds, variables={"air_temperature": "t2m", "air_temperatur": "air_temp"})
     msgs = " | ".join(r.message for r in res if not r.ok)
     assert "weather.variables.air_temperatur: unknown role; did you mean 'air_temperature'?" in msgs
-    assert "variable 't2m' named by weather.variables.air_temperature is not in the file" in msgs
+    assert "variable 't2m' (weather.variables.air_temperature in sources.yaml) is not in the file" in msgs
 
 
 def test_units_must_convert() -> None:
     ds = grid()
     ds["wind_u"].attrs["units"] = "K"
     res = [r for r in run(ds) if not r.ok]
-    assert len(res) == 1 and "eastward_wind ('wind_u') has units 'K'" in res[0].message
-    assert "not convertible to 'm s-1'" in res[0].message
+    # the build's own rule and words (lakefeed.sources.grid_rules.role_problems)
+    assert len(res) == 1 and "variable 'wind_u' (eastward_wind) has units 'K'" in res[0].message
+    assert "which is not a speed unit (convertible to 'm s-1')" in res[0].message
     # a unit declared in the config wins over the file's attribute
     assert all(r.ok for r in run(ds, units={"eastward_wind": "km h-1"}))
 
 
 def test_amounts_need_an_accumulation_kind() -> None:
     res = [r for r in run(grid(), accumulation={}) if not r.ok]
-    assert {r.message.split(": ")[1].split(" (")[0] for r in res} == {"shortwave_radiation", "precipitation"}
+    assert {r.message.split(" (")[1].split(")")[0] for r in res} == {"shortwave_radiation", "precipitation"}
     assert res[0].hint.startswith("set weather.accumulation.")
 
 
@@ -122,19 +125,25 @@ def test_forecast_without_reference_time(tmp_path: Path, missing: str) -> None:
     assert any("no forecast_reference_time" in r.message for r in res if not r.ok)
 
 
-def test_zone_in_the_no_data_region() -> None:
-    """Cells over the lake all NaN: a problem; some NaN over the catchment: a warning."""
-    ds = grid()
-    lake = _lake(9.0, 47.8)  # centre cell (lat index 5, lon index 5)
-    catchment = gpd.GeoDataFrame(geometry=[box(8.86, 47.66, 9.14, 47.94)], crs="EPSG:4326")  # 3 x 3 cells
-    (ok,) = grid_data_results(ds, {"lake": lake}, variable="air_temp", section="weather", file=F)
-    assert ok.ok and "lake: all 1 cells hold data" in ok.message
+def test_zone_cells_counted_as_the_build_weighs_them() -> None:
+    """The check counts the cells the weights carry (partly covered ones too), not cell centres inside a zone."""
+    from lakefeed.geometry.weights import zone_weights
+    from lakefeed.sources.grids import Grid
+
+    ds = grid()  # 0.1 degree cells, centres at lon 8.5 + 0.1 k, lat 48.3 - 0.1 k
+    g = Grid(dataset=ds, files=(F,))
+    lake = box(8.97, 47.77, 9.03, 47.83)  # inside the cell centred (9.0, 47.8): no other centre in it
+    catchment = box(8.92, 47.72, 9.08, 47.88)  # overlaps 3 x 3 cells, holds only one cell centre
+    w = zone_weights({"lake": lake, "catchment": catchment}, g.lat, g.lon)
+    lake_res, catch_res = zone_cell_results(g, w, "air_temp")
+    assert lake_res.ok and "lake: all 1 cells the build weighs hold data" in lake_res.message
+    # the build weighs every cell the box overlaps: 3 x 3 (exact coverage, exactextract's rule), not 1 centre
+    assert "catchment: all 9 cells the build weighs hold data" in catch_res.message
+    assert w.cells("catchment").size == np.count_nonzero(w.matrix[1].toarray())
     ds["air_temp"][:, 5, 5] = np.nan
-    lake_res, catch_res = grid_data_results(
-        ds, {"lake": lake, "catchment": catchment}, variable="air_temp", section="weather", file=F
-    )
-    assert not lake_res.ok and "lake: 1 of 1 cells are no-data (NaN)" in lake_res.message
-    assert catch_res.status == "warning" and "catchment: 1 of 9 cells are no-data" in catch_res.message
+    lake_res, catch_res = zone_cell_results(Grid(dataset=ds, files=(F,)), w, "air_temp")
+    assert lake_res.status == "warning" and "lake: 1 of the 1 cells the build weighs are no-data" in lake_res.message
+    assert catch_res.status == "warning" and "catchment: 1 of the 9 cells" in catch_res.message
 
 
 def test_weather_files_gap_overlap_and_odd_grid(tmp_path: Path) -> None:

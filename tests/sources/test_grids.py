@@ -69,7 +69,7 @@ def test_units_missing_or_not_understood(tmp_path):
     ds = _ds("2024-01-01", 3)
     del ds["t2"].attrs["units"]
     grid = open_grid(_write(ds, tmp_path / "a.nc", packed=False))
-    with pytest.raises(SourceError, match=r"'t2'.*no 'units'.*weather.units.air_temperature"):
+    with pytest.raises(SourceError, match=r"'t2'.*has no units; declare them under weather.units.air_temperature"):
         select_roles(grid, ["air_temperature"])
     assert select_roles(grid, ["air_temperature"], units={"air_temperature": "K"})["air_temperature"].attrs["units"]
     with pytest.raises(SourceError, match="not understood"):

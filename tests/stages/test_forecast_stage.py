@@ -65,7 +65,7 @@ def test_forecast_units_other_than_reanalysis(tmp_path):
     ds["air_temp"].attrs["units"] = "m s-1"
     ds.to_netcdf(tmp_path / "bad.nc")
     archive = open_forecasts(str(tmp_path / "bad.nc"))
-    with pytest.raises(SourceError, match="cannot convert"):
+    with pytest.raises(SourceError, match=r"'air_temp' \(air_temperature\) has units 'm s-1'.*forecast\.units"):
         forecast_steps(archive, _weights(archive))
 
 

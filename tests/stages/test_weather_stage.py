@@ -125,7 +125,8 @@ def test_unconvertible_units_and_precipitation_units(small_sample):
         {"zone": ["z"]}, geometry=[__import__("shapely").Point(grid.lon[3], grid.lat[3]).buffer(0.01)], crs=4326
     )
     w, _ = get_weights(zones, grid)
-    with pytest.raises(SourceError, match="cannot convert 'm s-1' to 'degC'"):
+    # the rule lakefeed check applies too (grid_rules.role_problems): every problem named at once
+    with pytest.raises(SourceError, match=r"'air_temp' \(air_temperature\) has units 'm s-1' .*not a temperature unit"):
         hourly_drivers(grid, w, source=WeatherSource(paths=[], units={"air_temperature": "m s-1"}))
 
 

@@ -144,12 +144,15 @@ def _span(step: pd.Timedelta | None) -> str:
     return str(step)
 
 
-def scan_files(files: Sequence[Path], coord: str, *, section: str) -> tuple[list[CheckResult], Period | None]:
+def scan_files(
+    files: Sequence[Path], coord: str, *, section: str, gaps: bool = True
+) -> tuple[list[CheckResult], Period | None]:
     """Read one time coordinate (and the grid's shape) of every file: period, gaps between files, odd grids.
 
     A file whose grid or variables differ from the first file's is a problem; a gap of more
     than one and a half time steps between consecutive files, or files overlapping in time, a
-    warning. Only coordinates are read.
+    warning (not looked for when ``gaps`` is False: the caller checks the time axis itself). Only
+    coordinates are read.
     """
     out: list[CheckResult] = []
     spans: list[tuple[pd.Timestamp, pd.Timestamp, Path]] = []
@@ -185,7 +188,7 @@ def scan_files(files: Sequence[Path], coord: str, *, section: str) -> tuple[list
         return out, None
     spans.sort(key=lambda s: s[0])
     step = min(steps) if steps else None
-    for (_, end, a), (start, _, b) in itertools.pairwise(spans):
+    for (_, end, a), (start, _, b) in itertools.pairwise(spans if gaps else []):
         if step is not None and start - end > 1.5 * step:
             out.append(
                 warned(

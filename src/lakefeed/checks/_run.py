@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import yaml
 
@@ -23,7 +24,10 @@ from lakefeed.checks.grids import check_forecast, check_weather
 from lakefeed.checks.meaning import check_quality_bits, check_record_length
 from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
 from lakefeed.config import Project, SourcesConfig, find_lake_files, load_project
-from lakefeed.exceptions import ConfigError
+from lakefeed.exceptions import ConfigError, LakefeedError
+
+if TYPE_CHECKING:
+    import geopandas as gpd
 
 __all__ = ["LakeReport", "check_paths", "check_project"]
 
@@ -44,6 +48,30 @@ class LakeReport:
     def count(self, status: str) -> int:
         """Number of lines with ``status``."""
         return sum(r.status == status for r in self.results)
+
+
+def _grid_zones(project: Project, layers: Layers) -> gpd.GeoDataFrame | None:
+    """The weather stage's zones (lon/lat), built by its own function; None when the layers fall short.
+
+    A problem building them is reported by the geometry checks; the weather values are then not sampled.
+    """
+    from lakefeed.geometry.zones import build_zones
+
+    lake = project.lake
+    if layers.lake is None:
+        return None
+    try:
+        return build_zones(
+            layers.lake,
+            aois=layers.aois if lake.zones.aois else None,
+            aoi_id_field=lake.aois.id_field,
+            subbasins=layers.subbasins if lake.zones.catchment or lake.zones.subbasins else None,
+            subbasin_layer=lake.subbasins,
+            options=lake.zones,
+            crs="EPSG:4326",
+        )
+    except LakefeedError:
+        return None
 
 
 def check_project(project: Project) -> list[CheckResult]:
@@ -72,7 +100,17 @@ def check_project(project: Project) -> list[CheckResult]:
         results.extend(guarded(name, body))
         periods[key] = holder.get("period")
 
-    run("weather", "weather", lambda: check_weather(src.weather, zones))
+    grid_zones = _grid_zones(project, layers)
+    run(
+        "weather",
+        "weather",
+        lambda: check_weather(
+            src.weather,
+            zones,
+            grid_zones=grid_zones,
+            allow_partial_coverage=lake.zones.allow_partial_coverage,
+        ),
+    )
     ids = [] if layers.subbasins is None else layers.subbasins[lake.subbasins.id_field].astype(str).tolist()
     if layers.subbasins is None and src.hydrology is not None:
         results.append(skipped("hydrology ids", "needs the sub-basin layer"))

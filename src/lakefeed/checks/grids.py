@@ -11,44 +11,27 @@ source's period for the coverage check. Must not read data variables or write an
 
 from __future__ import annotations
 
-import difflib
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 
 import geopandas as gpd
 import numpy as np
 import pandas as pd
-import shapely
-import shapely.affinity
 import xarray as xr
 
 from lakefeed.checks._open import Period, expand, find_coord, lonlat_bounds, open_lazy, scan_files
 from lakefeed.checks._result import CheckResult, failed, passed, skipped, warned
 from lakefeed.config import WEATHER_ROLES, Accumulation, ForecastSource, WeatherSource
-from lakefeed.units import is_convertible
+from lakefeed.exceptions import SourceError
+from lakefeed.sources.grid_roles import find_variable
+from lakefeed.sources.grid_rules import GridPart, key_problems, role_problems, time_gaps
 
 __all__ = [
-    "EXPECTED_UNITS",
     "check_forecast",
     "check_weather",
-    "grid_data_results",
     "grid_extent_results",
     "weather_variables",
 ]
-
-#: Unit each CF standard name must be convertible to (amounts stay amounts, fluxes stay fluxes).
-EXPECTED_UNITS: dict[str, str] = {
-    "air_temperature": "degC",
-    "dew_point_temperature": "degC",
-    "eastward_wind": "m s-1",
-    "northward_wind": "m s-1",
-    "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air": "J m-2",
-    "surface_downwelling_shortwave_flux_in_air": "W m-2",
-    "lwe_thickness_of_precipitation_amount": "mm",
-    "precipitation_amount": "kg m-2",
-    "precipitation_flux": "kg m-2 s-1",
-}
-_AMOUNTS = {"J m-2", "mm", "kg m-2"}
 
 
 def weather_variables(
@@ -60,86 +43,40 @@ def weather_variables(
     section: str,
     file: Path,
     required: bool = True,
+    parts: Sequence[GridPart] | None = None,
+    label: str | None = None,
 ) -> list[CheckResult]:
-    """One line per weather role: found (how), units convertible, accumulation declared for amounts."""
+    """One line per weather role: found (how), units convertible, accumulation declared for amounts.
+
+    Variables are found in ``ds`` (the first file); units and accumulation are checked in every file of
+    ``parts`` (default: ``ds`` alone) by the build's own rules (:mod:`lakefeed.sources.grid_rules`);
+    ``label`` names the grid in messages as the build does.
+    """
     name = f"{section} variables"
-    out: list[CheckResult] = []
+    problems = key_problems(ds, variables=variables, units=units, accumulation=accumulation, section=section)
+    out: list[CheckResult] = [failed(name, what, fix) for what, fix in problems]
     found: list[str] = []
-    for key, mapping in (("variables", variables), ("units", units), ("accumulation", accumulation)):
-        for role in mapping:
-            if role not in WEATHER_ROLES and (key == "variables" or role not in ds.data_vars):
-                guess = difflib.get_close_matches(role, list(WEATHER_ROLES), n=1)
-                out.append(
-                    failed(
-                        name,
-                        f"{section}.{key}.{role}: unknown role" + (f"; did you mean {guess[0]!r}?" if guess else ""),
-                        f"keys are roles ({', '.join(WEATHER_ROLES)})"
-                        + ("" if key == "variables" else " or variable names of the file"),
-                    )
-                )
-    for role, std_names in WEATHER_ROLES.items():
-        var = next((v for v in ds.data_vars.values() if v.attrs.get("standard_name") in std_names), None)
-        how = "standard_name"
-        if var is None and role in variables:
-            how = f"{section}.variables.{role}"
-            if variables[role] not in ds.data_vars:
-                out.append(
-                    failed(
-                        name,
-                        f"{file.name}: variable {variables[role]!r} named by {how} is not in the file; "
-                        f"it has {sorted(map(str, ds.data_vars))}",
-                        f"fix {how}",
-                    )
-                )
-                continue
-            var = ds[variables[role]]
-        if var is None:
-            make = failed if required else warned
-            out.append(
-                make(
-                    name,
-                    f"{file.name}: no variable for {role!r}: none has standard_name {' or '.join(std_names)} "
-                    f"and {section}.variables.{role} is not set; variables are {sorted(map(str, ds.data_vars))}",
-                    f"add the file's variable name under {section}.variables.{role}",
-                )
-            )
+    for role in WEATHER_ROLES:
+        try:
+            vname = find_variable(ds, role, mapping=variables, where=label or str(file), section=section)
+        except SourceError as err:
+            out.append((failed if required else warned)(name, str(err)))
             continue
-        std = var.attrs.get("standard_name")
-        expected = [EXPECTED_UNITS[std]] if std in EXPECTED_UNITS else [EXPECTED_UNITS[s] for s in std_names]
-        ukey = role if role in units else str(var.name)
-        unit = units.get(ukey, var.attrs.get("units"))
-        unit_src = f"{section}.units.{ukey}" if ukey in units else f"attribute units of {var.name!r}"
-        if unit is None:
-            out.append(
-                failed(
-                    name,
-                    f"{file.name}: {role} ({var.name!r}) has no units",
-                    f"declare them under {section}.units.{role}",
-                )
-            )
+        var = ds[vname]
+        by_name = var.attrs.get("standard_name") in WEATHER_ROLES[role]
+        how = "standard_name" if by_name else f"{section}.variables.{role}"
+        probs, each = role_problems(
+            role,
+            str(var.name),
+            parts or [GridPart(file, np.datetime64("NaT"), np.datetime64("NaT"), {str(var.name): dict(var.attrs)})],
+            units=units,
+            accumulation=accumulation,
+            section=section,
+        )
+        if probs:
+            out += [failed(name, what, fix) for what, fix in probs]
             continue
-        target = next((e for e in expected if is_convertible(unit, e)), None)
-        if target is None:
-            out.append(
-                failed(
-                    name,
-                    f"{file.name}: {role} ({var.name!r}) has units {unit!r} ({unit_src}), not convertible to "
-                    f"{' or '.join(map(repr, expected))}",
-                    f"fix the units attribute or declare the right unit under {section}.units.{role}",
-                )
-            )
-            continue
-        acc = accumulation.get(role, accumulation.get(str(var.name)))
-        if target in _AMOUNTS and (acc is None or acc.kind == "none"):
-            out.append(
-                failed(
-                    name,
-                    f"{file.name}: {role} ({var.name!r}) is an amount ({unit}) but "
-                    f"{section}.accumulation.{role}.kind is {'not set' if acc is None else 'none'}",
-                    f"set {section}.accumulation.{role}.kind to since_reset or per_step",
-                )
-            )
-            continue
+        unit = each[0]
         found.append(f"{role} {var.name!r} ({unit}{'' if how == 'standard_name' else ', by ' + how})")
     if found:
         out.append(passed(name, f"{file.name}: {len(found)} of {len(WEATHER_ROLES)} roles: {'; '.join(found)}"))
@@ -192,75 +129,6 @@ def grid_extent_results(
     return out
 
 
-def _first_step_over(da: xr.DataArray, lat: xr.DataArray, lon: xr.DataArray, geom: shapely.Geometry) -> np.ndarray:
-    """Values of the first step of ``da`` at the cells whose centres lie in ``geom`` (or the centroid's cell)."""
-    la, lo = np.asarray(lat.values, dtype=float), np.asarray(lon.values, dtype=float)
-    w, s, e, n = geom.bounds
-    dla = float(np.abs(np.diff(la)).max()) if la.size > 1 else 0.0
-    dlo = float(np.abs(np.diff(lo)).max()) if lo.size > 1 else 0.0
-    ila = np.flatnonzero((la >= s - dla) & (la <= n + dla))
-    ilo = np.flatnonzero((lo >= w - dlo) & (lo <= e + dlo))
-    if ila.size == 0 or ilo.size == 0:
-        return np.array([])
-    first = {d: 0 for d in da.dims if d not in (lat.dims[0], lon.dims[0])}
-    window = da.isel(first).isel({lat.dims[0]: ila, lon.dims[0]: ilo}).transpose(lat.dims[0], lon.dims[0])
-    values = np.asarray(window.values, dtype=float)  # a few cells of one time step
-    glo, gla = np.meshgrid(lo[ilo], la[ila])
-    inside = shapely.contains_xy(geom, glo, gla)
-    if not inside.any():
-        c = geom.centroid
-        inside = np.zeros_like(inside)
-        inside[np.abs(la[ila] - c.y).argmin(), np.abs(lo[ilo] - c.x).argmin()] = True
-    return values[inside]
-
-
-def grid_data_results(
-    ds: xr.Dataset,
-    zones: Mapping[str, gpd.GeoDataFrame | None],
-    *,
-    variable: str,
-    section: str,
-    file: Path,
-) -> list[CheckResult]:
-    """Cells over each zone must hold data (not the grid's NaN no-data region), read at the first time step only.
-
-    A zone wholly in no-data cells is a problem; partly, a warning (its ``valid_fraction`` drops).
-    """
-    name = f"{section} data over zones"
-    lat, lon = find_coord(ds, "latitude"), find_coord(ds, "longitude")
-    if lat is None or lon is None or lat.ndim != 1 or lon.ndim != 1 or variable not in ds.data_vars:
-        return [skipped(name, "needs 1-D latitude/longitude coordinates and an air temperature variable")]
-    out = []
-    for zone, gdf in zones.items():
-        if gdf is None or len(gdf) == 0:
-            continue
-        geom = shapely.union_all(gdf.to_crs("EPSG:4326").geometry.values)
-        if float(np.nanmax(lon.values)) > 180.0 and geom.bounds[0] < 0:
-            geom = shapely.affinity.translate(geom, xoff=360.0)
-        vals = _first_step_over(ds[variable], lat, lon, geom)
-        if vals.size == 0:
-            continue  # outside the grid: reported by the extent check
-        missing = int(np.isnan(vals).sum())
-        what = (
-            f"{zone}: {missing} of {vals.size} cells are no-data (NaN) in {variable!r} of {file.name} at the first step"
-        )
-        if missing == vals.size:
-            out.append(failed(name, what, f"use a {section} grid with data over the {zone}"))
-        elif missing:
-            out.append(warned(name, what, f"the {zone}'s valid fraction will be below 1"))
-        else:
-            out.append(passed(name, f"{zone}: all {vals.size} cells hold data at the first step"))
-    return out
-
-
-def _role_variable(ds: xr.Dataset, role: str, variables: Mapping[str, str]) -> str | None:
-    names = WEATHER_ROLES[role]
-    found = next((str(k) for k, v in ds.data_vars.items() if v.attrs.get("standard_name") in names), None)
-    if found is None and variables.get(role) in ds.data_vars:
-        found = variables[role]
-    return found
-
-
 def _source_files(paths: list[str], section: str) -> tuple[list[CheckResult], list[Path]]:
     """Expand a grid source's paths: one problem per unmatched pattern, one ok line with the file range."""
     files, problems = expand(paths, key=f"{section}.paths")
@@ -271,29 +139,48 @@ def _source_files(paths: list[str], section: str) -> tuple[list[CheckResult], li
 
 
 def check_weather(
-    src: WeatherSource | None, zones: Mapping[str, gpd.GeoDataFrame | None]
+    src: WeatherSource | None,
+    zones: Mapping[str, gpd.GeoDataFrame | None],
+    *,
+    grid_zones: gpd.GeoDataFrame | None = None,
+    allow_partial_coverage: bool = False,
 ) -> tuple[list[CheckResult], Period | None]:
-    """Weather grid: files, variables and units, extent, period (from the ``time`` coordinate)."""
+    """Weather grid: files, every file's variables and units, time axis, extent, cells and sampled values.
+
+    The files are opened as the build opens them (:func:`~lakefeed.sources.grids.open_grid`: metadata, time
+    axes and one probe element per file); ``grid_zones`` are the weather stage's zones (:func:`build_zones`),
+    whose cells are weighed and read as the build does (:mod:`lakefeed.checks._grid_values`).
+    """
+    from lakefeed.checks._grid_values import value_results
+    from lakefeed.sources.grids import open_grid
+
     if src is None:
         return [skipped("weather", "no 'weather' section in the sources config")], None
     out, files = _source_files(src.paths, "weather")
-    if not files:
+    grid = None
+    try:  # as the build opens them: every file's metadata, time axis and a probe element
+        grid = open_grid(src.paths, time_zone=src.time_zone)
+    except SourceError as err:
+        out += [failed("weather files", line) for line in str(err).splitlines()]
+    if not files or grid is None:  # the build stops here too, with the same words
         return out, None
     with open_lazy(files[0]) as ds:
-        out += weather_variables(
+        found = weather_variables(
             ds,
             variables=src.variables,
             units=src.units,
             accumulation=src.accumulation,
             section="weather",
             file=files[0],
+            parts=grid.parts,
+            label=grid.label,
         )
-        out += grid_extent_results(ds, zones, section="weather", file=files[0])
-        temp = _role_variable(ds, "air_temperature", src.variables)
-        if temp is not None:
-            out += grid_data_results(ds, zones, variable=temp, section="weather", file=files[0])
-    res, period = scan_files(files, "time", section="weather")
-    return out + res, period
+        out += found + grid_extent_results(ds, zones, section="weather", file=files[0])
+    res, period = scan_files(files, "time", section="weather", gaps=False)
+    out += res + [warned("weather time axis", gap) for gap in time_gaps(grid.dataset["time"].values, grid.parts)]
+    if grid_zones is not None and all(r.ok for r in out):
+        out += value_results(grid, src, grid_zones, allow_partial_coverage=allow_partial_coverage)
+    return out, period
 
 
 def _lead(value: object) -> str:

@@ -65,8 +65,9 @@ def apply_weights(
     block: np.ndarray,
     weights_t: sp.csr_matrix | tuple[np.ndarray, np.ndarray | sp.csr_matrix, np.ndarray],
     packing: tuple[float, float, tuple[float, ...]] | None = None,
+    extremes: bool = False,
 ) -> np.ndarray:
-    """Weighted means and valid fractions of one (time, cells...) block.
+    """Weighted means and valid fractions of one (time, cells...) block (and the weighed cells' extremes).
 
     Parameters
     ----------
@@ -98,6 +99,13 @@ def apply_weights(
         if offset != 0.0:
             x += offset
     nan = np.isnan(x) if bad is None else bad
+    ext = None
+    if extremes:
+        ext = np.full((nt, 2), np.nan)
+        some = ~nan.all(axis=1) if x.shape[1] else np.zeros(nt, bool)
+        if some.any():
+            ext[some, 0] = np.where(nan, np.inf, x)[some].min(axis=1)
+            ext[some, 1] = np.where(nan, -np.inf, x)[some].max(axis=1)
     if nan.any():
         x[nan] = 0.0
         num = np.asarray(x @ w)
@@ -108,7 +116,7 @@ def apply_weights(
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(den > 0, num / np.where(den > 0, den, 1.0), np.nan)
         frac = den / np.where(total > 0, total, 1.0)
-    return np.concatenate([mean, frac], axis=1)
+    return np.concatenate([mean, frac] if ext is None else [mean, frac, ext], axis=1)
 
 
 def _dims(data: xr.DataArray, time_dim: str) -> tuple[str, str]:
@@ -120,7 +128,9 @@ def _dims(data: xr.DataArray, time_dim: str) -> tuple[str, str]:
     return str(data.dims[1]), str(data.dims[2])
 
 
-def zonal_mean(data: xr.DataArray, weights: ZoneWeights, *, time_dim: str = "time") -> xr.Dataset:
+def zonal_mean(
+    data: xr.DataArray, weights: ZoneWeights, *, time_dim: str = "time", extremes: bool = False
+) -> xr.Dataset:
     """Area-weighted mean of ``data`` over every zone, at every time step.
 
     Parameters
@@ -129,6 +139,9 @@ def zonal_mean(data: xr.DataArray, weights: ZoneWeights, *, time_dim: str = "tim
         (time, lat, lon) in the order the weights were built for; any units (kept in ``attrs``).
     weights
         Zone weights of this grid (``weights.shape`` must equal the spatial shape).
+    extremes
+        Also give ``cell_min`` and ``cell_max`` (dims time; data units): the lowest and highest value
+        of the cells any zone weighs, read in the same pass.
 
     Returns
     -------
@@ -145,6 +158,7 @@ def zonal_mean(data: xr.DataArray, weights: ZoneWeights, *, time_dim: str = "tim
     sub = data.isel({ydim: window[0], xdim: window[1]})
     wt = _prepare(weights.restrict(window).T.tocsr())
     nz = len(weights.zones)
+    ncol = 2 * nz + (2 if extremes else 0)
     packing = packing_of(data.attrs)
     attrs = {k: v for k, v in data.attrs.items() if k not in PACKING_ATTRS}
     arr = sub.data
@@ -155,18 +169,24 @@ def zonal_mean(data: xr.DataArray, weights: ZoneWeights, *, time_dim: str = "tim
             arr,
             wt,
             packing,
+            extremes,
             drop_axis=[1, 2],
             new_axis=[1],
-            chunks=(arr.chunks[0], (2 * nz,)),
+            chunks=(arr.chunks[0], (ncol,)),
             dtype=np.float64,
             meta=np.empty((0, 0), dtype=np.float64),
         )
     else:
-        out = apply_weights(np.asarray(arr), wt, packing)
+        out = apply_weights(np.asarray(arr), wt, packing, extremes)
     coords = {time_dim: data[time_dim], "zone": list(weights.zones)}
     mean = xr.DataArray(out[:, :nz], dims=(time_dim, "zone"), coords=coords, attrs=attrs)
-    frac = xr.DataArray(out[:, nz:], dims=(time_dim, "zone"), coords=coords, attrs={"units": "1"})
-    return xr.Dataset({"mean": mean, "valid_fraction": frac})
+    frac = xr.DataArray(out[:, nz : 2 * nz], dims=(time_dim, "zone"), coords=coords, attrs={"units": "1"})
+    res = xr.Dataset({"mean": mean, "valid_fraction": frac})
+    if extremes:
+        tc = {time_dim: data[time_dim]}
+        res["cell_min"] = xr.DataArray(out[:, 2 * nz], dims=(time_dim,), coords=tc, attrs=attrs)
+        res["cell_max"] = xr.DataArray(out[:, 2 * nz + 1], dims=(time_dim,), coords=tc, attrs=attrs)
+    return res
 
 
 def zonal_means(

@@ -122,6 +122,14 @@ class ZoneWeights:
             sub_cell=np.asarray(arrays["sub_cell"], dtype=bool),
         )
 
+    def cells(self, zone: str | None = None) -> np.ndarray:
+        """Flat indices (``i_lat * n_lon + i_lon``, ascending) of the cells ``zone`` weighs (any zone: None).
+
+        The cells the zonal means read and weigh; ``lakefeed check`` counts and inspects these same cells.
+        """
+        m = self.matrix if zone is None else self.matrix[self.zones.index(zone)]
+        return np.unique(m.tocoo().col[m.tocoo().data > 0]).astype(np.int64)
+
     def cell_window(self) -> tuple[slice, slice]:
         """Smallest (lat, lon) index window holding every weighted cell."""
         cols = self.matrix.indices

@@ -36,20 +36,22 @@ _OPEN_PID = os.getpid()
 
 
 def _file(path: str, cache_bytes: int) -> Any:
-    """An open h5py.File for ``path`` in this process (LRU; a forked child opens its own)."""
+    """An open h5py.File for ``path`` in this process (LRU by path and file identity; a forked child opens its own)."""
     import h5py
 
     global _OPEN_PID
+    st = os.stat(path)  # a file replaced since it was opened (a month downloaded again) is opened anew
+    key = f"{path}|{st.st_ino}|{st.st_mtime_ns}|{st.st_size}"
     with _LOCK:
         if _OPEN_PID != os.getpid():  # inherited from the parent: leave those handles alone
             _OPEN.clear()
             _OPEN_PID = os.getpid()
-        fh = _OPEN.get(path)
+        fh = _OPEN.get(key)
         if fh is not None:
-            _OPEN.move_to_end(path)
+            _OPEN.move_to_end(key)
             return fh
         fh = h5py.File(path, "r", rdcc_nbytes=cache_bytes)
-        _OPEN[path] = fh
+        _OPEN[key] = fh
         while len(_OPEN) > MAX_OPEN:  # dropped, not closed: a reader still using it holds it open
             _OPEN.popitem(last=False)
         return fh

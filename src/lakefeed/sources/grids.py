@@ -40,9 +40,12 @@ import xarray as xr
 from lakefeed.exceptions import SourceError
 from lakefeed.geometry.weights import grid_signature
 from lakefeed.sources._h5grid import Layout, Record, layout_of, open_like, stack, to_h5
+from lakefeed.sources.grid_roles import decode, find_variable, select_roles
+from lakefeed.sources.grid_rules import GridPart
 
 __all__ = [
     "Grid",
+    "GridPart",
     "decode",
     "expand_paths",
     "find_variable",
@@ -75,12 +78,16 @@ class Grid:
         One message per file left out (``on_error="skip"``).
     crs
         "EPSG:4326" unless the file's grid mapping names another geographic datum.
+    parts
+        Each file's own variable attributes (units, packing) and time range (empty when the grid
+        was not opened from files by :func:`open_grid`).
     """
 
     dataset: xr.Dataset
     files: tuple[Path, ...]
     skipped: tuple[str, ...] = field(default_factory=tuple)
     crs: str = "EPSG:4326"
+    parts: tuple[GridPart, ...] = field(default_factory=tuple)
 
     @property
     def lat(self) -> np.ndarray:
@@ -206,6 +213,8 @@ def _open_one(path: Path, chunk_time: int | None) -> tuple[xr.Dataset, Layout | 
             raise SourceError(f"weather grid {path}: dimension {name} has no coordinate values")
     grid_vars = [n for n, v in ds.data_vars.items() if set(v.dims) == {"time", "latitude", "longitude"}]
     ds = ds[grid_vars].transpose("time", "latitude", "longitude")
+    if engine == "zarr":
+        _zarr_chunks(path, grid_vars)
     # probe: read one element of the last chunk of every variable (truncation shows up here)
     try:
         for n in grid_vars:
@@ -230,6 +239,24 @@ def _open_one(path: Path, chunk_time: int | None) -> tuple[xr.Dataset, Layout | 
         lay = dataclasses.replace(lay, template=ds)
         raw.close()
     return ds, lay
+
+
+def _zarr_chunks(path: Path, names: list[str]) -> None:
+    """Refuse a Zarr store whose grid variables lack chunks: a missing chunk would read as fill values."""
+    import zarr
+
+    group = zarr.open_group(str(path), mode="r")
+    gaps = [
+        (n, a.nchunks - a.nchunks_initialized, a.nchunks)
+        for n in names
+        if (a := group[n]).nchunks_initialized < a.nchunks
+    ]
+    if gaps:
+        said = ", ".join(f"{n!r} {k} of {m}" for n, k, m in gaps)
+        raise SourceError(
+            f"weather grid {path}: Zarr chunks missing ({said}); they would read as missing values: copy the "
+            "store again (or write it with write_empty_chunks=True if those chunks are truly empty)"
+        )
 
 
 _PACKING = ("scale_factor", "add_offset", "_FillValue", "missing_value")
@@ -332,8 +359,9 @@ def open_grid(
         raise SourceError("\n".join(problems) + ok)
     # a Record's coordinates are its layout's (checked equal when it was read)
     grids = [(f, layout.template if isinstance(o, Record) and layout else o) for f, o in opened]
+    own = [{str(n): dict(v.attrs) for n, v in g.data_vars.items()} for _, g in grids]  # before any joining
     order = sorted(range(len(opened)), key=lambda k: _first_time(opened[k][1]))
-    opened, grids = [opened[k] for k in order], [grids[k] for k in order]
+    opened, grids, own = [opened[k] for k in order], [grids[k] for k in order], [own[k] for k in order]
     ref_f, ref = grids[0]
     for f, g in grids[1:]:
         for c in ("latitude", "longitude"):
@@ -362,86 +390,11 @@ def open_grid(
         t = pd.DatetimeIndex(ds["time"].values).tz_localize(time_zone).tz_convert("UTC").tz_localize(None)
         ds = ds.assign_coords(time=t.values)
     ds = normalise_lon(ds)
-    return Grid(dataset=ds, files=tuple(f for f, _ in opened), skipped=tuple(problems))
-
-
-def find_variable(ds: xr.Dataset, role: str, *, mapping: Mapping[str, str] | None = None, where: str = "") -> str:
-    """Name of the variable playing ``role``: by CF standard_name first, else by the config mapping."""
-    from lakefeed.config.sources import WEATHER_ROLES  # imported here: keeps `lakefeed zonal` start-up short
-
-    wanted = WEATHER_ROLES.get(role, (role,))
-    for sn in wanted:
-        for name, var in ds.data_vars.items():
-            if var.attrs.get("standard_name") == sn:
-                return str(name)
-    if mapping and role in mapping:
-        name = mapping[role]
-        if name in ds.data_vars:
-            return name
-        raise SourceError(
-            f"weather grid {where}: variable {name!r} (weather.variables.{role} in sources.yaml) is not in the file; "
-            f"variables are {sorted(map(str, ds.data_vars))}"
-        )
-    raise SourceError(
-        f"weather grid {where}: no variable with standard_name {' or '.join(map(repr, wanted))} and no mapping in "
-        f"sources.yaml weather.variables.{role}; add the file's variable name under that key "
-        f"(variables are {sorted(map(str, ds.data_vars))})"
+    t = ds["time"].values
+    ends = [*starts[1:], t.size]
+    parts = tuple(
+        GridPart(f, t[a], t[b - 1], attrs)
+        for (f, _), a, b, attrs in zip(opened, starts, ends, own, strict=True)
+        if b > a
     )
-
-
-def decode(var: xr.DataArray) -> xr.DataArray:
-    """Lazily apply CF packing (fill values -> NaN, ``scale_factor``, ``add_offset``) in float64.
-
-    Grids are opened undecoded so that zonal means can decode only the weighted cells; use this
-    before any non-linear use. ``attrs['packing_step']`` keeps the scale factor (packing noise).
-    """
-    fills = [a for k in ("_FillValue", "missing_value") if k in var.attrs for a in np.atleast_1d(var.attrs[k])]
-    scale = float(var.attrs.get("scale_factor", 1.0))
-    offset = float(var.attrs.get("add_offset", 0.0))
-    attrs = {
-        k: v for k, v in var.attrs.items() if k not in ("_FillValue", "missing_value", "scale_factor", "add_offset")
-    }
-    out = var.astype(np.float64)
-    for f in fills:
-        out = out.where(var != f)
-    if scale != 1.0 or offset != 0.0:
-        out = out * scale + offset
-    attrs["packing_step"] = float(var.attrs.get("packing_step", 0.0)) or (scale if "scale_factor" in var.attrs else 0.0)
-    out = out.rename(var.name)
-    out.attrs = attrs  # replaced, not updated: arithmetic keeps the packing attributes (xarray keep_attrs)
-    return out
-
-
-def select_roles(
-    grid: Grid,
-    roles: Iterable[str],
-    *,
-    mapping: Mapping[str, str] | None = None,
-    units: Mapping[str, str] | None = None,
-    packed: bool = False,
-) -> dict[str, xr.DataArray]:
-    """The variables of ``roles`` with ``attrs['units']`` resolved (config beats file) and checked.
-
-    Each DataArray's attrs carry ``units``, ``standard_name`` (if any), ``source_name`` and
-    ``packing_step`` (scale_factor of packed data, else 0) for noise clipping. Values are decoded
-    (:func:`decode`) unless ``packed`` (then CF packing attributes stay for :func:`zonal_mean`).
-    """
-    from lakefeed.units import parse_unit
-
-    out = {}
-    for role in roles:
-        name = find_variable(grid.dataset, role, mapping=mapping, where=grid.label)
-        var = grid.dataset[name]
-        unit = (units or {}).get(role) or var.attrs.get("units")
-        if not unit:
-            raise SourceError(
-                f"weather grid {grid.label}: variable {name!r} ({role}) has no 'units' attribute; declare it in "
-                f"sources.yaml weather.units.{role}"
-            )
-        parse_unit(unit)
-        attrs = dict(var.attrs)
-        step = var.attrs.get("scale_factor", 0.0) or var.attrs.get("packing_step", 0.0)  # decoded: its record's
-        attrs.update(units=unit, source_name=name, packing_step=float(step or 0.0))
-        var = var.copy(deep=False).assign_attrs(attrs)
-        out[role] = var if packed else decode(var)
-    return out
+    return Grid(dataset=ds, files=tuple(f for f, _ in opened), skipped=tuple(problems), parts=parts)

@@ -106,7 +106,11 @@ def forecast_steps(
     grid = archive.as_grid(ds)
     as_is = {role: Accumulation(kind="none") for role in _AMOUNTS}  # de-accumulated above, along the lead
     wsrc = WeatherSource(paths=[], variables=src.variables, units=src.units)
-    steps, clipped = hourly_drivers(grid, weights, source=wsrc, accumulation=as_is, progress=progress)
+    # unit rules as for the reanalysis; no physical bounds: raw forecasts carry model biases (the sample plants
+    # radiation biases above the top-of-atmosphere value) that the bias adjustment removes
+    steps, clipped = hourly_drivers(
+        grid, weights, source=wsrc, accumulation=as_is, progress=progress, section="forecast", value_rules=False
+    )
     warnings = [f"{k}: {n} forecast value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
     shape = (ds.sizes[ISSUE], ds.sizes[LEAD], len(weights.zones))
     cube = xr.Dataset(

@@ -37,6 +37,7 @@ from lakefeed.extract.accumulation import Deaccumulated, deaccumulate, step_of
 from lakefeed.extract.meteo import wind_speed
 from lakefeed.extract.zonal import zonal_mean
 from lakefeed.geometry.weights import ZoneWeights, zone_hash, zone_weights
+from lakefeed.sources.grid_rules import time_gaps
 from lakefeed.sources.grids import Grid, decode, open_grid, select_roles
 from lakefeed.stages._pool import (
     _DaskProgress,
@@ -47,6 +48,7 @@ from lakefeed.stages._pool import (
     use_processes,
 )
 from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages._values import check_values
 
 if TYPE_CHECKING:  # heavy imports (geopandas, pint, pydantic, pyarrow) are deferred to keep start-up short
     import geopandas as gpd
@@ -131,19 +133,30 @@ def hourly_drivers(
     source: WeatherSource | None = None,
     accumulation: Mapping[str, Accumulation] | None = None,
     progress: Progress | None = None,
+    section: str = "weather",
+    value_rules: bool = True,
 ) -> tuple[xr.Dataset, dict[str, int]]:
     """Per-step zonal drivers in canonical units, computed in one pass (returns (dataset, clipped counts)).
 
     Dataset dims (time, zone): ``air_temperature``, ``dewpoint`` (degC), ``wind_speed`` (m s-1, mean
     of cell speeds), ``precipitation`` (mm per step), ``shortwave_radiation`` (W m-2, step mean),
     ``valid_fraction`` (lowest of the variables; fraction of the whole zone).
+
+    Every file's units are checked and its values converted from its own unit
+    (:func:`~lakefeed.sources.grids.select_roles`; ``section`` names the config section in messages).
+    With ``value_rules`` the converted values of the weighed cells must lie within physical bounds and
+    every variable must hold values in every file (:mod:`lakefeed.sources.grid_rules`): read in the
+    same pass, a :class:`~lakefeed.exceptions.SourceError` naming file, time and cell otherwise.
     """
     from lakefeed.config.sources import Accumulation, WeatherSource
     from lakefeed.units import convert
 
     src = source or WeatherSource(paths=[])
     acc = dict(src.accumulation) | dict(accumulation or {})
-    var = select_roles(grid, ROLES, mapping=src.variables, units=src.units, packed=True)
+    rule_acc = src.accumulation if accumulation is None else None  # an override: the caller de-accumulated
+    var = select_roles(
+        grid, ROLES, mapping=src.variables, units=src.units, accumulation=rule_acc, packed=True, section=section
+    )
     step_s = float(step_of(grid.dataset["time"].values) / np.timedelta64(1, "s"))
     u, v = decode(var["eastward_wind"]), decode(var["northward_wind"])
     speed = wind_speed(convert(u, u.attrs["units"], "m s-1"), convert(v, v.attrs["units"], "m s-1"))
@@ -160,25 +173,29 @@ def hourly_drivers(
         "precipitation": deacc["precipitation"].increments,
         "shortwave_radiation": deacc["shortwave_radiation"].increments,
     }
-    zonal = {k: zonal_mean(v, weights) for k, v in fields.items()}
+    zonal = {k: zonal_mean(v, weights, extremes=True) for k, v in fields.items()}
     checks = {k: (d.bad_steps, d.n_clipped) for k, d in deacc.items()}
     cb = _DaskProgress(progress, "weather: reading grid") if progress else None
     with cb if cb else _Null(), _one_blas_thread():  # small weight products: one BLAS thread is faster
         zonal, checks = dask.compute(zonal, checks, scheduler=local_scheduler())
     clipped = {k: deacc[k].check(bad_steps=b, n_clipped=n) for k, (b, n) in checks.items()}
-    out = xr.Dataset(
-        {
-            "air_temperature": convert(zonal["air_temperature"]["mean"], var["air_temperature"].attrs["units"], "degC"),
-            "dewpoint": convert(zonal["dewpoint"]["mean"], var["dewpoint_temperature"].attrs["units"], "degC"),
-            "wind_speed": zonal["wind_speed"]["mean"],
-            "precipitation": _to_mm_per_step(
-                zonal["precipitation"]["mean"], var["precipitation"].attrs["units"], step_s
-            ),
-            "shortwave_radiation": _to_watts(
-                zonal["shortwave_radiation"]["mean"], var["shortwave_radiation"].attrs["units"], step_s
-            ),
-        }
-    )
+    to_canonical = {
+        "air_temperature": lambda x: convert(x, var["air_temperature"].attrs["units"], "degC"),
+        "dewpoint": lambda x: convert(x, var["dewpoint_temperature"].attrs["units"], "degC"),
+        "wind_speed": lambda x: x,
+        "precipitation": lambda x: _to_mm_per_step(x, var["precipitation"].attrs["units"], step_s),
+        "shortwave_radiation": lambda x: _to_watts(x, var["shortwave_radiation"].attrs["units"], step_s),
+    }
+    names = {"dewpoint": "dewpoint_temperature", "wind_speed": "eastward_wind"}
+    if value_rules:
+        check_values(
+            grid,
+            weights,
+            {k: (fields[k], zonal[k], to_canonical[k], var[names.get(k, k)].attrs["source_name"]) for k in fields},
+            step_hours=step_s / 3600.0,
+            section=section,
+        )
+    out = xr.Dataset({k: to_canonical[k](zonal[k]["mean"]) for k in fields})
     vf = xr.concat([z["valid_fraction"] for z in zonal.values()], dim="v").min("v")
     cov = xr.DataArray(weights.grid_coverage, dims="zone", coords={"zone": list(weights.zones)})
     out["valid_fraction"] = vf * cov
@@ -307,10 +324,10 @@ def build_weather(
     src = project.sources.weather
     if src is None:
         return StageResult("weather", lake.id, skipped=True, reason="no weather source in sources.yaml")
-    # an unreadable file fails the stage (naming it) before anything is written: leaving it out would
-    # replace that month's stored rows with a shorter record
-    grid = open_grid(src.paths, time_zone=src.time_zone)
-    warn: list[str] = []
+    # an unreadable file fails the stage naming it (as `lakefeed check` reports it): a month left out would
+    # replace its stored rows with missing ones
+    grid = open_grid(src.paths, time_zone=src.time_zone, on_error="raise")
+    warn = time_gaps(grid.dataset["time"].values, grid.parts)
     p("weather: zones", 0, 3)
     lake_g = read_layer(lake.lake, what="lake polygon")
     aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
