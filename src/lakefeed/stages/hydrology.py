@@ -71,7 +71,7 @@ def station_method(station: SampleStation) -> str:
 def _station_estimates(
     station: SampleStation, flow: pd.Series, where: str
 ) -> tuple[dict[str, dict[str, LoadEstimate | ExtractError]], str]:
-    samples = read_samples(station.path, units=station.units)
+    samples = read_samples(station.path, station, station_hint=station.id)
     options = {"seasonal": station.rating_seasonal, "trend": station.rating_trend}
     out = {}
     for nutrient, part in samples.groupby("nutrient", sort=True):
