@@ -102,6 +102,12 @@ def scenario(tmp_path_factory: pytest.TempPathFactory) -> dict:
     )
     extra = samples.iloc[[3]].assign(concentration=conc[3] * 1.5)  # a second sample on the same day
     pd.concat([samples, extra]).to_csv(root / "samples.csv", index=False)
+    lab = pd.concat([samples, extra])  # the same samples as a lab writes them: see test_lab_sheet_station
+    marks = np.where(lab["censored"], "<", "")
+    cells = [f"{m}{c * 1000:.17g}".replace(".", ",") for m, c in zip(marks, lab["concentration"], strict=True)]
+    days = pd.to_datetime(lab["date"]).dt.strftime("%d.%m.%Y")
+    rows = [f"{d};08:30;{c};lab remark" for d, c in zip(days, cells, strict=True)]
+    (root / "lab.csv").write_text("Sampling day;Clock;TP [ug/l];Remarks\n" + "\n".join(rows) + "\n", encoding="cp1252")
     (root / "cfg").mkdir()
     lake_yaml = (
         "id: {id}\nname: Wren Pond\ntimezone: Europe/Vienna\nsources: {src}\n"
@@ -114,6 +120,12 @@ def scenario(tmp_path_factory: pytest.TempPathFactory) -> dict:
         "hydrology: {format: dsg, path: ../outputs.nc, variables: {tn: nitrogen, tp: phosphorus}}\n"
         "samples:\n  - {id: west, path: ../samples.csv, subbasin: '101', method: interpolation}\n"
     )
+    (root / "cfg" / "lab.yaml").write_text(
+        "hydrology: {format: dsg, path: ../outputs.nc, variables: {tn: nitrogen, tp: phosphorus}}\n"
+        "samples:\n  - {id: west, path: ../lab.csv, subbasin: '101', method: interpolation,\n"
+        "     columns: {date: Sampling day, time: Clock, tp: 'TP [ug/l]'}, units: {tp: ug L-1}}\n"
+    )
+    (root / "cfg" / "lake-lab.yaml").write_text(lake_yaml.format(id="lab", src="lab.yaml", extra=', lake_id: "9999"'))
     (root / "cfg" / "long.yaml").write_text(
         "hydrology: {format: long, path: ../outputs_long.csv, variables: {discharge: runoff, tn: N, tp: P}, "
         "discharge_kind: local}\n"
@@ -248,6 +260,18 @@ def test_station_flow_routed_discharge_taken_as_given(scenario: dict, tmp_path: 
     build_hydrology(load_project(scenario["root"] / "cfg" / "lake-wren.yaml"), store)
     assert store.entry("hydrology_daily", "wren")["metadata"]["station_flow_subbasins"] == "west=101"
     assert set(store.read_table("load_estimates", "wren")["flow_subbasins"]) == {"101"}
+
+
+def test_lab_sheet_station(scenario: dict, tmp_path: Path) -> None:
+    """The station's samples as a lab export (';', decimal commas, day-first dates, ug L-1, '<' for the censored
+    value, a remarks column) give the same station loads as the clean CSV of the same samples."""
+    clean, lab = Store(tmp_path / "clean"), Store(tmp_path / "lab")
+    build_hydrology(load_project(scenario["root"] / "cfg" / "lake-wren.yaml"), clean)
+    build_hydrology(load_project(scenario["root"] / "cfg" / "lake-lab.yaml"), lab)
+    a = clean.read_table("hydrology_daily", "wren")["tp_load_station_west"]
+    b = lab.read_table("hydrology_daily", "lab")["tp_load_station_west"]
+    assert b.notna().sum() > 300
+    np.testing.assert_allclose(b, a, rtol=1e-12)
 
 
 def test_network_error_names_the_layer_file(scenario: dict, tmp_path: Path) -> None:

@@ -255,7 +255,7 @@ def check_samples(
         if st.flow_path is not None and not Path(st.flow_path).exists():
             out.append(failed(name, f"samples[{i}].flow_path: file not found: {st.flow_path}", "fix the path"))
             continue
-        counts = ", ".join(f"{n} {k}" for n, k in table["nutrient"].value_counts().sort_index().items())
+        counts = ", ".join(f"{k} {n}" for n, k in table["nutrient"].value_counts().sort_index().items())
         censored = int(table["censored"].sum())
         text = f"{p.name}: {len(table)} samples ({counts}; {censored} censored), {per}"
         notes = [str(w.message) for w in caught if issubclass(w.category, LakefeedWarning)]
