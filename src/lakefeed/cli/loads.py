@@ -1,5 +1,8 @@
 """`lakefeed loads --samples S.csv --flow F.csv`: every load estimator side by side.
 
+The samples may be a lab sheet (CSV or ``.xlsx``, own headers, ``;`` and decimal commas, local
+dates, ``<`` values): ``--column``, ``--date-format``, ``--sheet``, ``--station``, ``--units``,
+``--separator`` and ``--decimal`` describe it as a ``samples[]`` entry's keys do (:func:`sheet_options`).
 Thin layer over :func:`lakefeed.sources.samples.read_samples` / :func:`read_flow` and
 :func:`lakefeed.extract.load_estimation.compare_methods`. Prints one row per method: total
 load over the flow record (kg), mean daily load (kg d-1), uncertainty, sample count, warnings.
