@@ -7,10 +7,13 @@ from pathlib import Path
 
 import _mini
 import pandas as pd
+import pytest
 
 from lakefeed.checks import CheckResult
 from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
 from lakefeed.config import HydrologySource, LakeConfig, SampleStation, SceneSource, load_lake
+from lakefeed.exceptions import SourceError
+from lakefeed.sources.samples import read_samples
 
 DAYS = pd.date_range("2024-01-01", periods=5, freq="D")
 
@@ -85,6 +88,33 @@ def test_samples(tmp_path: Path) -> None:
         "samples[0].subbasin: 'q' is not a sub-basin id of the network",
         f"samples[1].path: file not found: {tmp_path / 'none.csv'}",
     ]
+
+
+BAD_SHEETS = {  # sheets the build refuses: check must refuse them with the build's words
+    "header_only.csv": ("date,tp\n", {}),
+    "day_month.csv": ("date,tp\n03/04/2023,0.1\n05/06/2023,0.2\n", {}),
+    "not_number.csv": ("date,tp\n2023-01-02,n.d.\n", {}),
+    "bad_unit.csv": ("date,nutrient,concentration,unit\n2023-01-02,tp,5,m s-1\n", {}),
+    "unmapped.csv": ("Datum;TP\n01.02.2023;0,1\n", {"columns": {"date": "Date"}}),
+    "stations.csv": ("date,station,tp\n2023-01-02,A,0.1\n2023-01-02,B,0.2\n", {}),
+}
+
+
+def test_samples_check_reports_what_the_build_refuses(tmp_path: Path) -> None:
+    """One function reads the sheets for both: each refused sheet fails the check with the build's message,
+    and a lab sheet the build reads (';', decimal comma, day-first, '<' value) passes with its counts."""
+    for name, (text, options) in BAD_SHEETS.items():
+        (tmp_path / name).write_text(text)
+        st = SampleStation(id="st", path=str(tmp_path / name), **options)
+        with pytest.raises(SourceError) as build_error:
+            read_samples(st.path, st, station_hint=st.id)  # what the hydrology stage calls
+        res, _ = check_samples([st], subbasin_ids=[])
+        assert bad(res) == [f"samples[0]: {build_error.value}"], name
+    (tmp_path / "lab.csv").write_text("Day;TP;TN\n13.01.2024;<0,005;1,2\n27.01.2024;0,04;\n")
+    st = SampleStation(id="st", path=str(tmp_path / "lab.csv"), columns={"date": "Day"})
+    res, period = check_samples([st], subbasin_ids=[])
+    assert not bad(res) and "3 samples (1 tn, 2 tp; 1 censored)" in res[0].message
+    assert str(period) == "2024-01-13 .. 2024-01-27"
 
 
 def _lake(tmp_path: Path, sensors: dict) -> LakeConfig:

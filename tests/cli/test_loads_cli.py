@@ -10,7 +10,7 @@ import pytest
 from typer.testing import CliRunner
 
 from lakefeed.cli import app
-from lakefeed.exceptions import ExtractError, SourceError
+from lakefeed.exceptions import ConfigError, ExtractError, SourceError
 from lakefeed.extract.load_estimation import METHODS
 
 runner = CliRunner()
@@ -134,3 +134,31 @@ def test_command_module_imports_no_heavy_library(module: str) -> None:
 
     out = subprocess.run([sys.executable, "-c", _IMPORT_ONE, module], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
+
+
+def test_lab_sheet_options_give_the_clean_files_loads(files: tuple[Path, Path], tmp_path: Path) -> None:
+    """The same samples as a lab sheet (';', decimal commas, day-first dates, own headers, ug L-1, a '<' value,
+    two stations) read through the options give exactly the loads of the clean CSV with censored=true."""
+    samples, flow = files
+    clean = pd.read_csv(samples)
+    clean.loc[4, "censored"] = True
+    clean.to_csv(tmp_path / "clean.csv", index=False)
+    cells = [f"{'<' if z else ''}{c * 1000:.17g}".replace(".", ",") for c, z in
+             zip(clean["concentration"], clean["censored"], strict=True)]  # fmt: skip
+    days = pd.to_datetime(clean["date"]).dt.strftime("%d.%m.%Y")
+    rows = [f"{d};K2;{c}" for d, c in zip(days, cells, strict=True)] + ["01.06.2023;K9;7,5"]
+    (tmp_path / "lab.csv").write_text("Day;Site;Phosphorus\n" + "\n".join(rows) + "\n")
+    res = run("loads", "--samples", str(tmp_path / "clean.csv"), "--flow", str(flow), "--out", str(tmp_path / "a.csv"))
+    assert res.exit_code == 0, res.output
+    res = run(
+        "loads", "--samples", str(tmp_path / "lab.csv"), "--flow", str(flow), "--out", str(tmp_path / "b.csv"),
+        "--column", "date=Day", "--column", "station=Site", "--column", "tp=Phosphorus", "--station", "K2",
+        "--units", "tp=ug L-1", "--date-format", "%d.%m.%Y",
+    )  # fmt: skip
+    assert res.exit_code == 0, res.output
+    pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "b.csv"), pd.read_csv(tmp_path / "a.csv"), rtol=1e-9)
+    res = run("loads", "--samples", str(tmp_path / "lab.csv"), "--flow", str(flow), "--column", "date")
+    assert isinstance(res.exception, ConfigError) and "write KEY=VALUE" in str(res.exception)
+    res = run("loads", "--samples", str(tmp_path / "lab.csv"), "--flow", str(flow), "--column", "date=Day",
+              "--column", "tp=Phosphorus", "--column", "station=Site")  # fmt: skip
+    assert isinstance(res.exception, SourceError) and "say which rows are this station's" in str(res.exception)

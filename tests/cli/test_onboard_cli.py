@@ -98,3 +98,43 @@ def test_init_with_an_own_outside_code(small_sample, tmp_path) -> None:
     done = CliRunner().invoke(cli, [*args, "--outside-id", "SEA"])
     assert done.exit_code == 0, done.output
     assert "SEA" in load_project(tmp_path / "cfg" / "lake-pond.yaml").lake.subbasins.outside_ids
+
+
+def _foreign_codes(small_sample, tmp_path):
+    """The sample's sub-basins under a stranger's names and codes: lake '9999', leaving the area 'SEA'."""
+    subs = gpd.read_file(small_sample / "geometry" / "subbasins.gpkg")
+    subs = subs.rename(columns={"subbasin_id": "BASIN", "downstream_id": "DOWN"})
+    subs["DOWN"] = subs["DOWN"].replace({"OUTSIDE": "SEA", "LAKE": "9999"})
+    subs.to_file(tmp_path / "basins.gpkg")
+    args = ["init", "pond", "--lake", str(small_sample / "geometry" / "lake.gpkg"), "--subbasins",
+            str(tmp_path / "basins.gpkg"), "--sources", str(small_sample / "config" / "sources.yaml"),
+            "--out", str(tmp_path / "cfg")]  # fmt: skip
+    return subs, args
+
+
+def test_init_with_a_lake_code_of_its_own(small_sample, tmp_path) -> None:
+    """A layer whose codes differ from the sample's: refused with each code and the option declaring it, then
+    accepted with --lake-id and --outside-id; the config keeps the lake's code as a string."""
+    from lakefeed.cli._app import app as cli
+
+    subs, args = _foreign_codes(small_sample, tmp_path)
+    refused = CliRunner().invoke(cli, args)
+    assert refused.exit_code != 0
+    text = " ".join((str(refused.exception) + refused.output).split())
+    lake_line = "'9999' from 3 sub-basin(s) (SB01, SB02, SB03; touching the lake): if it means 'drains into the lake'"
+    assert f"{lake_line}: --lake-id 9999" in text
+    assert "'SEA' from 1 sub-basin(s) (SB13; away from the lake): if it means 'drains out of the area': " in text
+    assert "--outside-id SEA. Declare the lake's code with --lake-id CODE" in text
+    wrong = CliRunner().invoke(cli, [*args, "--lake-id", "LAKE", "--outside-id", "SEA"])  # the sample's code
+    text = " ".join((str(wrong.exception) + wrong.output).split())
+    assert wrong.exit_code != 0 and "--lake-id 9999" in text and "'SEA'" in text
+    done = CliRunner().invoke(cli, [*args, "--lake-id", "9999", "--outside-id", "SEA"])
+    assert done.exit_code == 0, done.output
+    sb = load_project(tmp_path / "cfg" / "lake-pond.yaml").lake.subbasins
+    assert sb.lake_id == "9999" and "SEA" in sb.outside_ids
+    direct = sorted(subs.loc[subs["DOWN"] == "9999", "BASIN"])
+    assert direct == ["SB01", "SB02", "SB03"]  # the sample's direct inflows (sample scenario README)
+    assert ", ".join(direct) + " (rule: lake_id)" in " ".join(done.output.split())
+    found = CliRunner().invoke(cli, [*args, "--outside-id", "SEA", "--out", str(tmp_path / "cfg2")])
+    assert found.exit_code == 0, found.output  # the shore's sub-basins name the lake's code: written out
+    assert load_project(tmp_path / "cfg2" / "lake-pond.yaml").lake.subbasins.lake_id == "9999"

@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from lakefeed.exceptions import ExtractError
-from lakefeed.extract.loads import inflow_loads, inflow_members, load_factor
+from lakefeed.extract.loads import inflow_loads, inflow_members, load_factor, station_members, summed_flow
 
 DAYS = pd.date_range("2024-03-01", periods=3, freq="D", name="date")
 
@@ -58,6 +58,22 @@ def test_members_routed_and_local() -> None:
     assert inflow_members(["A", "B"], ["A", "B", "C"], discharge_kind="local") == ["A", "B", "C"]
     with pytest.raises(ExtractError, match="routed"):
         inflow_members(["A"], ["A"], discharge_kind="sideways")  # type: ignore[arg-type]
+
+
+def test_station_flow_hand_worked_nested_chain() -> None:
+    """Hand-worked: D -> C -> B -> A (nested chain) and E -> A; a station on B takes B + C + D."""
+    q = wide({"A": [1.0, 1.0, 1.0], "B": [2.0, 2.0, 2.0], "C": [4.0, np.nan, 4.0], "D": [8.0, 8.0, 8.0]})
+    members = station_members("B", ["D", "C"], discharge_kind="local")
+    assert members == ["B", "C", "D"]
+    flow = summed_flow(q, members)
+    assert flow.iloc[0] == 14.0 and flow.iloc[2] == 14.0
+    assert np.isnan(flow.iloc[1])  # a member's gap is a missing day, never a smaller flow
+    assert station_members("B", ["D", "C"], discharge_kind="routed") == ["B"]
+    assert summed_flow(q, ["B"]).tolist() == [2.0, 2.0, 2.0]
+    with pytest.raises(ExtractError, match=r"\['X'\] of station s have no series"):
+        summed_flow(q, ["B", "X"], name="station s")
+    with pytest.raises(ExtractError, match="routed"):
+        station_members("B", [], discharge_kind="sideways")  # type: ignore[arg-type]
 
 
 def test_missing_member_is_an_error() -> None:

@@ -12,6 +12,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import geopandas as gpd
+import networkx as nx
 import numpy as np
 import pandas as pd
 import pytest
@@ -101,6 +102,12 @@ def scenario(tmp_path_factory: pytest.TempPathFactory) -> dict:
     )
     extra = samples.iloc[[3]].assign(concentration=conc[3] * 1.5)  # a second sample on the same day
     pd.concat([samples, extra]).to_csv(root / "samples.csv", index=False)
+    lab = pd.concat([samples, extra])  # the same samples as a lab writes them: see test_lab_sheet_station
+    marks = np.where(lab["censored"], "<", "")
+    cells = [f"{m}{c * 1000:.17g}".replace(".", ",") for m, c in zip(marks, lab["concentration"], strict=True)]
+    days = pd.to_datetime(lab["date"]).dt.strftime("%d.%m.%Y")
+    rows = [f"{d};08:30;{c};lab remark" for d, c in zip(days, cells, strict=True)]
+    (root / "lab.csv").write_text("Sampling day;Clock;TP [ug/l];Remarks\n" + "\n".join(rows) + "\n", encoding="cp1252")
     (root / "cfg").mkdir()
     lake_yaml = (
         "id: {id}\nname: Wren Pond\ntimezone: Europe/Vienna\nsources: {src}\n"
@@ -113,10 +120,24 @@ def scenario(tmp_path_factory: pytest.TempPathFactory) -> dict:
         "hydrology: {format: dsg, path: ../outputs.nc, variables: {tn: nitrogen, tp: phosphorus}}\n"
         "samples:\n  - {id: west, path: ../samples.csv, subbasin: '101', method: interpolation}\n"
     )
+    (root / "cfg" / "lab.yaml").write_text(
+        "hydrology: {format: dsg, path: ../outputs.nc, variables: {tn: nitrogen, tp: phosphorus}}\n"
+        "samples:\n  - {id: west, path: ../lab.csv, subbasin: '101', method: interpolation,\n"
+        "     columns: {date: Sampling day, time: Clock, tp: 'TP [ug/l]'}, units: {tp: ug L-1}}\n"
+    )
+    (root / "cfg" / "lake-lab.yaml").write_text(lake_yaml.format(id="lab", src="lab.yaml", extra=', lake_id: "9999"'))
     (root / "cfg" / "long.yaml").write_text(
         "hydrology: {format: long, path: ../outputs_long.csv, variables: {discharge: runoff, tn: N, tp: P}, "
         "discharge_kind: local}\n"
     )
+    stations = (
+        "samples:\n  - {id: west, path: ../samples.csv, subbasin: '101', method: interpolation}\n"
+        "  - {id: mid, path: ../samples.csv, subbasin: '102', method: interpolation}\n"
+        "  - {id: head, path: ../samples.csv, subbasin: '103', method: interpolation}\n"
+    )
+    (root / "cfg" / "long-stations.yaml").write_text((root / "cfg" / "long.yaml").read_text() + stations)
+    stations_lake = lake_yaml.format(id="stations", src="long-stations.yaml", extra="")
+    (root / "cfg" / "lake-stations.yaml").write_text(stations_lake)
     return {
         "root": root,
         "local": local,
@@ -198,6 +219,59 @@ def test_local_long_table_against_numpy(scenario: dict, tmp_path: Path) -> None:
     np.testing.assert_allclose(t["inflow_discharge"], sum(loc[c] for c in CATCHMENT), rtol=1e-9)  # L s-1 -> m3 s-1
     np.testing.assert_allclose(t["tn_load"], sum(loc[c] * tn[c] for c in CATCHMENT) * 86.4, rtol=1e-9)
     assert (t["flags"] == "").all()
+
+
+def test_station_flow_routed_from_local_runoff(scenario: dict, tmp_path: Path) -> None:
+    """A station on a sub-basin gets the flow at the station: its own and every upstream sub-basin's runoff.
+
+    Independent references: the routed discharge of the scenario (each sub-basin's local runoff summed over
+    the sub-basins whose hand-walked downstream path passes it) and networkx ancestors of the station's
+    sub-basin in a graph built here from the layer's fields. Nested chain: 103 -> 102 -> 101 <- 104.
+    """
+    store = Store(tmp_path / "store")
+    result = build_hydrology(load_project(scenario["root"] / "cfg" / "lake-stations.yaml"), store)
+    t = store.read_table("hydrology_daily", "stations")
+    loc, routed = scenario["local"], scenario["routed"]
+    graph = nx.DiGraph([(str(k), str(v[0])) for k, v in NET.items()])
+    conc = scenario["conc"].copy()
+    conc[3] *= 1.25  # duplicates averaged
+    conc[1] *= 0.5  # censored: half the detection limit
+    interp = np.interp(np.arange(len(DAYS)), scenario["pos"], conc)
+    expected_members = {"west": "101+102+103+104", "mid": "102+103", "head": "103"}
+    for station, sub in (("west", "101"), ("mid", "102"), ("head", "103")):
+        upstream = nx.ancestors(graph, sub)
+        flow = loc[sub] + sum(loc[u] for u in upstream)
+        np.testing.assert_allclose(flow, routed[sub], rtol=1e-12)  # the two references agree
+        np.testing.assert_allclose(t[f"tp_load_station_{station}"], interp * routed[sub] * 86.4, rtol=1e-9)
+    stated = store.entry("hydrology_daily", "stations")["metadata"]["station_flow_subbasins"]
+    assert stated == "; ".join(f"{k}={v}" for k, v in expected_members.items())
+    est = store.read_table("load_estimates", "stations")
+    assert est.groupby("station")["flow_subbasins"].unique().map(list).to_dict() == {
+        k: [v] for k, v in expected_members.items()
+    }
+    # the lake inflow of local runoff: every catchment sub-basin's runoff (not only the direct inflows')
+    np.testing.assert_allclose(t["inflow_discharge"], routed["101"] + routed["201"], rtol=1e-9)
+    assert result.tables["load_estimates"] == len(est)
+
+
+def test_station_flow_routed_discharge_taken_as_given(scenario: dict, tmp_path: Path) -> None:
+    """With routed model discharge the station's flow is its own sub-basin's value, nothing added."""
+    store = Store(tmp_path / "store")
+    build_hydrology(load_project(scenario["root"] / "cfg" / "lake-wren.yaml"), store)
+    assert store.entry("hydrology_daily", "wren")["metadata"]["station_flow_subbasins"] == "west=101"
+    assert set(store.read_table("load_estimates", "wren")["flow_subbasins"]) == {"101"}
+
+
+def test_lab_sheet_station(scenario: dict, tmp_path: Path) -> None:
+    """The station's samples as a lab export (';', decimal commas, day-first dates, ug L-1, '<' for the censored
+    value, a remarks column) give the same station loads as the clean CSV of the same samples."""
+    clean, lab = Store(tmp_path / "clean"), Store(tmp_path / "lab")
+    build_hydrology(load_project(scenario["root"] / "cfg" / "lake-wren.yaml"), clean)
+    build_hydrology(load_project(scenario["root"] / "cfg" / "lake-lab.yaml"), lab)
+    a = clean.read_table("hydrology_daily", "wren")["tp_load_station_west"]
+    b = lab.read_table("hydrology_daily", "lab")["tp_load_station_west"]
+    assert b.notna().sum() > 300
+    np.testing.assert_allclose(b, a, rtol=1e-12)
 
 
 def test_network_error_names_the_layer_file(scenario: dict, tmp_path: Path) -> None:

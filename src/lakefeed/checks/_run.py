@@ -25,6 +25,7 @@ from lakefeed.checks.meaning import check_quality_bits, check_record_length
 from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
 from lakefeed.config import Project, SourcesConfig, find_lake_files, load_project
 from lakefeed.exceptions import ConfigError, LakefeedError
+from lakefeed.extract.loads import model_subbasins
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -115,10 +116,11 @@ def check_project(project: Project) -> list[CheckResult]:
     if layers.subbasins is None and src.hydrology is not None:
         results.append(skipped("hydrology ids", "needs the sub-basin layer"))
     required = layers.catchment_ids(lake.subbasins.id_field)
-    if layers.traced is not None and src.hydrology is not None and src.hydrology.discharge_kind == "routed":
-        # routed discharge: the stage reads only the direct inflows (and the sampled stations' sub-basins)
-        stations = [s.subbasin for s in src.samples if s.subbasin]
-        required = list(dict.fromkeys([*layers.traced.direct_inflows, *stations]))
+    stations = {s.id: s.subbasin for s in src.samples if s.subbasin}
+    if layers.traced is not None and src.hydrology is not None and set(stations.values()) <= set(layers.traced.graph):
+        # what the stage reads: the inflow's members and each station's flow members (routed: its own sub-basin)
+        members, flows = model_subbasins(layers.traced, stations, discharge_kind=src.hydrology.discharge_kind)
+        required = list(dict.fromkeys([*members, *(m for ids in flows.values() for m in ids)]))
     run("hydrology", "hydrology", lambda: check_hydrology(src.hydrology, required_ids=required))
     run("samples", "samples", lambda: check_samples(src.samples, subbasin_ids=ids))
     run("scenes", "scenes", lambda: check_scenes(src.scenes, lake))

@@ -9,6 +9,7 @@ source's period for the coverage check. Must not read whole data sets or write a
 from __future__ import annotations
 
 import re
+import warnings
 from collections import Counter
 from collections.abc import Sequence
 from pathlib import Path
@@ -20,7 +21,9 @@ import pyarrow.parquet as pq
 from lakefeed.checks._open import Period, open_lazy, time_period
 from lakefeed.checks._result import CheckResult, failed, passed, skipped, warned
 from lakefeed.config import HydrologySource, LakeConfig, SampleStation, SceneSource
+from lakefeed.exceptions import LakefeedWarning, SourceError
 from lakefeed.sources.hydrology import STANDARD_NAMES
+from lakefeed.sources.samples import read_samples
 from lakefeed.units import is_convertible
 
 __all__ = ["check_hydrology", "check_samples", "check_scenes"]
@@ -218,7 +221,8 @@ def check_hydrology(
 def check_samples(
     stations: Sequence[SampleStation], *, subbasin_ids: Sequence[str]
 ) -> tuple[list[CheckResult], Period | None]:
-    """Tributary samples: file present, date and concentration columns, sub-basin known."""
+    """Tributary samples: each lab sheet read as the build reads it (the same function, the same errors),
+    sub-basin known, flow record present. Lab sheets are small, so they are read whole."""
     if not stations:
         return [skipped("samples", "no 'samples' in the sources config")], None
     out: list[CheckResult] = []
@@ -229,15 +233,14 @@ def check_samples(
         if not p.exists():
             out.append(failed(name, f"samples[{i}].path: file not found: {p}", "fix the path in the sources config"))
             continue
-        cols = [str(c) for c in pd.read_csv(p, nrows=0).columns]
-        values = set(cols) - {"date", "censored"}
-        if "date" not in cols or not (
-            {"concentration", "nutrient"} <= values or values - {"concentration", "nutrient"}
-        ):
-            out.append(failed(name, f"{p.name}: needs 'date' and 'concentration' + 'nutrient' columns; has {cols}", ""))
-            continue
-        dates = pd.read_csv(p, usecols=["date"])["date"].to_numpy()
-        per = time_period(dates)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", LakefeedWarning)
+            try:
+                table = read_samples(p, st, station_hint=st.id)
+            except SourceError as err:
+                out.append(failed(name, f"samples[{i}]: {err}", "the build refuses this sheet too"))
+                continue
+        per = time_period(table["date"].to_numpy())
         if per is not None:
             periods.append(per)
         if st.subbasin is not None and subbasin_ids and st.subbasin not in set(subbasin_ids):
@@ -252,7 +255,11 @@ def check_samples(
         if st.flow_path is not None and not Path(st.flow_path).exists():
             out.append(failed(name, f"samples[{i}].flow_path: file not found: {st.flow_path}", "fix the path"))
             continue
-        out.append(passed(name, f"{p.name}: {len(dates)} samples, {per}"))
+        counts = ", ".join(f"{k} {n}" for n, k in table["nutrient"].value_counts().sort_index().items())
+        censored = int(table["censored"].sum())
+        text = f"{p.name}: {len(table)} samples ({counts}; {censored} censored), {per}"
+        notes = [str(w.message) for w in caught if issubclass(w.category, LakefeedWarning)]
+        out.append(warned(name, f"{text}; {'; '.join(notes)}") if notes else passed(name, text))
     if not periods:
         return out, None
     return out, Period(min(p.start for p in periods), max(p.end for p in periods))

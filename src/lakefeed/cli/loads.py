@@ -1,5 +1,8 @@
 """`lakefeed loads --samples S.csv --flow F.csv`: every load estimator side by side.
 
+The samples may be a lab sheet (CSV or ``.xlsx``, own headers, ``;`` and decimal commas, local
+dates, ``<`` values): ``--column``, ``--date-format``, ``--sheet``, ``--station``, ``--units``,
+``--separator`` and ``--decimal`` describe it as a ``samples[]`` entry's keys do (:func:`sheet_options`).
 Thin layer over :func:`lakefeed.sources.samples.read_samples` / :func:`read_flow` and
 :func:`lakefeed.extract.load_estimation.compare_methods`. Prints one row per method: total
 load over the flow record (kg), mean daily load (kg d-1), uncertainty, sample count, warnings.
@@ -20,14 +23,15 @@ import typer
 from rich.markup import escape
 
 from lakefeed.cli._app import app, console, err_console
-from lakefeed.exceptions import ExtractError, LakefeedWarning, SourceError
+from lakefeed.exceptions import ConfigError, ExtractError, LakefeedWarning, SourceError
 
 if TYPE_CHECKING:  # heavy imports (pandas, scipy) happen inside the command, so `--help` stays fast
     import pandas as pd
 
+    from lakefeed.config import SampleSheet
     from lakefeed.extract.load_estimation import LoadEstimate
 
-__all__ = ["METHOD_NAMES", "loads", "to_output_frame"]
+__all__ = ["METHOD_NAMES", "loads", "sheet_options", "to_output_frame"]
 
 #: Names of :data:`lakefeed.extract.load_estimation.METHODS`, spelled out here so that building the
 #: command (and ``--help``) does not import the estimators; a test keeps the two equal.
@@ -60,9 +64,57 @@ def to_output_frame(est: LoadEstimate) -> pd.DataFrame:
     return frame
 
 
+def sheet_options(
+    *,
+    units: list[str] | None = None,
+    column: list[str] | None = None,
+    date_format: str | None = None,
+    sheet: str | None = None,
+    separator: str | None = None,
+    decimal: str | None = None,
+) -> SampleSheet:
+    """The :class:`~lakefeed.config.SampleSheet` that the command-line options describe.
+
+    Raises :class:`~lakefeed.exceptions.ConfigError` for a ``--column`` or ``--units`` without ``=`` where
+    one is needed, or options the sheet model refuses.
+    """
+    from pydantic import ValidationError
+
+    from lakefeed.config import SampleSheet
+
+    def pairs(values: list[str], option: str) -> dict[str, str]:
+        bad = [v for v in values if "=" not in v]
+        if bad:
+            raise ConfigError(f"{option} {bad[0]!r}: write KEY=VALUE, e.g. {option} date=Datum")
+        return dict(v.split("=", 1) for v in values)
+
+    unit_list = list(units or [])
+    plain = [u for u in unit_list if "=" not in u]
+    if len(plain) > 1 or (plain and len(unit_list) > 1):
+        raise ConfigError(f"--units {unit_list}: give one unit for all nutrients, or NUTRIENT=UNIT for each")
+    unit: str | dict[str, str] = plain[0] if plain else (pairs(unit_list, "--units") or "mg L-1")
+    try:
+        return SampleSheet(
+            columns=pairs(list(column or []), "--column"),
+            date_format=date_format,
+            sheet=int(sheet) if sheet is not None and sheet.isdigit() else sheet,
+            separator={"\\t": "\t", "tab": "\t"}.get(separator or "", separator),
+            decimal=decimal,
+            units=unit,
+        )
+    except ValidationError as err:
+        problems = "; ".join(f"{'.'.join(map(str, e['loc']))}: {e['msg']}" for e in err.errors())
+        raise ConfigError(f"lab sheet options: {problems}") from err
+
+
 @app.command("loads")
 def loads(
-    samples: Path = typer.Option(..., "--samples", help="CSV: date, concentration (mg L-1), optional censored."),
+    samples: Path = typer.Option(
+        ...,
+        "--samples",
+        help="Lab sheet (CSV or .xlsx): date, concentration (mg L-1) or one column per nutrient, optional censored; "
+        "values like '<0.005' are censored.",
+    ),
     flow: Path = typer.Option(..., "--flow", help="CSV: date, discharge (m3 s-1), daily."),
     method: str = typer.Option("rating_curve", "--method", help=f"Method written by --out: {', '.join(METHOD_NAMES)}."),
     out: Path | None = typer.Option(None, "--out", help="Write the chosen method's loads (.csv or .parquet)."),
@@ -76,7 +128,22 @@ def loads(
     ),
     seasonal: bool = typer.Option(False, "--seasonal", help="Rating curve: add seasonal sine/cosine terms."),
     trend: bool = typer.Option(False, "--trend", help="Rating curve: add a linear trend term."),
-    units: str = typer.Option("mg L-1", "--units", help="Unit of the sample concentrations."),
+    units: list[str] | None = typer.Option(
+        None, "--units", help="Unit of the concentrations (default mg L-1), or NUTRIENT=UNIT (repeatable)."
+    ),
+    column: list[str] | None = typer.Option(
+        None,
+        "--column",
+        help="ROLE=HEADER: the sheet's column for a role (date, time, station, nutrient, concentration, censored, "
+        "unit) or a nutrient, e.g. --column date=Datum --column tp='TP mg/l' (repeatable).",
+    ),
+    date_format: str | None = typer.Option(
+        None, "--date-format", help="strftime format of the dates, e.g. %d.%m.%Y (default: detected if unambiguous)."
+    ),
+    sheet: str | None = typer.Option(None, "--sheet", help="Sheet of an .xlsx workbook (default: the first)."),
+    station: str | None = typer.Option(None, "--station", help="Station code, when the sheet holds several."),
+    separator: str | None = typer.Option(None, "--separator", help="CSV separator (default: detected)."),
+    decimal: str | None = typer.Option(None, "--decimal", help="Decimal mark, . or , (default: detected)."),
 ) -> None:
     """Estimate a tributary's load from sparse samples and daily flow by every method, side by side.
 
@@ -92,9 +159,11 @@ def loads(
         raise ExtractError(f"--period {period!r} is unknown; choose 'record' or 'year'")
     if method not in METHOD_NAMES:
         raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHOD_NAMES)}")
+    spec = sheet_options(units=units, column=column, date_format=date_format, sheet=sheet, separator=separator,
+                         decimal=decimal)  # fmt: skip
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", LakefeedWarning)
-        table = read_samples(samples, units=units, require_concentration=nutrient is None)
+        table = read_samples(samples, spec, require_concentration=nutrient is None, station=station)
         q = read_flow(flow)
     for w in caught:
         err_console.print(f"[yellow]warning:[/] {escape(str(w.message))}", highlight=False)

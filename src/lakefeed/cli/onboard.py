@@ -9,6 +9,7 @@ what to review. ``build`` and ``refresh`` run the Prefect flows of :mod:`lakefee
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 from collections.abc import Iterator
 from pathlib import Path
@@ -25,7 +26,9 @@ from lakefeed.exceptions import ConfigError, GeometryError
 if TYPE_CHECKING:
     import geopandas as gpd
 
-__all__ = ["detect_fields", "init_command"]
+    from lakefeed.geometry.outlets import OutletCode
+
+__all__ = ["detect_fields", "explain_codes", "init_command"]
 
 _SOURCES_TEMPLATE = """\
 # Data sources for lakefeed (written by `lakefeed init`; every section is optional).
@@ -81,6 +84,34 @@ def detect_fields(subbasins: gpd.GeoDataFrame) -> tuple[str, str]:
     return pairs[0]
 
 
+def explain_codes(
+    codes: list[OutletCode], downstream_field: str, *, lake_value: str | None, outside_ids: list[str]
+) -> str:
+    """One line listing a layer's outlet codes and, for each, the ``init`` option that declares it.
+
+    A code already declared says so; an undeclared one whose sub-basins reach the lake is proposed as
+    the lake's (``--lake-id``), any other as draining out of the area (``--outside-id``).
+    """
+    outside = {str(o).strip().upper() for o in outside_ids}
+    parts = []
+    for c in codes:
+        shown = ", ".join(c.subbasins[:5]) + (f" and {len(c.subbasins) - 5} more" if len(c.subbasins) > 5 else "")
+        where = "touching the lake" if c.reaches_lake else "away from the lake"
+        if lake_value is not None and c.code == lake_value:
+            how = "declared as the lake's (--lake-id)"
+        elif c.code.upper() in outside:
+            how = "declared as draining out of the area (--outside-id or a default)"
+        elif c.reaches_lake:
+            how = f"if it means 'drains into the lake': --lake-id {c.code}"
+        else:
+            how = f"if it means 'drains out of the area': --outside-id {c.code}"
+        parts.append(f"{c.code!r} from {len(c.subbasins)} sub-basin(s) ({shown}; {where}): {how}")
+    return (
+        f"downstream codes in {downstream_field!r} that are not sub-basin ids: " + "; ".join(parts) + ". Declare "
+        "the lake's code with --lake-id CODE and each code for 'out of the area' with --outside-id CODE (repeatable)"
+    )
+
+
 def _says_downstream(name: str) -> bool:
     return any(k in name.lower() for k in ("down", "to", "next", "outlet", "receiv"))
 
@@ -119,11 +150,17 @@ def init_command(
     outside_id: list[str] | None = typer.Option(
         None, "--outside-id", help="Downstream code meaning 'drains out of the area' (repeatable), e.g. SEA."
     ),
+    lake_code: str | None = typer.Option(
+        None,
+        "--lake-id",
+        help="Downstream code meaning 'drains into the lake', e.g. 9999 (detected when one code names a lake).",
+    ),
 ) -> None:
     """Write a ready lake config from a lake polygon and a sub-basin layer, run the checks, say what to review."""
     import geopandas as gpd
 
-    from lakefeed.geometry.network import DEFAULT_OUTSIDE_IDS, trace_catchment
+    from lakefeed.geometry.network import DEFAULT_OUTSIDE_IDS, LAKE_NODE, trace_catchment
+    from lakefeed.geometry.outlets import outlet_codes
     from lakefeed.sources.vectors import read_layer
 
     if not SLUG.fullmatch(lake_id):
@@ -134,13 +171,29 @@ def init_command(
         f, g = detect_fields(subs)
         id_field, downstream_field = id_field or f, downstream_field or g
     subs = read_layer(subbasins, what="sub-basin layer", id_field=id_field)
-    lake_value = _lake_value(subs, id_field, downstream_field)
+    lake_value = lake_code.strip() if lake_code else _lake_value(subs, id_field, downstream_field)
     outside_ids = list(DEFAULT_OUTSIDE_IDS) + [
         str(v) for v in outside_id or [] if str(v).upper() not in DEFAULT_OUTSIDE_IDS
     ]
-    catchment = trace_catchment(
-        subs, lake_g, id_field=id_field, downstream_field=downstream_field, lake_id=lake_value, outside_ids=outside_ids
-    )
+    try:
+        catchment = trace_catchment(
+            subs,
+            lake_g,
+            id_field=id_field,
+            downstream_field=downstream_field,
+            lake_id=lake_value,
+            outside_ids=outside_ids,
+            where=f"sub-basin layer {subbasins}",
+        )
+    except GeometryError as err:
+        codes = outlet_codes(subs, lake_g, id_field=id_field, downstream_field=downstream_field)
+        if not codes:
+            raise
+        raise GeometryError(
+            f"{err} | {explain_codes(codes, downstream_field, lake_value=lake_value, outside_ids=outside_ids)}"
+        ) from err
+    if lake_value is None and catchment.rule == "outlet_in_lake" and catchment.lake_node != LAKE_NODE:
+        lake_value = catchment.lake_node  # the code the sub-basins on the shore drain into: written out
     area_km2 = catchment.area_km2
     out.mkdir(parents=True, exist_ok=True)
     review: list[str] = []
@@ -178,7 +231,7 @@ def init_command(
         f"  downstream_field: {downstream_field}",
     ]
     if lake_value:
-        lines.append(f"  lake_id: {lake_value}")
+        lines.append(f"  lake_id: {json.dumps(lake_value)}")
     if outside_id:
         lines.append(f"  outside_ids: [{', '.join(repr(v) for v in outside_ids if v)}]")
     lines += [

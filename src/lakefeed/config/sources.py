@@ -94,19 +94,80 @@ class HydrologySource(StrictModel):
         return self
 
 
-class SampleStation(StrictModel):
+#: Column roles of a lab sheet; any other key of ``columns`` names a nutrient's column (wide form).
+SHEET_ROLES: tuple[str, ...] = ("date", "time", "station", "nutrient", "concentration", "censored", "unit")
+
+
+class SampleSheet(StrictModel):
+    """How a lab sheet of tributary samples is written (CSV or an Excel workbook).
+
+    ``columns`` maps a role (``date``, ``time``, ``station``, ``nutrient``, ``concentration``,
+    ``censored``, ``unit``) or a nutrient name (``tp``, ``tn``...) to the file's column header; roles
+    not mapped are found under their own name (any case). Mapping nutrients reads only those columns
+    (the wide form); other columns (sample ids, remarks) are then ignored. ``date_format`` is a
+    ``strftime`` format (``%d.%m.%Y``); without it dates are read when unambiguous (ISO dates, or
+    day/month orders that only one reading fits). ``sheet``: the workbook's sheet name (or 0-based
+    number; default the first). ``separator``: CSV field separator (default: detected from the
+    header among ``,`` ``;`` and tab). ``decimal``: ``.`` or ``,`` (default: a comma is a decimal
+    mark unless the separator is a comma). ``units``: one unit for all nutrients, or one per nutrient
+    (missing nutrients: mg L-1); a per-row ``unit`` column wins over both. ``station_code``: the
+    value of the station column meaning this station, when the sheet holds several.
+    """
+
+    columns: dict[str, str] = Field(default_factory=dict)
+    date_format: str | None = None
+    sheet: str | int | None = None
+    separator: str | None = None
+    decimal: Literal[".", ","] | None = None
+    units: str | dict[str, str] = "mg L-1"
+    station_code: str | None = None
+
+    @field_validator("columns")
+    @classmethod
+    def _keys_lower(cls, value: dict[str, str]) -> dict[str, str]:
+        out = {str(k).strip().lower(): str(v).strip() for k, v in value.items()}
+        if "concentration" in out and set(out) - set(SHEET_ROLES):
+            raise ValueError(
+                "map either 'concentration' (the long form: one value column, with 'nutrient') or one column per "
+                f"nutrient (the wide form), not both: {sorted(set(out) - set(SHEET_ROLES))}"
+            )
+        return out
+
+    @field_validator("units")
+    @classmethod
+    def _units_lower(cls, value: str | dict[str, str]) -> str | dict[str, str]:
+        return value if isinstance(value, str) else {str(k).strip().lower(): str(v) for k, v in value.items()}
+
+    @field_validator("separator")
+    @classmethod
+    def _one_char(cls, value: str | None) -> str | None:
+        if value is not None and len(value) != 1:
+            raise ValueError(f"separator must be one character such as ',' ';' or a tab, got {value!r}")
+        return value
+
+    @field_validator("date_format")
+    @classmethod
+    def _has_directive(cls, value: str | None) -> str | None:
+        if value is not None and not {"%d", "%m", "%Y", "%y", "%b", "%B", "%j"} & {
+            value[i : i + 2] for i in range(len(value))
+        }:
+            raise ValueError(f"date_format {value!r} has no strftime directive; write e.g. '%d.%m.%Y' or '%m/%d/%Y'")
+        return value
+
+
+class SampleStation(SampleSheet):
     """Sparse measured concentrations at a tributary station.
 
-    ``path``: CSV with ``date``, one column per nutrient (or ``concentration`` with
-    ``nutrient``) and optional ``censored``; ``subbasin``: the sub-basin whose model discharge
-    is the station's daily flow (or ``flow_path``: CSV with date, discharge in m3 s-1).
+    ``path``: lab sheet (CSV or ``.xlsx``) with a date, one column per nutrient (or ``concentration``
+    with ``nutrient``), optional ``censored``, ``time``, ``station`` and ``unit`` (how it is written:
+    :class:`SampleSheet`); ``subbasin``: the sub-basin whose model discharge is the station's daily
+    flow (or ``flow_path``: CSV with date, discharge in m3 s-1).
     """
 
     id: str
     path: str
     subbasin: str | None = None
     flow_path: str | None = None
-    units: str = "mg L-1"
     method: Literal["interpolation", "rating_curve", "beale", "beale_season", "beale_flow", "fwmc", "composite"] = (
         "rating_curve"
     )
@@ -187,10 +248,12 @@ class SourcesConfig(StrictModel):
 
 
 __all__ = [
+    "SHEET_ROLES",
     "WEATHER_ROLES",
     "Accumulation",
     "ForecastSource",
     "HydrologySource",
+    "SampleSheet",
     "SampleStation",
     "SceneSource",
     "SourcesConfig",

@@ -11,6 +11,12 @@ Which sub-basins make the inflow:
   inflow is the sum over the direct inflows;
 - ``"local"`` (runoff generated in each sub-basin alone): the sum over the whole catchment.
 
+The flow at a tributary station on sub-basin S (:func:`station_members`, :func:`summed_flow`) is S's
+discharge when it is ``routed``; with ``local`` runoff it is routed here: S's runoff plus that of every
+sub-basin upstream of S in the drainage network (the caller passes those ids, e.g.
+:meth:`lakefeed.geometry.network.Catchment.upstream_of`). Runoff is summed day by day without
+routing delay (the model's daily values are taken to reach the station within the day).
+
 Load = discharge x concentration, converted to kg d-1 with the factor pint derives for
 m3 s-1 x mg L-1 (86.4); nothing is hard-coded. Gaps propagate: a day on which any member's
 discharge or concentration is missing has a missing lake value (never zero) and a flag
@@ -26,9 +32,10 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.exceptions import ExtractError
+from lakefeed.geometry.network import Catchment
 from lakefeed.units import CANONICAL, factor
 
-__all__ = ["inflow_loads", "inflow_members", "load_factor"]
+__all__ = ["inflow_loads", "inflow_members", "load_factor", "model_subbasins", "station_members", "summed_flow"]
 
 
 def load_factor(
@@ -48,11 +55,73 @@ def inflow_members(
 
     ``routed``: the direct inflows; ``local``: every sub-basin of the catchment.
     """
-    if discharge_kind == "routed":
+    if _kind(discharge_kind) == "routed":
         return [str(s) for s in direct_inflows]
-    if discharge_kind == "local":
-        return [str(s) for s in catchment_ids]
-    raise ExtractError(f"discharge_kind must be 'routed' or 'local', got {discharge_kind!r}")
+    return [str(s) for s in catchment_ids]
+
+
+def _kind(discharge_kind: str) -> str:
+    if discharge_kind not in ("routed", "local"):
+        raise ExtractError(f"discharge_kind must be 'routed' or 'local', got {discharge_kind!r}")
+    return discharge_kind
+
+
+def station_members(
+    subbasin: str,
+    upstream: Sequence[str],
+    *,
+    discharge_kind: Literal["routed", "local"] = "routed",
+) -> list[str]:
+    """Sub-basins whose discharge adds up to the flow at a station on ``subbasin``, the station's first.
+
+    Parameters
+    ----------
+    subbasin
+        The sub-basin the station lies on (at its outlet).
+    upstream
+        Every sub-basin upstream of it in the drainage network (not only the neighbours).
+    discharge_kind
+        ``routed``: the station's own sub-basin only (its discharge includes everything upstream);
+        ``local``: the sub-basin and everything upstream (each sub-basin's own runoff).
+    """
+    if _kind(discharge_kind) == "routed":
+        return [str(subbasin)]
+    return [str(subbasin), *sorted({str(u) for u in upstream} - {str(subbasin)})]
+
+
+def model_subbasins(
+    catchment: Catchment, stations: Mapping[str, str], *, discharge_kind: Literal["routed", "local"] = "routed"
+) -> tuple[list[str], dict[str, list[str]]]:
+    """The lake inflow's members and each station's flow members (station id -> sub-basin ids).
+
+    ``stations`` maps a station id to the sub-basin it lies on. Together they are every sub-basin
+    whose model series the hydrology stage reads (and ``lakefeed check`` demands).
+    """
+    members = inflow_members(catchment.direct_inflows, catchment.subbasin_ids, discharge_kind=discharge_kind)
+    flows = {
+        st: station_members(sub, catchment.upstream_of(sub), discharge_kind=discharge_kind)
+        for st, sub in stations.items()
+    }
+    return members, flows
+
+
+def summed_flow(discharge: pd.DataFrame, members: Sequence[str], *, name: str = "discharge") -> pd.Series:
+    """Day-by-day sum of the members' discharge, m3 s-1; a day on which any member is missing is missing.
+
+    Raises
+    ------
+    ExtractError
+        A member without a discharge series.
+    """
+    members = [str(m) for m in members]
+    missing = [m for m in members if m not in discharge.columns]
+    if missing or not members:
+        raise ExtractError(
+            f"discharge: sub-basin(s) {missing or members} of {name} have no series; columns are "
+            f"{list(discharge.columns)}"
+        )
+    q = discharge[members].astype(float)
+    return q.sum(axis=1, min_count=len(members), skipna=False).where(q.notna().all(axis=1)).rename(name)
 
 
 def _join(parts: list[np.ndarray], sep: str) -> np.ndarray:

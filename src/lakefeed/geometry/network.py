@@ -49,6 +49,7 @@ from shapely.geometry.base import BaseGeometry
 
 from lakefeed.config.lake import SubbasinLayer
 from lakefeed.exceptions import GeometryError, LakefeedWarning
+from lakefeed.geometry.outlets import clean_ids, metric_frame, reaches_lake
 from lakefeed.units import convert
 
 __all__ = ["DEFAULT_OUTSIDE_IDS", "LAKE_NODE", "Catchment", "trace_catchment", "trace_configured_catchment"]
@@ -106,26 +107,6 @@ class Catchment:
     def upstream_of(self, subbasin_id: str) -> tuple[str, ...]:
         """Ids of the sub-basins upstream of ``subbasin_id`` (excluding itself), sorted."""
         return tuple(sorted(nx.ancestors(self.graph, subbasin_id)))
-
-
-def _clean_ids(values: pd.Series) -> pd.Series:
-    """Ids as strings; null stays null. Floats such as 3.0 (from CSV/GPKG) become '3'."""
-
-    def one(v: object) -> str | None:
-        if v is None or (isinstance(v, float) and np.isnan(v)):
-            return None
-        if isinstance(v, float) and v.is_integer():
-            return str(int(v))
-        return str(v).strip()
-
-    return values.map(one).astype(object)
-
-
-def _metric(gdf: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
-    """The frame in a metric CRS: its own when projected, else an estimated UTM zone."""
-    if gdf.crs is not None and CRS.from_user_input(gdf.crs).is_projected:
-        return gdf
-    return gdf.to_crs(gdf.estimate_utm_crs())
 
 
 def _geodesic_area_km2(polygon: BaseGeometry, crs: CRS) -> float:
@@ -226,8 +207,8 @@ def trace_catchment(
             )
     if subbasins.crs is None:
         raise GeometryError(f"{where}: no CRS; set it before tracing the catchment")
-    ids = _clean_ids(subbasins[id_field])
-    down = _clean_ids(subbasins[downstream_field])
+    ids = clean_ids(subbasins[id_field])
+    down = clean_ids(subbasins[downstream_field])
     if ids.isna().any():
         raise GeometryError(f"{where}: field {id_field!r} has empty values at rows {list(np.flatnonzero(ids.isna()))}")
     dup = sorted(ids[ids.duplicated()].unique().tolist())
@@ -248,7 +229,7 @@ def trace_catchment(
     graph.add_nodes_from(ids)
     internal = frame[frame["down"].isin(id_set)]
     graph.add_edges_from(zip(internal["id"], internal["down"], strict=True))
-    metric = _metric(frame)
+    metric = metric_frame(frame)
     lake_metric = gpd.GeoSeries([lake_poly], crs=frame.crs).to_crs(metric.crs).iloc[0]
     overlap_area = shapely.area(shapely.intersection(metric.geometry.values, lake_metric))
     own = _own_subbasin(frame.index, overlap_area, float(lake_metric.area), graph, lake_id, direct_inflows)
@@ -306,16 +287,13 @@ def trace_catchment(
         cand = terminal.index[~explicit_outside.to_numpy()].tolist()
         if outlets is not None:
             pts = outlets.to_crs(metric.crs) if outlets.crs is not None else outlets
-            pts.index = _clean_ids(pd.Series(pts.index, index=pts.index)).to_numpy()
+            pts.index = clean_ids(pd.Series(pts.index, index=pts.index)).to_numpy()
             have = [c for c in cand if c in pts.index]
             dist = shapely.distance(pts.loc[have].values, lake_metric)
         else:
             have = cand
-            # touching = sharing a stretch of shore, not a corner: >= 10 tolerance-lengths of contact
-            contact = shapely.area(
-                shapely.intersection(metric.loc[have].geometry.values, lake_metric.buffer(tolerance_m))
-            )
-            dist = np.where(contact >= 10 * tolerance_m**2, 0.0, np.inf)
+            # touching = sharing a stretch of shore, not a corner
+            dist = np.where(reaches_lake(metric.loc[have].geometry.values, lake_metric, tolerance_m), 0.0, np.inf)
         direct = sorted(np.asarray(have, dtype=object)[np.asarray(dist) <= tolerance_m].tolist())
         if not direct:
             raise GeometryError(

@@ -24,7 +24,7 @@ from lakefeed.config import HydrologySource
 from lakefeed.exceptions import SourceError
 from lakefeed.units import CANONICAL, convert, parse_unit
 
-__all__ = ["MOLAR_MASS_G_PER_MOL", "STANDARD_NAMES", "read_hydrology"]
+__all__ = ["MOLAR_MASS_G_PER_MOL", "STANDARD_NAMES", "read_hydrology", "to_canonical_unit"]
 
 #: Molar mass (g mol-1) of the element a concentration role is expressed as (IUPAC standard atomic weights).
 MOLAR_MASS_G_PER_MOL: dict[str, float] = {"tn": 14.007, "tp": 30.974, "no3": 14.007, "nh4": 14.007, "po4": 30.974}
@@ -36,6 +36,17 @@ def _canonical(role: str) -> str:
     return CANONICAL["discharge"] if role == "discharge" else CANONICAL["concentration"]
 
 
+def to_canonical_unit(values: np.ndarray, unit: str, role: str) -> np.ndarray:
+    """Discharge to m3 s-1, a concentration to mg L-1 (molar ones through :data:`MOLAR_MASS_G_PER_MOL`).
+
+    Raises :class:`SourceError` when the unit is not understood or does not fit the role.
+    """
+    molar = MOLAR_MASS_G_PER_MOL.get(role) if role != "discharge" else None
+    if molar is not None and "[substance]" not in parse_unit(str(unit)).dimensionality:
+        molar = None  # a mass concentration: no molar mass needed
+    return convert(values, str(unit), _canonical(role), molar_mass_g_per_mol=molar)
+
+
 def _to_canonical(frame: pd.DataFrame, role: str, unit: str | None, where: str) -> pd.DataFrame:
     """Convert to the role's canonical unit and reject negative values."""
     if unit is None or str(unit).strip() == "":
@@ -43,11 +54,8 @@ def _to_canonical(frame: pd.DataFrame, role: str, unit: str | None, where: str) 
             f"hydrology output {where}: variable {role!r} has no unit; add a 'units' attribute to the file or "
             f"declare it in sources.yaml hydrology.units.{role} (e.g. 'm3 s-1', 'mg L-1', 'ug L-1', 'mmol m-3')"
         )
-    molar = MOLAR_MASS_G_PER_MOL.get(role) if role != "discharge" else None
     try:
-        if molar is not None and "[substance]" not in parse_unit(str(unit)).dimensionality:
-            molar = None  # a mass concentration: no molar mass needed
-        values = convert(frame.to_numpy(dtype=float), str(unit), _canonical(role), molar_mass_g_per_mol=molar)
+        values = to_canonical_unit(frame.to_numpy(dtype=float), str(unit), role)
     except SourceError as err:
         raise SourceError(f"hydrology output {where}: variable {role!r}: {err}") from err
     out = pd.DataFrame(values, index=frame.index, columns=frame.columns)

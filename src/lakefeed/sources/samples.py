@@ -1,17 +1,25 @@
-"""Read sparse tributary samples and a daily flow record from CSV.
+"""Read sparse tributary samples (lab sheets) and a daily flow record.
 
-Takes CSV paths; returns pandas frames in canonical units. Sample files come in three shapes:
+Takes a CSV or ``.xlsx`` path and how the sheet is written (:class:`~lakefeed.config.SampleSheet`:
+column names, date format, sheet, separator, decimal mark, units, station code; reading the cells is
+:mod:`lakefeed.sources.lab_sheet`); returns pandas frames in canonical units. Sample sheets come in
+three shapes:
 
-- long: ``date, nutrient, concentration[, censored]`` (the sample scenario's form);
+- long: ``date, nutrient, concentration[, censored][, unit]`` (the sample scenario's form);
 - single: ``date, concentration[, censored]`` (the ``lakefeed loads`` form; nutrient = ``name``);
-- wide: ``date`` plus one column per nutrient (``tn``, ``tp``, ...), optional ``censored``.
+- wide: ``date`` plus one column per nutrient (``tn``, ``tp``, ...; or those mapped in ``columns``),
+  optional ``censored`` (for every nutrient of the row).
 
-``censored`` (true/false, 1/0, yes/no; missing = false) marks a value below the detection
-limit; the value given is then the detection limit. Duplicate dates (per nutrient) are
-averaged, with a :class:`~lakefeed.exceptions.LakefeedWarning` naming them; the averaged value
-is censored only when every value of that day was. The flow record has ``date, discharge``
-(m3 s-1 unless ``units`` says otherwise); missing days are added as NaN, duplicate dates are
-an error. Must not estimate loads.
+A value written ``<0.005`` or ``< 0,005`` is censored, each cell on its own: below the detection
+limit, the value given being the limit (the load estimators then take half of it). A ``censored``
+column (true/false, 1/0, yes/no, ``<``; missing = false) marks whole rows the same way. Units: a
+per-row ``unit`` column, else the entry's ``units`` for that nutrient, else mg L-1; molar units use
+the nutrient's molar mass. A ``station`` column holding several stations keeps the rows of this one.
+An optional ``time`` column is checked (loads are daily; the sample's day is its date). Duplicate
+dates (per nutrient) are averaged, with a :class:`~lakefeed.exceptions.LakefeedWarning` naming them;
+the averaged value is censored only when every value of that day was. The flow record has
+``date, discharge`` (m3 s-1 unless ``units`` says otherwise); missing days are added as NaN,
+duplicate dates are an error. Must not estimate loads.
 """
 
 from __future__ import annotations
@@ -22,7 +30,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from lakefeed.config.sources import SHEET_ROLES, SampleSheet
 from lakefeed.exceptions import LakefeedWarning, SourceError
+from lakefeed.sources.hydrology import to_canonical_unit
+from lakefeed.sources.lab_sheet import find_column, parse_dates, parse_times, parse_values, read_sheet, row_numbers
 from lakefeed.units import CANONICAL, convert
 
 __all__ = ["read_flow", "read_samples"]
@@ -31,48 +42,95 @@ _TRUE = {"true", "1", "yes", "y", "t", "<"}
 _FALSE = {"false", "0", "no", "n", "f", "", "nan", "none"}
 
 
-def _read_csv(path: str | Path, what: str) -> pd.DataFrame:
-    path = Path(path)
-    if not path.exists():
-        raise SourceError(f"{what}: file not found: {path}")
-    try:
-        frame = pd.read_csv(path)
-    except Exception as err:
-        raise SourceError(f"{what}: cannot read {path}: {err}") from err
-    frame.columns = [str(c).strip().lower() for c in frame.columns]
-    if "date" not in frame.columns:
-        raise SourceError(f"{what} {path}: no 'date' column; columns are {list(frame.columns)}")
-    try:
-        frame["date"] = pd.to_datetime(frame["date"]).dt.tz_localize(None).dt.normalize()
-    except Exception as err:
-        raise SourceError(f"{what} {path}: column 'date' has values that are not dates: {err}") from err
-    return frame
-
-
-def _censored(values: pd.Series, path: Path) -> pd.Series:
-    text = values.astype(str).str.strip().str.lower()
+def _censored(values: pd.Series, where: str) -> pd.Series:
+    text = values.astype(str).str.strip().str.lower().str.replace(r"\.0$", "", regex=True)
     bad = sorted(set(text) - _TRUE - _FALSE)
     if bad:
-        raise SourceError(f"samples {path}: column 'censored' has values {bad[:5]}; use true/false")
+        raise SourceError(f"{where}: column 'censored' has values {bad[:5]}; use true/false")
     return text.isin(_TRUE)
 
 
-def read_samples(
-    path: str | Path, *, name: str = "concentration", units: str = "mg L-1", require_concentration: bool = False
+def _one_station(
+    frame: pd.DataFrame, column: str | None, *, code: str | None, hint: str | None, where: str
 ) -> pd.DataFrame:
-    """Read tributary samples.
+    """The rows of this station when the sheet has a station column (see :func:`read_samples`)."""
+    if column is None:
+        if code is not None:
+            raise SourceError(
+                f"{where}: station {code!r} asked for, but the sheet has no station column; "
+                "map it with columns: {station: ...} (sources.yaml) / --column station=NAME"
+            )
+        return frame
+    values = frame[column].map(lambda v: str(int(v)) if isinstance(v, float) and v.is_integer() else str(v).strip())
+    found = sorted(set(values))
+    if code is not None or len(found) > 1:
+        wanted = code if code is not None else hint
+        if wanted is None or str(wanted) not in found:
+            raise SourceError(
+                f"{where}: column {column!r} holds stations {found[:10]}"
+                + (f", not {wanted!r}" if wanted is not None else "")
+                + "; say which rows are this station's with station_code (sources.yaml) / --station CODE"
+            )
+        return frame[(values == str(wanted)).to_numpy()]
+    return frame
+
+
+def _unit_of(nutrient: str, sheet: SampleSheet) -> str:
+    return sheet.units if isinstance(sheet.units, str) else sheet.units.get(nutrient, CANONICAL["concentration"])
+
+
+def _to_mg_l(long: pd.DataFrame, sheet: SampleSheet, where: str) -> np.ndarray:
+    """Concentrations in mg L-1 from each row's unit (unit column, else the entry's ``units``)."""
+    if isinstance(sheet.units, dict):
+        unknown = sorted(set(sheet.units) - set(long["nutrient"]))
+        if unknown:
+            raise SourceError(
+                f"{where}: 'units' names nutrient(s) {unknown} that the sheet does not hold; its nutrients are "
+                f"{sorted(set(long['nutrient']))}"
+            )
+    given = long["unit"].map(lambda u: None if u is None or (isinstance(u, float) and np.isnan(u)) else str(u))
+    unit = given.where(given.notna(), long["nutrient"].map(lambda n: _unit_of(n, sheet)))
+    out = np.empty(len(long))
+    for (nutrient, u), rows in long.groupby([long["nutrient"], unit], sort=False).indices.items():
+        source = "the 'unit' column" if given.iloc[rows[0]] is not None else "'units' of the samples entry"
+        try:
+            out[rows] = to_canonical_unit(long["concentration"].to_numpy(dtype=float)[rows], u, nutrient)
+        except SourceError as err:
+            raise SourceError(
+                f"{where}: nutrient {nutrient!r} in unit {u!r} (from {source}): {err}; write a concentration unit "
+                "such as 'mg L-1', 'ug L-1' or 'mmol m-3'"
+            ) from err
+    return out
+
+
+def read_samples(
+    path: str | Path,
+    sheet: SampleSheet | None = None,
+    *,
+    name: str = "concentration",
+    units: str | None = None,
+    require_concentration: bool = False,
+    station: str | None = None,
+    station_hint: str | None = None,
+) -> pd.DataFrame:
+    """Read tributary samples from a lab sheet.
 
     Parameters
     ----------
     path
-        CSV in the long, single or wide form (module docstring).
+        CSV or ``.xlsx`` in the long, single or wide form (module docstring).
+    sheet
+        How the sheet is written (column names, date format, sheet, separator, decimal mark, units).
     name
         Nutrient label for the single form.
     units
-        Unit of the concentrations (default mg L-1); converted to mg L-1.
+        Unit of every concentration, overriding ``sheet.units`` (default mg L-1); converted to mg L-1.
     require_concentration
-        Accept only the long and single forms (a ``concentration`` column): a file whose value column
-        is misspelt is an error instead of being read as the wide form with a nutrient of that name.
+        Accept only the long and single forms (a ``concentration`` column) unless nutrient columns are
+        mapped: a file whose value column is misspelt is an error instead of being read as the wide form.
+    station, station_hint
+        The station column's value for this station: ``station`` must be present; ``station_hint`` (e.g.
+        the configured station id) is used only when the sheet holds several stations.
 
     Returns
     -------
@@ -82,48 +140,81 @@ def read_samples(
     Raises
     ------
     SourceError
-        Missing columns, non-numeric, missing or negative concentrations, bad censoring flags.
+        Unreadable or header-only sheet, missing or unmapped columns, dates that are not dates or
+        ambiguous, non-numeric, missing or negative concentrations, bad censoring flags or units;
+        each message names the file, the column and what to do.
     """
+    sheet = sheet or SampleSheet()
+    if units is not None:
+        sheet = sheet.model_copy(update={"units": units})
     path = Path(path)
-    frame = _read_csv(path, "samples")
-    if "censored" not in frame.columns:
-        frame["censored"] = False
-    frame["censored"] = _censored(frame["censored"], path)
-    if require_concentration and "concentration" not in frame.columns:
+    where = f"samples {path}"
+    frame = read_sheet(path, sheet)
+
+    def col(key: str, required: bool = False) -> str | None:
+        return find_column(frame, key, sheet, where=where, required=required)
+
+    roles = {key: col(key, required=key == "date") for key in SHEET_ROLES}
+    frame = _one_station(frame, roles["station"], code=station or sheet.station_code, hint=station_hint, where=where)
+    dates = parse_dates(frame[roles["date"]], date_format=sheet.date_format, where=f"{where} column {roles['date']!r}")
+    if roles["time"] is not None:
+        parse_times(frame[roles["time"]], where=f"{where} column {roles['time']!r}")
+    flag = _censored(frame[roles["censored"]], where) if roles["censored"] else pd.Series(False, index=frame.index)
+    unit = frame[roles["unit"]] if roles["unit"] else pd.Series(np.nan, index=frame.index, dtype=object)
+    mapped = [k for k in sheet.columns if k not in SHEET_ROLES]
+    if require_concentration and roles["concentration"] is None and not mapped:
         raise SourceError(
-            f"samples {path}: no 'concentration' column (mg L-1 unless told otherwise); columns are "
+            f"{where}: no 'concentration' column (mg L-1 unless told otherwise); columns are "
             f"{list(frame.columns)}; rename the column of concentrations to 'concentration'"
         )
-    single = "concentration" in frame.columns and "nutrient" not in frame.columns  # one unnamed nutrient
-    if "concentration" in frame.columns:
-        if "nutrient" not in frame.columns:
-            frame["nutrient"] = name
-        long = frame[["date", "nutrient", "concentration", "censored"]].copy()
+    comma = sheet.decimal == "," or (sheet.decimal is None and frame.attrs.get("separator") != ",")
+    single = roles["concentration"] is not None and roles["nutrient"] is None  # one unnamed nutrient
+    if roles["concentration"] is not None:
+        nutrient = frame[roles["nutrient"]] if roles["nutrient"] else pd.Series(name, index=frame.index)
+        value_cols = {None: roles["concentration"]}
     else:
-        value_cols = [c for c in frame.columns if c not in {"date", "censored", "station", "time"}]
+        taken = {c for c in roles.values() if c}
+        value_cols = {k: col(k, True) for k in mapped} or {c.lower(): c for c in frame.columns if c not in taken}
         if not value_cols:
             raise SourceError(
-                f"samples {path}: need a 'concentration' column (with optional 'nutrient') or one column per "
+                f"{where}: need a 'concentration' column (with optional 'nutrient') or one column per "
                 f"nutrient; columns are {list(frame.columns)}"
             )
-        long = frame.melt(
-            id_vars=["date", "censored"], value_vars=value_cols, var_name="nutrient", value_name="concentration"
-        ).dropna(subset=["concentration"])
-    long["nutrient"] = long["nutrient"].astype(str).str.strip().str.lower()
-    conc = pd.to_numeric(long["concentration"], errors="coerce")
-    bad = long.loc[conc.isna(), "date"]
-    if len(bad):
-        raise SourceError(
-            f"samples {path}: {len(bad)} concentration(s) missing or not numbers, on "
-            f"{[f'{d:%Y-%m-%d}' for d in bad.head(5)]}; remove those rows or fill them in"
+    parts = []
+    for key, column in value_cols.items():
+        cells = frame[column]
+        if key is not None:  # wide form: an empty cell is a nutrient not measured that day
+            cells = cells[cells.notna()]
+        value, censored = parse_values(cells, comma_decimal=comma, where=f"{where} column {column!r}")
+        parts.append(
+            pd.DataFrame(
+                {
+                    "date": dates[cells.index],
+                    "nutrient": nutrient[cells.index] if key is None else key,
+                    "concentration": value,
+                    "censored": censored | flag[cells.index].to_numpy(),
+                    "unit": unit[cells.index],
+                },
+                index=cells.index,
+            )
         )
-    neg = long.loc[conc < 0, "date"]
+    long = pd.concat(parts)
+    missing = long["concentration"].isna() | long["nutrient"].isna()
+    if missing.any():
+        raise SourceError(
+            f"{where}: {int(missing.sum())} concentration(s) or nutrient name(s) missing, on "
+            f"{[f'{d:%Y-%m-%d}' for d in long.loc[missing, 'date'].head(5)]} (rows "
+            f"{row_numbers(long.index[missing][:5])}); remove those rows or fill them in"
+        )
+    long["nutrient"] = long["nutrient"].astype(str).str.strip().str.lower()
+    neg = long.loc[long["concentration"] < 0, "date"]
     if len(neg):
         raise SourceError(
-            f"samples {path}: negative concentration(s) on {[f'{d:%Y-%m-%d}' for d in neg.head(5)]}; "
+            f"{where}: negative concentration(s) on {[f'{d:%Y-%m-%d}' for d in neg.head(5)]}; "
             "concentrations must be >= 0 (a value below detection is the detection limit with censored=true)"
         )
-    long["concentration"] = convert(conc.to_numpy(dtype=float), units, CANONICAL["concentration"])
+    long["concentration"] = _to_mg_l(long.reset_index(drop=True), sheet, where)
+    long = long.drop(columns="unit").reset_index(drop=True)
     dup = long.duplicated(["nutrient", "date"], keep=False)
     if dup.any():
         shown = sorted(
@@ -149,24 +240,33 @@ def read_samples(
 def read_flow(path: str | Path, *, units: str = "m3 s-1") -> pd.Series:
     """Read a daily flow record (``date, discharge``) as a Series in m3 s-1 on a continuous daily index.
 
-    Missing days are NaN. Raises :class:`SourceError` for duplicate dates, missing columns or
-    negative discharge.
+    Read like a lab sheet (separator, decimal comma, dates as in :func:`read_samples`). Missing days
+    are NaN. Raises :class:`SourceError` for duplicate dates, missing columns or negative discharge.
     """
     path = Path(path)
-    frame = _read_csv(path, "flow record")
-    if "discharge" not in frame.columns:
-        raise SourceError(f"flow record {path}: no 'discharge' column (m3 s-1); columns are {list(frame.columns)}")
-    dup = frame["date"][frame["date"].duplicated()]
+    sheet = SampleSheet()
+    where = f"flow record {path}"
+    frame = read_sheet(path, sheet, what="flow record")
+    date_col = find_column(frame, "date", sheet, where=where, required=True)
+    if find_column(frame, "discharge", sheet, where=where) is None:
+        raise SourceError(f"{where}: no 'discharge' column (m3 s-1); columns are {list(frame.columns)}")
+    dates = parse_dates(frame[date_col], date_format=None, where=f"{where} column {date_col!r}")
+    dup = dates[dates.duplicated()]
     if len(dup):
-        raise SourceError(f"flow record {path}: duplicate dates {[f'{d:%Y-%m-%d}' for d in dup.head(5)]}")
-    q = pd.to_numeric(frame["discharge"], errors="coerce")
-    neg = frame.loc[q < 0, "date"]
+        raise SourceError(f"{where}: duplicate dates {[f'{d:%Y-%m-%d}' for d in dup.head(5)]}")
+    column = find_column(frame, "discharge", sheet, where=where)
+    q, below = parse_values(
+        frame[column], comma_decimal=frame.attrs.get("separator") != ",", where=f"{where} column {column!r}"
+    )
+    if below.any():
+        raise SourceError(
+            f"{where}: discharge written with '<' on {row_numbers(frame.index[below][:5])}; write numbers"
+        )
+    neg = dates[q < 0]
     if len(neg):
         raise SourceError(
-            f"flow record {path}: negative discharge on {[f'{d:%Y-%m-%d}' for d in neg.head(5)]}; "
-            "leave missing days empty instead"
+            f"{where}: negative discharge on {[f'{d:%Y-%m-%d}' for d in neg.head(5)]}; leave missing days empty instead"
         )
-    series = pd.Series(convert(q.to_numpy(dtype=float), units, CANONICAL["discharge"]), index=frame["date"])
-    series = series.sort_index()
+    series = pd.Series(convert(q, units, CANONICAL["discharge"]), index=dates.to_numpy()).sort_index()
     full = pd.date_range(series.index.min(), series.index.max(), freq="D", name="date")
     return series.reindex(full).rename("discharge").astype(np.float64)

@@ -16,7 +16,13 @@ Writes
   totals are the model's (``load_method`` starts with ``model_output``); station estimates are
   kept beside them, not mixed in.
 - ``load_estimates`` (one row per station, nutrient, method and date): ``station``, ``nutrient``,
-  ``method``, ``selected``, ``date``, ``load``, ``lower``, ``upper`` (kg d-1), ``warnings``.
+  ``method``, ``selected``, ``flow_subbasins``, ``date``, ``load``, ``lower``, ``upper`` (kg d-1),
+  ``warnings``.
+
+A station on sub-basin S takes the flow at S: S's discharge when the model's is ``routed``, and with
+``local`` runoff the sum of S's and every upstream sub-basin's runoff. ``flow_subbasins`` (``S+U1+U2``,
+empty for a station with its own ``flow_path``) and the ``hydrology_daily`` metadata key
+``station_flow_subbasins`` (``station=S+U1+U2; ...``) say which sub-basins make each station's flow.
 
 Must not: hold science (that lives in ``geometry`` and ``extract``).
 """
@@ -32,7 +38,7 @@ from lakefeed.config import Project
 from lakefeed.config.sources import SampleStation
 from lakefeed.exceptions import ConfigError, ExtractError, LakefeedWarning
 from lakefeed.extract.load_estimation import LoadEstimate, align, compare_methods
-from lakefeed.extract.loads import inflow_loads, inflow_members
+from lakefeed.extract.loads import inflow_loads, model_subbasins, summed_flow
 from lakefeed.geometry.network import Catchment, trace_configured_catchment
 from lakefeed.sources.hydrology import read_hydrology
 from lakefeed.sources.samples import read_flow, read_samples
@@ -68,7 +74,7 @@ def station_method(station: SampleStation) -> str:
 def _station_estimates(
     station: SampleStation, flow: pd.Series, where: str
 ) -> tuple[dict[str, dict[str, LoadEstimate | ExtractError]], str]:
-    samples = read_samples(station.path, units=station.units)
+    samples = read_samples(station.path, station, station_hint=station.id)
     options = {"seasonal": station.rating_seasonal, "trend": station.rating_trend}
     out = {}
     for nutrient, part in samples.groupby("nutrient", sort=True):
@@ -116,13 +122,17 @@ def build_hydrology(
         warnings.simplefilter("always", LakefeedWarning)
         progress("hydrology: catchment", 0, 4)
         catchment = catchment_of(project)
-        members = inflow_members(catchment.direct_inflows, catchment.subbasin_ids, discharge_kind=hyd.discharge_kind)
         station_ids = [s.subbasin for s in sources.samples if s.subbasin]
         unknown = [s for s in station_ids if s not in catchment.graph]
         if unknown:
             raise ConfigError(f"sources.yaml samples[].subbasin names unknown sub-basin(s) {unknown}")
+        # the sub-basins whose discharge makes the lake inflow and each station's flow (routed here for local runoff)
+        members, flow_of = model_subbasins(
+            catchment, {s.id: s.subbasin for s in sources.samples if s.subbasin}, discharge_kind=hyd.discharge_kind
+        )
         progress("hydrology: model outputs", 1, 4)
-        data = read_hydrology(hyd, subbasin_ids=list(dict.fromkeys([*members, *station_ids])))
+        needed = [*members, *(m for ids in flow_of.values() for m in ids)]
+        data = read_hydrology(hyd, subbasin_ids=list(dict.fromkeys(needed)))
         nutrients = [n for n in hyd.nutrients if n in data]
         table = inflow_loads(data["discharge"][members], {n: data[n][members] for n in nutrients}, members=members)
         gap_days = table.index[table["flags"] != ""]
@@ -139,7 +149,7 @@ def build_hydrology(
         estimates: list[pd.DataFrame] = []
         for station in sources.samples:
             if station.subbasin:
-                flow = data["discharge"][station.subbasin]
+                flow = summed_flow(data["discharge"], flow_of[station.id], name=f"station {station.id}")
             elif station.flow_path:
                 flow = read_flow(station.flow_path)
             else:
@@ -156,6 +166,7 @@ def build_hydrology(
                     frame.insert(1, "nutrient", nutrient)
                     frame.insert(2, "method", name)
                     frame.insert(3, "selected", name == chosen)
+                    frame.insert(4, "flow_subbasins", "+".join(flow_of.get(station.id, [])))
                     frame["warnings"] = "; ".join(est.warnings)
                     estimates.append(frame)
                     if name == chosen:
@@ -180,6 +191,7 @@ def build_hydrology(
             "catchment_n_subbasins": str(catchment.n_subbasins),
             "subbasins_overlapping_lake": ",".join(catchment.overlapping),
             "discharge_kind": hyd.discharge_kind,
+            "station_flow_subbasins": "; ".join(f"{k}={'+'.join(v)}" for k, v in flow_of.items()),
             "source": str(hyd.path or Path(next(iter(hyd.files.values())))),
         }
         files = [hyd.path, *(hyd.files or {}).values()]
