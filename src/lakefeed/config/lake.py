@@ -78,10 +78,21 @@ class TargetOptions(StrictModel):
     max_cv: float = Field(default=1.0, gt=0)
     valid_range: tuple[float, float] = (0.01, 1000.0)
     outlier_window_days: int = Field(default=31, ge=3)
+    #: Widest outlier window (days): a window holding fewer than 3 other values is widened up to it.
+    outlier_max_window_days: int = Field(default=91, ge=3)
     outlier_threshold: float = Field(default=3.5, gt=0)
     matchup_window_days: int = Field(default=0, ge=0)
     min_matchups: int = Field(default=10, ge=3)
     bias_model: Literal["linear", "ratio"] = "ratio"
+
+    @model_validator(mode="after")
+    def _widest_window(self) -> TargetOptions:
+        if self.outlier_max_window_days < self.outlier_window_days:
+            raise ValueError(
+                f"outlier_max_window_days ({self.outlier_max_window_days}) must be at least outlier_window_days "
+                f"({self.outlier_window_days}); raise it or lower outlier_window_days"
+            )
+        return self
 
 
 class Threshold(StrictModel):

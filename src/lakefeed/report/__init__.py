@@ -164,7 +164,8 @@ def render_report(project: Project, store: Store) -> str:
             .reset_index()
         )
         parts.append(_table(counts))
-        daily = _read(store, "target_daily", lake.id)
+        has_daily = store.has_table("target_daily", lake.id)
+        daily = store.read_table("target_daily", lake.id, columns=["aoi", "date"]) if has_daily else None
         dates = daily[["aoi", "date"]] if daily is not None else obs.loc[obs["accepted"].astype(bool), ["aoi", "date"]]
         parts.append("<h2>Sampling calendar and gaps</h2>")
         parts.append(_img(to_png64(calendar_figure(dates)), "calendar", "sampling calendar and gap histogram"))

@@ -222,7 +222,7 @@ def _reforecast(
     units = dict(existing.attrs.get("units", {}))
     descriptions = dict(existing.attrs.get("descriptions", {}))
     existing = existing.drop(columns=["lake"], errors="ignore")
-    td = store.read_table("target_daily", lake.id)
+    td = store.read_table("target_daily", lake.id, columns=["aoi", "date", "chla"])
     targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
     targets["aoi"] = targets["aoi"].astype(str)
     targets["date"] = pd.to_datetime(targets["date"]).dt.normalize()
