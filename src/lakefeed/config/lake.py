@@ -129,8 +129,16 @@ class FeatureOptions(StrictModel):
     driver_zone: str = "lake"
     folds: int = Field(default=5, ge=2)
     fold_kind: Literal["blocked", "random"] = "blocked"
-    embargo_days: int = Field(default=0, ge=0)
+    #: Length of the calendar blocks of blocked folds (months, counted from January).
+    fold_block_months: int = Field(default=6, ge=1, le=120)
+    #: Days after each block boundary whose rows are in no fold; None: the longest antecedent window.
+    embargo_days: int | None = Field(default=None, ge=0)
     min_observations: int = Field(default=140, ge=1)
+
+    @property
+    def effective_embargo_days(self) -> int:
+        """The embargo in days: ``embargo_days``, or the longest antecedent window when it is not set."""
+        return max(self.windows) if self.embargo_days is None else self.embargo_days
 
     @field_validator("windows")
     @classmethod
