@@ -259,6 +259,17 @@ def test_exceedance_and_class_columns_carry_the_caution(tmp_path: Path) -> None:
     with warnings.catch_warnings():
         warnings.simplefilter("error", LakefeedWarning)  # no warning without the deprecated column
         store.read_table("target_daily", "testlake", columns=["aoi", "date", "oecd_class", "carlson_class"])
+    # `lakefeed query` prints the caution beside class, threshold and screening columns, not elsewhere
+    from typer.testing import CliRunner
+
+    from lakefeed.cli import app
+
+    runner = CliRunner()
+    q = runner.invoke(app, ["query", "SELECT aoi, oecd_class, screened FROM target_daily", "--store", str(store.path)])
+    assert q.exit_code == 0 and "local regulations and the responsible authority" in q.output
+    assert "could not be screened for outliers" in q.output
+    q = runner.invoke(app, ["query", "SELECT aoi, chla FROM target_daily", "--store", str(store.path)])
+    assert q.exit_code == 0 and "responsible authority" not in q.output
 
 
 def test_cross_sensor_screening_catches_spike_of_sparse_sensor() -> None:
