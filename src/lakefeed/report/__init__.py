@@ -28,7 +28,9 @@ __all__ = ["CAUTION", "render_report", "write_report"]
 
 CAUTION = (
     "Trophic classes, chlorophyll-a thresholds and exceedance flags in this report inform only. Decisions on "
-    "bathing and drinking water follow local regulations and the responsible authority."
+    "bathing and drinking water follow local regulations and the responsible authority. Values that no outlier "
+    "rule could examine (screened = false, the unscreened mark in target_daily flags) keep their classes and flags: "
+    "they may come from an undetected outlier scene."
 )
 
 _CSS = """
@@ -157,10 +159,19 @@ def render_report(project: Project, store: Store) -> str:
                 "chlorophyll-a per AOI by sensor: accepted, rejected, outliers",
             )
         )
+        screened = obs["screened"] if "screened" in obs else obs["accepted"]  # stores built before the column
         counts = (
-            obs.assign(outlier=obs["outlier"].fillna(False).astype(bool))
+            obs.assign(
+                outlier=obs["outlier"].fillna(False).astype(bool),
+                unscreened=obs["accepted"].astype(bool) & ~screened.fillna(False).astype(bool),
+            )
             .groupby(["aoi", "sensor"])
-            .agg(scenes=("scene_id", "size"), accepted=("accepted", "sum"), outliers=("outlier", "sum"))
+            .agg(
+                scenes=("scene_id", "size"),
+                accepted=("accepted", "sum"),
+                outliers=("outlier", "sum"),
+                unscreened=("unscreened", "sum"),
+            )
             .reset_index()
         )
         parts.append(_table(counts))
