@@ -12,8 +12,8 @@ missing days is missing.
 - lakefeed: :func:`lakefeed.features.window_features` (gather each target's window, reduce).
 
 Refresh: per lake, one more month of drivers and targets; ``new_feature_block`` (only the new
-dates, from the drivers of the longest window's spill-over) + folds from the frozen block
-boundaries vs ``feature_block`` on the whole record + folds, both to Arrow as the stage stores
+dates, from the drivers of the longest window's spill-over) + calendar-block folds vs
+``feature_block`` on the whole record + folds, both to Arrow as the stage stores
 them (compute only, in memory), and the same through the features stage and the Parquet store
 (``build_features``: read the inputs, verify the old inputs unchanged, compute, append one part
 file / write the table, diagnostics, manifest and lock) for a subset of lakes. The new month of
@@ -36,7 +36,7 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 
-from lakefeed.features import feature_name, fold_boundaries, folds_from_boundaries, window_features
+from lakefeed.features import blocked_folds, feature_name, window_features
 from lakefeed.features.batch import Series, iter_feature_blocks
 from lakefeed.features.incremental import new_feature_block
 from lakefeed.features.pit import feature_block
@@ -111,22 +111,22 @@ def bench_windows(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[float
 
 
 def _with_folds(block, bounds: list):
-    """A feature block as the stage stores it: Arrow, folds from the frozen boundaries."""
+    """A feature block as the stage stores it: Arrow, calendar-block folds (embargo 30 d)."""
     arrow = block.to_arrow()
-    folds = folds_from_boundaries(arrow["target_date"].to_numpy(), bounds)
+    folds = blocked_folds(arrow["target_date"].to_numpy(), k=5, embargo_days=30)
     return arrow.append_column("fold", pa.array(folds, pa.int16()))
 
 
 def bench_refresh(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[Clock, Clock]:
-    """Compute only, lake by lake: the new month's rows (folds from the boundaries frozen at the previous
-    build) vs all rows (the same frozen boundaries), both as the stage stores them (Arrow); the new rows
+    """Compute only, lake by lake: the new month's rows (calendar-block folds) vs all rows (the same
+    folds), both as the stage stores them (Arrow); the new rows
     equal the full rebuild's rows from the cut on."""
     stats = {c: STATS for c in lakes[0][0].columns}
     kw = dict(lead=0, windows=WINDOWS, stats=stats, max_missing_fraction=FRAC)
     full_clock, inc_clock = Clock(), Clock()
     for drivers, targets in lakes:
         cut = drivers.index[-1] - pd.offsets.MonthBegin(1)  # the last month is "new"
-        bounds = fold_boundaries(targets.loc[targets["date"] < cut, "date"], k=5)  # frozen at the previous build
+        bounds = None  # folds are calendar blocks: nothing frozen
         full = full_clock(lambda d=drivers, t=targets, b=bounds: _with_folds(feature_block(t, d, **kw), b))
         inc = inc_clock(
             lambda d=drivers, t=targets, c=cut, b=bounds: _with_folds(new_feature_block(t, d, since=c, **kw), b)
@@ -149,7 +149,7 @@ def _rows_many(lakes: list[tuple[pd.DataFrame, pd.DataFrame]], cuts: list, bound
         for i in range(len(chunk.bounds) - 1):
             lo, hi = int(chunk.bounds[i]), int(chunk.bounds[i + 1])
             rows = arrow if (lo, hi) == (0, arrow.num_rows) else arrow.slice(lo, hi - lo)
-            folds = folds_from_boundaries(rows["target_date"].to_numpy(), bounds[chunk.first + i])
+            folds = blocked_folds(rows["target_date"].to_numpy(), k=5, embargo_days=30)
             rows = rows.append_column("fold", pa.array(folds, pa.int16()))
             if keep:
                 out.append(rows)
@@ -161,7 +161,7 @@ def bench_refresh_many(lakes: list[tuple[pd.DataFrame, pd.DataFrame]]) -> tuple[
     every lake vs the full rebuild of every lake; the new rows equal the full rebuild's from the cut on
     (checked on a few lakes, not timed)."""
     cuts = [d.index[-1] - pd.offsets.MonthBegin(1) for d, _ in lakes]
-    bounds = [fold_boundaries(t.loc[t["date"] < c, "date"], k=5) for (_, t), c in zip(lakes, cuts, strict=True)]
+    bounds = [None] * len(lakes)  # folds are calendar blocks: nothing frozen
     full_clock, inc_clock = Clock(), Clock()
     full_clock(_rows_many, lakes, cuts, bounds, new_only=False)
     inc_clock(_rows_many, lakes, cuts, bounds, new_only=True)

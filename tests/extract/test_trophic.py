@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 
 from lakefeed.config.lake import Threshold
-from lakefeed.extract.trophic import CAUTION, carlson_class, carlson_tsi, exceedance_flags, oecd_category
+from lakefeed.extract.trophic import CAUTION, carlson_class, carlson_tsi, class_columns, exceedance_flags, oecd_category
 
 
 def test_carlson_tsi_check_points() -> None:
@@ -63,3 +63,23 @@ def test_exceedance_flags_at_or_above() -> None:
 
 def test_caution_text() -> None:
     assert "local regulations" in CAUTION and "responsible authority" in CAUTION
+
+
+def test_class_columns_name_their_scheme_and_differ_where_the_schemes_do() -> None:
+    """``oecd_class`` applies the OECD (1982) chlorophyll-a boundaries 1 / 2.5 / 8 / 25 mg m-3; ``carlson_class``
+    applies Carlson's TSI bands (Carlson 1977; bands < 40, 40-50, 50-70, >= 70 as in Carlson & Simpson 1996) to
+    the TSI of the same value. Carlson's table pairs TSI 40 / 50 / 70 with about 2.6 / 7.3 / 56 mg m-3
+    chlorophyll-a (from memory), so 2.6 is OECD mesotrophic but Carlson oligotrophic, 8 is OECD mesotrophic but
+    Carlson eutrophic, 30 is OECD hypertrophic but Carlson eutrophic; ``trophic_class`` repeats the OECD one."""
+    chla = pd.Series([0.5, 2.0, 2.6, 8.0, 30.0, 60.0, np.nan])
+    out = class_columns(chla)
+    assert out["oecd_class"].tolist() == [
+        "ultra-oligotrophic", "oligotrophic", "mesotrophic", "mesotrophic", "hypertrophic", "hypertrophic", None,
+    ]  # fmt: skip
+    assert out["carlson_class"].tolist() == [
+        "oligotrophic", "oligotrophic", "oligotrophic", "eutrophic", "eutrophic", "hypereutrophic", None,
+    ]  # fmt: skip
+    assert out["trophic_class"].tolist() == out["oecd_class"].tolist()
+    assert out["tsi"].to_numpy()[:6] == pytest.approx(9.81 * np.log(chla.to_numpy()[:6]) + 30.6)
+    # Carlson's chlorophyll-a at the band limits (from memory of Carlson 1977's table): 2.6, 7.3, 56 mg m-3
+    assert carlson_tsi(np.array([2.6, 7.3, 56.0])) == pytest.approx([40.0, 50.0, 70.0], abs=0.2)

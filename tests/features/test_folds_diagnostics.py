@@ -11,37 +11,66 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lakefeed.exceptions import FeatureError
-from lakefeed.features import EMBARGOED, assign_folds, blocked_folds, random_folds, sampling_diagnostics
+from lakefeed.features import (
+    EMBARGOED,
+    assign_folds,
+    block_numbers,
+    blocked_folds,
+    fold_counts,
+    random_folds,
+    sampling_diagnostics,
+)
 
 
-def test_blocked_folds_are_contiguous_and_balanced() -> None:
-    dates = pd.date_range("2020-01-01", periods=10, freq="7D")
-    assert blocked_folds(dates, k=5).tolist() == [0, 0, 1, 1, 2, 2, 3, 3, 4, 4]
-    shuffled = dates[[3, 0, 9, 5]]
-    assert blocked_folds(shuffled.append(dates), k=5)[:4].tolist() == [1, 0, 4, 2]
+def test_blocked_folds_are_calendar_blocks_modulo_k() -> None:
+    """Half-year blocks numbered from January of year 0, fold = block modulo k. By hand: 2020-01..06 is
+    month 24240..24245 -> block 4040 -> fold 0 (k=5), 2020-07..12 -> 4041 -> 1, 2021 H1 -> 2, 2022 H2 -> 5 -> 0."""
+    dates = pd.to_datetime(["2020-01-15", "2020-06-30", "2020-07-01", "2021-03-03", "2022-12-31"])
+    assert blocked_folds(dates, k=5).tolist() == [0, 0, 1, 2, 0]
+    assert blocked_folds(dates, k=2, block_months=12).tolist() == [0, 0, 0, 1, 0]  # years 2020, 2021, 2022
+    assert blocked_folds(dates[[3, 0]], k=5).tolist() == [2, 0]  # a date's fold ignores the other dates
+
+
+def test_embargo_takes_out_the_first_days_of_each_block() -> None:
+    """Blocked cross-validation with a buffer between blocks (Roberts et al. 2017, Ecography 40: 913-929,
+    "Cross-validation strategies for data with temporal, spatial, hierarchical, or phylogenetic structure";
+    from memory): the rows dated within N days after a block boundary are in no fold. N = 30: 2020-01-01 ..
+    2020-01-30 and 2020-07-01 .. 2020-07-30 are dropped, 2020-01-31 and 2020-07-31 are kept."""
+    dates = pd.to_datetime(["2020-01-01", "2020-01-30", "2020-01-31", "2020-06-30", "2020-07-01", "2020-07-30",
+                            "2020-07-31"])  # fmt: skip
+    f = blocked_folds(dates, k=5, embargo_days=30)
+    assert f.tolist() == [EMBARGOED, EMBARGOED, 0, 0, EMBARGOED, EMBARGOED, 1]
+    kept, lost = fold_counts(dates, k=5, embargo_days=30, rows_per_date=2)
+    assert json.loads(kept) == {"0": 4, "1": 2, "2": 0, "3": 0, "4": 0}
+    assert json.loads(lost) == {"0": 4, "1": 4, "2": 0, "3": 0, "4": 0}
 
 
 @settings(deadline=None)
-@given(st.lists(st.integers(0, 2000), min_size=1, max_size=200), st.integers(2, 8))
-def test_blocked_folds_property(days: list[int], k: int) -> None:
-    """Property: folds are monotone in time, same date -> same fold, sizes differ by <= 1 date."""
+@given(
+    st.lists(st.integers(0, 3000), min_size=1, max_size=200),
+    st.integers(2, 8),
+    st.sampled_from([1, 2, 3, 4, 6, 12, 18]),
+    st.integers(0, 60),
+)
+def test_blocked_folds_property(days: list[int], k: int, months: int, embargo: int) -> None:
+    """Properties: same date -> same fold; a date's fold does not depend on the other dates (the record may
+    grow: a subset gets the folds it has within the whole); the buffer holds: two kept rows of different folds
+    lie more than ``embargo`` days apart, and a kept row's ``embargo``-day antecedent window lies in its own
+    block (Roberts et al. 2017, blocked cross-validation with buffers; from memory)."""
     dates = pd.Timestamp("2015-01-01") + pd.to_timedelta(days, unit="D")
-    f = blocked_folds(dates, k=k)
-    order = np.argsort(np.asarray(days), kind="stable")
-    assert (np.diff(f[order]) >= 0).all()
-    uniq_f = pd.Series(f).groupby(np.asarray(days)).nunique()
-    assert (uniq_f == 1).all()
-    sizes = pd.Series(f).groupby(np.asarray(days)).first().value_counts()
-    assert sizes.max() - sizes.min() <= 1
-
-
-def test_embargo_drops_observations_just_after_each_block() -> None:
-    days = [0, 1, 2, 10, 11, 30, 31, 32, 60, 61]
-    dates = pd.Timestamp("2020-01-01") + pd.to_timedelta(days, unit="D")
-    f = blocked_folds(dates, k=5, embargo_days=5)
-    # blocks by date pairs: {0,1} {2,10} {11,30} {31,32} {60,61}; within 5 d after the previous block's last date
-    # are dropped: 2 (1 + 1), 11 (10 + 1), 31 (30 + 1); 32 (30 + 2) too
-    assert f.tolist() == [0, 0, EMBARGOED, 1, EMBARGOED, 2, EMBARGOED, EMBARGOED, 4, 4]
+    f = blocked_folds(dates, k=k, block_months=months, embargo_days=embargo)
+    assert (pd.Series(f).groupby(np.asarray(days)).nunique() == 1).all()
+    half = len(days) // 2
+    np.testing.assert_array_equal(blocked_folds(dates[:half], k=k, block_months=months, embargo_days=embargo), f[:half])
+    d = np.asarray(days)
+    kept = f != EMBARGOED
+    a, b = np.meshgrid(np.flatnonzero(kept), np.flatnonzero(kept), indexing="ij")
+    apart = np.abs(d[a] - d[b]) > embargo
+    assert (apart | (f[a] == f[b])).all()
+    m = (dates.year * 12 + dates.month - 1) // months * months  # first month of the block, counted by hand
+    start = pd.to_datetime({"year": m // 12, "month": m % 12 + 1, "day": 1})
+    assert ((dates - pd.DatetimeIndex(start)).days[kept] >= embargo).all()
+    assert (block_numbers(dates, block_months=months)[0] % k == np.where(kept, f, (m // months) % k)).all()
 
 
 def test_random_folds_are_labelled_and_balanced() -> None:
@@ -90,31 +119,16 @@ def test_default_minimum_is_140() -> None:
 
 
 @settings(deadline=None)
-@given(
-    st.lists(st.integers(0, 2000), min_size=1, max_size=120),
-    st.lists(st.integers(1, 400), max_size=40),
-    st.integers(2, 6),
-    st.integers(0, 20),
-)
-def test_frozen_folds_do_not_move_when_dates_are_appended(old: list[int], new: list[int], k: int, embargo: int) -> None:
-    """Property: with boundaries frozen on the old dates, the old dates keep the folds that blocked_folds
-    gives them, later dates join the last block; random (hashed) folds ignore the other dates."""
-    from lakefeed.features import date_hash_folds, fold_boundaries, folds_from_boundaries
+@given(st.lists(st.integers(0, 2000), min_size=1, max_size=120), st.lists(st.integers(1, 400), max_size=40))
+def test_hashed_folds_do_not_move_when_dates_are_appended(old: list[int], new: list[int]) -> None:
+    """Property: random (hashed) folds ignore the other dates, as blocked ones do."""
+    from lakefeed.features import date_hash_folds
 
     day0 = pd.Timestamp("2015-01-01")
     old_dates = day0 + pd.to_timedelta(old, unit="D")
     later = day0 + pd.to_timedelta([max(old) + d for d in new], unit="D")
-    bounds = fold_boundaries(old_dates, k=k)
-    want = blocked_folds(old_dates, k=k, embargo_days=embargo)
-    both = folds_from_boundaries(old_dates.append(later), bounds, embargo_days=embargo)
-    np.testing.assert_array_equal(both[: len(old)], want)
-    last = min(k, len(set(old))) - 1
-    tail = both[len(old) :]
-    assert set(tail.tolist()) <= {last, EMBARGOED}
-    if last == 0 or embargo == 0:
-        assert (tail == last).all()
     np.testing.assert_array_equal(
-        date_hash_folds(old_dates.append(later), k=k)[: len(old)], date_hash_folds(old_dates, k=k)
+        date_hash_folds(old_dates.append(later), k=5)[: len(old)], date_hash_folds(old_dates, k=5)
     )
 
 

@@ -38,7 +38,13 @@ def test_features_for_every_aoi_with_diagnostics_and_folds(built) -> None:
     f = load_features(store, "tallow")
     assert set(f["aoi"]) == {"intake", "bathing_bay", "open_water"}
     assert result.tables["diagnostics"] == 3
-    assert f["fold"].between(0, 4).all() and (f["lead_days"] == 0).all()
+    assert f["fold"].between(-1, 4).all() and (f["lead_days"] == 0).all()
+    # default embargo = the longest window (30 d): the rows of 1-30 January and 1-30 July are in no fold
+    # (the sample's 2022 gives the half-year blocks 4044 -> fold 4 and 4045 -> fold 0)
+    td = f["target_date"]
+    early = td.dt.month.isin([1, 7]) & (td.dt.day <= 30)
+    assert (f.loc[early, "fold"] == -1).all() and early.any()
+    assert set(f.loc[~early, "fold"]) == {4, 0}
     assert f.attrs["units"]["precipitation_sum__sum_7d"] == "mm"
     assert f.attrs["units"]["tp_load__sum_10d"] == "kg"
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import numpy as np
@@ -92,8 +93,20 @@ def test_stage_writes_contract_columns_with_units(tmp_path: Path) -> None:
     d = drivers[drivers["zone"] == "lake"].set_index("date")
     win = d.loc[row["target_date"] - pd.Timedelta(days=7) : row["target_date"] - pd.Timedelta(days=1)]
     assert row["precipitation_sum__sum_7d"] == pytest.approx(win["precipitation_sum"].sum(), rel=1e-12)
-    assert set(f.loc[f["lead_days"] == 0, "fold"]) == {0, 1, 2, 3, 4}
+    # folds: calendar half-years numbered from year 0, modulo 5 (2021 H1 = block 4042 -> fold 2, H2 -> 3,
+    # 2022 H1 -> 4, H2 -> 0); the default embargo (the longest window, 7 d) takes out 1-7 January and July
+    td = f["target_date"]
+    would = ((td.dt.year * 12 + td.dt.month - 1) // 6) % 5
+    embargoed = td.dt.month.isin([1, 7]) & (td.dt.day <= 7)
+    want = would.where(~embargoed, -1)
+    assert (f["fold"].to_numpy() == want.to_numpy()).all() and set(want) == {-1, 0, 2, 3, 4}
     diag = store.read_table("diagnostics", "tallow")
+    for _, d in diag.iterrows():  # rows kept and lost per fold, as the features table holds them
+        mine = f["aoi"] == d["aoi"]
+        assert d["embargo_days"] == 7
+        lost = {str(k): int((mine & embargoed & (would == k)).sum()) for k in range(5)}
+        assert json.loads(d["embargoed_rows"]) == lost and sum(lost.values()) > 0
+        assert json.loads(d["fold_rows"]) == {str(k): int((mine & (want == k)).sum()) for k in range(5)}
     assert diag["warn_few_observations"].all()  # fewer than 140 per AOI
     assert any("accepted observations" in w for w in res.warnings)
 
@@ -136,7 +149,7 @@ def _files(store: Store) -> dict[str, bytes]:
 
 
 def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    project = _project(tmp_path, leads=[0, 3], windows=[1, 5, 30], embargo_days=10)
+    project = _project(tmp_path, leads=[0, 3], windows=[1, 5, 30], embargo_days=30)
     inc = Store(tmp_path / "inc")
     old = _inputs(end="2022-10-31")
     _write(inc, *old)
@@ -160,12 +173,11 @@ def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: py
         pd.testing.assert_frame_equal(got, want)
         pd.testing.assert_frame_equal(inc.read_table("diagnostics", "tallow"), full.read_table("diagnostics", "tallow"))
         _assert_unique_and_equal(inc, want.drop(columns="lake"))
-        # folds are frozen: no stored row changed its fold; later dates joined the last block
+        # calendar folds: no stored row changed its fold as the record grew
         old_rows = got.merge(
             before[["aoi", "target_date", "lead_days", "fold"]], on=["aoi", "target_date", "lead_days"]
         )
         assert (old_rows["fold_x"] == old_rows["fold_y"]).all() and len(old_rows) == len(before)
-        assert set(got.loc[got["target_date"] > before["target_date"].max(), "fold"]) <= {4, -1}
     # the refresh starts the day after the last old target (the old drivers reach further) and appends one part
     assert calls and calls[0] == [str(old[2]["date"].max() + pd.Timedelta(days=1))]
     assert len(inc.part_files("features", "tallow")) == 3
@@ -173,14 +185,14 @@ def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: py
     snapshot = _files(inc)
     build_features(project, inc)
     assert _files(inc) == snapshot
-    # a fresh build of the same inputs differs only by the re-balanced folds; rebalance_folds=True gives it
+    # a clean build of the same inputs into an empty store equals the incrementally grown table, folds included
+    # (folds used to be re-balanced over the grown record and differed; they are calendar blocks now)
     fresh = Store(tmp_path / "fresh")
     _write(fresh, *_inputs(end="2022-12-31"))
     build_features(project, fresh)
-    pd.testing.assert_frame_equal(
-        load_features(fresh, "tallow").drop(columns="fold"), load_features(inc, "tallow").drop(columns="fold")
-    )
-    build_features(project, inc, rebalance_folds=True)
+    pd.testing.assert_frame_equal(load_features(fresh, "tallow"), load_features(inc, "tallow"))
+    pd.testing.assert_frame_equal(inc.read_table("diagnostics", "tallow"), fresh.read_table("diagnostics", "tallow"))
+    build_features(project, inc, rebalance_folds=True)  # kept: recomputes every row into one part
     pd.testing.assert_frame_equal(load_features(inc, "tallow"), load_features(fresh, "tallow"))
     assert len(inc.part_files("features", "tallow")) == 1
     _assert_unique_and_equal(inc, load_features(fresh, "tallow").drop(columns="lake"))
@@ -532,7 +544,7 @@ def _write_lake(store: Store, lake: str, end: str, seed: int, marker: float | No
 
 
 def _three_lakes(tmp_path: Path) -> list[Project]:
-    same = dict(leads=[0, 3], windows=[1, 5, 30], embargo_days=10)
+    same = dict(leads=[0, 3], windows=[1, 5, 30], embargo_days=30)
     return [_lake(tmp_path, "alder", **same), _lake(tmp_path, "birch", **same),
             _lake(tmp_path, "cedar", windows=[1, 7], fold_kind="random")]  # fmt: skip
 

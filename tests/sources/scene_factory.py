@@ -104,6 +104,8 @@ TARGET_OBS_COLUMNS = [
     "accepted",
     "reason",
     "outlier",
+    "screened",
+    "screening",
 ]
 
 

@@ -16,7 +16,7 @@ from typer.testing import CliRunner
 from lakefeed.config.sources import Accumulation, ForecastSource
 from lakefeed.exceptions import ExtractError, SourceError
 from lakefeed.extract.quantile_mapping import DEFAULT_KINDS
-from lakefeed.features import date_hash_folds, folds_from_boundaries
+from lakefeed.features import blocked_folds, date_hash_folds
 from lakefeed.geometry.weights import zone_weights
 from lakefeed.sources.forecasts import open_forecasts
 from lakefeed.stages._result import StageResult
@@ -173,37 +173,28 @@ def test_sample_reforecast_rows_appended(sample_run):
     # same columns as the hindcast rows plus the forecast share
     assert re["air_temperature_mean__mean_3d"].notna().mean() > 0.5
     assert (re["fold"] >= -1).all()
-    # every re-forecast row carries the fold of its target date's hindcast row or of its frozen block
-    meta = store.entry("features", project.id)["metadata"]
-    bounds = json.loads(meta["fold_boundaries"])["intake"]
-    expected = folds_from_boundaries(pd.to_datetime(re["target_date"]), bounds, embargo_days=0)
+    # every re-forecast row carries the calendar fold of its target date (the hindcast rows' rule)
+    opts = project.lake.features
+    expected = blocked_folds(pd.to_datetime(re["target_date"]), k=opts.folds, embargo_days=opts.effective_embargo_days)
     np.testing.assert_array_equal(re["fold"].to_numpy(), expected)
     hind_fold = hind.set_index("target_date")["fold"]
     same = re[re["target_date"].isin(hind_fold.index)]
     assert len(same) and (same["fold"].to_numpy() == hind_fold.loc[same["target_date"]].to_numpy()).all()
 
 
-def test_reforecast_folds_use_frozen_boundaries_not_the_reforecast_dates():
-    """Target dates without a hindcast row fall in their frozen block; others keep their hindcast fold.
-
-    Folds fitted to the re-forecast rows alone (3 dates, 2 folds) would split 2024-07-01..2024-07-03 into two
-    blocks; the frozen boundary (block 1 starts 2024-06-01) puts all three in block 1.
-    """
+def test_reforecast_folds_are_the_calendar_folds_of_their_target_dates():
+    """A re-forecast row's fold is its target date's calendar fold (half-years modulo k; by hand, k=2:
+    2024 H1 = block 4048 -> 0, 2024 H2 -> 1; embargo 30 d takes out 2024-07-01..07-30), never one fitted to the
+    re-forecast dates; random folds are the date hash of the features stage."""
     from lakefeed.config.lake import FeatureOptions
     from lakefeed.stages.forecast import _reforecast_folds
 
-    opts = FeatureOptions(folds=2)
-    hind = pd.DataFrame({"aoi": "a", "target_date": pd.to_datetime(["2024-01-10", "2024-07-02"]), "fold": [0, 1]})
-    rows = pd.DataFrame({"aoi": "a", "target_date": pd.to_datetime(["2024-07-01", "2024-07-02", "2024-07-03",
+    rows = pd.DataFrame({"aoi": "a", "target_date": pd.to_datetime(["2024-07-01", "2024-07-31", "2024-08-03",
                                                                     "2024-01-10", "2024-05-31"])})  # fmt: skip
-    meta = {"fold_boundaries": json.dumps({"a": [["2024-06-01", "2024-01-10"]]})}
-    assert _reforecast_folds(rows, hind, meta, opts).tolist() == [1, 1, 1, 0, 0]
-    # an AOI without frozen boundaries gets blocks from its hindcast dates (block 1 starts 2024-07-02)
-    assert _reforecast_folds(rows, hind, {}, opts).tolist() == [0, 1, 1, 0, 0]
-    # random folds: the date hash of the features stage
+    assert _reforecast_folds(rows, FeatureOptions(folds=2)).tolist() == [-1, 1, 1, -1, 0]
+    assert _reforecast_folds(rows, FeatureOptions(folds=2, embargo_days=0)).tolist() == [1, 1, 1, 0, 0]
     ropts = FeatureOptions(folds=3, fold_kind="random")
-    got = _reforecast_folds(rows, hind.iloc[:0], meta, ropts)
-    assert got.tolist() == date_hash_folds(rows["target_date"], k=3).tolist()
+    assert _reforecast_folds(rows, ropts).tolist() == date_hash_folds(rows["target_date"], k=3).tolist()
 
 
 def test_stored_table_is_reused_when_nothing_changed():

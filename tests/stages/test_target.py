@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import warnings
 from pathlib import Path
 
 import geopandas as gpd
@@ -14,6 +15,7 @@ import shapely
 from scene_factory import TARGET_OBS_COLUMNS, write_catalog, write_item, write_tif
 
 from lakefeed.config import load_project
+from lakefeed.exceptions import LakefeedWarning
 from lakefeed.extract.trophic import CAUTION
 from lakefeed.stages.target import build_target
 from lakefeed.store import Store
@@ -95,7 +97,7 @@ def test_build_target_synthetic(tmp_path: Path) -> None:
     daily = store.read_table("target_daily", "testlake")
     assert obs.attrs["units"]["median"] == "mg m-3" and daily.attrs["units"]["chla"] == "mg m-3"
     assert list(obs.columns) == TARGET_OBS_COLUMNS
-    assert list(daily.columns[:9]) == [
+    assert list(daily.columns[:13]) == [
         "lake",
         "aoi",
         "date",
@@ -104,8 +106,17 @@ def test_build_target_synthetic(tmp_path: Path) -> None:
         "n_obs",
         "sensors",
         "tsi",
+        "oecd_class",
+        "carlson_class",
         "trophic_class",
+        "screened",
+        "flags",
     ]
+    # a dense series: every accepted value is examined by its own sensor's 31-day window
+    ok = obs[obs["accepted"]]
+    assert ok["screened"].all() and ok["screening"].str.startswith("own sensor's series").all()
+    assert not obs.loc[~obs["accepted"], "screened"].any()
+    assert daily["screened"].all() and (daily["flags"] == "").all()
     assert "exceeds_level_a" in daily.columns
     assert len(obs) == 61 * 2
     assert obs.loc[obs["scene_id"] == "nodate", "reason"].str.contains("no 'datetime'").all()
@@ -236,8 +247,29 @@ def test_exceedance_and_class_columns_carry_the_caution(tmp_path: Path) -> None:
     lake_yaml.write_text(lake_yaml.read_text() + "  - {name: level_b, value: 50}\n")
     build_target(load_project(lake_yaml), Store(tmp_path / "store"))
     schema = pq.read_schema(tmp_path / "store" / "target_daily" / "lake=testlake" / "part-0.parquet")
-    for name in ("exceeds_level_a", "exceeds_level_b", "trophic_class", "tsi"):
+    for name in ("exceeds_level_a", "exceeds_level_b", "trophic_class", "oecd_class", "carlson_class", "tsi"):
         assert CAUTION in schema.field(name).metadata[b"description"].decode()
+    # each class column names its scheme and source; the old name is a deprecated alias, warned on read
+    assert schema.field("oecd_class").metadata[b"description"].decode().startswith("OECD (1982)")
+    assert schema.field("carlson_class").metadata[b"description"].decode().startswith("Carlson (1977)")
+    store = Store(tmp_path / "store")
+    with pytest.warns(LakefeedWarning, match=r"target_daily\.trophic_class: DEPRECATED alias of oecd_class"):
+        daily = store.read_table("target_daily", "testlake")
+    assert daily["trophic_class"].tolist() == daily["oecd_class"].tolist()
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", LakefeedWarning)  # no warning without the deprecated column
+        store.read_table("target_daily", "testlake", columns=["aoi", "date", "oecd_class", "carlson_class"])
+    # `lakefeed query` prints the caution beside class, threshold and screening columns, not elsewhere
+    from typer.testing import CliRunner
+
+    from lakefeed.cli import app
+
+    runner = CliRunner()
+    q = runner.invoke(app, ["query", "SELECT aoi, oecd_class, screened FROM target_daily", "--store", str(store.path)])
+    assert q.exit_code == 0 and "local regulations and the responsible authority" in q.output
+    assert "could not be screened for outliers" in q.output
+    q = runner.invoke(app, ["query", "SELECT aoi, chla FROM target_daily", "--store", str(store.path)])
+    assert q.exit_code == 0 and "responsible authority" not in q.output
 
 
 def test_cross_sensor_screening_catches_spike_of_sparse_sensor() -> None:

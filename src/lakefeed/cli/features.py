@@ -5,8 +5,8 @@ Parses arguments, loads the lake configurations and calls
 :func:`lakefeed.stages.features.build_features_many` for the lakes of each store: their rows are computed
 together, each lake is read and written on its own, and a lake that fails is reported while the others
 are written (the exit code is then 1). Incremental by default: only new dates are computed and appended
-as one part file; ``--full`` recomputes every row keeping the frozen cross-validation folds;
-``--rebuild`` also re-balances the fold blocks over all dates; ``--compact`` merges the table's part
+as one part file; ``--full`` and ``--rebuild`` recompute every row (folds are calendar blocks: a row's
+fold is the same either way); ``--compact`` merges the table's part
 files into one. Prints the diagnostics as a rich table. Holds no science.
 """
 
@@ -112,8 +112,8 @@ def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
 def features(
     configs: list[Path] = typer.Argument(..., help="Lake configuration files or folders of them."),
     store: str | None = typer.Option(None, "--store", help="Store folder or fsspec URL [default: sources.yaml store]."),
-    full: bool = typer.Option(False, "--full", help="Recompute every row (folds stay as frozen)."),
-    rebuild: bool = typer.Option(False, "--rebuild", help="Recompute every row and re-balance the fold blocks."),
+    full: bool = typer.Option(False, "--full", help="Recompute every row."),
+    rebuild: bool = typer.Option(False, "--rebuild", help="Same as --full (folds are calendar blocks)."),
     compact: bool = typer.Option(False, "--compact", help="Merge the feature table's part files into one."),
     allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
 ) -> None:

@@ -45,8 +45,11 @@ def query_command(
         err_console.print(
             f"[yellow]warning:[/] {escape(message)}; this lake is left out of the answer", highlight=False
         )
+    caution = _caution(list(frame.columns))
     if csv:
         frame.to_csv(sys.stdout, index=False)
+        if caution:
+            print(caution, file=sys.stderr)
         return
     table = Table(title=f"{len(frame)} row(s)")
     for c in frame.columns:
@@ -56,3 +59,20 @@ def query_command(
     console.print(table)
     if len(frame) > limit:
         console.print(f"({len(frame) - limit} more rows; use --csv to see all)")
+    if caution:
+        console.print(f"[yellow]{caution}[/]", highlight=False)
+
+
+def _caution(columns: list[str]) -> str:
+    """The caution printed beside trophic classes, thresholds and screening marks (empty without them)."""
+    from lakefeed.extract.trophic import CAUTION, UNSCREENED
+
+    shown = {str(c) for c in columns}
+    if not shown & {"tsi", "oecd_class", "carlson_class", "trophic_class", "screened", "flags"} and not any(
+        c.startswith("exceeds_") for c in shown
+    ):
+        return ""
+    return (
+        f"{CAUTION} Days with screened = false ('{UNSCREENED}' in flags) could not be screened for outliers: "
+        "their classes and exceedances may come from an undetected outlier scene."
+    )

@@ -93,6 +93,8 @@ class TargetOptions(StrictModel):
     max_cv: float = Field(default=1.0, gt=0)
     valid_range: tuple[float, float] = (0.01, 1000.0)
     outlier_window_days: int = Field(default=31, ge=3)
+    #: Widest outlier window (days): a window holding fewer than 3 other values is widened up to it.
+    outlier_max_window_days: int = Field(default=91, ge=3)
     outlier_threshold: float = Field(default=3.5, gt=0)
     matchup_window_days: int = Field(default=0, ge=0)
     min_matchups: int = Field(default=10, ge=3)
@@ -108,6 +110,15 @@ class TargetOptions(StrictModel):
                 + (" (reversed: every value would be rejected; swap them)" if lo > hi else "")
             )
         return v
+
+    @model_validator(mode="after")
+    def _widest_window(self) -> TargetOptions:
+        if self.outlier_max_window_days < self.outlier_window_days:
+            raise ValueError(
+                f"outlier_max_window_days ({self.outlier_max_window_days}) must be at least outlier_window_days "
+                f"({self.outlier_window_days}); raise it or lower outlier_window_days"
+            )
+        return self
 
 
 class Threshold(StrictModel):
@@ -144,8 +155,16 @@ class FeatureOptions(StrictModel):
     driver_zone: str = "lake"
     folds: int = Field(default=5, ge=2)
     fold_kind: Literal["blocked", "random"] = "blocked"
-    embargo_days: int = Field(default=0, ge=0)
+    #: Length of the calendar blocks of blocked folds (months, counted from January).
+    fold_block_months: int = Field(default=6, ge=1, le=120)
+    #: Days after each block boundary whose rows are in no fold; None: the longest antecedent window.
+    embargo_days: int | None = Field(default=None, ge=0)
     min_observations: int = Field(default=140, ge=1)
+
+    @property
+    def effective_embargo_days(self) -> int:
+        """The embargo in days: ``embargo_days``, or the longest antecedent window when it is not set."""
+        return max(self.windows) if self.embargo_days is None else self.embargo_days
 
     @field_validator("windows")
     @classmethod

@@ -181,7 +181,7 @@ def apply_bias(
     adjustment (``ln_ratio_se`` for ratio; slope se / slope for linear).
     """
     f = fits.set_index("sensor").reindex(obs["sensor"].to_numpy())
-    adjusted = f["adjusted"].fillna(False).astype(bool).to_numpy()
+    adjusted = f["adjusted"].eq(True).to_numpy()  # sensors without a fit: unadjusted
     x = obs[value].to_numpy(dtype=float)
     if (f["model"] == "linear").any():
         lin = (f["model"] == "linear").to_numpy() & adjusted

@@ -1,7 +1,7 @@
 """Trophic state and threshold flags for chlorophyll-a (pure numpy/pandas).
 
-Takes chlorophyll-a in mg m-3 (= ug L-1) and returns Carlson's trophic state index, the OECD (1982)
-trophic category and exceedance flags of user-defined thresholds. Must not open files.
+Takes chlorophyll-a in mg m-3 (= ug L-1) and returns Carlson's trophic state index with its class, the
+OECD (1982) trophic category and exceedance flags of user-defined thresholds. Must not open files.
 
 These classes and flags inform only: see :data:`CAUTION`, which the CLI and the report print beside
 them.
@@ -29,8 +29,10 @@ __all__ = [
     "CAUTION",
     "OECD_BOUNDARIES",
     "OECD_CLASSES",
+    "UNSCREENED",
     "carlson_class",
     "carlson_tsi",
+    "class_columns",
     "exceedance_flags",
     "oecd_category",
 ]
@@ -40,6 +42,10 @@ CAUTION = (
     "Trophic classes and chlorophyll-a thresholds inform only; bathing and drinking-water decisions "
     "follow local regulations and the responsible authority."
 )
+
+#: ``flags`` entry of a day whose value no outlier rule could examine: its classes and exceedances are computed
+#: but may come from an undetected outlier scene.
+UNSCREENED = "unscreened"
 
 #: OECD (1982) fixed boundaries on chlorophyll-a (mg m-3); each boundary belongs to the lower class.
 OECD_BOUNDARIES = (1.0, 2.5, 8.0, 25.0)
@@ -86,6 +92,21 @@ def oecd_category(chla: np.ndarray | pd.Series) -> np.ndarray:
     with np.errstate(invalid="ignore"):
         x = np.where(x >= 0, x, np.nan)
     return _classes(x, OECD_BOUNDARIES, OECD_CLASSES, right=True)
+
+
+def class_columns(chla: pd.Series) -> pd.DataFrame:
+    """``tsi``, ``oecd_class``, ``carlson_class`` and the deprecated ``trophic_class`` of chlorophyll-a values.
+
+    ``oecd_class`` applies the OECD (1982) boundaries to chlorophyll-a (mg m-3); ``carlson_class`` applies
+    Carlson's TSI bands to ``tsi`` (Carlson 1977; bands as in Carlson & Simpson 1996). The two schemes
+    differ: 8 mg m-3 is OECD mesotrophic but Carlson eutrophic (TSI 51.0). ``trophic_class`` repeats
+    ``oecd_class`` for one release (deprecated: it named no scheme).
+    """
+    tsi = carlson_tsi(pd.to_numeric(chla, errors="coerce").astype(float).to_numpy())
+    oecd = oecd_category(np.asarray(chla, dtype=float))
+    return pd.DataFrame(
+        {"tsi": tsi, "oecd_class": oecd, "carlson_class": carlson_class(tsi), "trophic_class": oecd}, index=chla.index
+    )
 
 
 def exceedance_flags(chla: pd.Series, thresholds: Mapping[str, float] | Iterable[object]) -> pd.DataFrame:

@@ -4,8 +4,8 @@ Takes the feature rows of a previous build, the current targets and drivers and 
 date whose inputs may differ (``since``); returns the merged rows. A window only looks back,
 so a change on day x can affect only targets dated after x: rows with a target date before
 ``since`` are kept, rows on or after it are recomputed from the drivers sliced to ``since``
-minus the longest window (the spill-over). Folds are not assigned here (use the frozen
-boundaries of :func:`lakefeed.features.folds.folds_from_boundaries`, so stored rows keep theirs).
+minus the longest window (the spill-over). Folds are not assigned here (a row's fold depends
+on its date only, :func:`lakefeed.features.folds.assign_folds`, so stored rows keep theirs).
 Pure: no file I/O.
 
 :func:`prefix_digest` fingerprints the part of an input up to a date, so a caller can check

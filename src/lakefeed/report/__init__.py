@@ -28,7 +28,9 @@ __all__ = ["CAUTION", "render_report", "write_report"]
 
 CAUTION = (
     "Trophic classes, chlorophyll-a thresholds and exceedance flags in this report inform only. Decisions on "
-    "bathing and drinking water follow local regulations and the responsible authority."
+    "bathing and drinking water follow local regulations and the responsible authority. Values that no outlier "
+    "rule could examine (screened = false, the unscreened mark in target_daily flags) keep their classes and flags: "
+    "they may come from an undetected outlier scene."
 )
 
 _CSS = """
@@ -157,14 +159,24 @@ def render_report(project: Project, store: Store) -> str:
                 "chlorophyll-a per AOI by sensor: accepted, rejected, outliers",
             )
         )
+        screened = obs["screened"] if "screened" in obs else obs["accepted"]  # stores built before the column
         counts = (
-            obs.assign(outlier=obs["outlier"].fillna(False).astype(bool))
+            obs.assign(
+                outlier=obs["outlier"].fillna(False).astype(bool),
+                unscreened=obs["accepted"].astype(bool) & ~screened.fillna(False).astype(bool),
+            )
             .groupby(["aoi", "sensor"])
-            .agg(scenes=("scene_id", "size"), accepted=("accepted", "sum"), outliers=("outlier", "sum"))
+            .agg(
+                scenes=("scene_id", "size"),
+                accepted=("accepted", "sum"),
+                outliers=("outlier", "sum"),
+                unscreened=("unscreened", "sum"),
+            )
             .reset_index()
         )
         parts.append(_table(counts))
-        daily = _read(store, "target_daily", lake.id)
+        has_daily = store.has_table("target_daily", lake.id)
+        daily = store.read_table("target_daily", lake.id, columns=["aoi", "date"]) if has_daily else None
         dates = daily[["aoi", "date"]] if daily is not None else obs.loc[obs["accepted"].astype(bool), ["aoi", "date"]]
         parts.append("<h2>Sampling calendar and gaps</h2>")
         parts.append(_img(to_png64(calendar_figure(dates)), "calendar", "sampling calendar and gap histogram"))

@@ -17,12 +17,12 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from lakefeed.config.lake import FeatureOptions
-from lakefeed.features import date_hash_folds, fold_boundaries, folds_from_boundaries
+from lakefeed.features import assign_folds, fold_counts
 from lakefeed.features.pit import FeatureBlock
 from lakefeed.stages._features_inputs import targets_digest
 from lakefeed.store import Store
 
-__all__ = ["KEYS", "arrow_rows", "boundaries", "fold_options", "folds", "sorted_by_keys", "with_stored_extras",
+__all__ = ["KEYS", "arrow_rows", "fold_diagnostics", "fold_options", "folds", "sorted_by_keys", "with_stored_extras",
            "write_rows"]  # fmt: skip
 
 KEYS = ["aoi", "target_date", "lead_days"]
@@ -53,34 +53,34 @@ def with_stored_extras(store: Store, lake: str, arrow: pa.Table, prev: dict | No
 
 
 def fold_options(opts: FeatureOptions) -> str:
-    return json.dumps({"k": opts.folds, "kind": opts.fold_kind, "embargo_days": opts.embargo_days}, sort_keys=True)
+    """The fold options as stored in the table's metadata (JSON; the embargo as applied, in days)."""
+    return json.dumps({"k": opts.folds, "kind": opts.fold_kind, "embargo_days": opts.effective_embargo_days,
+                       "block_months": opts.fold_block_months}, sort_keys=True)  # fmt: skip
 
 
-def boundaries(
-    targets: pd.DataFrame, opts: FeatureOptions, frozen: dict[str, list[list[str]]]
-) -> dict[str, list[list[str]]]:
-    """Block boundaries per AOI: the frozen ones, derived from its target dates for an AOI without."""
-    if opts.fold_kind != "blocked":
-        return {}
-    out = dict(frozen)
-    for a, g in targets.groupby("aoi", sort=True):
-        if str(a) not in out:
-            out[str(a)] = [list(b) for b in fold_boundaries(g["date"], k=opts.folds)]
-    return dict(sorted(out.items()))
-
-
-def folds(arrow: pa.Table, opts: FeatureOptions, bounds: dict[str, list[list[str]]]) -> np.ndarray:
-    """Fold per row, from its AOI and target date only (the same target date shares a fold across leads):
-    blocked folds from the frozen boundaries, random folds from a hash of the date."""
-    aoi = np.asarray(arrow["aoi"].to_numpy(zero_copy_only=False)).astype(str)
+def folds(arrow: pa.Table, opts: FeatureOptions) -> np.ndarray:
+    """Fold per row, from its target date only (the same target date shares a fold across leads and AOIs):
+    calendar blocks (blocked) or a hash of the date (random); never from the other rows, so a row's fold is
+    the same in an incremental refresh and in a clean build."""
     dates = arrow["target_date"].to_numpy()
-    if opts.fold_kind == "random":
-        return date_hash_folds(dates, k=opts.folds)
-    fold = np.zeros(len(aoi), dtype=np.int16)
-    for a in np.unique(aoi):
-        sel = aoi == a
-        fold[sel] = folds_from_boundaries(dates[sel], bounds.get(str(a), []), embargo_days=opts.embargo_days)
-    return fold
+    return assign_folds(dates, k=opts.folds, kind=opts.fold_kind, block_months=opts.fold_block_months,
+                        embargo_days=opts.effective_embargo_days)  # fmt: skip
+
+
+def fold_diagnostics(targets: pd.DataFrame, opts: FeatureOptions) -> pd.DataFrame:
+    """Per AOI: the embargo and the feature rows (target dates x leads) kept and lost to it per blocked fold
+    (JSON ``{fold: rows}``); empty columns for random folds (no embargo)."""
+    rows = []
+    for a, g in targets.groupby("aoi", sort=True):
+        kept = lost = ""
+        if opts.fold_kind == "blocked":
+            kept, lost = fold_counts(
+                g["date"].drop_duplicates(), k=opts.folds, block_months=opts.fold_block_months,
+                embargo_days=opts.effective_embargo_days, rows_per_date=len(opts.leads),
+            )  # fmt: skip
+        embargo = opts.effective_embargo_days if opts.fold_kind == "blocked" else 0
+        rows.append({"aoi": str(a), "embargo_days": embargo, "fold_rows": kept, "embargoed_rows": lost})
+    return pd.DataFrame(rows, columns=["aoi", "embargo_days", "fold_rows", "embargoed_rows"])
 
 
 def write_rows(

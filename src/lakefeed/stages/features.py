@@ -12,18 +12,18 @@ from inputs whose old part is unchanged, only rows from the first new date on ar
 (from the drivers of the longest window's spill-over) and appended as one part file
 (:meth:`lakefeed.store.Store.append_arrow`); the old rows are neither read nor rewritten.
 Rows whose target date lies after the end of an input (the next refresh recomputes them) are
-written as a part of their own, so that refresh rewrites only that small part. Blocked fold
-boundaries are frozen at the first build (manifest metadata ``fold_boundaries``, per AOI):
-later dates join the last block, so no stored row changes fold (an AOI with fewer dates than
-folds at its first build keeps fewer blocks); ``rebalance_folds=True`` (CLI ``--rebuild``)
-re-derives them. Random folds are a hash of the target date. Must not hold science of its own
-beyond wiring.
+written as a part of their own, so that refresh rewrites only that small part. A row's fold
+depends on its target date and the fold options only (calendar blocks, :mod:`lakefeed.features.folds`;
+random folds a hash of the date), so an incremental table equals a clean build's; the diagnostics
+state per AOI how many rows each fold lost to the embargo. Must not hold science of its own beyond
+wiring.
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
@@ -33,7 +33,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from lakefeed.config import Project
-from lakefeed.exceptions import ConfigError, FeatureError
+from lakefeed.exceptions import ConfigError, FeatureError, LakefeedWarning
 from lakefeed.features import (
     WindowPlan,
     refresh_start,
@@ -53,7 +53,7 @@ from lakefeed.stages._features_inputs import (
 from lakefeed.stages._features_output import (
     KEYS,
     arrow_rows,
-    boundaries,
+    fold_diagnostics,
     fold_options,
     folds,
     sorted_by_keys,
@@ -127,7 +127,6 @@ class _Job:
     plan: WindowPlan
     record: tuple[pd.Timestamp | None, pd.Timestamp | None]
     through: tuple[pd.Timestamp, pd.Timestamp]
-    bounds: dict[str, list[list[str]]]
     inputs: dict[str, str]
     options_hash: str
     config_hash: str
@@ -153,12 +152,18 @@ class _Job:
         return "" if self.mode == "tail" else drivers_digest(self.frames, day)
 
 
-def _prepare(
-    project: Project, store: Store, *, progress: Progress, full: bool, rebalance_folds: bool
-) -> _Job | StageResult:
+def _prepare(project: Project, store: Store, *, progress: Progress, full: bool) -> _Job | StageResult:
     """Read what the lake's build needs and decide how to refresh; a result when there is nothing to compute."""
     lake, opts = project.lake, project.lake.features
     result = StageResult(stage="features", lake=lake.id)
+    if opts.fold_kind == "blocked" and opts.effective_embargo_days < max(opts.windows):
+        msg = (
+            f"features.embargo_days {opts.effective_embargo_days} is shorter than the longest antecedent window "
+            f"({max(opts.windows)} d): rows just after a fold boundary have windows reaching into the neighbouring "
+            f"fold's period, so cross-validation leaks; leave embargo_days unset (= {max(opts.windows)}) or raise it"
+        )
+        warnings.warn(f"lake {lake.id}: {msg}", LakefeedWarning, stacklevel=2)
+        result.warnings.append(msg)
     if not store.has_table("target_daily", lake.id):
         if opts.drivers:
             load_drivers(store, lake.id, zone=opts.driver_zone, aois=[], wanted=list(opts.drivers))
@@ -223,13 +228,10 @@ def _prepare(
                                                                    record="the stored driver record")):  # fmt: skip
         raise ConfigError(f"{project.lake_file}: features cannot be built for lake {lake.id}", too_long)
     through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
-    frozen = {}
-    if prev and not rebalance_folds and md.get("fold_options") == fold_options(opts):
-        frozen = json.loads(md.get("fold_boundaries") or "{}")
     return _Job(
         project=project, result=result, progress=progress, mode=mode, since=since, prev=prev, frames=frames,
         columns=columns, driver_units=driver_units, read=read, targets=targets, plan=plan, record=record,
-        through=through, bounds=boundaries(targets, opts, frozen), inputs=inputs, options_hash=options_hash,
+        through=through, inputs=inputs, options_hash=options_hash,
         config_hash=cfg,
     )  # fmt: skip
 
@@ -244,9 +246,7 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
         return _full_again(project, store, progress, result, job.allow_shrink)
     if not sorted_by_keys(arrow):
         arrow = arrow.sort_by([(k, "ascending") for k in KEYS])
-    arrow = arrow.set_column(
-        arrow.column_names.index("fold"), "fold", pa.array(folds(arrow, opts, job.bounds), pa.int16())
-    )
+    arrow = arrow.set_column(arrow.column_names.index("fold"), "fold", pa.array(folds(arrow, opts), pa.int16()))
     n_outside = int(pc.sum(arrow["outside_driver_record"]).as_py() or 0)
     if n_outside and job.columns:
         where = " refreshed" if since is not None else ""
@@ -255,6 +255,7 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
         )
 
     diag = sampling_diagnostics(job.targets, by="aoi", record=job.record, min_observations=opts.min_observations)
+    diag = diag.merge(fold_diagnostics(job.targets, opts), on="aoi", how="left")
     for _, d in diag.iterrows():
         if d["warnings"]:
             result.warnings.append(f"AOI {d['aoi']}: {d['warnings']}")
@@ -268,7 +269,9 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
     units |= feature_units(job.plan, job.driver_units)
     descr = dict(_DESCRIPTIONS)
     descr["fold"] = (
-        "cross-validation fold: contiguous time blocks per AOI (-1: dropped by the embargo)"
+        f"cross-validation fold: calendar blocks of {opts.fold_block_months} months (from January), block number "
+        f"modulo {opts.folds}; -1: embargoed (dated within {opts.effective_embargo_days} days after a block boundary), "
+        "in no fold: use it neither to train nor to test (Roberts et al. 2017, blocked cross-validation with buffers)"
         if opts.fold_kind == "blocked"
         else "RANDOM cross-validation fold (not time-blocked: ignores autocorrelation, overstates skill)"
     )
@@ -284,14 +287,14 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
         "driver_zone": opts.driver_zone,
         "fold_kind": opts.fold_kind,
         "fold_options": fold_options(opts),
-        "fold_boundaries": json.dumps(job.bounds, sort_keys=True),
         "tables_read": "; ".join(["target_daily", *job.read]),
     }
     write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), drivers_digest=job.drivers_digest,
                 targets=job.targets, write=dict(units=units, descriptions=descr, metadata=meta, inputs=job.inputs,
                                                 config_hash=job.config_hash, time_column="target_date",
                                                 sort_by=KEYS))  # fmt: skip
-    dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")} | {"coverage_fraction": "1"}
+    dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")}
+    dunits |= {"coverage_fraction": "1", "embargo_days": "d"}
     store.write_table(
         "diagnostics", lake.id, diag, units=dunits, inputs=job.inputs, config_hash=job.config_hash,
         time_column="first_date",
@@ -435,8 +438,7 @@ def build_features_many(
         for project in projects[at : at + max(1, lakes_per_pass)]:
             try:
                 job = _prepare(
-                    project, store, progress=lake_progress(project.id), full=full or rebalance_folds,
-                    rebalance_folds=rebalance_folds,
+                    project, store, progress=lake_progress(project.id), full=full or rebalance_folds
                 )  # fmt: skip
             except Exception as err:
                 if not isolate:
@@ -469,10 +471,11 @@ def build_features(
     When the driver tables only gained part files of later dates since the last build (an appended
     month), only their last days (the longest window and lead before the first new date) are read;
     otherwise all driver rows are read and their fingerprint is compared with the last build's.
-    ``full=True`` recomputes every row (keeping the frozen fold boundaries); ``rebalance_folds=True``
-    also re-derives the fold boundaries from all target dates (a fresh start). The table read back
-    equals a full rebuild's. All AOIs and leads of the lake are computed in one pass; for many lakes
-    use :func:`build_features_many` (``allow_shrink`` as there).
+    ``full=True`` recomputes every row; ``rebalance_folds=True`` is the same (kept for callers of
+    the time when fold blocks depended on the record: folds are calendar blocks now, stable as the
+    record grows). The table read back equals a clean build's, folds included. All AOIs and leads of
+    the lake are computed in one pass; for many lakes use :func:`build_features_many` (``allow_shrink``
+    as there).
 
     Examples
     --------

@@ -39,7 +39,7 @@ from lakefeed.extract.daily import DAILY_UNITS
 from lakefeed.extract.forecast_daily import check_increments, deaccumulate_forecast, to_daily_by_lead
 from lakefeed.extract.forecast_evaluation import bias_table, expanding_adjustment, leave_one_year_out, overlap_days
 from lakefeed.extract.quantile_mapping import DEFAULT_KINDS, fit_quantile_mapping
-from lakefeed.features import date_hash_folds, fold_boundaries, folds_from_boundaries
+from lakefeed.features import assign_folds
 from lakefeed.features.reforecast import reforecast_rows
 from lakefeed.geometry.weights import ZoneWeights
 from lakefeed.geometry.zones import build_zones, zone_latitudes
@@ -228,7 +228,7 @@ def _reforecast(
     units = dict(existing.attrs.get("units", {}))
     descriptions = dict(existing.attrs.get("descriptions", {}))
     existing = existing.drop(columns=["lake"], errors="ignore")
-    td = store.read_table("target_daily", lake.id)
+    td = store.read_table("target_daily", lake.id, columns=["aoi", "date", "chla"])
     targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
     targets["aoi"] = targets["aoi"].astype(str)
     targets["date"] = pd.to_datetime(targets["date"]).dt.normalize()
@@ -269,8 +269,7 @@ def _reforecast(
         hind = hind.loc[~clash.to_numpy()]
     rows["target_date"] = pd.to_datetime(rows["target_date"])
     rows["issue_date"] = pd.to_datetime(rows["issue_date"])
-    meta = (store.entry("features", lake.id) or {}).get("metadata") or {}
-    rows["fold"] = _reforecast_folds(rows, hind, meta, opts)
+    rows["fold"] = _reforecast_folds(rows, opts)
     rows["fold"] = rows["fold"].astype(np.int16)
     if "fold_kind" in hind:
         rows["fold_kind"] = opts.fold_kind
@@ -283,35 +282,13 @@ def _reforecast(
     return out, units, descriptions, existing
 
 
-def _reforecast_folds(rows: pd.DataFrame, hind: pd.DataFrame, meta: dict, opts: FeatureOptions) -> np.ndarray:
-    """Fold of each re-forecast row: its target date's hindcast fold, else the frozen block it falls in.
-
-    Blocked folds use the boundaries the features stage froze in the manifest (``fold_boundaries`` per
-    AOI; derived from the AOI's hindcast target dates only when it has none), never boundaries fitted to
-    the re-forecast rows, so a target date carries one fold across all its leads. Random folds are the
-    date hash of the features stage.
-    """
+def _reforecast_folds(rows: pd.DataFrame, opts: FeatureOptions) -> np.ndarray:
+    """Fold of each re-forecast row: the fold the features stage gives its target date (calendar blocks or a
+    hash of the date, :func:`lakefeed.features.assign_folds`), so a target date carries one fold across all
+    its leads, hindcast and re-forecast."""
     dates = pd.to_datetime(rows["target_date"]).to_numpy()
-    aoi = rows["aoi"].astype(str).to_numpy()
-    if opts.fold_kind == "random":
-        fold = date_hash_folds(dates, k=opts.folds)
-    else:
-        frozen = json.loads(meta.get("fold_boundaries") or "{}")
-        fold = np.zeros(len(rows), dtype=np.int16)
-        for a in np.unique(aoi):
-            sel = aoi == a
-            bounds = frozen.get(a)
-            if bounds is None:
-                own = hind.loc[hind["aoi"].astype(str) == a, "target_date"]
-                bounds = fold_boundaries(own if len(own) else dates[sel], k=opts.folds)
-            fold[sel] = folds_from_boundaries(dates[sel], bounds, embargo_days=opts.embargo_days)
-    if "fold" in hind and len(hind):  # rows whose target date has a hindcast row keep exactly its fold
-        known = hind[["aoi", "target_date", "fold"]].drop_duplicates(["aoi", "target_date"])
-        known = known.assign(aoi=known["aoi"].astype(str), target_date=pd.to_datetime(known["target_date"]))
-        key = pd.MultiIndex.from_arrays([aoi, dates])
-        same = known.set_index(["aoi", "target_date"])["fold"].reindex(key).to_numpy()
-        fold = np.where(pd.isna(same), fold, same)
-    return np.asarray(fold, dtype=np.int16)
+    return assign_folds(dates, k=opts.folds, kind=opts.fold_kind, block_months=opts.fold_block_months,
+                        embargo_days=opts.effective_embargo_days)  # fmt: skip
 
 
 def build_forecast(

@@ -21,8 +21,9 @@ from lakefeed.config import Project
 from lakefeed.config.lake import LakeConfig, SensorConfig, TargetOptions, Threshold
 from lakefeed.extract.harmonise import BIAS_COLUMNS, apply_bias, fit_bias, fuse_daily, matchups
 from lakefeed.extract.scene_stats import STAT_COLUMNS, aoi_statistics
-from lakefeed.extract.screening import accept, flag_outliers
-from lakefeed.extract.trophic import CAUTION, carlson_tsi, exceedance_flags, oecd_category
+from lakefeed.extract.screening import accept
+from lakefeed.extract.screening_reference import cross_sensor_screen, total_screening
+from lakefeed.extract.trophic import CAUTION, UNSCREENED, class_columns, exceedance_flags
 from lakefeed.sources.scenes import SceneReader, list_scenes, read_scenes
 from lakefeed.sources.vectors import read_layer
 from lakefeed.stages import _target_refresh
@@ -41,10 +42,11 @@ __all__ = [
     "extract_observations",
     "scene_statistics",
     "screen_observations",
+    "screen_total",
 ]
 
 RAW_COLUMNS = ["lake", "aoi", "scene_id", "sensor", "time", "date", *STAT_COLUMNS, "reason"]
-OBS_COLUMNS = [*RAW_COLUMNS[:-1], "accepted", "reason", "outlier"]
+OBS_COLUMNS = [*RAW_COLUMNS[:-1], "accepted", "reason", "outlier", "screened", "screening"]
 OBS_UNITS = {
     "median": "mg m-3",
     "mean": "mg m-3",
@@ -61,9 +63,18 @@ KEYS = ["aoi", "date"]  # one row of target_daily
 _DESCRIPTIONS = {
     "uncertainty": "mean relative 1-sigma uncertainty of the valid pixels (fraction), NaN without a band",
     "valid_fraction": "valid pixels / pixels whose centre lies in the shore-buffered AOI",
-    "outlier": "flagged by the outlier screening of the AOI's series (per sensor, and across sensors after "
-    "harmonisation); kept here, left out of target_daily",
-    "trophic_class": "OECD (1982) category of the value (boundaries in the lower class). " + CAUTION,
+    "outlier": "flagged by the outlier screening (leave-one-out robust trend of the AOI's own-sensor series, "
+    "of all harmonised sensors, or the seasonal climatology of earlier years); kept here, left out of target_daily",
+    "screened": "false: no screening rule could examine the value (too few neighbours and no climatology); kept, "
+    "see 'screening'",
+    "screening": "how the value was screened (rule and window), or why it could not be",
+    "oecd_class": "OECD (1982) trophic category from chla with the fixed boundaries 1, 2.5, 8, 25 mg m-3 (each "
+    "boundary in the lower class; meant for the annual mean, here of the daily value). " + CAUTION,
+    "carlson_class": "Carlson (1977) trophic state class from tsi: < 40 oligotrophic, 40-50 mesotrophic, 50-70 "
+    "eutrophic, >= 70 hypereutrophic (Carlson & Simpson 1996 bands; a boundary in the upper class). " + CAUTION,
+    "trophic_class": "DEPRECATED alias of oecd_class (OECD 1982 categories, not Carlson's); removed in the next "
+    "release. " + CAUTION,
+    "flags": f"';'-joined: {UNSCREENED} (a fused value was not screened for outliers: read thresholds with care)",
     "tsi": "Carlson (1977) trophic state index of chla, 9.81 ln(chla) + 30.6. " + CAUTION,
     "chla_uncertainty": "1-sigma uncertainty of the inverse-variance weighted mean",
 }
@@ -148,8 +159,21 @@ def screen_observations(raw: pd.DataFrame, *, options: TargetOptions | None = No
         min_valid_pixels=options.min_valid_pixels,
         max_cv=options.max_cv,
     )
-    obs["outlier"] = flag_outliers(obs, window_days=options.outlier_window_days, threshold=options.outlier_threshold)
+    obs[["outlier", "screened", "screening"]] = screen_total(obs, pd.DataFrame(), options=options)
     return obs[OBS_COLUMNS]
+
+
+def screen_total(obs: pd.DataFrame, fits: pd.DataFrame, *, options: TargetOptions | None = None) -> pd.DataFrame:
+    """``outlier``, ``screened`` and ``screening`` of accepted observations with the lake's target options:
+    :func:`lakefeed.extract.screening_reference.total_screening` (``fits`` empty: no harmonisation yet)."""
+    return total_screening(obs, fits, **_filter(options))
+
+
+def _filter(options: TargetOptions | None) -> dict[str, float]:
+    """The outlier filter's window, widest window (days) and threshold from the lake's target options."""
+    o = options or TargetOptions()
+    return {"window_days": o.outlier_window_days, "max_window_days": o.outlier_max_window_days,
+            "threshold": o.outlier_threshold}  # fmt: skip
 
 
 def extract_observations(
@@ -207,41 +231,21 @@ def daily_target(
         use["sigma"] = use["median"] * use["relative_sigma"]
     daily = fuse_daily(use, by=("lake", "aoi", "date"))
     daily["n_obs"] = daily["n_obs"].astype("int64")
-    daily["tsi"] = carlson_tsi(daily["chla"].to_numpy())
-    daily["trophic_class"] = oecd_category(daily["chla"].to_numpy())
+    daily = pd.concat([daily, class_columns(daily["chla"])], axis=1)
+    screened = use.get("screened", pd.Series(True, index=use.index)).astype(bool)
+    keys = ["lake", "aoi", "date"]
+    all_screened = screened.groupby([use[k] for k in keys]).all().rename("screened").reset_index()
+    daily = daily.merge(all_screened, on=keys, how="left", validate="one_to_one")
+    daily["screened"] = daily["screened"].fillna(True).astype(bool)
+    daily["flags"] = np.where(daily["screened"], "", UNSCREENED).astype(object)
     daily = pd.concat([daily, exceedance_flags(daily["chla"], thresholds)], axis=1)
     return daily, fits
 
 
 def cross_sensor_outliers(obs: pd.DataFrame, fits: pd.DataFrame, *, options: TargetOptions | None = None) -> pd.Series:
-    """Outlier flags (bool Series aligned with ``obs``) from screening each AOI's series of ALL sensors
-    after harmonisation (values divided by their sensor's fitted bias), with the same filter as the
-    per-sensor screening. A frequent sensor then gives a sparse sensor's spike the neighbours it lacks
-    in its own series. Rows already flagged or not accepted are never flagged; without fits (no reference
-    sensor) or with one sensor nothing is flagged; sensors left unadjusted are not screened here.
-    """
-    options = options or TargetOptions()
-    flags = pd.Series(False, index=obs.index)
-    if fits.empty:
-        return flags
-    harmonised = set(fits.loc[fits["adjusted"].astype(bool) | (fits["sensor"] == fits["reference"]), "sensor"])
-    use = obs[
-        obs["accepted"].astype(bool)
-        & ~obs["outlier"].astype(bool)
-        & (obs["median"] > 0)
-        & obs["sensor"].isin(harmonised)
-    ]
-    if use["sensor"].nunique() < 2:
-        return flags
-    adjusted = apply_bias(use.assign(relative_sigma=0.0), fits)["value"]
-    found = flag_outliers(
-        use.assign(median=adjusted),
-        window_days=options.outlier_window_days,
-        threshold=options.outlier_threshold,
-        by=("aoi",),
-    )
-    flags.loc[found.index] = found
-    return flags
+    """Outlier flags (bool Series aligned with ``obs``) from screening each AOI's series of ALL harmonised
+    sensors: :func:`lakefeed.extract.screening_reference.cross_sensor_screen` with the lake's options."""
+    return cross_sensor_screen(obs, fits, **_filter(options))["outlier"]
 
 
 def _input_files(scenes: pd.DataFrame, lake: LakeConfig, *, known: Mapping[str, str] | None = None) -> dict[str, str]:
@@ -357,11 +361,18 @@ def build_target(
     daily, fits = daily_target(
         obs, sensors=lake.sensors, reference=reference, options=lake.target, thresholds=lake.thresholds
     )
-    cross = cross_sensor_outliers(obs, fits, options=lake.target)
-    if cross.any():  # flag, then fuse again without them (the bias fit is screened on its own)
-        obs["outlier"] = obs["outlier"] | cross
+    total = screen_total(obs, fits, options=lake.target)  # harmonised sensors and climatology as references
+    if not total.equals(obs[["outlier", "screened", "screening"]]):  # fuse again (the bias fit is screened itself)
+        obs[["outlier", "screened", "screening"]] = total
         daily, fits = daily_target(
             obs, sensors=lake.sensors, reference=reference, options=lake.target, thresholds=lake.thresholds
+        )
+    unscreened = obs[obs["accepted"].astype(bool) & ~obs["screened"].astype(bool) & ~obs["outlier"].astype(bool)]
+    if len(unscreened):
+        result.warnings.append(
+            f"{len(unscreened)} accepted value(s) could not be screened for outliers (kept, screened = false; "
+            f"their days carry the '{UNSCREENED}' flag in target_daily), e.g. {unscreened['scene_id'].iloc[0]} "
+            f"{unscreened['aoi'].iloc[0]}: {unscreened['screening'].iloc[0]}"
         )
     for _, f in fits[fits["note"].str.startswith("too few") | fits["note"].str.startswith("fitted")].iterrows():
         result.warnings.append(f"sensor {f['sensor']}: {f['note']}")

@@ -26,6 +26,7 @@ Writes are idempotent: the same frame gives the same bytes. One writer at a time
 from __future__ import annotations
 
 import os
+import warnings
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from typing import Any
@@ -35,7 +36,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from lakefeed.exceptions import StoreError
+from lakefeed.exceptions import LakefeedWarning, StoreError
 from lakefeed.store._fs import is_local, resolve
 from lakefeed.store._integrity import read_checked
 from lakefeed.store._lock import store_lock
@@ -445,7 +446,9 @@ class Store:
         """Read a table (one lake, or all lakes) as pandas with a ``lake`` column first.
 
         Units are in ``frame.attrs['units']``, descriptions in ``frame.attrs['descriptions']``;
-        ``since`` as for :meth:`read_arrow`.
+        ``since`` as for :meth:`read_arrow`. A column whose description starts with ``DEPRECATED``
+        (e.g. ``target_daily.trophic_class``) gives a :class:`~lakefeed.exceptions.LakefeedWarning`
+        quoting that description; pass ``columns`` without it to read quietly.
         """
         lakes = [lake] if lake is not None else self.lakes(table)
         if not lakes:
@@ -462,6 +465,8 @@ class Store:
         frame = frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)
         frame.attrs["units"] = units
         frame.attrs["descriptions"] = descr
+        for col in [c for c in frame.columns if str(descr.get(c, "")).startswith("DEPRECATED")]:
+            warnings.warn(f"{table}.{col}: {descr[col]}", LakefeedWarning, stacklevel=2)
         return frame
 
     def has_table(self, table: str, lake: str) -> bool:
