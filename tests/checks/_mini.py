@@ -53,6 +53,7 @@ SOURCES_YAML = {
         "paths": ["../forecast/forecast_*.nc"],
         "accumulation": {"shortwave_radiation": {"kind": "per_step"}, "precipitation": {"kind": "per_step"}},
     },
+    "store": "../store",
 }
 
 WEATHER_VARS = {

@@ -129,6 +129,10 @@ def _break_coverage(root: Path) -> None:
     ds.to_netcdf(root / "forecast" / "forecast_2024-01.nc")
 
 
+def _break_store_is_file(root: Path) -> None:
+    (root / "store").write_text("not a folder")
+
+
 BROKEN = {
     "missing layer": (_break_missing_layer, ["areas of interest (config key 'aois.path'): file not found"]),
     "missing weather": (_break_missing_weather, ["weather.paths[0]: no file matches"]),
@@ -147,6 +151,8 @@ BROKEN = {
         _break_network(["LAKE", "a", "zz", "OUTSIDE"]),
         ["dangling downstream id 'zz' (of sub-basin(s) 'c')"],
     ),
+    # the run lock of build/refresh and every Store refuse it with the same words (tests/store/test_location.py)
+    "store is a file": (_break_store_is_file, ["(key 'store'): store", "is a file, not a folder; choose another"]),
     "off grid": (_break_lake_off_grid, ["lake (", "is not inside the weather grid of reanalysis_2024-01-01.nc"]),
     "units": (
         _break_variable,

@@ -128,7 +128,20 @@ def check_project(project: Project) -> list[CheckResult]:
     results += check_coverage(periods)
     results += guarded("feature windows", lambda: check_record_length(lake, periods.get("weather")))
     results += guarded("quality bits", lambda: check_quality_bits(src.scenes, lake))
+    results.append(_check_store(project))
     return results
+
+
+def _check_store(project: Project) -> CheckResult:
+    """Whether the store of ``store:`` can be written (the run lock of every writing command asks the same)."""
+    from lakefeed.store.location import store_location_problem
+
+    root = project.sources.store
+    if not root:
+        return skipped("store", f"no 'store:' in {project.sources_file.name}; writing commands need --store DIR")
+    if problem := store_location_problem(root):
+        return failed("store", f"{project.sources_file} (key 'store'): {problem}")
+    return passed("store", f"{root} can hold the store")
 
 
 def _is_sources_file(path: Path) -> bool:

@@ -11,6 +11,7 @@ processes (Prefect's temporary server, Dask workers, forked pools) run under
 from __future__ import annotations
 
 import importlib
+import logging
 import sys
 
 import typer
@@ -56,9 +57,30 @@ def _root(
     ),
 ) -> None:
     _Options.verbose = verbose
+    if not verbose:
+        _quiet_run_tracebacks()
     if version:
         typer.echo(show_versions() if verbose else f"lakefeed {__version__}")
         raise typer.Exit(0)
+
+
+class _NoTraceback(logging.Filter):
+    """Keep a flow or task run's failure message but drop its traceback (``--verbose`` keeps it)."""
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        if record.exc_info and record.levelno >= logging.ERROR:
+            err = record.exc_info[1]
+            record.exc_info, record.exc_text = None, None
+            if err is not None and not isinstance(err, LakefeedError):
+                record.msg = f"{record.msg} (run again as `lakefeed --verbose ...` for the traceback)"
+        return True
+
+
+def _quiet_run_tracebacks() -> None:
+    """Prefect logs each failed flow and task run with its traceback; on the command line the error
+    itself is printed once as one line at the end, so the run logs keep only their message."""
+    for name in ("prefect.flow_runs", "prefect.task_runs"):
+        logging.getLogger(name).addFilter(_NoTraceback())
 
 
 def _command(argv: list[str]) -> str | None:
@@ -74,13 +96,14 @@ def _fail(err: BaseException, *, expected: bool) -> None:
     name = type(err).__name__
     text = escape(str(err)) or "(no message)"
     if expected:
-        err_console.print(f"[bold red]error:[/] {name}: {text}", highlight=False)
+        err_console.print(f"[bold red]error:[/] {name}: {text}", highlight=False, soft_wrap=True)
     else:
         hint = "" if _Options.verbose else " Run again as `lakefeed --verbose ...` for the traceback."
         err_console.print(
             f"[bold red]error:[/] unexpected {name}: {text}.{hint} This is a lakefeed bug unless the message "
             "names a file or setting of yours: please report it.",
             highlight=False,
+            soft_wrap=True,
         )
 
 

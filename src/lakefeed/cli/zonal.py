@@ -55,6 +55,7 @@ def zonal(
 
     if accumulation not in ("none", "since_reset", "per_step"):
         raise ConfigError(f"--accumulation {accumulation!r}: use none, since_reset or per_step")
+    _check_arguments(grid, zones, tz, reset_hour)
     acc = Accumulation(kind=accumulation, reset_hour=reset_hour)  # type: ignore[arg-type]
     g = open_grid(grid, on_error="skip" if skip_bad_files else "raise")
     for msg in g.skipped:
@@ -103,3 +104,26 @@ def zonal(
     pq.write_table(table, tmp)
     tmp.replace(out)
     console.print(f"wrote {len(frame)} rows to {out}")
+
+
+def _check_arguments(grid: list[str], zones: Path, tz: str, reset_hour: int) -> None:
+    """Refuse arguments that cannot work before any file is opened (usage errors: exit code 2)."""
+    import glob
+    import zoneinfo
+
+    for pattern in grid:
+        if "://" not in pattern and not glob.has_magic(pattern) and not Path(pattern).exists():
+            hint = "give NetCDF files, globs or a Zarr store"
+            raise typer.BadParameter(f"{pattern}: no such file or folder; {hint}", param_hint="GRID...")
+        if glob.has_magic(pattern) and not glob.glob(pattern):
+            raise typer.BadParameter(f"{pattern}: the pattern matches no file", param_hint="GRID...")
+    if "://" not in str(zones) and not zones.exists():
+        hint = "give a polygon layer (GeoPackage, shapefile, ...)"
+        raise typer.BadParameter(f"{zones}: no such file; {hint}", param_hint="--zones")
+    try:
+        zoneinfo.ZoneInfo(tz)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        hint = "use e.g. UTC, Europe/Berlin or Etc/GMT-3"
+        raise typer.BadParameter(f"{tz!r} is not an IANA time zone; {hint}", param_hint="--tz") from None
+    if not 0 <= reset_hour <= 23:
+        raise typer.BadParameter(f"{reset_hour}: an hour of the day in UTC, 0..23", param_hint="--reset-hour")

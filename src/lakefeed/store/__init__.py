@@ -18,6 +18,7 @@ from lakefeed.store._manifest import SCHEMA_VERSION
 from lakefeed.store._parquet import Store, read_descriptions, read_units
 from lakefeed.store._sql import check_read_only
 from lakefeed.store.layout import TABLES, partition_path, table_path
+from lakefeed.store.location import store_location_problem
 from lakefeed.store.query import connect, load_features, query
 from lakefeed.store.verify import partition_damage, verify_store
 
@@ -35,6 +36,7 @@ __all__ = [
     "read_descriptions",
     "read_units",
     "run_lock",
+    "store_location_problem",
     "table_path",
     "verify_store",
 ]

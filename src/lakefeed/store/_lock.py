@@ -26,6 +26,7 @@ from typing import Any
 
 from lakefeed.exceptions import StoreError
 from lakefeed.store._fs import is_local
+from lakefeed.store.location import store_location_problem
 
 __all__ = ["LOCK_NAME", "RUN_LOCK_NAME", "run_lock", "store_lock"]
 
@@ -163,6 +164,8 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
     import fcntl
     import socket
 
+    if problem := store_location_problem(root):
+        raise StoreError(problem)
     path = os.path.join(os.fspath(root), RUN_LOCK_NAME)
     try:
         os.makedirs(os.fspath(root), exist_ok=True)

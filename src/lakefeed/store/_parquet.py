@@ -101,6 +101,9 @@ class Store:
         self.local = is_local(self.fs)
         self.root = self.path if self.local else self.url.rstrip("/")
         self.lock_timeout = lock_timeout
+        if self.local and os.path.exists(self.path) and not os.path.isdir(self.path):
+            advice = "choose another folder (--store DIR or 'store:' in sources.yaml)"
+            raise StoreError(f"store {self.url!r} is a file, not a folder; {advice}")
 
     def __repr__(self) -> str:
         return f"Store({self.url!r})"
