@@ -8,12 +8,14 @@ from pathlib import Path
 import _mini
 import pandas as pd
 import pytest
+from pydantic import ValidationError
 
 from lakefeed.checks import CheckResult
 from lakefeed.checks.sources import check_hydrology, check_samples, check_scenes
 from lakefeed.config import HydrologySource, LakeConfig, SampleStation, SceneSource, load_lake
 from lakefeed.exceptions import SourceError
 from lakefeed.sources.samples import read_samples
+from lakefeed.sources.scenes import list_scenes
 
 DAYS = pd.date_range("2024-01-01", periods=5, freq="D")
 
@@ -160,10 +162,32 @@ def test_scene_folder_with_pattern(tmp_path: Path) -> None:
     for name in ("kite_2024-01-02.tif", "kite_2024-01-07.tif", "notes.tif"):
         (folder / name).write_bytes(b"x")
     lake = _lake(tmp_path, {"kite": {"pixel_size_m": 20}})
-    src = SceneSource(folder=str(folder), filename_pattern=r"(?P<sensor>[a-z]+)_(?P<date>\d{4}-\d{2}-\d{2})")
+    src = SceneSource(folder=str(folder), filename_pattern=r"(?P<sensor>[a-z]+)_(?P<date>\d{4}-\d{2}-\d{2})\.tif")
     res, period = check_scenes(src, lake)
-    assert not bad(res) and "2 scenes (1 ignored)" in res[0].message
+    assert not bad(res) and "2 scenes from 3 file(s)" in res[0].message
     assert str(period) == "2024-01-02 .. 2024-01-07"
+    # a pattern that matches only part of each name finds no scene in the build (whole-name match), and check
+    # says so too (it once searched inside the names and counted 2)
+    part = SceneSource(folder=str(folder), filename_pattern=r"(?P<sensor>[a-z]+)_(?P<date>\d{4}-\d{2}-\d{2})")
+    with pytest.raises(SourceError, match="no scenes found") as refused:
+        list_scenes(part)
+    res, period = check_scenes(part, lake)
+    assert bad(res) == [str(refused.value)] and period is None  # check says what the build says
+
+
+@pytest.mark.parametrize(
+    ("pattern", "words"),
+    [
+        (r"(?P<sensor>[a-z]+_(?P<date>\d{8})", "is not a regular expression"),
+        (r"(?P<date>\d{8})\.tif", "lacks the named group(s) ['sensor']"),
+        (r"([a-z]+)_(\d{8})\.tif", "lacks the named group(s) ['date', 'sensor']"),
+    ],
+)
+def test_bad_filename_pattern_is_a_config_error(tmp_path: Path, pattern: str, words: str) -> None:
+    """Refused when the sources file is read, so check and build refuse it alike (once an IndexError)."""
+    with pytest.raises(ValidationError) as err:
+        SceneSource(folder=str(tmp_path), filename_pattern=pattern)
+    assert words in str(err.value) and "(?P<sensor>[a-z]+)" in str(err.value)
 
 
 def test_catalogue_json_is_not_rewritten(tmp_path: Path) -> None:

@@ -108,6 +108,8 @@ def test_folder_without_pattern_says_so_and_bad_options(tmp_path: Path) -> None:
     assert "filename_pattern" in str(res.exception)
     res = CliRunner().invoke(app, [*args, "--filename-pattern", "(?P<date>"])
     assert isinstance(res.exception, ConfigError) and "not a regular expression" in str(res.exception)
+    res = CliRunner().invoke(app, [*args, "--filename-pattern", r"(?P<date>\d{8})\.tif"])  # once an IndexError
+    assert isinstance(res.exception, ConfigError) and "lacks the named group(s) ['sensor']" in str(res.exception)
     res = CliRunner().invoke(app, [*args, "--filename-pattern", PATTERN, "--bad-quality-bits", "0,x"])
     assert isinstance(res.exception, ConfigError)
 

@@ -11,6 +11,7 @@ import pandas as pd
 import pytest
 import rasterio
 import shapely
+from pydantic import ValidationError
 from scene_factory import ORIGIN, write_catalog, write_item, write_tif
 
 from lakefeed.config.sources import SceneSource
@@ -109,9 +110,8 @@ def test_geotiff_folder_with_pattern(tmp_path: Path) -> None:
     assert t["quality_href"].iloc[0].endswith("kite_20240601_quality.tif")
     assert t["value_href"].iloc[0].endswith("kite_20240601_chla.tif")
     assert t["time"].iloc[1] == pd.Timestamp("2024-06-02", tz="UTC")
-    bad = SceneSource(folder=str(tmp_path), filename_pattern=r"(?P<date>\d{8}).tif")
-    with pytest.raises(SourceError, match="sensor"):
-        list_scenes(bad)
+    with pytest.raises(ValidationError, match="sensor"):  # refused with the config (check and build alike)
+        SceneSource(folder=str(tmp_path), filename_pattern=r"(?P<date>\d{8}).tif")
 
 
 # --------------------------------------------------------------------------------------------- reader

@@ -8,7 +8,6 @@ source's period for the coverage check. Must not read whole data sets or write a
 
 from __future__ import annotations
 
-import re
 import warnings
 from collections import Counter
 from collections.abc import Sequence
@@ -363,19 +362,24 @@ def check_scenes(src: SceneSource | None, lake: LakeConfig) -> tuple[list[CheckR
 
 
 def _scene_folder(src: SceneSource, lake: LakeConfig) -> tuple[list[CheckResult], Period | None]:
+    """The folder's scenes as the target stage lists them (same matching of the file names)."""
+    from lakefeed.sources.scenes import list_scenes
+
     folder = Path(str(src.folder))
     if not folder.is_dir():
         return [failed("scene folder", f"scenes.folder: folder not found: {folder}", "fix scenes.folder")], None
     try:
-        pattern = re.compile(str(src.filename_pattern))
-    except re.error as err:
-        return [failed("scene folder", f"scenes.filename_pattern: invalid regex: {err}", "")], None
-    files = sorted([*folder.rglob("*.tif"), *folder.rglob("*.tiff")])
-    matches = [m for f in files if (m := pattern.search(f.name))]
-    if not matches:
-        return [failed("scene folder", f"{folder}: no GeoTIFF matches scenes.filename_pattern", "")], None
-    out = [passed("scene folder", f"{folder.name}: {len(matches)} scenes ({len(files) - len(matches)} ignored)")]
-    sensors = Counter(src.sensor_map.get(m.group("sensor"), m.group("sensor")) for m in matches)
-    out += _compare_sensors(sensors, lake, folder.name)
-    dates = pd.to_datetime([m.group("date") for m in matches], errors="coerce")
-    return out, time_period(dates.to_numpy())
+        table = list_scenes(src)
+    except SourceError as err:
+        return [failed("scene folder", str(err), "")], None
+    usable = table[table["reason"] == ""]
+    if usable.empty:
+        why = f", e.g. {table['reason'].iloc[0]}" if len(table) else ""
+        return [failed("scene folder", f"{folder}: no usable scene matches scenes.filename_pattern{why}", "")], None
+    n_files = sum(1 for f in folder.rglob("*") if f.is_file())
+    out = [passed("scene folder", f"{folder.name}: {len(usable)} scenes from {n_files} file(s)")]
+    bad = table[table["reason"] != ""]
+    if len(bad):
+        out.append(warned("scene folder", f"{len(bad)} scene(s) unusable, e.g. {bad['reason'].iloc[0]}", ""))
+    out += _compare_sensors(Counter(usable["sensor"]), lake, folder.name)
+    return out, time_period(pd.to_datetime(usable["time"], utc=True).dt.tz_localize(None).to_numpy())

@@ -79,6 +79,8 @@ def scenes(
     Quality flags: with --bad-quality-bits only those bits are bad, else any non-zero flag counts as bad
     (0 = clear). Pixels count for an AOI when their centre lies inside it.
     """
+    from pydantic import ValidationError
+
     from lakefeed.config.lake import TargetOptions
     from lakefeed.config.sources import SceneSource
     from lakefeed.sources.scenes import SceneReader, list_scenes
@@ -94,20 +96,19 @@ def scenes(
             raise ValueError(f"quality bits must lie in 0..63; got {bits}")
     except ValueError as err:
         raise ConfigError(f"invalid option: {err}") from err
-    if filename_pattern is not None:
-        try:
-            re.compile(filename_pattern)
-        except re.error as err:
-            raise ConfigError(f"--filename-pattern {filename_pattern!r} is not a regular expression: {err}") from err
-    layer = read_layer(aois, what="areas of interest", id_field=id_field)
-    lake_layer = read_layer(lake, what="lake polygon") if lake is not None else None
-    reader = SceneReader(layer, id_field=id_field, lake=lake_layer)
     where = (
         {"folder": str(catalog), "filename_pattern": filename_pattern}
         if filename_pattern
         else {"catalog": str(catalog)}
     )
-    source = SceneSource(**where, asset=asset, quality_asset=quality_asset, uncertainty_asset=uncertainty_asset)
+    try:  # the pattern's rules are the config's (scenes.filename_pattern), so both say the same
+        source = SceneSource(**where, asset=asset, quality_asset=quality_asset, uncertainty_asset=uncertainty_asset)
+    except ValidationError as err:
+        reason = "; ".join(str(e["msg"]).removeprefix("Value error, ") for e in err.errors())
+        raise ConfigError(f"--filename-pattern: {reason}") from None
+    layer = read_layer(aois, what="areas of interest", id_field=id_field)
+    lake_layer = read_layer(lake, what="lake polygon") if lake is not None else None
+    reader = SceneReader(layer, id_field=id_field, lake=lake_layer)
     table = list_scenes(source)
     label = lake_id or re.sub(r"[^a-z0-9_-]+", "-", aois.stem.lower()).strip("-") or "lake"
     with Progress(

@@ -7,6 +7,7 @@ maps a canonical role to the file's variable name where the file has no standard
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 from typing import Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -202,6 +203,24 @@ class SceneSource(StrictModel):
         if self.folder is not None and not self.filename_pattern:
             raise ValueError("a GeoTIFF 'folder' needs 'filename_pattern' with groups date, sensor")
         return self
+
+    @field_validator("filename_pattern")
+    @classmethod
+    def _pattern(cls, v: str | None) -> str | None:
+        if v is None:
+            return v
+        example = r"e.g. '(?P<sensor>[a-z]+)_(?P<date>\d{8})\.tif'"
+        try:
+            pattern = re.compile(v)
+        except re.error as err:
+            raise ValueError(f"{v!r} is not a regular expression ({err}); {example}") from None
+        missing = sorted({"date", "sensor"} - set(pattern.groupindex))
+        if missing:
+            raise ValueError(
+                f"{v!r} lacks the named group(s) {missing}: write them as (?P<name>...), {example}; "
+                "optional groups: time, asset"
+            )
+        return v
 
 
 class ForecastSource(StrictModel):
