@@ -217,3 +217,12 @@ def test_variables_and_units_found_as_the_reader_finds_them(tmp_path: Path) -> N
     frame.drop(columns="unit").to_csv(tmp_path / "h.csv", index=False)
     res, _ = check_hydrology(src, required_ids=["a", "b"])
     assert "h.csv: discharge has no units" in bad(res)
+
+
+def test_truncated_hydrology_file_is_named_as_damaged(tmp_path: Path) -> None:
+    """A NetCDF-4 file cut in half (an interrupted copy) is reported as damaged, not as a wrong format."""
+    path = tmp_path / "h.nc"
+    _mini.hydrology_dataset(["a", "b"], DAYS).to_netcdf(path, engine="netcdf4")
+    path.write_bytes(path.read_bytes()[: path.stat().st_size // 2])
+    res, _ = check_hydrology(HydrologySource(path=str(path)), required_ids=["a", "b"])
+    assert any(f"cannot open {path}" in m and "damaged or truncated" in m for m in bad(res))

@@ -58,7 +58,17 @@ def open_lazy(path: Path) -> Iterator[xr.Dataset]:
         else:
             ds = xr.open_dataset(path, decode_timedelta=True, cache=False)
     except Exception as err:
-        raise SourceError(f"cannot open {path}: {type(err).__name__}: {err}; is it CF NetCDF or Zarr?") from err
+        head = b""
+        if path.is_file():
+            with path.open("rb") as fh:
+                head = fh.read(8)
+        kind = head.startswith((b"\x89HDF", b"CDF\x01", b"CDF\x02", b"CDF\x05"))
+        why = (
+            "it looks like NetCDF but cannot be read: the file is damaged or truncated (copy or download it again)"
+            if kind
+            else "is it CF NetCDF or Zarr?"
+        )
+        raise SourceError(f"cannot open {path} ({type(err).__name__}: {err}); {why}") from err
     try:
         yield ds
     finally:
