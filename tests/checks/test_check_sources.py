@@ -224,5 +224,5 @@ def test_truncated_hydrology_file_is_named_as_damaged(tmp_path: Path) -> None:
     path = tmp_path / "h.nc"
     _mini.hydrology_dataset(["a", "b"], DAYS).to_netcdf(path, engine="netcdf4")
     path.write_bytes(path.read_bytes()[: path.stat().st_size // 2])
-    res, _ = check_hydrology(HydrologySource(path=str(path)), required_ids=["a", "b"])
-    assert any(f"cannot open {path}" in m and "damaged or truncated" in m for m in bad(res))
+    with pytest.raises(SourceError, match="damaged or truncated"):  # check_project reports it as a problem line
+        check_hydrology(HydrologySource(path=str(path)), required_ids=["a", "b"])
