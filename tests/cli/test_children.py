@@ -8,6 +8,7 @@ import subprocess
 import sys
 import textwrap
 import time
+from pathlib import Path
 
 import psutil
 import pytest
@@ -60,3 +61,36 @@ def test_finished_command_leaves_no_child() -> None:
     assert cmd.wait(timeout=20) == 3
     _, alive = psutil.wait_procs(started, timeout=10)
     assert not alive
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("how", [signal.SIGKILL, signal.SIGINT])
+def test_killed_or_interrupted_build_leaves_no_process(tmp_path: Path, how: signal.Signals) -> None:
+    """A real `lakefeed build` (Prefect's temporary server, forked pools) killed outright or interrupted by
+    Ctrl-C once it has started children: none of them survives it."""
+    import _mini
+
+    lake = _mini.build(tmp_path)
+    cmd = subprocess.Popen(
+        [sys.executable, "-c", "from lakefeed.cli import main; main()", "build", str(lake)],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,
+    )
+    seen: dict[int, psutil.Process] = {}
+    deadline = time.monotonic() + 120
+    # wait for a child besides the watcher (the temporary API server starts first)
+    while time.monotonic() < deadline and cmd.poll() is None:
+        for p in _descendants(cmd.pid):
+            seen.setdefault(p.pid, p)
+        if len(seen) >= 2:
+            break
+        time.sleep(0.1)
+    assert cmd.poll() is None and len(seen) >= 2, "the build ended or started no child within 120 s"
+    time.sleep(1.0)
+    for p in _descendants(cmd.pid):
+        seen.setdefault(p.pid, p)
+    cmd.send_signal(how)
+    cmd.wait(timeout=60)
+    _, alive = psutil.wait_procs(list(seen.values()), timeout=15)
+    assert not alive, f"still running: {[(p.pid, p.cmdline()[:3]) for p in alive]}"

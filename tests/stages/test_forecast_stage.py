@@ -86,7 +86,7 @@ def test_cli_prints_bias_table(tmp_path, monkeypatch):
                           "mean_bias_raw": [1.2], "mean_bias_adjusted": [0.05], "ks_raw": [0.3], "ks_adjusted": [0.05],
                           "quantile_rmse_raw": [1.3], "quantile_rmse_adjusted": [0.2], "unit": ["degC"]})  # fmt: skip
 
-    def fake(project, st, *, progress=None):
+    def fake(project, st, *, progress=None, allow_shrink=False):
         st.write_table("forecast_evaluation", project.id, table)
         return StageResult("forecast", project.id, tables={"forecast_evaluation": 1}, warnings=["a gap"])
 
