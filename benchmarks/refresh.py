@@ -125,7 +125,7 @@ def main() -> None:
     )
     args = parser.parse_args()
     import lakefeed.flows  # noqa: F401  (Prefect settings before Prefect is imported)
-    from lakefeed.flows._runtime import prefect_api
+    from lakefeed.flows.runtime import prefect_api
     from lakefeed.flows.refresh import _run
 
     stages = args.stages.split(",")

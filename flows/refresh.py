@@ -5,7 +5,7 @@ stores them in the ``run_summary`` table. Lakes fan out as coarse tasks (one per
 features stage, whose work lakes share, in tasks of up to 32 lakes) on a Dask cluster: a local one sized to
 the machine by default, or an existing one (``dask_address`` argument or ``dask_address:`` in sources.yaml).
 Each lake is isolated: its failure is recorded with the reason, its later stages are not run, and the other
-lakes go on. Only one run writes a store at a time (:func:`lakefeed.flows._runtime.store_lock`). Must not
+lakes go on. Only one run writes a store at a time (:func:`lakefeed.store.run_lock`). Must not
 hold any science.
 
 What a refresh processes: the stages whose inputs changed (content hashes by source month,
@@ -33,18 +33,16 @@ from prefect.task_runners import ThreadPoolTaskRunner
 
 from lakefeed.config import Project, find_lake_files, load_project
 from lakefeed.exceptions import ConfigError, LakefeedError
-from lakefeed.flows._runtime import (
+from lakefeed.flows._state import state_path
+from lakefeed.flows.runtime import (
     STAGES,
     STAGES_MANY,
-    available_stages,
     dask_task_runner,
     prefect_api,
-    store_lock,
     write_json_atomic,
 )
-from lakefeed.flows._state import state_path
 from lakefeed.flows.tasks import lakes_task, plan_task, stage_task
-from lakefeed.store import Store
+from lakefeed.store import Store, run_lock
 
 __all__ = ["SUMMARY_UNITS", "build_lake", "format_summary", "onboard_lake", "process_lakes", "refresh"]
 
@@ -78,10 +76,7 @@ def process_lakes(
     ``allow_shrink``: stages write even when their new rows lose stored dates or values (else they fail).
     """
     logger = get_run_logger()
-    found, missing = available_stages()
-    order = [s for s in STAGES if s in found and (stages is None or s in stages)]
-    for note in missing.values():
-        logger.warning(note)
+    order = [s for s in STAGES if stages is None or s in stages]
     store = Store(store_root)
     clock = {lake: time.perf_counter() for lake in lakes}
     rec: dict[str, dict[str, Any]] = {
@@ -233,7 +228,7 @@ def _task_runner(dask_address: str | None, sequential: bool, projects: dict[str,
     return dask_task_runner(address)
 
 
-def _write_summary(store_root: str, summaries: list[dict[str, Any]], run_id: str, started: datetime) -> None:
+def write_summary(store_root: str, summaries: list[dict[str, Any]], run_id: str, started: datetime) -> None:
     store = Store(store_root)
     for s in summaries:
         row = pd.DataFrame([{"run_id": run_id, "started": pd.Timestamp(started), **s}]).drop(columns=["lake"])
@@ -276,13 +271,13 @@ def _run(
         raise ConfigError("no lake configuration could be loaded:\n" + "\n".join(f["error"] for f in failed))
     root = _store_root(store, projects)
     lakes = {lake: str(p.lake_file) for lake, p in projects.items()}
-    with store_lock(root, wait=wait, what=what), prefect_api():
+    with run_lock(root, wait=wait, what=what), prefect_api():
         runner = _task_runner(dask_address, sequential, projects)
         summaries = process_lakes.with_options(task_runner=runner)(
             lakes, root, full=full, stages=stages, allow_shrink=allow_shrink
         )
         summaries += failed
-        _write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
+        write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
     print(format_summary(summaries))
     return summaries
 

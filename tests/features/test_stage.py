@@ -16,7 +16,7 @@ from lakefeed.config.lake import AoiLayer, FeatureOptions, LakeConfig, SubbasinL
 from lakefeed.config.sources import SourcesConfig
 from lakefeed.exceptions import FeatureError
 from lakefeed.features import build_feature_rows
-from lakefeed.stages._result import StageResult
+from lakefeed.stages import StageResult
 from lakefeed.stages.features import build_features
 from lakefeed.store import Store, load_features
 

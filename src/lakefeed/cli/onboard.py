@@ -288,7 +288,7 @@ def _bars(sequential: bool) -> Iterator[None]:
         yield
         return
     from lakefeed.cli.demo import progress_bars
-    from lakefeed.flows._runtime import set_progress
+    from lakefeed.flows.runtime import set_progress
 
     with progress_bars() as bar:
         set_progress(bar)

@@ -16,7 +16,8 @@ from lakefeed.features.folds import (
     random_folds,
 )
 from lakefeed.features.incremental import new_feature_rows, refresh_feature_rows, refresh_start
-from lakefeed.features.pit import FLAG_CODES, build_feature_rows, calendar_features, forecast_array, persistence
+from lakefeed.features.pit import build_feature_rows
+from lakefeed.features.rows import FLAG_CODES, calendar_features, forecast_array
 from lakefeed.features.windows import (
     STATISTICS,
     WindowPlan,
@@ -45,7 +46,6 @@ __all__ = [
     "forecast_array",
     "gather_windows",
     "new_feature_rows",
-    "persistence",
     "random_folds",
     "reduce_windows",
     "refresh_feature_rows",

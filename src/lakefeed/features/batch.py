@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.exceptions import FeatureError
-from lakefeed.features.pit import FeatureBlock, calendar_features, flag_strings, forecast_array, last_known
+from lakefeed.features.rows import FeatureBlock, calendar_features, flag_strings, forecast_array, last_known
 from lakefeed.features.windows import WindowPlan, day_numbers, on_or_after, reduce_windows, to_daily
 
 __all__ = ["Chunk", "Series", "feature_block_many", "iter_feature_blocks"]

@@ -41,11 +41,12 @@ from lakefeed.features import (
 )
 from lakefeed.features.batch import Series, iter_feature_blocks
 from lakefeed.features.windows import as_dates
+from lakefeed.progress import Progress, no_progress
 from lakefeed.stages._features_inputs import (
     driver_parts,
     drivers_digest,
-    input_hashes,
     load_drivers,
+    partition_hashes,
     read_dated,
     refresh_plan,
     targets_digest,
@@ -61,7 +62,8 @@ from lakefeed.stages._features_output import (
     write_rows,
 )
 from lakefeed.stages._guard import refuse_shrink
-from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages._result import StageResult
+from lakefeed.stages.refresh_plan import RefreshMode
 from lakefeed.store import Store
 
 __all__ = ["build_features", "build_features_many", "feature_units", "load_drivers"]
@@ -116,7 +118,7 @@ class _Job:
     project: Project
     result: StageResult
     progress: Progress
-    mode: str  # "tail", "check" or "full" (see _refresh_plan)
+    mode: RefreshMode  # see lakefeed.stages._features_inputs.refresh_plan
     since: pd.Timestamp | None  # first recomputed target date; None: every row
     prev: dict | None
     frames: dict[str | None, pd.DataFrame]
@@ -149,7 +151,7 @@ class _Job:
     def drivers_digest(self, day: object) -> str:
         """Fingerprint of the drivers up to ``day``; unknown (empty) when only the tail was read: the next
         check then rebuilds instead of trusting it."""
-        return "" if self.mode == "tail" else drivers_digest(self.frames, day)
+        return "" if self.mode is RefreshMode.TAIL else drivers_digest(self.frames, day)
 
 
 def _prepare(project: Project, store: Store, *, progress: Progress, full: bool) -> _Job | StageResult:
@@ -169,7 +171,7 @@ def _prepare(project: Project, store: Store, *, progress: Progress, full: bool) 
             load_drivers(store, lake.id, zone=opts.driver_zone, aois=[], wanted=list(opts.drivers))
         result.skipped, result.reason = True, "no target_daily table for this lake; run the target (scenes) stage first"
         return result
-    inputs = input_hashes(store, lake.id)
+    inputs = partition_hashes(store, lake.id)
     options_hash = _config_hash(project, [])
     prev = store.entry("features", lake.id)
     if (
@@ -197,13 +199,15 @@ def _prepare(project: Project, store: Store, *, progress: Progress, full: bool) 
     aois = sorted(targets["aoi"].unique())
     wanted = list(opts.drivers) if opts.drivers else None
     md = (prev or {}).get("metadata", {})
-    mode, since, old = refresh_plan(store, lake.id, prev, targets, full=full)
-    tail_from = since - pd.Timedelta(days=max(opts.windows) + max(opts.leads) + 1) if mode == "tail" else None
+    refresh = refresh_plan(store, lake.id, prev, targets, full=full)
+    mode, since = refresh.mode, refresh.day
+    tail = mode is RefreshMode.TAIL
+    tail_from = since - pd.Timedelta(days=max(opts.windows) + max(opts.leads) + 1) if tail else None
     frames, driver_units, read = load_drivers(
         store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted, since=tail_from
     )
-    if mode == "tail" and any(f.empty for f in frames.values()):  # no days to extend: read all
-        mode = "check"
+    if mode is RefreshMode.TAIL and any(f.empty for f in frames.values()):  # no days to extend: read all
+        mode = RefreshMode.CHECK
         frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
     present = {c for f in frames.values() for c in f.columns}
     columns = [c for c in wanted if c in present] if wanted else sorted(present)
@@ -211,18 +215,19 @@ def _prepare(project: Project, store: Store, *, progress: Progress, full: bool) 
     if not columns:
         result.warnings.append("no driver tables (drivers_daily, hydrology_daily): features hold no window columns")
     cfg = _config_hash(project, columns)
-    if mode != "full" and prev.get("config_hash") != cfg:
-        if mode == "tail":
+    if mode is not RefreshMode.FULL and prev.get("config_hash") != cfg:
+        if mode is RefreshMode.TAIL:
             frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
             frames = {k: f.reindex(columns=columns) for k, f in frames.items()}
-        mode, since = "full", None
-    if mode == "check" and drivers_digest(frames, old[0]) != md.get("drivers_digest_at_through"):
-        mode, since = "full", None
+        mode, since = RefreshMode.FULL, None
+    known_through = refresh.known.get("drivers_through")
+    if mode is RefreshMode.CHECK and drivers_digest(frames, known_through) != md.get("drivers_digest_at_through"):
+        mode, since = RefreshMode.FULL, None
     stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
     plan = WindowPlan.build(columns, windows=opts.windows, stats=stats)
     all_days = [f.index for f in frames.values() if len(f)]
     record = (min(i.min() for i in all_days), max(i.max() for i in all_days)) if all_days else (None, None)
-    if mode == "tail":
+    if mode is RefreshMode.TAIL:
         record = (pd.Timestamp(md["drivers_first"]), record[1])
     if record[0] is not None and (too_long := opts.record_problems(record[0].date(), record[1].date(),
                                                                    record="the stored driver record")):  # fmt: skip

@@ -40,12 +40,14 @@ from lakefeed.exceptions import ConfigError, ExtractError, LakefeedWarning
 from lakefeed.extract.load_estimation import LoadEstimate, align, compare_methods
 from lakefeed.extract.loads import inflow_loads, model_subbasins, summed_flow
 from lakefeed.geometry.network import Catchment, trace_configured_catchment
+from lakefeed.progress import Progress, no_progress
 from lakefeed.sources.hydrology import read_hydrology
 from lakefeed.sources.samples import read_flow, read_samples
 from lakefeed.sources.vectors import read_layer
 from lakefeed.stages._guard import refuse_shrink
+from lakefeed.stages._map import record_catchment
 from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
-from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages._result import StageResult
 from lakefeed.store import Store
 from lakefeed.units import CANONICAL
 
@@ -122,6 +124,7 @@ def build_hydrology(
         warnings.simplefilter("always", LakefeedWarning)
         progress("hydrology: catchment", 0, 4)
         catchment = catchment_of(project)
+        record_catchment(store, project.id, catchment)
         station_ids = [s.subbasin for s in sources.samples if s.subbasin]
         unknown = [s for s in station_ids if s not in catchment.graph]
         if unknown:
