@@ -21,11 +21,11 @@ from lakefeed.features.rows import FLAG_CODES, calendar_features, forecast_array
 from lakefeed.features.windows import (
     STATISTICS,
     WindowPlan,
+    complete_calendar,
     default_statistics,
     feature_name,
     gather_windows,
     reduce_windows,
-    to_daily,
     window_features,
 )
 
@@ -39,6 +39,7 @@ __all__ = [
     "blocked_folds",
     "build_feature_rows",
     "calendar_features",
+    "complete_calendar",
     "date_hash_folds",
     "default_statistics",
     "feature_name",
@@ -51,6 +52,5 @@ __all__ = [
     "refresh_feature_rows",
     "refresh_start",
     "sampling_diagnostics",
-    "to_daily",
     "window_features",
 ]

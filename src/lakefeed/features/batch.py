@@ -30,7 +30,7 @@ import pandas as pd
 
 from lakefeed.exceptions import FeatureError
 from lakefeed.features.rows import FeatureBlock, calendar_features, flag_strings, forecast_array, last_known
-from lakefeed.features.windows import WindowPlan, day_numbers, on_or_after, reduce_windows, to_daily
+from lakefeed.features.windows import WindowPlan, complete_calendar, day_numbers, on_or_after, reduce_windows
 
 __all__ = ["Chunk", "Series", "feature_block_many", "iter_feature_blocks"]
 
@@ -240,7 +240,7 @@ def _prepare(
 def _segment(drivers: pd.DataFrame, earliest: int | None) -> tuple[_Segment, list[str]]:
     """The numeric drivers on a complete daily calendar, used from day ``earliest`` on (None: all)."""
     numeric = drivers if all(dt.kind in "fiu" for dt in drivers.dtypes) else drivers.select_dtypes("number")
-    daily = to_daily(numeric)
+    daily = complete_calendar(numeric)
     first = int(daily.index[0].to_datetime64().astype("datetime64[D]").astype(np.int64)) if len(daily) else 0
     start = 0 if earliest is None else min(max(earliest - first, 0), len(daily))  # a complete calendar: positions
     return _Segment(frame=daily, start=start, first=first + start), list(daily.columns)

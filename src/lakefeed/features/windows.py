@@ -10,7 +10,7 @@ How: each target's longest window is gathered exactly (a fancy-index gather of t
 accumulating *outward from the target day*, one day at a time for all targets and drivers, so
 every shorter window is a prefix of the longest one. This is O(targets x k_max) per driver,
 linear in the length of the record, and exact: a dry spell sums to exactly 0 (a cumulative sum
-over the whole record would drift, see PITFALLS "Antecedent windows"). Missing days are NaN;
+over the whole record would drift, see docs/architecture.md, "Pitfalls"). Missing days are NaN;
 ``min``/``max`` ignore them, ``sum`` adds the valid days and ``mean`` divides by their count.
 
 Windows end the day before the target date by default (``include_target_day=False``): the
@@ -36,13 +36,13 @@ __all__ = [
     "STATISTICS",
     "WindowPlan",
     "as_dates",
+    "complete_calendar",
     "day_numbers",
     "default_statistics",
     "feature_name",
     "gather_windows",
     "on_or_after",
     "reduce_windows",
-    "to_daily",
     "window_features",
 ]
 
@@ -153,7 +153,7 @@ class WindowPlan:
         return cache[key]
 
 
-def to_daily(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.DataFrame:
+def complete_calendar(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.DataFrame:
     """A complete daily calendar: one row per day from the first to the last date, gaps as NaN.
 
     ``drivers`` has a DatetimeIndex of local calendar dates (or a ``date_column``). Duplicate
@@ -385,7 +385,7 @@ def window_features(
     >>> float(f.iloc[0, 0])
     9.0
     """
-    daily = to_daily(drivers.select_dtypes("number"))
+    daily = complete_calendar(drivers.select_dtypes("number"))
     plan = WindowPlan.build(list(daily.columns), windows=windows, stats=stats)
     targets = as_dates(target_dates)
     end = day_positions(daily.index, targets) + (1 if include_target_day else 0)

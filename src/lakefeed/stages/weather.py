@@ -5,7 +5,7 @@ weather grid (:mod:`lakefeed.sources.grids`) and the lake's layers, builds the z
 exact cell weights (cached under ``<store>/_cache/weights/``, keyed by grid signature and
 zone geometry hashes, so later runs and other files on the same grid reuse them), reads the
 grid once for every zone and variable at once, de-accumulates and converts units, and
-aggregates to the lake's local days. Writes ``drivers_daily`` (columns and units of DESIGN.md).
+aggregates to the lake's local days. Writes ``drivers_daily`` (columns and units: docs/architecture.md, "Store tables").
 
 Monthly refresh (``since``, from the flow: the first day of the earliest changed weather month):
 only the grid hours from the day before that month's first local day are read and only the local

@@ -5,7 +5,7 @@ systematic part; its log residuals at the sample days are interpolated linearly 
 constant outside the sampled span) and added back, so the estimate passes through every sample
 and follows the flow between them. Being anchored to the observed loads, it needs no
 retransformation correction. Regression plus interpolated residuals did best in bootstrap
-comparisons of load methods under sparse sampling (Aulenbach & Hooper 2006; see PITFALLS.md).
+comparisons of load methods under sparse sampling (Aulenbach & Hooper 2006; docs/architecture.md, "Pitfalls").
 
 Uncertainty: a bootstrap over the samples (resampled with replacement, refitted, residuals
 re-interpolated; ``n_boot`` times, fixed seed) gives 95 % percentile intervals of the daily loads,
