@@ -320,10 +320,8 @@ def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | Ba
         series += s
         owner += [i] * len(s)
     last = {o: k for k, o in enumerate(owner)}  # each lake's last series
-    for i, job in enumerate(jobs):
+    for job in jobs:
         job.progress("features: computing", 1, 3)
-        if i not in last:  # no series (cannot happen: one driver frame at least); nothing to write
-            done(job, FeatureError(f"lake {job.project.id!r}: no feature series to compute"))
     opts = jobs[0].project.lake.features
     pieces: dict[int, list[pa.Table]] = {i: [] for i in last}  # rows of the lakes not yet handed on
     try:
@@ -377,7 +375,6 @@ def build_features_many(
     *,
     progress: Progress | None = None,
     full: bool = False,
-    rebalance_folds: bool = False,
     isolate: bool = True,
     lakes_per_pass: int = 64,
     allow_shrink: bool = False,
@@ -395,7 +392,7 @@ def build_features_many(
         Lake configurations (distinct lake ids), all written to ``store``.
     progress
         Called per step for one lake; for several, once per finished lake (``features: lakes``, done, total).
-    full, rebalance_folds
+    full
         As for :func:`build_features`.
     isolate
         True: a lake that fails gets its exception as its result, the other lakes go on. False: the
@@ -443,7 +440,7 @@ def build_features_many(
         for project in projects[at : at + max(1, lakes_per_pass)]:
             try:
                 job = _prepare(
-                    project, store, progress=lake_progress(project.id), full=full or rebalance_folds
+                    project, store, progress=lake_progress(project.id), full=full
                 )  # fmt: skip
             except Exception as err:
                 if not isolate:
@@ -466,7 +463,6 @@ def build_features(
     *,
     progress: Progress | None = None,
     full: bool = False,
-    rebalance_folds: bool = False,
     allow_shrink: bool = False,
 ) -> StageResult:
     """Build ``features`` and ``diagnostics`` for one lake from the store's driver and target tables.
@@ -476,11 +472,9 @@ def build_features(
     When the driver tables only gained part files of later dates since the last build (an appended
     month), only their last days (the longest window and lead before the first new date) are read;
     otherwise all driver rows are read and their fingerprint is compared with the last build's.
-    ``full=True`` recomputes every row; ``rebalance_folds=True`` is the same (kept for callers of
-    the time when fold blocks depended on the record: folds are calendar blocks now, stable as the
-    record grows). The table read back equals a clean build's, folds included. All AOIs and leads of
-    the lake are computed in one pass; for many lakes use :func:`build_features_many` (``allow_shrink``
-    as there).
+    ``full=True`` recomputes every row (folds are calendar blocks, stable as the record grows). The table
+    read back equals a clean build's, folds included. All AOIs and leads of the lake are computed in one
+    pass; for many lakes use :func:`build_features_many` (``allow_shrink`` as there).
 
     Examples
     --------
@@ -488,7 +482,7 @@ def build_features(
     >>> build_features(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
     """
     out = build_features_many(
-        [project], store, progress=progress, full=full, rebalance_folds=rebalance_folds, isolate=False,
+        [project], store, progress=progress, full=full, isolate=False,
         allow_shrink=allow_shrink,
     )[project.id]  # fmt: skip
     assert isinstance(out, StageResult)  # isolate=False raises instead
