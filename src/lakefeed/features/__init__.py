@@ -18,16 +18,8 @@ from lakefeed.features.folds import (
 from lakefeed.features.incremental import new_feature_rows, refresh_feature_rows, refresh_start
 from lakefeed.features.pit import build_feature_rows
 from lakefeed.features.rows import FLAG_CODES, calendar_features, forecast_array
-from lakefeed.features.windows import (
-    STATISTICS,
-    WindowPlan,
-    complete_calendar,
-    default_statistics,
-    feature_name,
-    gather_windows,
-    reduce_windows,
-    window_features,
-)
+from lakefeed.features.window_plan import STATISTICS, WindowPlan, default_statistics, feature_name
+from lakefeed.features.windows import complete_calendar, gather_windows, reduce_windows, window_features
 
 __all__ = [
     "EMBARGOED",

@@ -30,7 +30,8 @@ import pandas as pd
 
 from lakefeed.exceptions import FeatureError
 from lakefeed.features.rows import FeatureBlock, calendar_features, flag_strings, forecast_array, last_known
-from lakefeed.features.windows import WindowPlan, complete_calendar, day_numbers, on_or_after, reduce_windows
+from lakefeed.features.window_plan import WINDOW_DEFAULTS, WindowPlan
+from lakefeed.features.windows import complete_calendar, day_numbers, on_or_after, reduce_windows
 
 __all__ = ["Chunk", "Series", "feature_block_many", "iter_feature_blocks"]
 
@@ -100,10 +101,10 @@ class Chunk:
 def iter_feature_blocks(
     series: Sequence[Series],
     *,
-    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    windows: Sequence[int] = WINDOW_DEFAULTS.windows,
     stats: Mapping[str, Sequence[str]] | None = None,
-    include_target_day: bool = False,
-    max_missing_fraction: float = 0.2,
+    include_target_day: bool = WINDOW_DEFAULTS.include_target_day,
+    max_missing_fraction: float = WINDOW_DEFAULTS.max_missing_fraction,
     by: str | None = "aoi",
     value: str = "chla",
     max_cells: int = _MAX_CELLS,
@@ -138,7 +139,8 @@ def iter_feature_blocks(
     if by is not None and not all(by in s.targets.columns for s in series):
         by = None
     prepared, segments, columns = _prepare(series, windows, by=by, value=value)
-    plan = WindowPlan.build(columns, windows=windows, stats=stats)
+    plan = WindowPlan.build(columns, windows=windows, stats=stats, include_target_day=include_target_day,
+                            max_missing_fraction=max_missing_fraction)  # fmt: skip
     per_row = max(plan.windows) * max(1, len(columns))
     start = 0
     while start < len(series):
@@ -146,9 +148,7 @@ def iter_feature_blocks(
         while stop < len(series) and (stop == start or cells + len(prepared[stop].tdays) * per_row <= max_cells):
             cells += len(prepared[stop].tdays) * per_row
             stop += 1
-        block = _block(series[start:stop], prepared[start:stop], segments, columns, plan,
-                       include_target_day=include_target_day, max_missing_fraction=max_missing_fraction, by=by,
-                       value=value)  # fmt: skip
+        block = _block(series[start:stop], prepared[start:stop], segments, columns, plan, by=by, value=value)
         sizes = np.array([0] + [len(p.tdays) for p in prepared[start:stop]], dtype=np.int64)
         yield Chunk(block=block, first=start, bounds=np.cumsum(sizes))
         start = stop
@@ -253,13 +253,11 @@ def _block(
     columns: list[str],
     plan: WindowPlan,
     *,
-    include_target_day: bool,
-    max_missing_fraction: float,
     by: str | None,
     value: str,
 ) -> FeatureBlock:
-    """The rows of a chunk of series (see :func:`feature_block_many`)."""
-    shift = 1 if include_target_day else 0
+    """The rows of a chunk of series (see :func:`feature_block_many`); window options from ``plan``."""
+    shift = 1 if plan.include_target_day else 0
     k_max = max(plan.windows)
     used = sorted({p.segment for p in prepared})
     offset = np.zeros(len(segments), dtype=np.int64)
@@ -295,7 +293,7 @@ def _block(
         gathered[after] = np.nan
         _fill_forecasts(gathered, after, series, prepared, u_src, u_end, u_lead, first[u_seg], columns, shift)
         used_forecast = _forecast_used(gathered, after, series, prepared, u_src)
-    values, incomplete = reduce_windows(gathered, plan, columns, max_missing_fraction=max_missing_fraction)
+    values, incomplete = reduce_windows(gathered, plan, columns)
     last = u_end - 1
     outside = (last < 0) | (last >= length[u_seg])
 

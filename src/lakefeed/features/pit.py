@@ -33,6 +33,7 @@ import pandas as pd
 
 from lakefeed.features.batch import Series, feature_block_many
 from lakefeed.features.rows import FeatureBlock
+from lakefeed.features.window_plan import WINDOW_DEFAULTS
 
 __all__ = ["build_feature_rows", "feature_block"]
 
@@ -57,10 +58,10 @@ def feature_block(
     drivers: pd.DataFrame,
     *,
     lead: int = 0,
-    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    windows: Sequence[int] = WINDOW_DEFAULTS.windows,
     stats: Mapping[str, Sequence[str]] | None = None,
-    include_target_day: bool = False,
-    max_missing_fraction: float = 0.2,
+    include_target_day: bool = WINDOW_DEFAULTS.include_target_day,
+    max_missing_fraction: float = WINDOW_DEFAULTS.max_missing_fraction,
     forecast_drivers: pd.DataFrame | None = None,
     observations: pd.DataFrame | None = None,
     by: str | None = "aoi",

@@ -143,10 +143,9 @@ class _Job:
         return out
 
     def batch_key(self) -> tuple:
-        """Lakes computed in one pass share the window plan (driver columns, windows, statistics) and the
-        window options."""
-        o = self.project.lake.features
-        return (self.plan.windows, tuple(self.plan.stats.items()), o.include_target_day, o.max_missing_fraction)
+        """Lakes computed in one pass share the window plan (windows, statistics, window options)."""
+        p = self.plan
+        return (p.windows, tuple(p.stats.items()), p.include_target_day, p.max_missing_fraction)
 
     def drivers_digest(self, day: object) -> str:
         """Fingerprint of the drivers up to ``day``; unknown (empty) when only the tail was read: the next
@@ -224,7 +223,8 @@ def _prepare(project: Project, store: Store, *, progress: Progress, full: bool) 
     if mode is RefreshMode.CHECK and drivers_digest(frames, known_through) != md.get("drivers_digest_at_through"):
         mode, since = RefreshMode.FULL, None
     stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
-    plan = WindowPlan.build(columns, windows=opts.windows, stats=stats)
+    plan = WindowPlan.build(columns, windows=opts.windows, stats=stats, include_target_day=opts.include_target_day,
+                            max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
     all_days = [f.index for f in frames.values() if len(f)]
     record = (min(i.min() for i in all_days), max(i.max() for i in all_days)) if all_days else (None, None)
     if mode is RefreshMode.TAIL:
@@ -322,12 +322,12 @@ def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | Ba
     last = {o: k for k, o in enumerate(owner)}  # each lake's last series
     for job in jobs:
         job.progress("features: computing", 1, 3)
-    opts = jobs[0].project.lake.features
+    plan = jobs[0].plan
     pieces: dict[int, list[pa.Table]] = {i: [] for i in last}  # rows of the lakes not yet handed on
     try:
         chunks = iter_feature_blocks(
-            series, windows=jobs[0].plan.windows, stats=jobs[0].plan.stats,
-            include_target_day=opts.include_target_day, max_missing_fraction=opts.max_missing_fraction,
+            series, windows=plan.windows, stats=plan.stats, include_target_day=plan.include_target_day,
+            max_missing_fraction=plan.max_missing_fraction,
         )  # fmt: skip
     except Exception as err:
         _compute_alone(jobs, store, done, err)
