@@ -20,7 +20,6 @@ when one of their inputs changed.
 
 from __future__ import annotations
 
-import time
 import uuid
 from collections.abc import Sequence
 from datetime import UTC, datetime
@@ -34,6 +33,7 @@ from prefect.task_runners import ThreadPoolTaskRunner
 from lakefeed.config import Project, find_lake_files, load_project
 from lakefeed.exceptions import ConfigError, LakefeedError
 from lakefeed.flows._state import state_path
+from lakefeed.flows.record import LakeRecord
 from lakefeed.flows.runtime import (
     STAGES,
     STAGES_MANY,
@@ -78,76 +78,41 @@ def process_lakes(
     logger = get_run_logger()
     order = [s for s in STAGES if stages is None or s in stages]
     store = Store(store_root)
-    clock = {lake: time.perf_counter() for lake in lakes}
-    rec: dict[str, dict[str, Any]] = {
-        lake: {
-            "lake": lake,
-            "status": "ok",
-            "stages_run": [],
-            "tables": {},
-            "skipped": [],
-            "warnings": [],
-            "error": "",
-            "mode": [],
-        }
-        for lake in lakes
-    }
+    rec = {lake: LakeRecord(lake) for lake in lakes}
     plans: dict[str, dict[str, Any]] = {}
     futures = {lake: plan_task.submit(lake, lf, store_root, order, full) for lake, lf in lakes.items()}
     for lake, fut in futures.items():
         try:
             plans[lake] = fut.result()
         except Exception as err:
-            rec[lake].update(status="failed", error=f"plan: {_error_text(err)}")
+            rec[lake].fail(f"plan: {_error_text(err)}")
             logger.error("lake %s failed while hashing its sources: %s", lake, _error_text(err))
     for lake, plan in plans.items():
-        rec[lake]["changed"] = "; ".join(f"{k}: {','.join(v)}" for k, v in plan["changed"].items())
+        rec[lake].changed = "; ".join(f"{k}: {','.join(v)}" for k, v in plan["changed"].items())
     before = {lake: _row_counts(store, lake) for lake in plans}
     alive = {lake for lake in plans if plans[lake]["stages"]}
     for lake in set(plans) - alive:
-        rec[lake].update(status="unchanged", skipped=["no new or changed source months"])
+        rec[lake].status, rec[lake].skipped = "unchanged", ["no new or changed source months"]
     for stage in order:
         todo = [lake for lake in sorted(alive) if stage in plans[lake]["stages"]]
         for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans, allow_shrink).items():
             try:
                 result = outcome.result() if not isinstance(outcome, dict) else outcome
             except Exception as err:
-                rec[lake].update(status="failed", error=f"{stage}: {_error_text(err)}")
+                rec[lake].fail(f"{stage}: {_error_text(err)}")
                 alive.discard(lake)
                 logger.error("lake %s failed in stage %s: %s (other lakes continue)", lake, stage, _error_text(err))
                 continue
-            rec[lake]["stages_run"].append(stage)
-            rec[lake]["tables"].update(result["tables"])
-            if result["skipped"]:
-                rec[lake]["skipped"].append(f"{stage}: {result['reason']}")
-            rec[lake]["warnings"] += [f"{stage}: {w}" for w in result["warnings"]]
-            if result["reason"] and not result["skipped"]:  # how an incremental stage ran (from a day, or in full)
-                rec[lake]["mode"].append(f"{stage}: {result['reason']}")
+            rec[lake].add(stage, result)
             plans[lake]["recorded"][stage] = sorted(result["tables"])
     for lake, plan in plans.items():  # remember what the store now reflects; unfinished stages run next time
-        recorded = {
-            s: t for s, t in plan["recorded"].items() if s in rec[lake]["stages_run"] or s not in plan["stages"]
-        }
+        recorded = {s: t for s, t in plan["recorded"].items() if s in rec[lake].stages_run or s not in plan["stages"]}
         write_json_atomic(state_path(store_root, lake), {"sources": plan["sources"], "stages": recorded})
     summaries = []
     for lake, r in rec.items():
         after = _row_counts(store, lake) if lake in before else {}
-        new = sum(max(0, n - before.get(lake, {}).get(t, 0)) for t, n in after.items() if t in r["tables"])
-        summaries.append(
-            {
-                "lake": lake,
-                "status": r["status"],
-                "stages_run": ",".join(r["stages_run"]),
-                "new_rows": int(new),
-                "rows_written": int(sum(r["tables"].values())),
-                "changed": r.get("changed", ""),
-                "mode": "; ".join(r["mode"]),
-                "skipped": "; ".join(r["skipped"]),
-                "error": r["error"],
-                "warnings": "; ".join(r["warnings"]),
-                "seconds": round(time.perf_counter() - clock[lake], 3),
-            }
-        )
+        new = sum(max(0, n - before.get(lake, {}).get(t, 0)) for t, n in after.items() if t in r.tables)
+        summaries.append(r.summary(new))
     return summaries
 
 

@@ -291,8 +291,8 @@ def _block(
     used_forecast = np.zeros(len(uniq), dtype=bool)
     if after.any():
         gathered[after] = np.nan
-        _fill_forecasts(gathered, after, series, prepared, u_src, u_end, u_lead, first[u_seg], columns, shift)
-        used_forecast = _forecast_used(gathered, after, series, prepared, u_src)
+        used_forecast = _fill_forecasts(gathered, after, series, prepared, u_src, u_end, u_lead, first[u_seg],
+                                        columns, shift)  # fmt: skip
     values, incomplete = reduce_windows(gathered, plan, columns)
     last = u_end - 1
     outside = (last < 0) | (last >= length[u_seg])
@@ -342,8 +342,10 @@ def _fill_forecasts(
     u_first: np.ndarray,
     columns: list[str],
     shift: int,
-) -> None:
-    """Fill the days after issue from each series' forecasts issued on its issue date (in place)."""
+) -> np.ndarray:
+    """Fill the days after issue from each series' forecasts issued on its issue date (in place); returns
+    whether forecast values filled any day after issue, per distinct row."""
+    used = np.zeros(gathered.shape[1], dtype=bool)
     done: set[int] = set()
     for s, p in zip(series, prepared, strict=True):
         if s.forecast_drivers is None or p.source in done:
@@ -361,17 +363,8 @@ def _fill_forecasts(
         filled = fc[np.arange(len(sel))[None, :], o]  # (k_max, rows, drivers)
         part = gathered[:, sel]
         gathered[:, sel] = np.where(after[:, sel, None], filled, part)
-
-
-def _forecast_used(
-    gathered: np.ndarray, after: np.ndarray, series: Sequence[Series], prepared: Sequence[_Prepared], u_src: np.ndarray
-) -> np.ndarray:
-    """Whether forecast values filled any day after issue, per distinct row."""
-    with_fc = {p.source for s, p in zip(series, prepared, strict=True) if s.forecast_drivers is not None}
-    if not with_fc:
-        return np.zeros(gathered.shape[1], dtype=bool)
-    has = np.isin(u_src, list(with_fc))
-    return has & (after[:, :, None] & np.isfinite(gathered)).any(axis=(0, 2))
+        used[sel] = (after[:, sel, None] & np.isfinite(gathered[:, sel])).any(axis=(0, 2))
+    return used
 
 
 def _joined(parts: list[np.ndarray]) -> np.ndarray:
