@@ -28,5 +28,13 @@ def build_command(
     """Full build: validate, derive geometry and weights, backfill the whole record, write the reports."""
     from lakefeed.flows.refresh import build_lake
 
-    run_flow(build_lake, [str(c) for c in configs], store=store, sequential=sequential, dask_address=dask_address,
-             wait=wait, report=report, allow_shrink=allow_shrink)  # fmt: skip
+    run_flow(
+        build_lake,
+        [str(c) for c in configs],
+        store=store,
+        sequential=sequential,
+        dask_address=dask_address,
+        wait=wait,
+        report=report,
+        allow_shrink=allow_shrink,
+    )

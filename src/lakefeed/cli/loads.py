@@ -159,8 +159,9 @@ def loads(
         raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHOD_NAMES)}")
     spec = sheet_options(units=units, column=column, date_format=date_format, sheet=sheet, separator=separator,
                          decimal=decimal)  # fmt: skip
-    found = compare_loads(samples, flow, sheet=spec, nutrient=nutrient, station=station, period=period,
-                          seasonal=seasonal, trend=trend)  # fmt: skip
+    found = compare_loads(
+        samples, flow, sheet=spec, nutrient=nutrient, station=station, period=period, seasonal=seasonal, trend=trend
+    )
     for w in found.warnings:
         err_console.print(f"[yellow]warning:[/] {escape(w)}", highlight=False)
     part, q, names, chosen, results = found.samples, found.flow, found.nutrients, found.nutrient, found.results

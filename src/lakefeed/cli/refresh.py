@@ -27,5 +27,12 @@ def refresh_command(
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
 
-    run_flow(refresh, [str(config_dir)], store=store, sequential=sequential, dask_address=dask_address, wait=wait,
-             allow_shrink=allow_shrink)  # fmt: skip
+    run_flow(
+        refresh,
+        [str(config_dir)],
+        store=store,
+        sequential=sequential,
+        dask_address=dask_address,
+        wait=wait,
+        allow_shrink=allow_shrink,
+    )

@@ -79,11 +79,22 @@ def scenes(
             bar.update(task, completed=done, total=total, description=description)
 
         obs = scenes_to_parquet(
-            catalog, aois, out, id_field=id_field, lake=lake, lake_id=lake_id, timezone=timezone, asset=asset,
-            quality_asset=quality_asset, uncertainty_asset=uncertainty_asset, filename_pattern=filename_pattern,
-            shore_buffer_m=shore_buffer, min_valid_fraction=min_valid_fraction, bad_quality_bits=bits,
+            catalog,
+            aois,
+            out,
+            id_field=id_field,
+            lake=lake,
+            lake_id=lake_id,
+            timezone=timezone,
+            asset=asset,
+            quality_asset=quality_asset,
+            uncertainty_asset=uncertainty_asset,
+            filename_pattern=filename_pattern,
+            shore_buffer_m=shore_buffer,
+            min_valid_fraction=min_valid_fraction,
+            bad_quality_bits=bits,
             progress=progress,
-        )  # fmt: skip
+        )
     n_scenes = obs["scene_id"].nunique()
     console.print(
         f"{len(obs)} AOI-scene rows from {n_scenes} scenes: {int(obs['accepted'].sum())} accepted, "

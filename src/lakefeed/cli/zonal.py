@@ -60,10 +60,20 @@ def zonal(
             bar.update(task, description=description, completed=done, total=total)
 
         written = zonal_to_parquet(
-            grid, zones, out, id_field=id_field, daily=daily, tz=tz, accumulation=accumulation,
-            reset_hour=reset_hour, allow_partial=allow_partial, weights_cache=weights_cache,
-            skip_bad_files=skip_bad_files, processes=processes, progress=progress,
-        )  # fmt: skip
+            grid,
+            zones,
+            out,
+            id_field=id_field,
+            daily=daily,
+            tz=tz,
+            accumulation=accumulation,
+            reset_hour=reset_hour,
+            allow_partial=allow_partial,
+            weights_cache=weights_cache,
+            skip_bad_files=skip_bad_files,
+            processes=processes,
+            progress=progress,
+        )
     for msg in written.skipped:
         console.print(f"[yellow]left out:[/yellow] {msg}")
     cached = "from cache" if written.weights_cached else "computed"

@@ -139,8 +139,8 @@ def iter_feature_blocks(
     if by is not None and not all(by in s.targets.columns for s in series):
         by = None
     prepared, segments, columns = _prepare(series, windows, by=by, value=value)
-    plan = WindowPlan.build(columns, windows=windows, stats=stats, include_target_day=include_target_day,
-                            max_missing_fraction=max_missing_fraction)  # fmt: skip
+    options: dict[str, Any] = {"include_target_day": include_target_day, "max_missing_fraction": max_missing_fraction}
+    plan = WindowPlan.build(columns, windows=windows, stats=stats, **options)
     per_row = max(plan.windows) * max(1, len(columns))
     start = 0
     while start < len(series):
@@ -291,8 +291,9 @@ def _block(
     used_forecast = np.zeros(len(uniq), dtype=bool)
     if after.any():
         gathered[after] = np.nan
-        used_forecast = _fill_forecasts(gathered, after, series, prepared, u_src, u_end, u_lead, first[u_seg],
-                                        columns, shift)  # fmt: skip
+        used_forecast = _fill_forecasts(
+            gathered, after, series, prepared, u_src, u_end, u_lead, first[u_seg], columns, shift
+        )
     values, incomplete = reduce_windows(gathered, plan, columns)
     last = u_end - 1
     outside = (last < 0) | (last >= length[u_seg])

@@ -74,8 +74,13 @@ class WindowPlan:
         Plans are cached by their arguments (a refresh builds the same plan for every lake and lead).
         """
         try:
-            key = (tuple(columns), tuple(windows), tuple((k, tuple(v)) for k, v in (stats or {}).items()),
-                   bool(include_target_day), float(max_missing_fraction))  # fmt: skip
+            key = (
+                tuple(columns),
+                tuple(windows),
+                tuple((k, tuple(v)) for k, v in (stats or {}).items()),
+                bool(include_target_day),
+                float(max_missing_fraction),
+            )
             hash(key)
         except TypeError:
             return cls._build(columns, windows=windows, stats=stats, options=(include_target_day, max_missing_fraction))
@@ -116,8 +121,12 @@ class WindowPlan:
                 f"max_missing_fraction must lie in 0..1; got {max_missing_fraction}. "
                 "Fix features.max_missing_fraction in the lake configuration."
             )
-        return cls(windows=tuple(sorted(set(ws))), stats=plan, include_target_day=bool(include_target_day),
-                   max_missing_fraction=float(max_missing_fraction))  # fmt: skip
+        return cls(
+            windows=tuple(sorted(set(ws))),
+            stats=plan,
+            include_target_day=bool(include_target_day),
+            max_missing_fraction=float(max_missing_fraction),
+        )
 
     @cached_property
     def names(self) -> list[str]:

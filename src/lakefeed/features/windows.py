@@ -277,8 +277,13 @@ def window_features(
     9.0
     """
     daily = complete_calendar(drivers.select_dtypes("number"))
-    plan = WindowPlan.build(list(daily.columns), windows=windows, stats=stats, include_target_day=include_target_day,
-                            max_missing_fraction=max_missing_fraction)  # fmt: skip
+    plan = WindowPlan.build(
+        list(daily.columns),
+        windows=windows,
+        stats=stats,
+        include_target_day=include_target_day,
+        max_missing_fraction=max_missing_fraction,
+    )
     targets = as_dates(target_dates)
     end = day_positions(daily.index, targets) + (1 if plan.include_target_day else 0)
     gathered = gather_windows(daily.to_numpy(dtype=np.float64), end, max(plan.windows))

@@ -166,8 +166,16 @@ def trace_catchment(
         Missing fields, duplicate ids, a cycle, dangling downstream ids, no sub-basin reaching the
         lake, or a listed direct inflow that drains into another sub-basin; each message names the ids.
     """
-    net = subbasin_network(subbasins, lake, id_field=id_field, downstream_field=downstream_field, lake_id=lake_id,
-                   direct_inflows=direct_inflows, outside_ids=outside_ids, where=where)  # fmt: skip
+    net = subbasin_network(
+        subbasins,
+        lake,
+        id_field=id_field,
+        downstream_field=downstream_field,
+        lake_id=lake_id,
+        direct_inflows=direct_inflows,
+        outside_ids=outside_ids,
+        where=where,
+    )
     if direct_inflows:
         rule, (direct, lake_node) = "config", by_config(net, direct_inflows, lake_id)
     elif net.own is not None:

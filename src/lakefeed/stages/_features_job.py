@@ -77,7 +77,7 @@ class FeatureJob:
         p = self.plan
         return (p.windows, tuple(p.stats.items()), p.include_target_day, p.max_missing_fraction)
 
-    def drivers_digest(self, day: object) -> str:
+    def recorded_drivers_digest(self, day: object) -> str:
         """Fingerprint of the drivers up to ``day``; unknown (empty) when only the tail was read: the next
         check then rebuilds instead of trusting it."""
         return "" if self.mode is RefreshMode.TAIL else drivers_digest(self.frames, day)
@@ -153,19 +153,38 @@ def prepare_job(project: Project, store: Store, *, progress: Progress, full: boo
     if mode is RefreshMode.CHECK and drivers_digest(frames, known_through) != md.get("drivers_digest_at_through"):
         mode, since = RefreshMode.FULL, None
     stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
-    plan = WindowPlan.build(columns, windows=opts.windows, stats=stats, include_target_day=opts.include_target_day,
-                            max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
+    plan = WindowPlan.build(
+        columns,
+        windows=opts.windows,
+        stats=stats,
+        include_target_day=opts.include_target_day,
+        max_missing_fraction=opts.max_missing_fraction,
+    )
     all_days = [f.index for f in frames.values() if len(f)]
     record = (min(i.min() for i in all_days), max(i.max() for i in all_days)) if all_days else (None, None)
     if mode is RefreshMode.TAIL:
         record = (pd.Timestamp(md["drivers_first"]), record[1])
-    if record[0] is not None and (too_long := opts.record_problems(record[0].date(), record[1].date(),
-                                                                   record="the stored driver record")):  # fmt: skip
+    if record[0] is not None and (
+        too_long := opts.record_problems(record[0].date(), record[1].date(), record="the stored driver record")
+    ):
         raise ConfigError(f"{project.lake_file}: features cannot be built for lake {lake.id}", too_long)
     through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
     return FeatureJob(
-        project=project, result=result, progress=progress, mode=mode, since=since, prev=prev, frames=frames,
-        columns=columns, driver_units=driver_units, read=read, targets=targets, plan=plan, record=record,
-        through=through, inputs=inputs, options_hash=options_hash,
+        project=project,
+        result=result,
+        progress=progress,
+        mode=mode,
+        since=since,
+        prev=prev,
+        frames=frames,
+        columns=columns,
+        driver_units=driver_units,
+        read=read,
+        targets=targets,
+        plan=plan,
+        record=record,
+        through=through,
+        inputs=inputs,
+        options_hash=options_hash,
         config_hash=cfg,
-    )  # fmt: skip
+    )

@@ -142,7 +142,7 @@ def _finish(job: FeatureJob, store: Store, arrow: pa.Table) -> StageResult:
         "drivers_through": str(pd.Timestamp(through[0]).date()),
         "targets_through": str(pd.Timestamp(through[1]).date()),
         "drivers_first": str(pd.Timestamp(record[0]).date()) if record[0] is not None else "",
-        "drivers_digest_at_through": job.drivers_digest(through[0]),
+        "drivers_digest_at_through": job.recorded_drivers_digest(through[0]),
         "targets_digest_at_through": targets_digest(job.targets, through[1]),
         "input_parts": json.dumps(driver_parts(store, lake.id)),
         "options_hash": job.options_hash,
@@ -151,10 +151,26 @@ def _finish(job: FeatureJob, store: Store, arrow: pa.Table) -> StageResult:
         "fold_options": fold_options(opts),
         "tables_read": "; ".join(["target_daily", *job.read]),
     }
-    write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), drivers_digest=job.drivers_digest,
-                targets=job.targets, write=dict(units=units, descriptions=descr, metadata=meta, inputs=job.inputs,
-                                                config_hash=job.config_hash, time_column="target_date",
-                                                sort_by=KEYS))  # fmt: skip
+    write = dict(
+        units=units,
+        descriptions=descr,
+        metadata=meta,
+        inputs=job.inputs,
+        config_hash=job.config_hash,
+        time_column="target_date",
+        sort_by=KEYS,
+    )
+    digest = job.recorded_drivers_digest
+    write_rows(
+        store,
+        lake.id,
+        arrow,
+        since=since,
+        split=refresh_start(*through),
+        drivers_digest=digest,
+        targets=job.targets,
+        write=write,
+    )
     dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")}
     dunits |= {"coverage_fraction": "1", "embargo_days": "d"}
     store.write_table(

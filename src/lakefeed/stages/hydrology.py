@@ -156,8 +156,9 @@ def build_hydrology(
             "config_hash": config_hash(project),
         }
         meta = _metadata(catchment, hyd, flow_of)
-        _write(store, lake.id, out, est_frame, meta=meta, provenance=provenance, allow_shrink=allow_shrink,
-               result=result)  # fmt: skip
+        _write(
+            store, lake.id, out, est_frame, meta=meta, provenance=provenance, allow_shrink=allow_shrink, result=result
+        )
         progress("hydrology: done", 4, 4)
     result.warnings.extend(str(w.message) for w in caught if issubclass(w.category, LakefeedWarning))
     for w in caught:  # re-raise anything that is not ours
@@ -256,15 +257,17 @@ def _write(
     guard = {"allow_shrink": allow_shrink, "time_column": "date"}
     result.warnings += refuse_shrink(store, "hydrology_daily", lake, out, keys=["date"], complete=True, **guard)
     if estimates is not None:
-        result.warnings += refuse_shrink(store, "load_estimates", lake, estimates, keys=_EST_KEYS,
-                                         groups=_EST_KEYS[:-1], **guard)  # fmt: skip
+        result.warnings += refuse_shrink(
+            store, "load_estimates", lake, estimates, keys=_EST_KEYS, groups=_EST_KEYS[:-1], **guard
+        )
     units = {c: _unit_of(c) for c in out.columns if _unit_of(c)}
     store.write_table("hydrology_daily", lake, out, units=units, metadata=meta, **provenance)
     result.tables["hydrology_daily"] = len(out)
     if estimates is not None:
         load = CANONICAL["load"]
-        store.write_table("load_estimates", lake, estimates, units={"load": load, "lower": load, "upper": load},
-                          **provenance)  # fmt: skip
+        store.write_table(
+            "load_estimates", lake, estimates, units={"load": load, "lower": load, "upper": load}, **provenance
+        )
         result.tables["load_estimates"] = len(estimates)
 
 
