@@ -125,8 +125,8 @@ def main() -> None:
     )
     args = parser.parse_args()
     import lakefeed.flows  # noqa: F401  (Prefect settings before Prefect is imported)
-    from lakefeed.flows._runtime import prefect_api
     from lakefeed.flows.refresh import _run
+    from lakefeed.flows.runtime import prefect_api
 
     stages = args.stages.split(",")
     work, config, held = prepare(args.lakes, small=not args.full_sample)

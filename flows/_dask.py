@@ -2,7 +2,7 @@
 cluster closes, so they exit when asked instead of being killed mid-message (which printed ``CommClosedError``
 tracebacks after a successful run).
 
-Takes the settings :func:`lakefeed.flows._runtime.dask_task_runner` chooses; gives a prefect-dask task runner.
+Takes the settings :func:`lakefeed.flows.runtime.dask_task_runner` chooses; gives a prefect-dask task runner.
 Must not hold science.
 """
 

@@ -190,7 +190,7 @@ def stage_since(stage: str, changed: dict[str, list[str]], *, recorded: dict[str
 def table_complete(store: Any, table: str, lake: str) -> bool:
     """True when ``table`` has a partition for ``lake`` whose last write finished (a stage that writes in two
     steps marks the state between them in the manifest metadata; a run stopped there counts as not done)."""
-    from lakefeed.stages._weather_refresh import PENDING
+    from lakefeed.stages.refresh_plan import PENDING
 
     if not store.has_table(table, lake):
         return False

@@ -13,8 +13,8 @@ from typing import Any
 from prefect import flow
 
 from lakefeed.exceptions import ConfigError
-from lakefeed.flows._runtime import prefect_api, store_lock
-from lakefeed.flows.refresh import _write_summary, process_lakes
+from lakefeed.flows.refresh import process_lakes, write_summary
+from lakefeed.flows.runtime import prefect_api
 
 __all__ = ["demo", "demo_lake_file"]
 
@@ -42,17 +42,17 @@ def demo(sample_dir: str, store: str, report: bool = True) -> dict[str, Any]:
     from datetime import UTC, datetime
 
     from lakefeed.config import load_project
-    from lakefeed.store import Store
+    from lakefeed.store import Store, run_lock
 
     started = datetime.now(UTC)
     lake_file = demo_lake_file(sample_dir)
     project = load_project(lake_file)
-    with store_lock(store, what="demo"), prefect_api():
+    with run_lock(store, what="demo"), prefect_api():
         from prefect.task_runners import ThreadPoolTaskRunner
 
         runner = ThreadPoolTaskRunner(max_workers=1)
         summary = process_lakes.with_options(task_runner=runner)({project.id: str(lake_file)}, store, full=True)[0]
-        _write_summary(store, [summary], "demo", started)
+        write_summary(store, [summary], "demo", started)
     path = None
     if report:  # also after a failed stage: the report shows what exists and the run's errors
         from lakefeed.report import write_report

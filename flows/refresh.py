@@ -5,7 +5,7 @@ stores them in the ``run_summary`` table. Lakes fan out as coarse tasks (one per
 features stage, whose work lakes share, in tasks of up to 32 lakes) on a Dask cluster: a local one sized to
 the machine by default, or an existing one (``dask_address`` argument or ``dask_address:`` in sources.yaml).
 Each lake is isolated: its failure is recorded with the reason, its later stages are not run, and the other
-lakes go on. Only one run writes a store at a time (:func:`lakefeed.flows._runtime.store_lock`). Must not
+lakes go on. Only one run writes a store at a time (:func:`lakefeed.store.run_lock`). Must not
 hold any science.
 
 What a refresh processes: the stages whose inputs changed (content hashes by source month,
@@ -20,7 +20,6 @@ when one of their inputs changed.
 
 from __future__ import annotations
 
-import time
 import uuid
 from collections.abc import Sequence
 from datetime import UTC, datetime
@@ -33,18 +32,17 @@ from prefect.task_runners import ThreadPoolTaskRunner
 
 from lakefeed.config import Project, find_lake_files, load_project
 from lakefeed.exceptions import ConfigError, LakefeedError
-from lakefeed.flows._runtime import (
+from lakefeed.flows._state import state_path
+from lakefeed.flows.record import LakeRecord
+from lakefeed.flows.runtime import (
     STAGES,
     STAGES_MANY,
-    available_stages,
     dask_task_runner,
     prefect_api,
-    store_lock,
     write_json_atomic,
 )
-from lakefeed.flows._state import state_path
 from lakefeed.flows.tasks import lakes_task, plan_task, stage_task
-from lakefeed.store import Store
+from lakefeed.store import Store, run_lock
 
 __all__ = ["SUMMARY_UNITS", "build_lake", "format_summary", "onboard_lake", "process_lakes", "refresh"]
 
@@ -78,81 +76,43 @@ def process_lakes(
     ``allow_shrink``: stages write even when their new rows lose stored dates or values (else they fail).
     """
     logger = get_run_logger()
-    found, missing = available_stages()
-    order = [s for s in STAGES if s in found and (stages is None or s in stages)]
-    for note in missing.values():
-        logger.warning(note)
+    order = [s for s in STAGES if stages is None or s in stages]
     store = Store(store_root)
-    clock = {lake: time.perf_counter() for lake in lakes}
-    rec: dict[str, dict[str, Any]] = {
-        lake: {
-            "lake": lake,
-            "status": "ok",
-            "stages_run": [],
-            "tables": {},
-            "skipped": [],
-            "warnings": [],
-            "error": "",
-            "mode": [],
-        }
-        for lake in lakes
-    }
+    rec = {lake: LakeRecord(lake) for lake in lakes}
     plans: dict[str, dict[str, Any]] = {}
     futures = {lake: plan_task.submit(lake, lf, store_root, order, full) for lake, lf in lakes.items()}
     for lake, fut in futures.items():
         try:
             plans[lake] = fut.result()
         except Exception as err:
-            rec[lake].update(status="failed", error=f"plan: {_error_text(err)}")
+            rec[lake].fail(f"plan: {_error_text(err)}")
             logger.error("lake %s failed while hashing its sources: %s", lake, _error_text(err))
     for lake, plan in plans.items():
-        rec[lake]["changed"] = "; ".join(f"{k}: {','.join(v)}" for k, v in plan["changed"].items())
+        rec[lake].changed = "; ".join(f"{k}: {','.join(v)}" for k, v in plan["changed"].items())
     before = {lake: _row_counts(store, lake) for lake in plans}
     alive = {lake for lake in plans if plans[lake]["stages"]}
     for lake in set(plans) - alive:
-        rec[lake].update(status="unchanged", skipped=["no new or changed source months"])
+        rec[lake].status, rec[lake].skipped = "unchanged", ["no new or changed source months"]
     for stage in order:
         todo = [lake for lake in sorted(alive) if stage in plans[lake]["stages"]]
         for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans, allow_shrink).items():
             try:
                 result = outcome.result() if not isinstance(outcome, dict) else outcome
             except Exception as err:
-                rec[lake].update(status="failed", error=f"{stage}: {_error_text(err)}")
+                rec[lake].fail(f"{stage}: {_error_text(err)}")
                 alive.discard(lake)
                 logger.error("lake %s failed in stage %s: %s (other lakes continue)", lake, stage, _error_text(err))
                 continue
-            rec[lake]["stages_run"].append(stage)
-            rec[lake]["tables"].update(result["tables"])
-            if result["skipped"]:
-                rec[lake]["skipped"].append(f"{stage}: {result['reason']}")
-            rec[lake]["warnings"] += [f"{stage}: {w}" for w in result["warnings"]]
-            if result["reason"] and not result["skipped"]:  # how an incremental stage ran (from a day, or in full)
-                rec[lake]["mode"].append(f"{stage}: {result['reason']}")
+            rec[lake].add(stage, result)
             plans[lake]["recorded"][stage] = sorted(result["tables"])
     for lake, plan in plans.items():  # remember what the store now reflects; unfinished stages run next time
-        recorded = {
-            s: t for s, t in plan["recorded"].items() if s in rec[lake]["stages_run"] or s not in plan["stages"]
-        }
+        recorded = {s: t for s, t in plan["recorded"].items() if s in rec[lake].stages_run or s not in plan["stages"]}
         write_json_atomic(state_path(store_root, lake), {"sources": plan["sources"], "stages": recorded})
     summaries = []
     for lake, r in rec.items():
         after = _row_counts(store, lake) if lake in before else {}
-        new = sum(max(0, n - before.get(lake, {}).get(t, 0)) for t, n in after.items() if t in r["tables"])
-        summaries.append(
-            {
-                "lake": lake,
-                "status": r["status"],
-                "stages_run": ",".join(r["stages_run"]),
-                "new_rows": int(new),
-                "rows_written": int(sum(r["tables"].values())),
-                "changed": r.get("changed", ""),
-                "mode": "; ".join(r["mode"]),
-                "skipped": "; ".join(r["skipped"]),
-                "error": r["error"],
-                "warnings": "; ".join(r["warnings"]),
-                "seconds": round(time.perf_counter() - clock[lake], 3),
-            }
-        )
+        new = sum(max(0, n - before.get(lake, {}).get(t, 0)) for t, n in after.items() if t in r.tables)
+        summaries.append(r.summary(new))
     return summaries
 
 
@@ -233,7 +193,7 @@ def _task_runner(dask_address: str | None, sequential: bool, projects: dict[str,
     return dask_task_runner(address)
 
 
-def _write_summary(store_root: str, summaries: list[dict[str, Any]], run_id: str, started: datetime) -> None:
+def write_summary(store_root: str, summaries: list[dict[str, Any]], run_id: str, started: datetime) -> None:
     store = Store(store_root)
     for s in summaries:
         row = pd.DataFrame([{"run_id": run_id, "started": pd.Timestamp(started), **s}]).drop(columns=["lake"])
@@ -276,13 +236,13 @@ def _run(
         raise ConfigError("no lake configuration could be loaded:\n" + "\n".join(f["error"] for f in failed))
     root = _store_root(store, projects)
     lakes = {lake: str(p.lake_file) for lake, p in projects.items()}
-    with store_lock(root, wait=wait, what=what), prefect_api():
+    with run_lock(root, wait=wait, what=what), prefect_api():
         runner = _task_runner(dask_address, sequential, projects)
         summaries = process_lakes.with_options(task_runner=runner)(
             lakes, root, full=full, stages=stages, allow_shrink=allow_shrink
         )
         summaries += failed
-        _write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
+        write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
     print(format_summary(summaries))
     return summaries
 

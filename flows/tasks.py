@@ -20,8 +20,8 @@ from prefect import get_run_logger, task
 from prefect.cache_policies import NO_CACHE
 from prefect.tasks import exponential_backoff
 
-from lakefeed.flows._runtime import get_progress, run_stage, run_stage_many
 from lakefeed.flows._state import changes, fingerprint, plan_stages, read_state, stage_since, table_complete
+from lakefeed.flows.runtime import get_progress, run_stage, run_stage_many
 
 __all__ = ["is_transient", "lakes_task", "plan_task", "stage_task"]
 
@@ -105,7 +105,7 @@ def lakes_task(
     stage: str, lakes: dict[str, str], store_root: str, first_lake: str = "", allow_shrink: bool = False
 ) -> dict[str, dict[str, Any]]:
     """Run one stage for several lakes in one call (the stage shares work between them; see
-    :data:`lakefeed.flows._runtime.STAGES_MANY`). Lake id -> ``{"result": StageResult as a dict}`` or
+    :data:`lakefeed.flows.runtime.STAGES_MANY`). Lake id -> ``{"result": StageResult as a dict}`` or
     ``{"error": text, "transient": bool}``; the flow reruns the failed lakes one by one (with retries), so
     a lake's failure stays its own. Not retried itself: its lakes' errors are reported, not raised."""
     logger = get_run_logger()

@@ -39,7 +39,7 @@ def test_precipitation_flux_as_water_depth() -> None:
 
 
 def test_load_factor_is_86_4() -> None:
-    # 1 m3 s-1 x 1 mg L-1 = 1 g s-1 = 86.4 kg d-1 (REFERENCES.md "Loads"; derived with pint here)
+    # 1 m3 s-1 x 1 mg L-1 = 1 g s-1 = 86.4 kg d-1 (unit arithmetic; derived with pint here)
     expected = (REF.Quantity(1, "m**3/s") * REF.Quantity(1, "mg/L")).to("kg/day").magnitude
     assert factor("m3 s-1 * mg L-1", "kg d-1") == pytest.approx(expected, rel=1e-12)
     assert expected == pytest.approx(86.4)

@@ -2,7 +2,7 @@
 
 Every conversion in lakefeed goes through :func:`convert` or :func:`factor`; no bare
 conversion factors live elsewhere in the code. ``CANONICAL`` lists the output unit of each
-canonical quantity (see DESIGN.md, "Units").
+canonical quantity (docs/architecture.md, "Units").
 """
 
 from __future__ import annotations
@@ -29,7 +29,7 @@ except Exception:  # pragma: no cover - cf_xarray is a hard dependency; keep a p
 
 __all__ = ["CANONICAL", "convert", "factor", "parse_unit", "ureg"]
 
-#: Canonical output unit per quantity (DESIGN.md, "Units").
+#: Canonical output unit per quantity (docs/architecture.md, "Units").
 CANONICAL: dict[str, str] = {
     "air_temperature": "degC",
     "dewpoint": "degC",

@@ -1,7 +1,7 @@
 """`lakefeed demo DIR` end to end on the reduced sample scenario, in Prefect's local mode (no server).
 
 Checks the store the demo writes: drivers_daily, target_obs and features as Parquet with units in the
-schema metadata, readable by DuckDB with Hive partitioning (the public store contract of DESIGN.md).
+schema metadata, readable by DuckDB with Hive partitioning (the store contract of docs/architecture.md).
 """
 
 from __future__ import annotations
@@ -47,7 +47,7 @@ def test_demo_end_to_end(small_sample, tmp_path, monkeypatch) -> None:
         assert units, f"{table}: no units in the Parquet schema"
         assert table in result.output
     drivers = pq.read_schema(store / "drivers_daily" / "lake=tallow" / "part-0.parquet")
-    assert drivers.field("air_temperature_mean").metadata[b"unit"] == b"degC"  # DESIGN.md canonical unit
+    assert drivers.field("air_temperature_mean").metadata[b"unit"] == b"degC"  # canonical unit (docs/architecture.md)
     import duckdb
 
     con = duckdb.connect()

@@ -51,7 +51,7 @@ def test_out_daily_matches_independent_calculation(files: tuple[Path, Path], tmp
     got = pd.read_csv(out)
     assert list(got.columns) == ["date", "load", "lower", "upper", "method"]
     assert len(got) == 365 and set(got["method"]) == {"interpolation"}
-    # independent: numpy interpolation of concentration over day numbers x flow x 86.4 (REFERENCES.md "Loads")
+    # independent: numpy interpolation of concentration over day numbers x flow x 86.4 (unit arithmetic)
     s, q = pd.read_csv(samples, parse_dates=["date"]), pd.read_csv(flow, parse_dates=["date"])
     t = (q["date"] - q["date"][0]).dt.days.to_numpy()
     ts = (s["date"] - q["date"][0]).dt.days.to_numpy()
@@ -68,7 +68,7 @@ def test_out_period_rows_for_beale(files: tuple[Path, Path], tmp_path: Path) -> 
     got = pd.read_csv(out)
     assert len(got) == 1 and got.loc[0, "start"] == "2023-01-01" and got.loc[0, "days"] == 365
     assert {"load_kg", "se_kg", "lower_kg", "upper_kg", "method"} <= set(got.columns)
-    # independent: Beale's formula as written in REFERENCES.md ("Loads"), theta = 1/n, over the whole record
+    # independent: Beale's (1962) formula, theta = 1/n, over the whole record
     s, q = pd.read_csv(samples, parse_dates=["date"]), pd.read_csv(flow, parse_dates=["date"])
     qs = q.set_index("date")["discharge"].loc[s["date"]].to_numpy()
     ls = qs * s["concentration"].to_numpy() * 86.4

@@ -10,9 +10,9 @@ from shapely.geometry import box
 from typer.testing import CliRunner
 
 from lakefeed.cli import app
-from lakefeed.cli.onboard import detect_fields
 from lakefeed.config import load_project
 from lakefeed.exceptions import GeometryError
+from lakefeed.geometry.onboard import detect_fields
 
 
 def _layer(**columns: list[object]) -> gpd.GeoDataFrame:

@@ -21,7 +21,7 @@ def _since_reset(days: int = 3, per_hour: float = 1.0) -> xr.DataArray:
 
 
 def test_reference_vector_gives_one_mm_every_hour():
-    """REFERENCES.md, accumulated reanalysis fields (common practice): de-accumulated it is 24 x 1 mm."""
+    """Accumulated reanalysis fields (common practice): de-accumulated it is 24 x 1 mm."""
     acc = _since_reset()
     res = deaccumulate(acc, kind="since_reset", reset_hour=0)
     np.testing.assert_array_equal(res.increments.values, np.ones(acc.size))

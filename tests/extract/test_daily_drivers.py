@@ -48,7 +48,8 @@ def test_days_with_missing_hours_are_flagged_and_not_averaged():
 
 
 def test_amounts_belong_to_the_day_their_step_starts():
-    """REFERENCES.md: the daily total of day d is the sum of stamps 01..23 UTC of d plus 00 UTC of d+1."""
+    """Stamps at the end of their step (docs/architecture.md, "Pitfalls"): the daily total of day d is the sum
+    of stamps 01..23 UTC of d plus 00 UTC of d+1."""
     rain = np.zeros(72)
     rain[24] = 5.0  # stamp 2024-06-02 00:00 UTC = the hour 23-24 UTC of 1 June
     h = _hourly("2024-06-01 00:00", 72, precipitation=rain)

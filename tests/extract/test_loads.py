@@ -21,7 +21,7 @@ def wide(values: dict[str, list[float]]) -> pd.DataFrame:
 
 
 def test_load_factor_against_pint() -> None:
-    # REFERENCES.md "Loads": 1 m3 s-1 x 1 mg L-1 = 1 g s-1 = 86.4 kg d-1, derived with a fresh pint registry.
+    # Unit arithmetic: 1 m3 s-1 x 1 mg L-1 = 1 g s-1 = 86.4 kg d-1, derived with a fresh pint registry.
     ureg = pint.UnitRegistry()
     expected = (ureg.Quantity(1.0, "m**3/s") * ureg.Quantity(1.0, "mg/L")).to("kg/day").magnitude
     assert load_factor() == pytest.approx(expected, rel=1e-12)

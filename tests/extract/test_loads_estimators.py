@@ -24,7 +24,7 @@ from lakefeed.extract.load_estimation import (
 )
 from lakefeed.extract.loads import load_factor
 
-K = 86.4  # m3 s-1 x mg L-1 -> kg d-1 (REFERENCES.md "Loads"; load_factor() derives it with pint)
+K = 86.4  # m3 s-1 x mg L-1 -> kg d-1 (unit arithmetic: 1 g s-1 = 86.4 kg d-1; load_factor() derives it with pint)
 
 
 def record(q: list[float], start: str = "2023-01-01") -> pd.Series:
@@ -126,7 +126,7 @@ def test_regression_matches_statsmodels_ols() -> None:
 # ----------------------------------------------------------------------------- Beale
 # Hand-worked example: sampled daily loads l = 10, 20, 60 kg d-1 at flows q = 1, 2, 4 m3 s-1; 6 days with
 # mean flow 2.5. lbar = 30, qbar = 7/3, S_lq = 40, S_qq = 7/3, S_ll = 700, n = 3 (sample covariances, n - 1).
-# Beale (1962), as in REFERENCES.md: mu = Qbar (lbar/qbar) [1 + S_lq/(n lbar qbar)] / [1 + S_qq/(n qbar^2)]
+# Beale (1962): mu = Qbar (lbar/qbar) [1 + S_lq/(n lbar qbar)] / [1 + S_qq/(n qbar^2)]
 #   = 5/2 x 90/7 x (25/21) / (8/7) = 5625/168.
 # MSE (Tin 1965 second-order form as used for river loads; formula from memory, module docstring):
 #   first = S_ll/lbar^2 + S_qq/qbar^2 - 2 S_lq/(lbar qbar) = 7/9 + 3/7 - 8/7 = 4/63
@@ -207,7 +207,7 @@ def test_censored_values_use_half_the_detection_limit() -> None:
 
 
 def test_composite_passes_through_the_samples() -> None:
-    """Composite (rating curve + interpolated log residuals; Aulenbach & Hooper 2006, PITFALLS.md): on sample
+    """Composite (rating curve + interpolated log residuals; Aulenbach & Hooper 2006; docs/architecture.md): on sample
     days it returns the observed load; with an exact power law (zero residuals) it equals the rating curve."""
     rng = np.random.default_rng(2)
     flow = record(list(np.exp(rng.normal(1, 0.5, 120))))

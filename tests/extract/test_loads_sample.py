@@ -38,7 +38,7 @@ TOLERANCE = {
         "beale_season": 0.12,  # [0.089]
         "beale_flow": 0.10,  # [0.077]
         "fwmc": 0.20,  # [0.150]
-        "composite": 0.07,  # [0.048] regression + interpolated residuals: the best here, as PITFALLS.md expects
+        "composite": 0.07,  # [0.048] regression + interpolated residuals: the best here (docs/architecture.md)
     },
     "tp": {
         "interpolation": 0.15,  # [0.124]

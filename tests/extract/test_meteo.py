@@ -60,7 +60,7 @@ def test_clear_sky_radiation_example_18():
 
 
 def test_extraterrestrial_radiation_against_pyet():
-    """pyet's Ra takes latitude in radians (REFERENCES.md)."""
+    """pyet's Ra takes latitude in radians (pyet's documentation)."""
     import pandas as pd
     import pyet
 
@@ -72,7 +72,7 @@ def test_extraterrestrial_radiation_against_pyet():
 
 def test_relative_humidity_against_metpy():
     """T 25 °C, Td 12 °C: 44.30 % (MetPy relative_humidity_from_dewpoint); formula families differ by up to
-    ~0.06 %RH (REFERENCES.md), so 0.1 %RH against MetPy; our own formula exactly."""
+    ~0.06 %RH (from memory), so 0.1 %RH against MetPy; our own formula exactly."""
     ours = meteo.relative_humidity(25.0, 12.0)
     assert ours == pytest.approx(44.30, abs=0.1)
     assert ours == pytest.approx(100 * meteo.saturation_vapour_pressure(12.0) / meteo.saturation_vapour_pressure(25.0))

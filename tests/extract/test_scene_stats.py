@@ -12,7 +12,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scene_factory import ORIGIN, write_tif
 
-from lakefeed.extract.scene_stats import aoi_statistics, shore_buffered, valid_mask
+from lakefeed.extract.scene_stats import aoi_statistics, valid_mask
+from lakefeed.geometry.zones import shore_buffered
 from lakefeed.sources.scenes import SceneReader
 
 X0, Y0 = ORIGIN

@@ -16,7 +16,7 @@ def test_carlson_tsi_check_points() -> None:
 
 
 def test_carlson_common_form_against_original_form() -> None:
-    """Carlson (1977) original algebraic form values (REFERENCES.md): Chl 0.12/0.34/0.94/6.4 ->
+    """Carlson (1977) original algebraic form values: Chl 0.12/0.34/0.94/6.4 ->
     9.7685/19.9855/29.9620/48.7799; the common form used by lakefeed differs by about 0.03."""
     ours = carlson_tsi(np.array([0.12, 0.34, 0.94, 6.4]))
     assert ours == pytest.approx([9.7685, 19.9855, 29.9620, 48.7799], abs=0.05)

@@ -71,7 +71,7 @@ def test_nan_cells_excluded_and_weights_renormalised_per_step(lazy):
 
 
 def test_stays_lazy_until_asked():
-    """Nothing is computed while building the result (lazy core, STYLE.md point 9)."""
+    """Nothing is computed while building the result (extract/ must not compute lazy input; docs/architecture.md)."""
     data = _grid(True)
     w = zone_weights(ZONES, LAT, LON)
     with dask.config.set(scheduler=_refuse):

@@ -16,7 +16,7 @@ from lakefeed.config.lake import AoiLayer, FeatureOptions, LakeConfig, SubbasinL
 from lakefeed.config.sources import SourcesConfig
 from lakefeed.exceptions import FeatureError
 from lakefeed.features import build_feature_rows
-from lakefeed.stages._result import StageResult
+from lakefeed.stages import StageResult
 from lakefeed.stages.features import build_features
 from lakefeed.store import Store, load_features
 
@@ -192,7 +192,7 @@ def test_incremental_refresh_equals_full_rebuild(tmp_path: Path, monkeypatch: py
     build_features(project, fresh)
     pd.testing.assert_frame_equal(load_features(fresh, "tallow"), load_features(inc, "tallow"))
     pd.testing.assert_frame_equal(inc.read_table("diagnostics", "tallow"), fresh.read_table("diagnostics", "tallow"))
-    build_features(project, inc, rebalance_folds=True)  # kept: recomputes every row into one part
+    build_features(project, inc, full=True)  # recomputes every row into one part
     pd.testing.assert_frame_equal(load_features(inc, "tallow"), load_features(fresh, "tallow"))
     assert len(inc.part_files("features", "tallow")) == 1
     _assert_unique_and_equal(inc, load_features(fresh, "tallow").drop(columns="lake"))

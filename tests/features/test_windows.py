@@ -63,7 +63,7 @@ def test_windows_match_pandas_rolling_with_missing_days(include: bool, frac: flo
 
 
 def test_dry_spell_sums_to_exactly_zero() -> None:
-    """A dry spell after large amounts sums to exactly 0 (cumulative sums drift; PITFALLS)."""
+    """A dry spell after large amounts sums to exactly 0 (cumulative sums drift; docs/architecture.md, "Pitfalls")."""
     days = pd.date_range("2020-01-01", periods=300)
     rain = np.r_[np.full(200, 123.456789), np.zeros(100)]
     got, _ = window_features(pd.DataFrame({"precipitation_sum": rain}, index=days), days[[260, 299]], windows=[30])

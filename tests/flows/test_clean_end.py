@@ -17,7 +17,7 @@ pytestmark = pytest.mark.slow
 _SCRIPT = textwrap.dedent(
     """
     from prefect import flow, task
-    from lakefeed.flows._runtime import dask_task_runner, prefect_api
+    from lakefeed.flows.runtime import dask_task_runner, prefect_api
 
     @task
     def add(x):

@@ -7,9 +7,10 @@ from pathlib import Path
 import pytest
 
 from lakefeed.exceptions import SourceError, StoreError
-from lakefeed.flows._runtime import available_stages, store_lock
 from lakefeed.flows._state import changes, plan_stages, stage_since
+from lakefeed.flows.runtime import available_stages
 from lakefeed.flows.tasks import is_transient
+from lakefeed.store import run_lock
 
 ORDER = ["weather", "hydrology", "target", "features", "forecast"]
 
@@ -67,11 +68,11 @@ def test_transient_errors_only() -> None:
 
 
 def test_store_lock_refuses_a_second_run(tmp_path: Path) -> None:
-    with store_lock(tmp_path, what="refresh"):
+    with run_lock(tmp_path, what="refresh"):
         with pytest.raises(StoreError, match=r"in use by another run .*refresh: pid"):
-            with store_lock(tmp_path, wait=0.3):
+            with run_lock(tmp_path, wait=0.3):
                 pass
-    with store_lock(tmp_path):  # released: the next run gets it
+    with run_lock(tmp_path):  # released: the next run gets it
         pass
 
 

@@ -14,9 +14,8 @@ import pytest
 from _variants import write_variants
 
 from lakefeed.exceptions import StoreError
-from lakefeed.flows._runtime import store_lock
 from lakefeed.flows._state import state_path
-from lakefeed.store import Store
+from lakefeed.store import Store, run_lock
 
 pytestmark = pytest.mark.slow
 STAGES = ["weather", "hydrology"]
@@ -110,7 +109,7 @@ def test_second_refresh_on_one_store_refuses(sequential_run) -> None:
     from lakefeed.flows.refresh import refresh
 
     cfg, _ = sequential_run
-    with store_lock(cfg.parent / "store", what="refresh"):
+    with run_lock(cfg.parent / "store", what="refresh"):
         with pytest.raises(StoreError, match="in use by another run"):
             refresh([str(cfg)], sequential=True, stages=STAGES, wait=0.5)
 
@@ -137,7 +136,7 @@ def test_refresh_command_refuses_a_busy_store(sequential_run) -> None:
     from lakefeed.cli import app
 
     cfg, _ = sequential_run
-    with store_lock(cfg.parent / "store", what="refresh"):
+    with run_lock(cfg.parent / "store", what="refresh"):
         result = CliRunner().invoke(app, ["refresh", str(cfg), "--sequential"])
     assert result.exit_code != 0
     assert isinstance(result.exception, StoreError) and "in use by another run" in str(result.exception)

@@ -125,7 +125,7 @@ def test_sub_cell_zone_keeps_touched_cells_and_is_flagged():
 
 
 def test_zone_wholly_in_nan_cell_is_nan_not_a_neighbours_value():
-    """Slivers of exact intersection must not leak a neighbour's value (PITFALLS: coverage slivers)."""
+    """Slivers of exact intersection must not leak a neighbour's value (docs/architecture.md, "Pitfalls")."""
     values = _values(3, nan=((4, 4),))
     cell = shapely.box(LON[4] - 0.05, LAT[4] - 0.05, LON[4] + 0.05, LAT[4] + 0.05)  # exactly that cell
     inner = shapely.affinity.rotate(cell, 0.0).buffer(-1e-9)

@@ -19,7 +19,7 @@ CHROMIUM = Path("/usr/bin/chromium")
 @pytest.fixture(scope="module")
 def built(small_sample, tmp_path_factory):
     """The sample lake's store with the weather, hydrology, target and features stages run directly."""
-    from lakefeed.flows._runtime import available_stages
+    from lakefeed.flows.runtime import available_stages
 
     project = load_project(small_sample / "config" / "lake-tallow.yaml")
     store = Store(tmp_path_factory.mktemp("report") / "store")

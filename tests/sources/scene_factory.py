@@ -84,7 +84,7 @@ def write_catalog(root: Path, items: list[Path]) -> Path:
     return path
 
 
-#: ``target_obs`` columns in the order of the store contract (DESIGN.md, "Store tables").
+#: ``target_obs`` columns in the order of the store contract (docs/architecture.md, "Store tables").
 TARGET_OBS_COLUMNS = [
     "lake",
     "aoi",

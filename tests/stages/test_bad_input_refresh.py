@@ -22,7 +22,7 @@ import yaml
 
 from lakefeed.config import load_project
 from lakefeed.exceptions import ConfigError, ShrinkError, SourceError
-from lakefeed.flows._runtime import STAGES, available_stages
+from lakefeed.flows.runtime import STAGES, available_stages
 from lakefeed.store import Store
 
 pytestmark = pytest.mark.slow

@@ -19,7 +19,7 @@ from lakefeed.extract.quantile_mapping import DEFAULT_KINDS
 from lakefeed.features import blocked_folds, date_hash_folds
 from lakefeed.geometry.weights import zone_weights
 from lakefeed.sources.forecasts import open_forecasts
-from lakefeed.stages._result import StageResult
+from lakefeed.stages import StageResult
 from lakefeed.stages.forecast import adjust_forecasts, build_forecast, forecast_steps
 from lakefeed.store import Store
 

@@ -187,7 +187,7 @@ def test_routed_dsg_against_numpy(scenario: dict, tmp_path: Path) -> None:
     q = r["101"] + r["201"]
     expected = {
         "inflow_discharge": q,
-        "tn_load": (r["101"] * tn["101"] + r["201"] * tn["201"]) * 86.4,  # REFERENCES.md "Loads": 86.4
+        "tn_load": (r["101"] * tn["101"] + r["201"] * tn["201"]) * 86.4,  # m3 s-1 x mg L-1 -> kg d-1 (unit arithmetic)
         "tp_load": (r["101"] * tp["101"] + r["201"] * tp["201"]) * 86.4,
         "tp_fwmc": (r["101"] * tp["101"] + r["201"] * tp["201"]) / q,
         "tn_load_201": r["201"] * tn["201"] * 86.4,

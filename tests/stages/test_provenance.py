@@ -1,7 +1,7 @@
 """Provenance in the store manifest: every table lists the content hashes of its inputs and the config hash.
 
-DESIGN.md (store): the manifest holds input content hashes and the config hash. Checked after running
-every stage on the reduced sample scenario, against hashes computed here with hashlib.
+docs/architecture.md ("Store tables"): the manifest holds input content hashes and the config hash. Checked
+after running every stage on the reduced sample scenario, against hashes computed here with hashlib.
 """
 
 from __future__ import annotations

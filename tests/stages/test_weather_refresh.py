@@ -19,7 +19,7 @@ import yaml
 import lakefeed.stages.weather as weather
 from lakefeed.config import load_project
 from lakefeed.exceptions import ShrinkError
-from lakefeed.stages._weather_refresh import refresh_start
+from lakefeed.stages._weather_refresh import refresh_plan
 from lakefeed.stages.weather import build_weather
 from lakefeed.store import Store
 
@@ -155,19 +155,19 @@ def test_refresh_start_checks_the_stored_entry(small_sample) -> None:
         "time_range": ["2022-01-01T00:00:00", "2022-03-01T00:00:00"],
     }
     kw = dict(grid=grid, inputs=inputs, config_hash="c", columns=["zone", "date"], signature=grid.signature)
-    assert refresh_start(entry, since="2022-02-01", tz="Europe/Berlin", **kw).day == date(2022, 2, 1)
-    assert refresh_start(entry, since="2022-02-01", tz="UTC", **kw).day == date(2022, 1, 31)
+    assert refresh_plan(entry, since="2022-02-01", tz="Europe/Berlin", **kw).day == date(2022, 2, 1)
+    assert refresh_plan(entry, since="2022-02-01", tz="UTC", **kw).day == date(2022, 1, 31)
     # the files' own calendar: midnight in UTC+2 is 22 UTC of the day before
-    assert refresh_start(entry, since="2022-02-01", tz="UTC", source_tz="Etc/GMT-2", **kw).day == date(2022, 1, 31)
-    assert refresh_start(entry, since="2022-09-01", tz="UTC", **kw).day == date(2022, 3, 1)  # never past the record
-    assert refresh_start({**entry, "columns": ["zone"]}, since="2022-02-01", tz="UTC", **kw).reason == (
+    assert refresh_plan(entry, since="2022-02-01", tz="UTC", source_tz="Etc/GMT-2", **kw).day == date(2022, 1, 31)
+    assert refresh_plan(entry, since="2022-09-01", tz="UTC", **kw).day == date(2022, 3, 1)  # never past the record
+    assert refresh_plan({**entry, "columns": ["zone"]}, since="2022-02-01", tz="UTC", **kw).reason == (
         "stored columns differ"
     )
-    assert refresh_start({**entry, "metadata": {}}, since="2022-02-01", tz="UTC", **kw).reason == (
+    assert refresh_plan({**entry, "metadata": {}}, since="2022-02-01", tz="UTC", **kw).reason == (
         "weather grid changed"
     )
     layers = {**inputs, "/x/lake.gpkg": "a"}
-    moved = refresh_start(
+    moved = refresh_plan(
         {**entry, "inputs": layers}, since="2022-02-01", tz="UTC", **{**kw, "inputs": {**layers, "/x/lake.gpkg": "b"}}
     )
     assert moved.reason == "a geometry layer changed"

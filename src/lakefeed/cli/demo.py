@@ -19,7 +19,7 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, SpinnerColumn
 from rich.table import Table
 
 from lakefeed.cli._app import app, console
-from lakefeed.stages._result import Progress as ProgressFn
+from lakefeed.progress import Progress as ProgressFn
 
 __all__ = ["demo_command", "print_store_summary", "progress_bars"]
 
@@ -95,8 +95,8 @@ def demo_command(
 ) -> None:
     """Generate (or reuse) the sample scenario, run every pipeline stage on it and summarise the store."""
     os.environ.setdefault("PREFECT_LOGGING_LEVEL", "WARNING")  # the bars show progress; warnings still print
-    from lakefeed.flows._runtime import set_progress
     from lakefeed.flows.demo import demo, demo_lake_file  # after the setting above (Prefect reads it on import)
+    from lakefeed.flows.runtime import set_progress
     from lakefeed.sample import generate
     from lakefeed.store import Store
 

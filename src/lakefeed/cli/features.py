@@ -130,7 +130,7 @@ def features(
     for st, group in stores.values():
         with held(st, what="features"):
             before = {p.id: _content(st, p.id) for p in group}
-            results = build_features_many(group, st, full=full, rebalance_folds=rebuild, allow_shrink=allow_shrink)
+            results = build_features_many(group, st, full=full or rebuild, allow_shrink=allow_shrink)
             changed = [p for p in group if _content(st, p.id) != before[p.id]]
             failed += _reforecast(st, changed, results, allow_shrink=allow_shrink)
             if compact:

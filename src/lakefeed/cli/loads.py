@@ -3,8 +3,7 @@
 The samples may be a lab sheet (CSV or ``.xlsx``, own headers, ``;`` and decimal commas, local
 dates, ``<`` values): ``--column``, ``--date-format``, ``--sheet``, ``--station``, ``--units``,
 ``--separator`` and ``--decimal`` describe it as a ``samples[]`` entry's keys do (:func:`sheet_options`).
-Thin layer over :func:`lakefeed.sources.samples.read_samples` / :func:`read_flow` and
-:func:`lakefeed.extract.load_estimation.compare_methods`. Prints one row per method: total
+Thin layer over :func:`lakefeed.stages.loads.compare_loads`. Prints one row per method: total
 load over the flow record (kg), mean daily load (kg d-1), uncertainty, sample count, warnings.
 With ``--out`` writes the chosen method's daily loads (``date, load, lower, upper, method``;
 kg d-1) or, for period estimators (Beale, flow-weighted mean), one row per period
@@ -15,7 +14,6 @@ CSV unless the file name ends in ``.parquet``.
 from __future__ import annotations
 
 import math
-import warnings
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -23,7 +21,7 @@ import typer
 from rich.markup import escape
 
 from lakefeed.cli._app import app, console, err_console
-from lakefeed.exceptions import ConfigError, ExtractError, LakefeedWarning, SourceError
+from lakefeed.exceptions import ConfigError, ExtractError
 
 if TYPE_CHECKING:  # heavy imports (pandas, scipy) happen inside the command, so `--help` stays fast
     import pandas as pd
@@ -152,8 +150,8 @@ def loads(
     """
     from rich.table import Table
 
-    from lakefeed.extract.load_estimation import LoadEstimate, align, compare_methods
-    from lakefeed.sources.samples import read_flow, read_samples
+    from lakefeed.extract.load_estimation import LoadEstimate
+    from lakefeed.stages.loads import compare_loads
 
     if period not in ("year", "record"):
         raise ExtractError(f"--period {period!r} is unknown; choose 'record' or 'year'")
@@ -161,21 +159,12 @@ def loads(
         raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHOD_NAMES)}")
     spec = sheet_options(units=units, column=column, date_format=date_format, sheet=sheet, separator=separator,
                          decimal=decimal)  # fmt: skip
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", LakefeedWarning)
-        table = read_samples(samples, spec, require_concentration=nutrient is None, station=station)
-        q = read_flow(flow)
-    for w in caught:
-        err_console.print(f"[yellow]warning:[/] {escape(str(w.message))}", highlight=False)
-    names = sorted(table["nutrient"].unique())
-    if nutrient is None and len(names) > 1:
-        raise SourceError(f"samples {samples}: several nutrients {names}; choose one with --nutrient")
-    chosen = nutrient.lower() if nutrient else names[0]
-    part = table[table["nutrient"] == chosen]
-    if part.empty:
-        raise SourceError(f"samples {samples}: no samples of nutrient {chosen!r}; nutrients are {names}")
-    align(part, q, where=f"samples {samples}")  # input errors (e.g. samples outside the flow record) stop here
-    results = compare_methods(part, q, period=period, seasonal=seasonal, trend=trend)
+    found = compare_loads(
+        samples, flow, sheet=spec, nutrient=nutrient, station=station, period=period, seasonal=seasonal, trend=trend
+    )
+    for w in found.warnings:
+        err_console.print(f"[yellow]warning:[/] {escape(w)}", highlight=False)
+    part, q, names, chosen, results = found.samples, found.flow, found.nutrients, found.nutrient, found.results
     title = (
         f"Loads from {len(part)} samples and {len(q)} days of flow "
         f"({q.index[0]:%Y-%m-%d}..{q.index[-1]:%Y-%m-%d})" + (f", {chosen}" if len(names) > 1 or nutrient else "")

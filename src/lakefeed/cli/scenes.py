@@ -1,15 +1,12 @@
 """`lakefeed scenes`: AOI statistics of a folder or catalogue of chlorophyll-a scenes, with acceptance.
 
-Parses arguments, reads the AOIs and the catalogue, and calls the same library functions as the
-`target` stage (:func:`lakefeed.stages.target.extract_observations`); writes one Parquet file with the
-``target_obs`` columns and their units. Holds no science.
+Parses arguments and calls :func:`lakefeed.stages.scenes.scenes_to_parquet` (the `target` stage's own
+code), which writes one Parquet file with the ``target_obs`` columns and their units. Holds no science.
 """
 
 from __future__ import annotations
 
-import re
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 import typer
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
@@ -17,24 +14,7 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, T
 from lakefeed.cli._app import app, console
 from lakefeed.exceptions import ConfigError
 
-if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
-    import pandas as pd
-
-__all__ = ["scenes", "write_parquet"]
-
-
-def write_parquet(frame: pd.DataFrame, path: Path, units: dict[str, str]) -> None:
-    """Write ``frame`` to ``path`` with each column's unit in its Arrow field metadata (``unit``)."""
-    import pyarrow as pa
-    import pyarrow.parquet as pq
-
-    table = pa.Table.from_pandas(frame, preserve_index=False)
-    fields = [f.with_metadata({b"unit": units[f.name].encode()}) if f.name in units else f for f in table.schema]
-    table = table.cast(pa.schema(fields, metadata=table.schema.metadata))
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp")
-    pq.write_table(table, tmp)
-    tmp.replace(path)
+__all__ = ["scenes"]
 
 
 @app.command("scenes")
@@ -79,38 +59,12 @@ def scenes(
     Quality flags: with --bad-quality-bits only those bits are bad, else any non-zero flag counts as bad
     (0 = clear). Pixels count for an AOI when their centre lies inside it.
     """
-    from pydantic import ValidationError
+    from lakefeed.stages.scenes import scenes_to_parquet
 
-    from lakefeed.config.lake import TargetOptions
-    from lakefeed.config.sources import SceneSource
-    from lakefeed.sources.scenes import SceneReader, list_scenes
-    from lakefeed.sources.vectors import read_layer
-    from lakefeed.stages.target import OBS_UNITS, extract_observations
-
-    if out.suffix.lower() != ".parquet":
-        raise ConfigError(f"--out {out}: give a file name ending in .parquet")
     try:
-        options = TargetOptions(min_valid_fraction=min_valid_fraction)
         bits = [int(b) for b in bad_quality_bits.split(",") if b.strip()] if bad_quality_bits else []
-        if any(not 0 <= b < 64 for b in bits):
-            raise ValueError(f"quality bits must lie in 0..63; got {bits}")
     except ValueError as err:
         raise ConfigError(f"invalid option: {err}") from err
-    where = (
-        {"folder": str(catalog), "filename_pattern": filename_pattern}
-        if filename_pattern
-        else {"catalog": str(catalog)}
-    )
-    try:  # the pattern's rules are the config's (scenes.filename_pattern), so both say the same
-        source = SceneSource(**where, asset=asset, quality_asset=quality_asset, uncertainty_asset=uncertainty_asset)
-    except ValidationError as err:
-        reason = "; ".join(str(e["msg"]).removeprefix("Value error, ") for e in err.errors())
-        raise ConfigError(f"--filename-pattern: {reason}") from None
-    layer = read_layer(aois, what="areas of interest", id_field=id_field)
-    lake_layer = read_layer(lake, what="lake polygon") if lake is not None else None
-    reader = SceneReader(layer, id_field=id_field, lake=lake_layer)
-    table = list_scenes(source)
-    label = lake_id or re.sub(r"[^a-z0-9_-]+", "-", aois.stem.lower()).strip("-") or "lake"
     with Progress(
         TextColumn("[bold]{task.description}"),
         BarColumn(),
@@ -119,22 +73,28 @@ def scenes(
         console=console,
         transient=False,
     ) as bar:
-        task = bar.add_task("reading scenes", total=len(table))
+        task = bar.add_task("reading scenes", total=None)
 
         def progress(description: str, done: int, total: int) -> None:
             bar.update(task, completed=done, total=total, description=description)
 
-        obs = extract_observations(
-            table,
-            reader,
-            lake=label,
+        obs = scenes_to_parquet(
+            catalog,
+            aois,
+            out,
+            id_field=id_field,
+            lake=lake,
+            lake_id=lake_id,
             timezone=timezone,
-            options=options,
+            asset=asset,
+            quality_asset=quality_asset,
+            uncertainty_asset=uncertainty_asset,
+            filename_pattern=filename_pattern,
             shore_buffer_m=shore_buffer,
-            bad_quality_bits=bits or None,
+            min_valid_fraction=min_valid_fraction,
+            bad_quality_bits=bits,
             progress=progress,
         )
-    write_parquet(obs, out, OBS_UNITS)
     n_scenes = obs["scene_id"].nunique()
     console.print(
         f"{len(obs)} AOI-scene rows from {n_scenes} scenes: {int(obs['accepted'].sum())} accepted, "

@@ -1,10 +1,8 @@
 """`lakefeed zonal`: exact area-weighted zonal series of gridded files for any polygon layer.
 
-Parses arguments and calls the same library code as the weather stage
-(:func:`lakefeed.stages.weather.zonal_long`, :func:`~lakefeed.stages.weather.hourly_drivers`,
-:func:`lakefeed.extract.daily.to_daily`). Without ``--daily``: a long table (zone, time,
-variable, value, unit, valid_fraction) at the grid's own time steps. With ``--daily``: the
-``drivers_daily`` columns on local calendar days of ``--tz``.
+Parses arguments and calls :func:`lakefeed.stages.zonal.zonal_to_parquet` (the weather stage's code).
+Without ``--daily``: a long table (zone, time, variable, value, unit, valid_fraction) at the grid's own
+time steps. With ``--daily``: the ``drivers_daily`` columns on local calendar days of ``--tz``.
 """
 
 from __future__ import annotations
@@ -43,28 +41,10 @@ def zonal(
     ),
 ) -> None:
     """Area-weighted means of every grid variable over every polygon (exact coverage x cell area)."""
-    import geopandas as gpd
+    from lakefeed.stages.weather import use_processes
+    from lakefeed.stages.zonal import zonal_to_parquet
 
-    from lakefeed.config.sources import Accumulation
-    from lakefeed.exceptions import ConfigError
-    from lakefeed.geometry.zones import to_crs
-    from lakefeed.sources.grids import open_grid
-    from lakefeed.sources.vectors import read_layer
-    from lakefeed.stages.weather import get_weights, hourly_drivers, use_processes, zonal_long
-    from lakefeed.store._meta import schema_with_units
-
-    if accumulation not in ("none", "since_reset", "per_step"):
-        raise ConfigError(f"--accumulation {accumulation!r}: use none, since_reset or per_step")
     _check_arguments(grid, zones, tz, reset_hour)
-    acc = Accumulation(kind=accumulation, reset_hour=reset_hour)  # type: ignore[arg-type]
-    g = open_grid(grid, on_error="skip" if skip_bad_files else "raise")
-    for msg in g.skipped:
-        console.print(f"[yellow]left out:[/yellow] {msg}")
-    layer = read_layer(zones, what="zones", id_field=id_field)
-    layer = to_crs(layer, g.crs, what="zones")
-    zgdf = gpd.GeoDataFrame({"zone": layer[id_field].astype(str).to_numpy()}, geometry=layer.geometry.values, crs=g.crs)
-    weights, cached = get_weights(zgdf, g, cache_dir=weights_cache, allow_partial_coverage=allow_partial)
-    console.print(f"{len(zgdf)} zones, {len(g.files)} file(s), weights {'from cache' if cached else 'computed'}")
     # decided before the progress bar starts its refresh thread (the workers never touch the console)
     processes = use_processes() if processes is None else processes
     with Progress(
@@ -80,30 +60,26 @@ def zonal(
         def progress(description: str, done: int, total: int) -> None:
             bar.update(task, description=description, completed=done, total=total)
 
-        if daily:  # imported only here: the daily aggregation's modules are not needed for the long table
-            from lakefeed.config.sources import WeatherSource
-            from lakefeed.extract.daily import DAILY_UNITS, to_daily
-            from lakefeed.geometry.zones import zone_latitudes
-
-            source = WeatherSource(paths=[], accumulation={"precipitation": acc, "shortwave_radiation": acc})
-            hourly, _clipped = hourly_drivers(g, weights, source=source, progress=progress)
-            flags = {z: weights.flags(z) for z in weights.zones}
-            frame = to_daily(hourly, tz=tz, latitude=zone_latitudes(zgdf), zone_flags=flags)
-            frame["date"] = frame["date"].dt.date
-            units = DAILY_UNITS
-        else:
-            frame = zonal_long(g, weights, accumulation=acc, progress=progress, processes=processes)
-            units = {"value": "see unit column", "valid_fraction": "1"}
-    import pyarrow as pa
-    import pyarrow.parquet as pq
-
-    table = pa.Table.from_pandas(frame, preserve_index=False)
-    table = table.cast(schema_with_units(table, units, {}, {"grid_signature": weights.signature}))
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(f".{out.name}.tmp")
-    pq.write_table(table, tmp)
-    tmp.replace(out)
-    console.print(f"wrote {len(frame)} rows to {out}")
+        written = zonal_to_parquet(
+            grid,
+            zones,
+            out,
+            id_field=id_field,
+            daily=daily,
+            tz=tz,
+            accumulation=accumulation,
+            reset_hour=reset_hour,
+            allow_partial=allow_partial,
+            weights_cache=weights_cache,
+            skip_bad_files=skip_bad_files,
+            processes=processes,
+            progress=progress,
+        )
+    for msg in written.skipped:
+        console.print(f"[yellow]left out:[/yellow] {msg}")
+    cached = "from cache" if written.weights_cached else "computed"
+    console.print(f"{written.zones} zones, {written.files} file(s), weights {cached}")
+    console.print(f"wrote {written.rows} rows to {written.path}")
 
 
 def _check_arguments(grid: list[str], zones: Path, tz: str, reset_hour: int) -> None:

@@ -4,6 +4,7 @@ Takes YAML files; returns :class:`Project` objects (a lake with its sources). On
 :mod:`lakefeed.config._load` touches files. The core never sees raw dicts or paths.
 """
 
+from lakefeed.config._base import LayerRef
 from lakefeed.config._load import Project, find_lake_files, load_lake, load_project, load_projects, load_sources
 from lakefeed.config.lake import (
     AoiLayer,
@@ -35,6 +36,7 @@ __all__ = [
     "ForecastSource",
     "HydrologySource",
     "LakeConfig",
+    "LayerRef",
     "Project",
     "SampleSheet",
     "SampleStation",

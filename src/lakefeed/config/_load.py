@@ -64,11 +64,6 @@ def expand_env(text: str, *, where: str = "") -> str:
     return _ENV.sub(repl, text)
 
 
-def _read_yaml(path: Path) -> dict[str, Any]:
-    """Parse a YAML mapping (see :func:`lakefeed.config._yaml.read_yaml`)."""
-    return read_yaml(path)[0]
-
-
 def _fields_at(model: type[BaseModel], loc: tuple[Any, ...]) -> list[str]:
     """Field names allowed at ``loc`` (for did-you-mean), walking nested models."""
     current: Any = model
@@ -142,7 +137,6 @@ def _resolve_paths(data: Any, base: Path, where: str, problems: list[str], key: 
 
 
 _PATH_KEYS = {"path", "paths", "sources", "catalog", "folder", "flow_path", "store"}
-_PATH_KEYS_IN_MAPS = {"files"}
 
 
 def _resolve_file_maps(data: dict[str, Any], base: Path) -> None:

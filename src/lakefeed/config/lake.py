@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import re
+from dataclasses import dataclass
 from datetime import date
 from pathlib import Path
 from typing import Literal
@@ -143,12 +144,29 @@ class Threshold(StrictModel):
 Statistic = Literal["mean", "sum", "min", "max"]
 
 
+@dataclass(frozen=True)
+class WindowDefaults:
+    """Defaults of the antecedent-window options, shared by :class:`FeatureOptions` and the features core.
+
+    ``windows``: lengths in days; ``include_target_day``: whether a window ends on the target day;
+    ``max_missing_fraction``: largest fraction of missing days a window may have (0..1).
+    """
+
+    windows: tuple[int, ...] = (1, 3, 5, 7, 10, 15, 30)
+    include_target_day: bool = False
+    max_missing_fraction: float = 0.2
+
+
+#: The one source of the window defaults (:class:`lakefeed.features.window_plan.WindowPlan` and the config).
+WINDOW_DEFAULTS = WindowDefaults()
+
+
 class FeatureOptions(StrictModel):
     """Antecedent windows, leads, folds. Window lengths and embargo are in days."""
 
-    windows: list[int] = Field(default_factory=lambda: [1, 3, 5, 7, 10, 15, 30])
-    include_target_day: bool = False
-    max_missing_fraction: float = Field(default=0.2, ge=0, le=1)
+    windows: list[int] = Field(default_factory=lambda: list(WINDOW_DEFAULTS.windows))
+    include_target_day: bool = WINDOW_DEFAULTS.include_target_day
+    max_missing_fraction: float = Field(default=WINDOW_DEFAULTS.max_missing_fraction, ge=0, le=1)
     drivers: dict[str, list[Statistic]] | None = None
     leads: list[int] = Field(default_factory=lambda: [0])
     forecast_leads: list[int] = Field(default_factory=lambda: [1, 3, 5, 10])

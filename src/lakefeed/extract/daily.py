@@ -5,7 +5,7 @@ units: ``air_temperature`` and ``dewpoint`` (degC, instantaneous at the stamp),
 ``wind_speed`` (m s-1, the zonal mean of hourly cell speeds from u and v), ``precipitation``
 (mm per step) and ``shortwave_radiation`` (W m-2, mean over the step), both labelled at the
 end of their step, and optionally ``valid_fraction`` (0..1). Returns a pandas DataFrame with
-the ``drivers_daily`` columns of DESIGN.md (without ``lake``): zone, date, ... , flags.
+the ``drivers_daily`` columns of docs/architecture.md ("Store tables"; without ``lake``): zone, date, ... , flags.
 
 Day assignment: an instantaneous value belongs to the local day of its stamp; an amount or
 mean over a step belongs to the local day in which the step starts (stamp minus step), so

@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.exceptions import ExtractError
+from lakefeed.extract.quantile_groups import Season, lead_group_of, quantile_nodes, season_copies, season_of
 
 __all__ = [
     "DEFAULT_KINDS",
@@ -54,63 +55,8 @@ DEFAULT_KINDS: dict[str, Literal["+", "*"]] = {
 #: Columns that get the wet-day threshold and frequency adaptation.
 WET_DAY_VARIABLES: tuple[str, ...] = ("precipitation_sum",)
 
-Season = Literal["month", "doy", "none"]
 KEYS = ["variable", "zone", "lead_min", "lead_max", "season"]
 _TABLE_NUMBERS = ("quantile", "hist", "ref", "factor", "wet_threshold", "dry_fraction_hist", "dry_fraction_ref")
-
-
-def quantile_nodes(n: int) -> np.ndarray:
-    """Equally spaced probability nodes ``(i + 0.5) / n``, i = 0..n-1 (as xsdba's ``equally_spaced_nodes``)."""
-    if n < 2:
-        raise ExtractError(f"quantile mapping needs at least 2 quantile nodes; got {n}")
-    return (np.arange(n) + 0.5) / n
-
-
-def lead_group_of(leads: Sequence[int] | np.ndarray, lead_groups: Sequence[Sequence[int]] | None) -> np.ndarray:
-    """Map lead days to ``(lead_min, lead_max)`` of their group (each lead its own group when none).
-
-    Returns an (n, 2) integer array; leads in no configured group get their own one-lead group.
-    """
-    leads = np.asarray(leads, dtype=int)
-    out = np.stack([leads, leads], axis=1)
-    for group in lead_groups or []:
-        lo, hi = min(group), max(group)
-        inside = np.isin(leads, list(group))
-        out[inside] = (lo, hi)
-    return out
-
-
-def _season_copies(
-    dates: pd.Series, season: Season, month_window: int, doy_window: int, doy_step: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """Row positions and season labels: each row goes to every season whose window contains it."""
-    n = len(dates)
-    idx = np.arange(n)
-    if season == "none":
-        return idx, np.zeros(n, dtype=int)
-    if season == "month":
-        month = pd.DatetimeIndex(dates).month.to_numpy()
-        offs = np.arange(-month_window, month_window + 1)
-        labels = ((month[None, :] - 1 + offs[:, None]) % 12) + 1
-        return np.tile(idx, len(offs)), labels.ravel()
-    doy = pd.DatetimeIndex(dates).dayofyear.to_numpy()
-    anchors = np.arange(1, 367, doy_step)
-    dist = np.abs(doy[None, :] - anchors[:, None])
-    dist = np.minimum(dist, 366 - dist)
-    a, r = np.nonzero(dist <= doy_window)
-    return r, anchors[a]
-
-
-def _season_of(dates: pd.Series, season: Season, anchors: np.ndarray) -> np.ndarray:
-    """Season label of each date: 0 (none), the calendar month, or the nearest day-of-year anchor (cyclic)."""
-    if season == "none" or (season == "doy" and anchors.size == 0):
-        return np.zeros(len(dates), dtype=int)
-    if season == "month":
-        return pd.DatetimeIndex(dates).month.to_numpy()
-    doy = pd.DatetimeIndex(dates).dayofyear.to_numpy()
-    dist = np.abs(doy[:, None] - anchors[None, :])
-    dist = np.minimum(dist, 366 - dist)
-    return anchors[np.argmin(dist, axis=1)]
 
 
 def _pairs(forecast: pd.DataFrame, reference: pd.DataFrame, variables: Sequence[str]) -> pd.DataFrame:
@@ -193,7 +139,7 @@ def fit_quantile_mapping(
     pairs = _pairs(forecast, reference, variables)
     groups = lead_group_of(pairs["lead_days"].to_numpy(), lead_groups)
     pairs = pairs.assign(lead_min=groups[:, 0], lead_max=groups[:, 1])
-    rows, labels = _season_copies(pairs["date"], season, month_window, doy_window, doy_step)
+    rows, labels = season_copies(pairs["date"], season, month_window, doy_window, doy_step)
     expanded = pairs.iloc[rows].assign(season=labels)
     if pooled and season != "none":
         expanded = pd.concat([expanded, pairs.assign(season=0)], ignore_index=True)
@@ -379,7 +325,7 @@ def apply_quantile_mapping(
             "zone": forecast["zone"].to_numpy(),
             "lead_min": lead_min,
             "lead_max": lead_max,
-            "season": _season_of(forecast["date"], season, np.sort(table.loc[table["season"] > 0, "season"].unique())),
+            "season": season_of(forecast["date"], season, np.sort(table.loc[table["season"] > 0, "season"].unique())),
         }
     )
     u = _row_uniform(forecast["zone"].to_numpy(), forecast["date"], leads)

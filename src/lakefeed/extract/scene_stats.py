@@ -1,8 +1,8 @@
 """AOI statistics of one scene: masking rules and summary statistics (pure numpy / shapely).
 
 Takes the pixels of one AOI in one scene (1-D arrays of chlorophyll-a in mg m-3, quality flags,
-relative uncertainty) and returns the AOI's statistics; also the inward shoreline buffer of the
-AOI polygons (shapely, in a metric CRS). Must not open files.
+relative uncertainty) and returns the AOI's statistics (the AOIs' inward shoreline buffer is
+:func:`lakefeed.geometry.zones.shore_buffered`). Must not open files.
 
 Rules, in order: nodata and non-finite values; bad quality (configured bits or values; with none
 configured, any non-zero flag is bad: 0 means clear); values outside the valid range. The valid
@@ -14,43 +14,13 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-import geopandas as gpd
 import numpy as np
-import shapely
 
-__all__ = ["STAT_COLUMNS", "aoi_statistics", "shore_buffered", "valid_mask"]
+__all__ = ["STAT_COLUMNS", "aoi_statistics", "valid_mask"]
 
 #: Statistic columns returned by :func:`aoi_statistics` (values in the scene's units, mg m-3;
 #: ``cv``, ``valid_fraction`` and ``uncertainty`` dimensionless).
 STAT_COLUMNS = ["median", "mean", "p10", "p90", "std", "cv", "n_valid", "valid_fraction", "uncertainty"]
-
-
-def shore_buffered(aois: gpd.GeoSeries, lake: shapely.Geometry | None, buffer_m: float) -> gpd.GeoSeries:
-    """AOIs shrunk by an inward shoreline buffer.
-
-    Parameters
-    ----------
-    aois
-        AOI polygons in a projected CRS whose unit is the metre.
-    lake
-        Lake polygon in the same CRS: the buffer moves the shoreline inward by ``buffer_m`` and
-        each AOI is intersected with what is left. None: each AOI is buffered inward from its own
-        boundary.
-    buffer_m
-        Buffer distance in metres (>= 0).
-
-    Returns
-    -------
-    GeoSeries with the same index and CRS; an AOI wholly inside the buffer becomes empty.
-    """
-    if buffer_m < 0:
-        raise ValueError(f"shore buffer must be >= 0 m; got {buffer_m}")
-    if buffer_m == 0:
-        return aois.copy()
-    if lake is None:
-        return aois.buffer(-buffer_m)
-    inner = shapely.buffer(lake, -buffer_m)
-    return aois.intersection(inner)
 
 
 def valid_mask(

@@ -16,17 +16,10 @@ from lakefeed.features.folds import (
     random_folds,
 )
 from lakefeed.features.incremental import new_feature_rows, refresh_feature_rows, refresh_start
-from lakefeed.features.pit import FLAG_CODES, build_feature_rows, calendar_features, forecast_array, persistence
-from lakefeed.features.windows import (
-    STATISTICS,
-    WindowPlan,
-    default_statistics,
-    feature_name,
-    gather_windows,
-    reduce_windows,
-    to_daily,
-    window_features,
-)
+from lakefeed.features.pit import build_feature_rows
+from lakefeed.features.rows import FLAG_CODES, calendar_features, forecast_array
+from lakefeed.features.window_plan import STATISTICS, WindowPlan, default_statistics, feature_name
+from lakefeed.features.windows import complete_calendar, gather_windows, reduce_windows, window_features
 
 __all__ = [
     "EMBARGOED",
@@ -38,6 +31,7 @@ __all__ = [
     "blocked_folds",
     "build_feature_rows",
     "calendar_features",
+    "complete_calendar",
     "date_hash_folds",
     "default_statistics",
     "feature_name",
@@ -45,12 +39,10 @@ __all__ = [
     "forecast_array",
     "gather_windows",
     "new_feature_rows",
-    "persistence",
     "random_folds",
     "reduce_windows",
     "refresh_feature_rows",
     "refresh_start",
     "sampling_diagnostics",
-    "to_daily",
     "window_features",
 ]

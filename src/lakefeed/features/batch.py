@@ -29,8 +29,9 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.exceptions import FeatureError
-from lakefeed.features.pit import FeatureBlock, calendar_features, flag_strings, forecast_array, last_known
-from lakefeed.features.windows import WindowPlan, day_numbers, on_or_after, reduce_windows, to_daily
+from lakefeed.features.rows import FeatureBlock, calendar_features, flag_strings, forecast_array, last_known
+from lakefeed.features.window_plan import WINDOW_DEFAULTS, WindowPlan
+from lakefeed.features.windows import complete_calendar, day_numbers, on_or_after, reduce_windows
 
 __all__ = ["Chunk", "Series", "feature_block_many", "iter_feature_blocks"]
 
@@ -100,10 +101,10 @@ class Chunk:
 def iter_feature_blocks(
     series: Sequence[Series],
     *,
-    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    windows: Sequence[int] = WINDOW_DEFAULTS.windows,
     stats: Mapping[str, Sequence[str]] | None = None,
-    include_target_day: bool = False,
-    max_missing_fraction: float = 0.2,
+    include_target_day: bool = WINDOW_DEFAULTS.include_target_day,
+    max_missing_fraction: float = WINDOW_DEFAULTS.max_missing_fraction,
     by: str | None = "aoi",
     value: str = "chla",
     max_cells: int = _MAX_CELLS,
@@ -138,7 +139,8 @@ def iter_feature_blocks(
     if by is not None and not all(by in s.targets.columns for s in series):
         by = None
     prepared, segments, columns = _prepare(series, windows, by=by, value=value)
-    plan = WindowPlan.build(columns, windows=windows, stats=stats)
+    options: dict[str, Any] = {"include_target_day": include_target_day, "max_missing_fraction": max_missing_fraction}
+    plan = WindowPlan.build(columns, windows=windows, stats=stats, **options)
     per_row = max(plan.windows) * max(1, len(columns))
     start = 0
     while start < len(series):
@@ -146,9 +148,7 @@ def iter_feature_blocks(
         while stop < len(series) and (stop == start or cells + len(prepared[stop].tdays) * per_row <= max_cells):
             cells += len(prepared[stop].tdays) * per_row
             stop += 1
-        block = _block(series[start:stop], prepared[start:stop], segments, columns, plan,
-                       include_target_day=include_target_day, max_missing_fraction=max_missing_fraction, by=by,
-                       value=value)  # fmt: skip
+        block = _block(series[start:stop], prepared[start:stop], segments, columns, plan, by=by, value=value)
         sizes = np.array([0] + [len(p.tdays) for p in prepared[start:stop]], dtype=np.int64)
         yield Chunk(block=block, first=start, bounds=np.cumsum(sizes))
         start = stop
@@ -240,7 +240,7 @@ def _prepare(
 def _segment(drivers: pd.DataFrame, earliest: int | None) -> tuple[_Segment, list[str]]:
     """The numeric drivers on a complete daily calendar, used from day ``earliest`` on (None: all)."""
     numeric = drivers if all(dt.kind in "fiu" for dt in drivers.dtypes) else drivers.select_dtypes("number")
-    daily = to_daily(numeric)
+    daily = complete_calendar(numeric)
     first = int(daily.index[0].to_datetime64().astype("datetime64[D]").astype(np.int64)) if len(daily) else 0
     start = 0 if earliest is None else min(max(earliest - first, 0), len(daily))  # a complete calendar: positions
     return _Segment(frame=daily, start=start, first=first + start), list(daily.columns)
@@ -253,13 +253,11 @@ def _block(
     columns: list[str],
     plan: WindowPlan,
     *,
-    include_target_day: bool,
-    max_missing_fraction: float,
     by: str | None,
     value: str,
 ) -> FeatureBlock:
-    """The rows of a chunk of series (see :func:`feature_block_many`)."""
-    shift = 1 if include_target_day else 0
+    """The rows of a chunk of series (see :func:`feature_block_many`); window options from ``plan``."""
+    shift = 1 if plan.include_target_day else 0
     k_max = max(plan.windows)
     used = sorted({p.segment for p in prepared})
     offset = np.zeros(len(segments), dtype=np.int64)
@@ -293,9 +291,10 @@ def _block(
     used_forecast = np.zeros(len(uniq), dtype=bool)
     if after.any():
         gathered[after] = np.nan
-        _fill_forecasts(gathered, after, series, prepared, u_src, u_end, u_lead, first[u_seg], columns, shift)
-        used_forecast = _forecast_used(gathered, after, series, prepared, u_src)
-    values, incomplete = reduce_windows(gathered, plan, columns, max_missing_fraction=max_missing_fraction)
+        used_forecast = _fill_forecasts(
+            gathered, after, series, prepared, u_src, u_end, u_lead, first[u_seg], columns, shift
+        )
+    values, incomplete = reduce_windows(gathered, plan, columns)
     last = u_end - 1
     outside = (last < 0) | (last >= length[u_seg])
 
@@ -344,8 +343,10 @@ def _fill_forecasts(
     u_first: np.ndarray,
     columns: list[str],
     shift: int,
-) -> None:
-    """Fill the days after issue from each series' forecasts issued on its issue date (in place)."""
+) -> np.ndarray:
+    """Fill the days after issue from each series' forecasts issued on its issue date (in place); returns
+    whether forecast values filled any day after issue, per distinct row."""
+    used = np.zeros(gathered.shape[1], dtype=bool)
     done: set[int] = set()
     for s, p in zip(series, prepared, strict=True):
         if s.forecast_drivers is None or p.source in done:
@@ -363,17 +364,8 @@ def _fill_forecasts(
         filled = fc[np.arange(len(sel))[None, :], o]  # (k_max, rows, drivers)
         part = gathered[:, sel]
         gathered[:, sel] = np.where(after[:, sel, None], filled, part)
-
-
-def _forecast_used(
-    gathered: np.ndarray, after: np.ndarray, series: Sequence[Series], prepared: Sequence[_Prepared], u_src: np.ndarray
-) -> np.ndarray:
-    """Whether forecast values filled any day after issue, per distinct row."""
-    with_fc = {p.source for s, p in zip(series, prepared, strict=True) if s.forecast_drivers is not None}
-    if not with_fc:
-        return np.zeros(gathered.shape[1], dtype=bool)
-    has = np.isin(u_src, list(with_fc))
-    return has & (after[:, :, None] & np.isfinite(gathered)).any(axis=(0, 2))
+        used[sel] = (after[:, sel, None] & np.isfinite(gathered[:, sel])).any(axis=(0, 2))
+    return used
 
 
 def _joined(parts: list[np.ndarray]) -> np.ndarray:

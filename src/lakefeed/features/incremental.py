@@ -24,6 +24,7 @@ import pandas as pd
 
 from lakefeed.features.batch import Series, feature_block_many
 from lakefeed.features.pit import FeatureBlock
+from lakefeed.features.window_plan import WINDOW_DEFAULTS
 from lakefeed.features.windows import as_dates, day_numbers, on_or_after
 
 __all__ = ["new_feature_block", "new_feature_rows", "prefix_digest", "refresh_feature_rows", "refresh_start"]
@@ -75,7 +76,7 @@ def new_feature_block(
     *,
     since: object,
     lead: int = 0,
-    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    windows: Sequence[int] = WINDOW_DEFAULTS.windows,
     **options: object,
 ) -> FeatureBlock:
     """As :func:`new_feature_rows`, as a :class:`~lakefeed.features.pit.FeatureBlock` (no pandas frame

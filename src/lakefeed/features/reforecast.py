@@ -27,11 +27,12 @@ import pandas as pd
 
 from lakefeed.exceptions import FeatureError
 from lakefeed.features.batch import Series, iter_feature_blocks
+from lakefeed.features.window_plan import WINDOW_DEFAULTS
 
 __all__ = ["forecast_days", "reforecast_rows"]
 
 
-def forecast_days(lead: int, *, include_target_day: bool = False) -> int:
+def forecast_days(lead: int, *, include_target_day: bool = WINDOW_DEFAULTS.include_target_day) -> int:
     """Days of the antecedent windows (counted back from the target) that lie after the issue date."""
     return max(0, lead - 1 + (1 if include_target_day else 0))
 
@@ -42,10 +43,10 @@ def reforecast_rows(
     forecast_drivers: pd.DataFrame,
     *,
     leads: Sequence[int] = (1, 3, 5, 10),
-    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    windows: Sequence[int] = WINDOW_DEFAULTS.windows,
     stats: Mapping[str, Sequence[str]] | None = None,
-    include_target_day: bool = False,
-    max_missing_fraction: float = 0.2,
+    include_target_day: bool = WINDOW_DEFAULTS.include_target_day,
+    max_missing_fraction: float = WINDOW_DEFAULTS.max_missing_fraction,
     by: str | None = "aoi",
     value: str = "chla",
 ) -> pd.DataFrame:

@@ -10,7 +10,7 @@ How: each target's longest window is gathered exactly (a fancy-index gather of t
 accumulating *outward from the target day*, one day at a time for all targets and drivers, so
 every shorter window is a prefix of the longest one. This is O(targets x k_max) per driver,
 linear in the length of the record, and exact: a dry spell sums to exactly 0 (a cumulative sum
-over the whole record would drift, see PITFALLS "Antecedent windows"). Missing days are NaN;
+over the whole record would drift, see docs/architecture.md, "Pitfalls"). Missing days are NaN;
 ``min``/``max`` ignore them, ``sum`` adds the valid days and ``mean`` divides by their count.
 
 Windows end the day before the target date by default (``include_target_day=False``): the
@@ -24,136 +24,25 @@ Pure: no file I/O. Must not loop over rows in Python.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
-from functools import cached_property
 
 import numpy as np
 import pandas as pd
 
 from lakefeed.exceptions import FeatureError
+from lakefeed.features.window_plan import STATISTICS, WINDOW_DEFAULTS, WindowPlan
 
 __all__ = [
-    "STATISTICS",
-    "WindowPlan",
     "as_dates",
+    "complete_calendar",
     "day_numbers",
-    "default_statistics",
-    "feature_name",
     "gather_windows",
     "on_or_after",
     "reduce_windows",
-    "to_daily",
     "window_features",
 ]
 
-#: Statistics a window can be summarised by.
-STATISTICS = ("mean", "sum", "min", "max")
 
-_PLANS: dict[tuple, WindowPlan] = {}
-
-
-def feature_name(column: str, stat: str, k: int) -> str:
-    """Name of a window feature: ``<driver column>__<stat>_<k>d`` (e.g. ``tp_load__sum_10d``)."""
-    return f"{column}__{stat}_{k}d"
-
-
-def default_statistics(column: str) -> list[str]:
-    """Statistics used for a driver column when the configuration names none.
-
-    Sums for precipitation and loads (amounts accumulate), mean/min/max for temperatures,
-    the mean for everything else (radiation, wind, humidity, discharge, concentrations).
-    """
-    words = set(column.lower().split("_"))
-    if words & {"precipitation", "precip", "load", "sum"}:
-        return ["sum"]
-    if words & {"temperature", "dewpoint"}:
-        return ["mean", "min", "max"]
-    return ["mean"]
-
-
-@dataclass(frozen=True)
-class WindowPlan:
-    """Which windows and statistics to compute for which driver columns.
-
-    ``windows`` in days (positive, sorted, unique); ``stats`` maps driver column -> statistics.
-    """
-
-    windows: tuple[int, ...]
-    stats: Mapping[str, tuple[str, ...]]
-
-    @classmethod
-    def build(
-        cls,
-        columns: Sequence[str],
-        *,
-        windows: Sequence[int],
-        stats: Mapping[str, Sequence[str]] | None = None,
-    ) -> WindowPlan:
-        """Validate windows and statistics; columns without configured statistics get the defaults.
-
-        Plans are cached by their arguments (a refresh builds the same plan for every lake and lead).
-        """
-        try:
-            key = (tuple(columns), tuple(windows), tuple((k, tuple(v)) for k, v in (stats or {}).items()))
-            hash(key)
-        except TypeError:
-            return cls._build(columns, windows=windows, stats=stats)
-        plan = _PLANS.get(key)
-        if plan is None:
-            plan = cls._build(columns, windows=windows, stats=stats)
-            if len(_PLANS) > 256:
-                _PLANS.clear()
-            _PLANS[key] = plan
-        return plan
-
-    @classmethod
-    def _build(
-        cls,
-        columns: Sequence[str],
-        *,
-        windows: Sequence[int],
-        stats: Mapping[str, Sequence[str]] | None = None,
-    ) -> WindowPlan:
-        ws = [int(w) for w in windows]
-        bad = [w for w in ws if w <= 0]
-        if bad or not ws:
-            raise FeatureError(
-                f"antecedent window lengths must be positive whole days; got {list(windows)}. "
-                "Fix features.windows in the lake configuration (e.g. [1, 3, 7, 30])."
-            )
-        plan: dict[str, tuple[str, ...]] = {}
-        for c in columns:
-            chosen = list((stats or {}).get(c) or default_statistics(c))
-            unknown = [s for s in chosen if s not in STATISTICS]
-            if unknown:
-                raise FeatureError(f"driver {c!r}: unknown statistic(s) {unknown}; use any of {list(STATISTICS)}")
-            plan[c] = tuple(dict.fromkeys(chosen))
-        return cls(windows=tuple(sorted(set(ws))), stats=plan)
-
-    @cached_property
-    def names(self) -> list[str]:
-        """Feature column names in output order (driver, statistic, window)."""
-        return [feature_name(c, s, k) for c, ss in self.stats.items() for s in ss for k in self.windows]
-
-    def layout(self, columns: Sequence[str]) -> np.ndarray | None:
-        """Positions of the features in the (drivers, statistics, windows) result block, or None when
-        the block is already in :attr:`names` order (cached per driver column order)."""
-        key = tuple(columns)
-        cache = self.__dict__.setdefault("_layouts", {})
-        if key not in cache:
-            n_w, n_s = len(self.windows), len(STATISTICS)
-            col_pos = {c: i for i, c in enumerate(columns)}
-            si = {s: i for i, s in enumerate(STATISTICS)}
-            flat = np.array(
-                [(col_pos[c] * n_s + si[s]) * n_w + w for c, ss in self.stats.items() for s in ss for w in range(n_w)],
-                dtype=np.int64,
-            )
-            whole = len(flat) == len(columns) * n_s * n_w and (flat == np.arange(len(flat))).all()
-            cache[key] = None if whole else flat
-        return cache[key]
-
-
-def to_daily(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.DataFrame:
+def complete_calendar(drivers: pd.DataFrame, *, date_column: str | None = None) -> pd.DataFrame:
     """A complete daily calendar: one row per day from the first to the last date, gaps as NaN.
 
     ``drivers`` has a DatetimeIndex of local calendar dates (or a ``date_column``). Duplicate
@@ -244,7 +133,7 @@ def reduce_windows(
     plan: WindowPlan,
     columns: Sequence[str],
     *,
-    max_missing_fraction: float = 0.2,
+    max_missing_fraction: float | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Reduce gathered windows to the features of ``plan``.
 
@@ -257,9 +146,9 @@ def reduce_windows(
     gathered
         (k_max, targets, drivers) from :func:`gather_windows` (NaN = missing day).
     plan
-        Windows and statistics; ``columns`` names the drivers along the last axis.
+        Windows, statistics and options; ``columns`` names the drivers along the last axis.
     max_missing_fraction
-        A window with more than ``max_missing_fraction * k`` missing days is missing.
+        A window with more than ``max_missing_fraction * k`` missing days is missing; None: the plan's.
 
     Returns
     -------
@@ -267,6 +156,8 @@ def reduce_windows(
         (targets, features) float64 and bool arrays in ``plan.names`` order; ``incomplete``
         marks values set missing because the window had too many missing days.
     """
+    if max_missing_fraction is None:
+        max_missing_fraction = plan.max_missing_fraction
     _, t, d = gathered.shape
     needed = {s for ss in plan.stats.values() for s in ss}
     n_w, n_s = len(plan.windows), len(STATISTICS)
@@ -347,10 +238,10 @@ def window_features(
     drivers: pd.DataFrame,
     target_dates: Sequence[object] | pd.DatetimeIndex,
     *,
-    windows: Sequence[int] = (1, 3, 5, 7, 10, 15, 30),
+    windows: Sequence[int] = WINDOW_DEFAULTS.windows,
     stats: Mapping[str, Sequence[str]] | None = None,
-    include_target_day: bool = False,
-    max_missing_fraction: float = 0.2,
+    include_target_day: bool = WINDOW_DEFAULTS.include_target_day,
+    max_missing_fraction: float = WINDOW_DEFAULTS.max_missing_fraction,
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Antecedent-window features of daily drivers at (irregular) target dates.
 
@@ -385,12 +276,18 @@ def window_features(
     >>> float(f.iloc[0, 0])
     9.0
     """
-    daily = to_daily(drivers.select_dtypes("number"))
-    plan = WindowPlan.build(list(daily.columns), windows=windows, stats=stats)
+    daily = complete_calendar(drivers.select_dtypes("number"))
+    plan = WindowPlan.build(
+        list(daily.columns),
+        windows=windows,
+        stats=stats,
+        include_target_day=include_target_day,
+        max_missing_fraction=max_missing_fraction,
+    )
     targets = as_dates(target_dates)
-    end = day_positions(daily.index, targets) + (1 if include_target_day else 0)
+    end = day_positions(daily.index, targets) + (1 if plan.include_target_day else 0)
     gathered = gather_windows(daily.to_numpy(dtype=np.float64), end, max(plan.windows))
-    values, incomplete = reduce_windows(gathered, plan, list(daily.columns), max_missing_fraction=max_missing_fraction)
+    values, incomplete = reduce_windows(gathered, plan, list(daily.columns))
     return (
         pd.DataFrame(values, index=targets, columns=plan.names),
         pd.DataFrame(incomplete, index=targets, columns=plan.names),

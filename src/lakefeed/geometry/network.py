@@ -35,29 +35,33 @@ part of the catchment.
 
 from __future__ import annotations
 
-import warnings
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 
 import geopandas as gpd
 import networkx as nx
 import numpy as np
-import pandas as pd
 import shapely
 from pyproj import CRS, Geod
 from shapely.geometry.base import BaseGeometry
 
 from lakefeed.config.lake import SubbasinLayer
-from lakefeed.exceptions import GeometryError, LakefeedWarning
-from lakefeed.geometry.outlets import clean_ids, metric_frame, reaches_lake
+from lakefeed.geometry.inflow_rules import (
+    LAKE_NODE,
+    SubbasinNetwork,
+    by_config,
+    by_lake_id,
+    by_lake_subbasin,
+    by_outlets,
+    check_links,
+    subbasin_network,
+)
 from lakefeed.units import convert
 
 __all__ = ["DEFAULT_OUTSIDE_IDS", "LAKE_NODE", "Catchment", "trace_catchment", "trace_configured_catchment"]
 
 #: Downstream ids meaning "drains out of the network" (case-insensitive; common practice).
 DEFAULT_OUTSIDE_IDS: tuple[str, ...] = ("", "0", "-1", "NONE", "NAN", "OUTSIDE")
-#: Node standing for the lake in :attr:`Catchment.graph` when the lake has no id of its own.
-LAKE_NODE = "__lake__"
 _GEOD = Geod(ellps="WGS84")
 
 
@@ -116,43 +120,6 @@ def _geodesic_area_km2(polygon: BaseGeometry, crs: CRS) -> float:
     return float(convert(abs(area_m2), "m2", "km2"))
 
 
-def _own_subbasin(
-    ids: pd.Index,
-    overlap_area: np.ndarray,
-    lake_area: float,
-    graph: nx.DiGraph,
-    lake_id: str | None,
-    direct_inflows: list[str] | None,
-) -> str | None:
-    """The lake's own sub-basin: ``lake_id`` when it is a sub-basin id; with neither ``lake_id`` nor
-    ``direct_inflows``, the sub-basin holding at least half of the lake's area that others drain into."""
-    if lake_id is not None:
-        return str(lake_id) if str(lake_id) in graph else None
-    if direct_inflows or len(ids) == 0 or lake_area <= 0:
-        return None
-    best = int(np.argmax(overlap_area))
-    if overlap_area[best] >= 0.5 * lake_area and graph.in_degree(ids[best]) > 0:
-        return str(ids[best])
-    return None
-
-
-def _check_cycles(graph: nx.DiGraph, where: str, downstream_field: str) -> None:
-    """Raise naming each cycle in drainage order (``a -> b -> c -> a``), starting at its smallest id."""
-    cycles = []
-    for c in nx.simple_cycles(graph):  # nodes in edge order; each node has one downstream, so cycles are few
-        c = [str(x) for x in c]
-        start = c.index(min(c))
-        c = c[start:] + c[:start]
-        cycles.append(" -> ".join([*c, c[0]]))
-    if cycles:
-        shown = "; ".join(sorted(cycles)[:5])
-        raise GeometryError(
-            f"{where}: {len(cycles)} cycle(s) in the downstream ids ({downstream_field!r}): {shown}; "
-            "each sub-basin must drain to exactly one downstream sub-basin, the lake or out of the network: "
-            "fix those downstream ids"
-        )
-
-
 def trace_catchment(
     subbasins: gpd.GeoDataFrame,
     lake: gpd.GeoDataFrame | gpd.GeoSeries,
@@ -199,153 +166,48 @@ def trace_catchment(
         Missing fields, duplicate ids, a cycle, dangling downstream ids, no sub-basin reaching the
         lake, or a listed direct inflow that drains into another sub-basin; each message names the ids.
     """
-    for name in (id_field, downstream_field):
-        if name not in subbasins.columns:
-            raise GeometryError(
-                f"{where}: no field {name!r}; fields are {[c for c in subbasins.columns if c != 'geometry']}; "
-                "set id_field/downstream_field in the lake config's 'subbasins' section"
-            )
-    if subbasins.crs is None:
-        raise GeometryError(f"{where}: no CRS; set it before tracing the catchment")
-    ids = clean_ids(subbasins[id_field])
-    down = clean_ids(subbasins[downstream_field])
-    if ids.isna().any():
-        raise GeometryError(f"{where}: field {id_field!r} has empty values at rows {list(np.flatnonzero(ids.isna()))}")
-    dup = sorted(ids[ids.duplicated()].unique().tolist())
-    if dup:
-        raise GeometryError(f"{where}: duplicate sub-basin ids in {id_field!r}: {dup}; ids must be unique")
-    id_set = set(ids)
-    frame = gpd.GeoDataFrame({"id": ids.to_numpy(), "down": down.to_numpy()}, geometry=subbasins.geometry.values)
-    frame = frame.set_crs(subbasins.crs, allow_override=True).set_index("id", drop=False)
-    lake_geo = lake.geometry if isinstance(lake, gpd.GeoDataFrame) else lake
-    if lake_geo.crs is None:
-        raise GeometryError("lake polygon has no CRS; set it before tracing the catchment")
-    if not CRS.from_user_input(lake_geo.crs).equals(CRS.from_user_input(subbasins.crs)):
-        lake_geo = lake_geo.to_crs(subbasins.crs)
-    lake_poly = shapely.union_all(lake_geo.values)
-
-    # Drainage graph among sub-basins (sinks added below once the lake's node is known).
-    graph = nx.DiGraph()
-    graph.add_nodes_from(ids)
-    internal = frame[frame["down"].isin(id_set)]
-    graph.add_edges_from(zip(internal["id"], internal["down"], strict=True))
-    metric = metric_frame(frame)
-    lake_metric = gpd.GeoSeries([lake_poly], crs=frame.crs).to_crs(metric.crs).iloc[0]
-    overlap_area = shapely.area(shapely.intersection(metric.geometry.values, lake_metric))
-    own = _own_subbasin(frame.index, overlap_area, float(lake_metric.area), graph, lake_id, direct_inflows)
-    if own is not None:  # the lake is the sink: the outflow of its own sub-basin is not followed
-        graph.remove_edges_from(list(graph.out_edges(own)))
-    _check_cycles(graph, where, downstream_field)
-
-    outside = {str(o).strip().upper() for o in outside_ids}
-    terminal = frame[~frame["down"].isin(id_set)]
-    is_outside = terminal["down"].isna() | terminal["down"].str.upper().isin(outside)
-
+    net = subbasin_network(
+        subbasins,
+        lake,
+        id_field=id_field,
+        downstream_field=downstream_field,
+        lake_id=lake_id,
+        direct_inflows=direct_inflows,
+        outside_ids=outside_ids,
+        where=where,
+    )
     if direct_inflows:
-        rule = "config"
-        listed = [str(x) for x in direct_inflows]
-        unknown = sorted(set(listed) - id_set)
-        if unknown:
-            raise GeometryError(
-                f"config subbasins.direct_inflows lists ids not in the sub-basin layer: {unknown}; "
-                f"known ids include {sorted(id_set)[:10]}"
-            )
-        inner = [s for s in listed if frame.at[s, "down"] in id_set and frame.at[s, "down"] != own]
-        if inner:
-            pairs = [f"{s} -> {frame.at[s, 'down']}" for s in inner]
-            raise GeometryError(
-                f"config subbasins.direct_inflows lists sub-basins that drain into another sub-basin, not the "
-                f"lake: {pairs}; remove them from the list or fix their '{downstream_field}'"
-            )
-        direct = sorted(set(listed))
-        sinks = {s for s in frame.loc[direct, "down"] if s is not None and s.upper() not in outside}
-        lake_node = lake_id or (sinks.pop() if len(sinks) == 1 else LAKE_NODE)
-    elif own is not None:
-        rule = "lake_subbasin"
-        lake_node = own
-        direct = sorted(graph.predecessors(own))
-        if not direct:
-            raise GeometryError(
-                f"{where}: subbasins.lake_id {own!r} is a sub-basin (the lake's own), but no sub-basin has "
-                f"{downstream_field!r} equal to it, so nothing flows into the lake; set subbasins.lake_id to the id "
-                "the inflows drain into, or list subbasins.direct_inflows"
-            )
+        rule, (direct, lake_node) = "config", by_config(net, direct_inflows, lake_id)
+    elif net.own is not None:
+        rule, (direct, lake_node) = "lake_subbasin", by_lake_subbasin(net)
     elif lake_id is not None:
-        rule = "lake_id"
-        lake_node = str(lake_id)
-        direct = sorted(terminal.loc[terminal["down"] == lake_node, "id"])
-        if not direct:
-            found = sorted(set(terminal["down"].dropna()))
-            raise GeometryError(
-                f"{where}: no sub-basin has {downstream_field!r} equal to the lake id {lake_node!r}, so no outlet "
-                f"reaches the lake; downstream ids that are not sub-basins: {found}. Set subbasins.lake_id to the "
-                "lake's id in the layer, or list subbasins.direct_inflows"
-            )
+        rule, (direct, lake_node) = "lake_id", by_lake_id(net, str(lake_id))
     else:
-        rule = "outlet_in_lake"
-        explicit_outside = terminal["down"].notna() & terminal["down"].str.upper().isin(outside - {""})
-        cand = terminal.index[~explicit_outside.to_numpy()].tolist()
-        if outlets is not None:
-            pts = outlets.to_crs(metric.crs) if outlets.crs is not None else outlets
-            pts.index = clean_ids(pd.Series(pts.index, index=pts.index)).to_numpy()
-            have = [c for c in cand if c in pts.index]
-            dist = shapely.distance(pts.loc[have].values, lake_metric)
-        else:
-            have = cand
-            # touching = sharing a stretch of shore, not a corner
-            dist = np.where(reaches_lake(metric.loc[have].geometry.values, lake_metric, tolerance_m), 0.0, np.inf)
-        direct = sorted(np.asarray(have, dtype=object)[np.asarray(dist) <= tolerance_m].tolist())
-        if not direct:
-            raise GeometryError(
-                f"{where}: no sub-basin outlet reaches the lake: no terminal sub-basin "
-                f"({sorted(terminal['id'])}) {'has its outlet point' if outlets is not None else 'touches'} within "
-                f"{tolerance_m} m of the lake polygon. Set subbasins.lake_id or list subbasins.direct_inflows"
-            )
-        sinks = {s for s in frame.loc[direct, "down"] if s is not None and s.upper() not in outside}
-        if len(sinks) > 1:
-            raise GeometryError(
-                f"{where}: sub-basins touching the lake drain into different ids {sorted(sinks)} "
-                f"({direct}); set subbasins.lake_id to the lake's own id"
-            )
-        lake_node = sinks.pop() if sinks else LAKE_NODE
-        if lake_node != LAKE_NODE:  # every sub-basin draining into the recognised lake id is a direct inflow
-            direct = sorted(set(direct) | set(terminal.loc[terminal["down"] == lake_node, "id"]))
+        rule, (direct, lake_node) = "outlet_in_lake", by_outlets(net, outlets, tolerance_m)
+    check_links(net, direct, lake_node)
+    return _catchment(net, direct, lake_node, rule)
 
-    lake_sinks = {lake_node} | set(frame.loc[direct, "down"].dropna())
-    dangling = terminal[~is_outside.to_numpy() & ~terminal["down"].isin(lake_sinks).to_numpy()]
-    dangling = dangling[~dangling["id"].isin([*direct, own])]  # the lake's outflow may leave the layer
-    if len(dangling):
-        pairs = [f"{a} -> {b}" for a, b in zip(dangling["id"], dangling["down"], strict=True)]
-        raise GeometryError(
-            f"{where}: dangling downstream ids in {downstream_field!r} (neither a sub-basin, the lake "
-            f"{lake_node!r}, nor an outside marker {sorted(outside - {''})}): {pairs}; fix the ids, add the "
-            "missing sub-basins, or declare the code as draining out of the area (subbasins.outside_ids in the "
-            "lake config; `lakefeed init --outside-id CODE`)"
-        )
-    unlisted = sorted(set(terminal.loc[terminal["down"] == lake_node, "id"]) - set(direct))
-    if unlisted:
-        warnings.warn(
-            f"{where}: sub-basins {unlisted} drain into the lake {lake_node!r} but are not in "
-            "subbasins.direct_inflows; they are left out of the catchment",
-            LakefeedWarning,
-            stacklevel=2,
-        )
+
+def _catchment(net: SubbasinNetwork, direct: list[str], lake_node: str, rule: str) -> Catchment:
+    """The catchment upstream of ``lake_node`` once its direct inflows are known."""
+    frame, graph = net.frame, net.graph
     graph.add_node(lake_node, kind="lake")
     graph.add_edges_from((d, lake_node) for d in direct)
-    members = sorted(nx.ancestors(graph, lake_node) | ({own} if own == lake_node else set()))
+    members = sorted(nx.ancestors(graph, lake_node) | ({net.own} if net.own == lake_node else set()))
     polygon = shapely.union_all(frame.loc[members].geometry.values)
-    own_area = shapely.area(metric.geometry.values)
-    overlapping = sorted(frame.index[overlap_area > 1e-6 * np.maximum(own_area, 1.0)].tolist())
+    own_area = shapely.area(net.metric.geometry.values)
+    overlapping = sorted(frame.index[net.overlap_area > 1e-6 * np.maximum(own_area, 1.0)].tolist())
+    crs = CRS.from_user_input(frame.crs)
     return Catchment(
         polygon=polygon,
         subbasin_ids=tuple(members),
         direct_inflows=tuple(direct),
         rule=rule,
         lake_node=lake_node,
-        area_km2=_geodesic_area_km2(polygon, CRS.from_user_input(frame.crs)),
+        area_km2=_geodesic_area_km2(polygon, crs),
         overlapping=tuple(overlapping),
         graph=graph,
-        crs=CRS.from_user_input(frame.crs),
+        crs=crs,
     )
 
 

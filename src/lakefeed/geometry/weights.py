@@ -25,6 +25,7 @@ import shapely
 from shapely.geometry.base import BaseGeometry
 
 from lakefeed.exceptions import GeometryError
+from lakefeed.sources.grid_model import grid_signature
 
 __all__ = [
     "WGS84_A",
@@ -32,7 +33,6 @@ __all__ = [
     "ZoneWeights",
     "cell_areas",
     "cell_edges",
-    "grid_signature",
     "normalise_polygon",
     "zone_hash",
     "zone_weights",
@@ -58,7 +58,7 @@ class ZoneWeights:
     shape
         Grid shape (n_lat, n_lon) in the grid's own order.
     signature
-        :func:`grid_signature` of the grid the weights belong to.
+        :func:`lakefeed.sources.grid_model.grid_signature` of the grid the weights belong to.
     zone_hashes
         :func:`zone_hash` per zone.
     grid_coverage
@@ -206,15 +206,6 @@ def cell_areas(lat: np.ndarray, lon: np.ndarray, *, a: float = WGS84_A, f: float
     lon_lo, lon_hi = cell_edges(lon)
     band = _authalic_band(lat_hi, a, f) - _authalic_band(lat_lo, a, f)
     return np.outer(band, np.deg2rad(lon_hi - lon_lo))
-
-
-def grid_signature(lat: np.ndarray, lon: np.ndarray, *, crs: str = "EPSG:4326") -> str:
-    """Content hash of a grid (cell centres and CRS), the key of cached weights."""
-    h = hashlib.sha256()
-    for arr in (lat, lon):
-        h.update(np.ascontiguousarray(np.asarray(arr, dtype=np.float64)).tobytes())
-    h.update(crs.encode())
-    return h.hexdigest()[:20]
 
 
 def zone_hash(geometry: BaseGeometry) -> str:

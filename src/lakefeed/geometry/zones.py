@@ -21,7 +21,7 @@ from pyproj import CRS
 from lakefeed.config.lake import SubbasinLayer, ZoneOptions
 from lakefeed.exceptions import GeometryError
 
-__all__ = ["build_zones", "same_crs", "to_crs", "zone_latitudes"]
+__all__ = ["build_zones", "same_crs", "shore_buffered", "to_crs", "zone_latitudes"]
 
 
 def same_crs(a: object, b: object) -> bool:
@@ -115,3 +115,31 @@ def zone_latitudes(zones: gpd.GeoDataFrame) -> dict[str, float]:
     """Latitude (degrees) of each zone's representative point (zones in a geographic CRS)."""
     pts = shapely.point_on_surface(np.asarray(zones.geometry.values))
     return dict(zip(zones["zone"].astype(str), shapely.get_y(pts).astype(float), strict=True))
+
+
+def shore_buffered(aois: gpd.GeoSeries, lake: shapely.Geometry | None, buffer_m: float) -> gpd.GeoSeries:
+    """AOIs shrunk by an inward shoreline buffer.
+
+    Parameters
+    ----------
+    aois
+        AOI polygons in a projected CRS whose unit is the metre.
+    lake
+        Lake polygon in the same CRS: the buffer moves the shoreline inward by ``buffer_m`` and
+        each AOI is intersected with what is left. None: each AOI is buffered inward from its own
+        boundary.
+    buffer_m
+        Buffer distance in metres (>= 0).
+
+    Returns
+    -------
+    GeoSeries with the same index and CRS; an AOI wholly inside the buffer becomes empty.
+    """
+    if buffer_m < 0:
+        raise ValueError(f"shore buffer must be >= 0 m; got {buffer_m}")
+    if buffer_m == 0:
+        return aois.copy()
+    if lake is None:
+        return aois.buffer(-buffer_m)
+    inner = shapely.buffer(lake, -buffer_m)
+    return aois.intersection(inner)

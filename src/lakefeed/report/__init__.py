@@ -63,8 +63,8 @@ def _table(frame: pd.DataFrame, *, max_rows: int = 60) -> str:
 
 
 def _map_section(project: Project, store: Store, notes: list[str]) -> str:
+    from lakefeed.map_facts import read_catchment
     from lakefeed.sources.vectors import read_layer
-    from lakefeed.stages.hydrology import catchment_of
 
     lake = project.lake
     layers: dict[str, object] = {}
@@ -78,7 +78,9 @@ def _map_section(project: Project, store: Store, notes: list[str]) -> str:
     try:
         import geopandas as gpd
 
-        catchment = catchment_of(project)
+        catchment = read_catchment(store.root, lake.id)
+        if catchment is None:
+            raise LookupError("not in the store; run the hydrology stage")
         inflows = list(catchment.direct_inflows)
         cat = gpd.GeoDataFrame(geometry=[catchment.polygon], crs=catchment.crs or subs.crs)
         layers["catchment"] = cat.to_crs(4326)
@@ -101,25 +103,15 @@ def _map_section(project: Project, store: Store, notes: list[str]) -> str:
 
 
 def _lake_cells(project: Project, store: Store, lake_g: object) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
-    """Cell edges and lake-surface weight fractions from the weights the weather stage cached."""
-    from lakefeed.geometry.zones import build_zones
-    from lakefeed.sources.grids import open_grid
-    from lakefeed.stages.weather import get_weights
+    """Cell edges and lake-surface weight fractions the weather stage stored."""
+    from lakefeed.map_facts import read_cells
 
-    src = project.sources.weather
-    if src is None:
+    if project.sources.weather is None:
         return None
-    grid = open_grid(src.paths[:1] if len(src.paths) == 1 else src.paths, time_zone=src.time_zone, on_error="skip")
-    zones = build_zones(lake_g, crs=grid.crs)  # type: ignore[arg-type]
-    weights, _ = get_weights(zones, grid, cache_dir=Path(store.root) / "_cache" / "weights")
-    row = np.asarray(weights.matrix[list(weights.zones).index("lake")].todense()).ravel()
-    frac = (row / row.sum()).reshape(weights.shape) if row.sum() > 0 else row.reshape(weights.shape)
-    return _edges(np.asarray(grid.lon)), _edges(np.asarray(grid.lat)), frac
-
-
-def _edges(centres: np.ndarray) -> np.ndarray:
-    mid = (centres[1:] + centres[:-1]) / 2
-    return np.concatenate([[2 * centres[0] - mid[0]], mid, [2 * centres[-1] - mid[-1]]])
+    cells = read_cells(store.root, project.lake.id)
+    if cells is None:
+        raise LookupError("not in the store; run the weather stage")
+    return cells.lon_edges, cells.lat_edges, cells.fractions
 
 
 def render_report(project: Project, store: Store) -> str:

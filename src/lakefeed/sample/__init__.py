@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from lakefeed.progress import Progress, no_progress
 from lakefeed.sample._chla import lake_truth, spatial_pattern
 from lakefeed.sample._config import render_config, write_config
 from lakefeed.sample._forecast import write_forecasts
@@ -22,7 +23,6 @@ from lakefeed.sample._hydrology import simulate_hydrology, write_hydrology
 from lakefeed.sample._scenes import aoi_pattern_means, write_scenes
 from lakefeed.sample._truth import write_truth
 from lakefeed.sample._weather import draw_weather, write_reanalysis
-from lakefeed.stages._result import Progress, no_progress
 
 __all__ = ["FIRST_YEAR", "LAST_TIMINGS", "build_geometry", "generate", "render_config", "write_geometry"]
 

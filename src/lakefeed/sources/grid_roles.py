@@ -23,7 +23,7 @@ from lakefeed.exceptions import SourceError
 from lakefeed.sources.grid_rules import GridPart, key_problems, role_problems
 
 if TYPE_CHECKING:
-    from lakefeed.sources.grids import Grid
+    from lakefeed.sources.grid_model import Grid
 
 __all__ = ["decode", "find_variable", "grid_parts", "select_roles"]
 

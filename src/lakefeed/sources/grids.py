@@ -29,7 +29,6 @@ from __future__ import annotations
 import dataclasses
 import glob
 from collections.abc import Iterable, Mapping
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Literal
 
@@ -38,8 +37,8 @@ import pandas as pd
 import xarray as xr
 
 from lakefeed.exceptions import SourceError
-from lakefeed.geometry.weights import grid_signature
 from lakefeed.sources._h5grid import Layout, Record, layout_of, open_like, stack, to_h5
+from lakefeed.sources.grid_model import Grid
 from lakefeed.sources.grid_roles import decode, find_variable, select_roles
 from lakefeed.sources.grid_rules import GridPart
 
@@ -62,54 +61,6 @@ TARGET_CHUNK_BYTES = 96 * 2**20
 #: small cache suffices; the library default (tens of MiB per variable and file) grows with the
 #: number of files kept open and made memory grow with the record length.
 CHUNK_CACHE_BYTES = 2 * 2**20
-
-
-@dataclass(frozen=True)
-class Grid:
-    """A normalised lat/lon grid.
-
-    Attributes
-    ----------
-    dataset
-        Dims (time, latitude, longitude); time UTC; longitude -180..180.
-    files
-        The files (or Zarr store) the dataset was built from, in time order.
-    skipped
-        One message per file left out (``on_error="skip"``).
-    crs
-        "EPSG:4326" unless the file's grid mapping names another geographic datum.
-    parts
-        Each file's own variable attributes (units, packing) and time range (empty when the grid
-        was not opened from files by :func:`open_grid`).
-    """
-
-    dataset: xr.Dataset
-    files: tuple[Path, ...]
-    skipped: tuple[str, ...] = field(default_factory=tuple)
-    crs: str = "EPSG:4326"
-    parts: tuple[GridPart, ...] = field(default_factory=tuple)
-
-    @property
-    def lat(self) -> np.ndarray:
-        """Cell-centre latitudes (degrees north), file order."""
-        return np.asarray(self.dataset["latitude"].values, dtype=float)
-
-    @property
-    def lon(self) -> np.ndarray:
-        """Cell-centre longitudes (degrees east, -180..180)."""
-        return np.asarray(self.dataset["longitude"].values, dtype=float)
-
-    @property
-    def signature(self) -> str:
-        """Content hash of the grid's cells and CRS (key of cached weights)."""
-        return grid_signature(self.lat, self.lon, crs=self.crs)
-
-    @property
-    def label(self) -> str:
-        """Short name for messages: the file, or first..last file."""
-        if len(self.files) == 1:
-            return str(self.files[0])
-        return f"{self.files[0].name}..{self.files[-1].name} ({len(self.files)} files)"
 
 
 def expand_paths(paths: str | Path | Iterable[str | Path]) -> list[Path]:

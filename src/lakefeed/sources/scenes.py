@@ -39,9 +39,9 @@ from rasterio.errors import RasterioError
 from rasterio.windows import Window
 
 from lakefeed.exceptions import SourceError
-from lakefeed.extract.scene_stats import shore_buffered
+from lakefeed.geometry.zones import shore_buffered
+from lakefeed.progress import Progress, no_progress
 from lakefeed.sources._scene_catalog import CANONICAL_UNIT, SCENE_COLUMNS, list_scenes
-from lakefeed.stages._result import Progress, no_progress
 from lakefeed.units import factor as unit_factor
 
 __all__ = ["SCENE_COLUMNS", "AoiPixels", "SceneReader", "SceneWindow", "list_scenes", "read_scenes"]

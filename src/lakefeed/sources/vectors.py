@@ -1,6 +1,6 @@
 """Read vector layers (lake, AOIs, sub-basins) with the checks every stage relies on.
 
-Takes a :class:`~lakefeed.config._base.LayerRef` (or a path); returns a GeoDataFrame in the
+Takes a :class:`~lakefeed.config.LayerRef` (or a path); returns a GeoDataFrame in the
 layer's own CRS, 2-D polygons only, with a clean string id field when one is asked for.
 Only this module knows vector file formats. It must not reproject, dissolve or compute.
 
@@ -21,7 +21,7 @@ import geopandas as gpd
 import numpy as np
 import shapely
 
-from lakefeed.config._base import LayerRef
+from lakefeed.config import LayerRef
 from lakefeed.exceptions import GeometryError, LakefeedWarning, SourceError
 
 __all__ = ["read_layer"]

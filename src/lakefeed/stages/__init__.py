@@ -5,6 +5,7 @@ pure core (:mod:`lakefeed.geometry`, :mod:`lakefeed.extract`, :mod:`lakefeed.fea
 writes store tables. Flows and the CLI call these functions and nothing deeper.
 """
 
-from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.progress import Progress, no_progress
+from lakefeed.stages._result import StageResult
 
 __all__ = ["Progress", "StageResult", "no_progress"]

@@ -16,9 +16,10 @@ from lakefeed.exceptions import FeatureError
 from lakefeed.features import refresh_start
 from lakefeed.features.incremental import prefix_digest
 from lakefeed.features.windows import as_dates
+from lakefeed.stages.refresh_plan import RefreshMode, RefreshPlan
 from lakefeed.store import Store, read_units
 
-__all__ = ["driver_parts", "drivers_digest", "input_hashes", "load_drivers", "read_dated", "refresh_plan",
+__all__ = ["driver_parts", "drivers_digest", "load_drivers", "partition_hashes", "read_dated", "refresh_plan",
            "targets_digest"]  # fmt: skip
 
 _DRIVER_TABLES = ("drivers_daily", "hydrology_daily")
@@ -144,7 +145,7 @@ def _unchanged_before(
     return start
 
 
-def input_hashes(store: Store, lake: str) -> dict[str, str]:
+def partition_hashes(store: Store, lake: str) -> dict[str, str]:
     """Content hashes of the input partitions (from the manifest): provenance and the up-to-date check."""
     out = {}
     for t in ("target_daily", "drivers_daily", "hydrology_daily"):
@@ -154,24 +155,26 @@ def input_hashes(store: Store, lake: str) -> dict[str, str]:
     return out
 
 
-def refresh_plan(
-    store: Store, lake: str, prev: dict | None, targets: pd.DataFrame, *, full: bool
-) -> tuple[str, pd.Timestamp | None, tuple[str, str]]:
-    """How to refresh: ``("tail", since, old)`` when the part lists tell from which date the driver rows
-    may have changed (read only the last days; ``since`` is that date or the day after the old inputs,
-    whichever is first), ``("check", since, old)`` when their fingerprint must be compared (read all),
-    ``("full", None, old)`` otherwise. The targets' fingerprint is checked here."""
+def refresh_plan(store: Store, lake: str, prev: dict | None, targets: pd.DataFrame, *, full: bool) -> RefreshPlan:
+    """How to refresh the features table.
+
+    ``TAIL`` from ``day`` when the part lists tell from which date the driver rows may have changed (read
+    only the last days; ``day`` is that date or the day after the old inputs, whichever is first), ``CHECK``
+    from ``day`` when their fingerprint must be compared (read all), ``FULL`` otherwise. ``known`` holds the
+    stored ``drivers_through`` and ``targets_through`` dates. The targets' fingerprint is checked here.
+    """
     md = (prev or {}).get("metadata", {})
     old = (md.get("drivers_through"), md.get("targets_through"))
+    known = {"drivers_through": old[0], "targets_through": old[1]}
     if full or not prev or not store.has_table("features", lake) or not all(old):
-        return "full", None, old
+        return RefreshPlan.full(**known)
     if targets_digest(targets, old[1]) != md.get("targets_digest_at_through"):
-        return "full", None, old
+        return RefreshPlan.full(**known)
     since = refresh_start(*old)
     recorded = json.loads(md.get("input_parts") or "{}")
     changed_from = _unchanged_before(driver_parts(store, lake), recorded, old[0])
     # a part rewritten far back (e.g. a whole table written again) may hold the same old rows: reading all
     # and comparing fingerprints then saves recomputing them
     if md.get("drivers_first") and changed_from is not None and changed_from >= since - _TAIL_REACH:
-        return "tail", min(since, changed_from), old
-    return "check", since, old
+        return RefreshPlan(RefreshMode.TAIL, min(since, changed_from), known=known)
+    return RefreshPlan(RefreshMode.CHECK, since, known=known)

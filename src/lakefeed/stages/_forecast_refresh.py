@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -35,6 +35,7 @@ from lakefeed.extract.daily import DAILY_COLUMNS
 from lakefeed.extract.forecast_daily import FORECAST_KEYS
 from lakefeed.sources.forecasts import ISSUE
 from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
+from lakefeed.stages.refresh_plan import RefreshMode, RefreshPlan
 
 if TYPE_CHECKING:
     from lakefeed.sources.forecasts import ForecastArchive
@@ -43,7 +44,6 @@ if TYPE_CHECKING:
 __all__ = [
     "RAW_COLUMNS",
     "SIGNATURE",
-    "RefreshPlan",
     "content_hash",
     "raw_drivers",
     "raw_signature",
@@ -57,15 +57,6 @@ RAW_COLUMNS = FORECAST_KEYS + DAILY_COLUMNS[2:]
 _KEYS = ["zone", "issue_date", "lead_days", "adjustment", "issue_time", "date"]
 #: Manifest metadata key holding :func:`raw_signature`.
 SIGNATURE = "raw_signature"
-
-
-@dataclass
-class RefreshPlan:
-    """Outcome of :func:`refresh_plan`: stored raw rows to keep and issue times to read, or None and why."""
-
-    reuse: pd.DataFrame | None
-    read: pd.DatetimeIndex | None = None
-    reason: str = ""
 
 
 def table_columns() -> list[str]:
@@ -108,7 +99,7 @@ def refresh_plan(
     config_hash: str,
     signature: str,
 ) -> RefreshPlan:
-    """The stored raw rows to reuse and the issue times to read, or None with the reason for a full build.
+    """The stored raw rows to reuse (``reuse``) and the issue times to read (``read``), or a full build and why.
 
     Parameters
     ----------
@@ -126,17 +117,17 @@ def refresh_plan(
         The configuration hash and :func:`raw_signature` the build records.
     """
     if not entry or not entry.get("parts") or stored is None:
-        return RefreshPlan(None, reason="no stored table")
+        return RefreshPlan.full("no stored table")
     if entry.get("config_hash") != config_hash or (entry.get("metadata") or {}).get(SIGNATURE) != signature:
-        return RefreshPlan(None, reason="configuration changed")
+        return RefreshPlan.full("configuration changed")
     if [c for c in (entry.get("columns") or []) if c != "lake"] != table_columns():
-        return RefreshPlan(None, reason="stored columns differ")
+        return RefreshPlan.full("stored columns differ")
     old: Mapping[str, str] = entry.get("inputs") or {}
     grid_files = {str(Path(f).absolute()) for f in files}
     if any(old.get(p) != h for p, h in inputs.items() if p not in grid_files):
-        return RefreshPlan(None, reason="a geometry layer changed")
+        return RefreshPlan.full("a geometry layer changed")
     if any(p not in inputs for p in old if not p.startswith("drivers_daily/")):
-        return RefreshPlan(None, reason="a forecast file recorded in the table is gone")
+        return RefreshPlan.full("a forecast file recorded in the table is gone")
     read = pd.DatetimeIndex([])
     if since is not None:
         read = issues[issues >= pd.Timestamp(since).tz_localize(None).normalize()]
@@ -145,13 +136,17 @@ def refresh_plan(
     read = issues[issues.isin(read)]
     keep = issues[~issues.isin(read)]
     if keep.empty:
-        return RefreshPlan(None, reason="every forecast issue is new or changed")
+        return RefreshPlan.full("every forecast issue is new or changed")
     raw = stored_raw(stored)
     mine = raw["issue_time"].isin(keep)
     have = pd.DatetimeIndex(raw.loc[mine, "issue_time"].unique()).sort_values()
     if not have.equals(keep):
-        return RefreshPlan(None, reason="the stored raw issues differ from the archive's unchanged issues")
-    return RefreshPlan(raw.loc[mine].reset_index(drop=True), read=read)
+        return RefreshPlan.full("the stored raw issues differ from the archive's unchanged issues")
+    first = since if since is not None else (read.min() if len(read) else None)
+    day = None if first is None else pd.Timestamp(first).date()
+    # without issues to read, the raw drivers are all reused and only the adjustment is redone
+    reason = "" if len(read) else "incremental (forecast archive unchanged: raw drivers reused, adjustment redone)"
+    return RefreshPlan(RefreshMode.TAIL, day, reason, reuse=raw.loc[mine].reset_index(drop=True), read=read)
 
 
 def raw_drivers(
@@ -175,7 +170,7 @@ def raw_drivers(
     zone_layers += [lake.subbasins] if lake.zones.catchment or lake.zones.subbasins else []
     inputs = input_hashes([*archive.files, *layer_paths(*zone_layers)])
     cache = Path(store.root) / "_cache" / "weights"
-    plan = RefreshPlan(None, reason="requested")
+    plan = RefreshPlan.full("requested")
     if not full:
         entry = store.entry("forecast_drivers_daily", lake.id)
         stored = None
@@ -185,20 +180,16 @@ def raw_drivers(
                             config_hash=config_hash(project), signature=raw_signature(project))  # fmt: skip
     if plan.reuse is None:
         raw, warnings = extract(archive, project, cache_dir=cache, progress=progress)
-        return raw, warnings, inputs, f"full build ({plan.reason})"
+        return raw, warnings, inputs, plan.summary()
     warnings: list[str] = []
     frames = [plan.reuse]
-    if len(plan.read):
+    if plan.read is not None and len(plan.read):
         part = replace(archive, dataset=archive.dataset.sel({ISSUE: plan.read}))
         new, warnings = extract(part, project, cache_dir=cache, progress=progress)
         frames.append(new)
-        first = since if since is not None else plan.read.min()
-        reason = f"incremental from {pd.Timestamp(first).date()}"
-    else:
-        reason = "incremental (forecast archive unchanged: raw drivers reused, adjustment redone)"
     raw = pd.concat(frames, ignore_index=True)
     raw = raw.sort_values(["zone", "issue_date", "lead_days"], kind="stable").reset_index(drop=True)
-    return raw, warnings, inputs, reason
+    return raw, warnings, inputs, plan.summary()
 
 
 def content_hash(raw: pd.DataFrame) -> str:

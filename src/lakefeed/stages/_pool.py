@@ -14,7 +14,7 @@ import multiprocessing
 import os
 import sys
 import threading
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from concurrent.futures import ProcessPoolExecutor
 
 import dask
@@ -24,9 +24,9 @@ import xarray as xr
 from dask.callbacks import Callback
 from dask.local import get_sync
 
-from lakefeed.stages._result import Progress
+from lakefeed.progress import Progress
 
-__all__ = ["compute_by_time", "local_scheduler", "use_processes"]
+__all__ = ["compute_by_time", "local_compute", "local_scheduler", "use_processes"]
 
 
 class _DaskProgress(Callback):
@@ -80,6 +80,16 @@ def _one_blas_thread() -> contextlib.AbstractContextManager:
     return threadpool_limits(1, user_api="blas")
 
 
+@contextlib.contextmanager
+def local_compute(progress: Progress | None, description: str) -> Iterator[None]:
+    """Context for a ``dask.compute`` in this process: progress reported as ``description``, one BLAS thread.
+
+    The weight products are small: one BLAS thread is faster than a thread pool per Dask thread.
+    """
+    with _DaskProgress(progress, description) if progress else contextlib.nullcontext(), _one_blas_thread():
+        yield
+
+
 def _init_worker() -> None:
     _one_blas_thread()  # for the worker's lifetime
 
@@ -113,8 +123,7 @@ def compute_by_time(
     if processes is None:
         processes = use_processes()
     if not processes or chunks is None or len(chunks) < 2:
-        cb = _DaskProgress(progress, what) if progress else None
-        with cb if cb else _Null(), _one_blas_thread():
+        with local_compute(progress, what):
             return list(dask.compute(*objs, scheduler=local_scheduler()))
     global _FORKED
     ends = np.cumsum(chunks)
@@ -135,11 +144,3 @@ def compute_by_time(
         gc.unfreeze()
         _FORKED = None
     return [xr.concat([p[j] for p in parts], dim="time") for j in range(len(objs))]
-
-
-class _Null:
-    def __enter__(self) -> None:
-        return None
-
-    def __exit__(self, *exc: object) -> None:
-        return None

@@ -3,8 +3,8 @@
 Takes paths of the files a stage read and a :class:`~lakefeed.config.Project`; returns the
 ``inputs`` mapping (path -> SHA-256 of the file's bytes, via :func:`lakefeed.store.file_digest`) and
 the ``config_hash`` (SHA-256 of the lake and sources YAML bytes) that
-:meth:`lakefeed.store.Store.write_table` records in the manifest (DESIGN.md: the manifest holds input
-content hashes and the config hash). A directory (a Zarr store) hashes as the sorted list of its
+:meth:`lakefeed.store.Store.write_table` records in the manifest (docs/architecture.md, "Store tables": the
+manifest holds input content hashes and the config hash). A directory (a Zarr store) hashes as the sorted list of its
 files' relative paths and hashes. Must not: hash anything but file content (no size or mtime).
 """
 

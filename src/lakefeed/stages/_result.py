@@ -2,15 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass, field
-
-#: Progress callback: (description, done, total). The CLI draws rich bars; flows log.
-Progress = Callable[[str, int, int], None]
-
-
-def no_progress(description: str, done: int, total: int) -> None:
-    """A progress callback that does nothing."""
 
 
 @dataclass

@@ -4,8 +4,8 @@ Takes the stored ``target_obs`` partition (its manifest entry and rows), the sce
 catalogue (:func:`lakefeed.sources.scenes.list_scenes`), ``since`` and the current configuration and layer
 hashes; returns the raw per-scene rows of the scenes before ``since`` (statistics and read-failure reasons,
 the acceptance reasons taken off again), the content hashes known without hashing again (the recorded ones
-of their rasters, the JSON files and layers just hashed), or why a full build is needed
-(:func:`refresh_plan`). Must not read a raster or screen observations.
+of their rasters, the JSON files and layers just hashed), or why a full build is needed (:func:`refresh_plan`,
+a :class:`~lakefeed.stages.refresh_plan.RefreshPlan`). Must not read a raster or screen observations.
 
 Which scenes are reused: those whose time (UTC, as the item datetimes and the scene file names) lies
 before ``since`` and that the catalogue lists as usable. Scenes from ``since`` on, and items the catalogue
@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import re
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -31,20 +30,12 @@ import pandas as pd
 from lakefeed.config.lake import TargetOptions
 from lakefeed.extract.screening import accept
 from lakefeed.stages._provenance import input_hashes
+from lakefeed.stages.refresh_plan import RefreshMode, RefreshPlan
 
-__all__ = ["RefreshPlan", "raster_paths", "raw_reasons", "refresh_plan", "since_utc"]
+__all__ = ["raster_paths", "raw_reasons", "refresh_plan", "since_utc"]
 
 _MONTH = re.compile(r"(?<!\d)(\d{4})-?(0[1-9]|1[0-2])(?:-?\d{2})?(?!\d)")  # as the refresh flow's months
 _HREFS = ["value_href", "quality_href", "uncertainty_href"]
-
-
-@dataclass
-class RefreshPlan:
-    """Outcome of :func:`refresh_plan`: the reused raw rows and raster hashes, or None and why (full build)."""
-
-    reuse: pd.DataFrame | None
-    reason: str = ""
-    known: dict[str, str] = field(default_factory=dict)
 
 
 def since_utc(since: object) -> pd.Timestamp:
@@ -97,7 +88,7 @@ def refresh_plan(
     catalog: str | None,
     options: TargetOptions,
 ) -> RefreshPlan:
-    """The stored raw rows of the scenes before ``since`` to reuse, or None with the reason for a full build.
+    """The stored raw rows of the scenes before ``since`` to reuse (``reuse``), or a full build and why.
 
     Parameters
     ----------
@@ -119,44 +110,44 @@ def refresh_plan(
         The lake's target options (to tell read-failure reasons from acceptance reasons).
     """
     if not entry or stored is None:
-        return RefreshPlan(None, "no stored target_obs")
+        return RefreshPlan.full("no stored target_obs")
     if entry.get("config_hash") != config_hash:
-        return RefreshPlan(None, "configuration changed")
+        return RefreshPlan.full("configuration changed")
     if list(entry.get("columns") or []) != [c for c in columns if c != "lake"]:
-        return RefreshPlan(None, "stored columns differ")
+        return RefreshPlan.full("stored columns differ")
     old: Mapping[str, str] = entry.get("inputs") or {}
     if any(old.get(p) != h for p, h in layer_hashes.items()):
-        return RefreshPlan(None, "a geometry layer changed")
+        return RefreshPlan.full("a geometry layer changed")
     if set(stored["aoi"]) != set(aoi_ids) and len(stored):
-        return RefreshPlan(None, "the stored AOIs differ from the layer's")
+        return RefreshPlan.full("the stored AOIs differ from the layer's")
     start = since_utc(since)
     month = f"{start:%Y-%m}"
     root = Path(catalog).resolve() if catalog else None
     for path, digest in json_hashes.items():
         if Path(path).resolve() != root and old.get(path) != digest and ((m := _month_of(path)) is None or m < month):
             state = "new" if path not in old else "changed"
-            return RefreshPlan(None, f"{state} catalogue file {Path(path).name} dated before {since} or undated")
+            return RefreshPlan.full(f"{state} catalogue file {Path(path).name} dated before {since} or undated")
     before_stored = set(stored.loc[stored["time"] < start, "scene_id"])
     before_now = set(scenes.loc[scenes["time"] < start, "scene_id"])
     if before_stored != before_now:
         added, gone = len(before_now - before_stored), len(before_stored - before_now)
-        return RefreshPlan(None, f"scenes before {since} differ from the stored ones ({added} added, {gone} gone)")
+        return RefreshPlan.full(f"scenes before {since} differ from the stored ones ({added} added, {gone} gone)")
     usable = scenes[(scenes["time"] < start) & (scenes["reason"].fillna("") == "")]
     if usable.empty:
-        return RefreshPlan(None, f"no stored scene before {since}")
+        return RefreshPlan.full(f"no stored scene before {since}")
     rows = stored[stored["scene_id"].isin(set(usable["scene_id"]))]
     first = rows.drop_duplicates("scene_id").set_index("scene_id")[["sensor", "time"]]
     now = usable.set_index("scene_id")[["sensor", "time"]].loc[first.index]
     if not (first["sensor"].eq(now["sensor"]) & first["time"].eq(now["time"])).all():
-        return RefreshPlan(None, f"the sensor or time of a scene before {since} changed")
+        return RefreshPlan.full(f"the sensor or time of a scene before {since} changed")
     known = dict(json_hashes) | dict(layer_hashes)  # hashed just now: not again for the provenance
     for p in sorted({p for paths in raster_paths(usable) for p in paths}):
         if p in old and Path(p).is_file():
             if (m := _month_of(p)) is None or m >= month:  # not named by the caller's months: check it
                 if input_hashes([p])[p] != old[p]:
-                    return RefreshPlan(None, f"raster {Path(p).name} of a scene before {since} changed")
+                    return RefreshPlan.full(f"raster {Path(p).name} of a scene before {since} changed")
             known[p] = old[p]
         elif p in old or Path(p).is_file():  # recorded but gone, or not recorded (unreadable then) but there
-            return RefreshPlan(None, f"raster {Path(p).name} of a scene before {since} appeared or is gone")
+            return RefreshPlan.full(f"raster {Path(p).name} of a scene before {since} appeared or is gone")
     reuse = rows.assign(reason=raw_reasons(rows, options)).drop(columns=["accepted", "outlier"])
-    return RefreshPlan(reuse, f"incremental from {since}", known)
+    return RefreshPlan(RefreshMode.TAIL, start.date(), reuse=reuse, known=known)

@@ -2,8 +2,9 @@
 
 Takes the stored table's manifest entry, the lazy weather :class:`~lakefeed.sources.grids.Grid`, the
 input hashes and the lake's time zone; returns the first local day to recompute, or why a full build
-is needed (:func:`refresh_start`), the time window of the grid that day needs (:func:`read_window`),
-and writes the rows (:func:`write_drivers`). Must not compute drivers.
+is needed (:func:`refresh_plan`, a :class:`~lakefeed.stages.refresh_plan.RefreshPlan`), the time window
+of the grid that day needs (:func:`read_window`), and writes the rows (:func:`write_drivers`). Must not
+compute drivers.
 
 Which days a changed source month touches: its first stamp ``t0`` (the month's first day, 00:00 in
 the source's time zone) carries the instantaneous values of the local day of ``t0`` and ends the step
@@ -18,14 +19,14 @@ part of their own (the provisional tail). A refresh replaces the rows from its f
 part is rewritten with the settled rows, and a new tail part is added, so the older parts stay
 untouched (:meth:`lakefeed.store.Store.append_arrow`; a change reaching further back rewrites the
 partition once). Each step writes one file atomically; between the two steps the table is a valid
-table up to the day before the new tail, marked in the manifest metadata (:data:`PENDING`): a run
-stopped there is redone by the next refresh, whose start never lies after the stored record's last day.
+table up to the day before the new tail, marked in the manifest metadata
+(:data:`lakefeed.stages.refresh_plan.PENDING`): a run stopped there is redone by the next refresh, whose
+start never lies after the stored record's last day.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
 from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -34,25 +35,16 @@ import numpy as np
 import pandas as pd
 
 from lakefeed.extract.accumulation import step_of
+from lakefeed.stages.refresh_plan import PENDING, RefreshMode, RefreshPlan
 
 if TYPE_CHECKING:
     from lakefeed.sources.grids import Grid
     from lakefeed.store import Store
 
-__all__ = ["KEYS", "PENDING", "Start", "read_window", "refresh_start", "tail_day", "write_drivers"]
+__all__ = ["KEYS", "read_window", "refresh_plan", "tail_day", "write_drivers"]
 
 #: Key columns of ``drivers_daily`` within a lake partition (rows sorted by them).
 KEYS = ["zone", "date"]
-#: Manifest metadata key of a table whose write stopped before its last step (value: the first day missing).
-PENDING = "pending_from"
-
-
-@dataclass(frozen=True)
-class Start:
-    """Outcome of :func:`refresh_start`: the first local day to recompute, or None and why (full build)."""
-
-    day: date | None
-    reason: str = ""
 
 
 def _local_day(t: np.datetime64 | pd.Timestamp, tz: str) -> date:
@@ -71,7 +63,7 @@ def _first_stamp(path: Path, source_tz: str) -> pd.Timestamp:
     return pd.Timestamp(open_grid(path, time_zone=source_tz).dataset["time"].values[0])
 
 
-def refresh_start(
+def refresh_plan(
     entry: Mapping[str, Any] | None,
     *,
     since: object,
@@ -82,8 +74,8 @@ def refresh_start(
     signature: str,
     tz: str,
     source_tz: str = "UTC",
-) -> Start:
-    """First local day from which ``drivers_daily`` must be recomputed, or None with the reason for a full build.
+) -> RefreshPlan:
+    """First local day from which ``drivers_daily`` must be recomputed (``day``), or a full build and why.
 
     Parameters
     ----------
@@ -106,21 +98,21 @@ def refresh_start(
     ``since`` moves the start back to it (the stored hashes are the check, not the caller's word).
     """
     if not entry or not entry.get("parts"):
-        return Start(None, "no stored table")
+        return RefreshPlan.full("no stored table")
     if entry.get("config_hash") != config_hash:
-        return Start(None, "configuration changed")
+        return RefreshPlan.full("configuration changed")
     if list(entry.get("columns") or []) != columns:
-        return Start(None, "stored columns differ")
+        return RefreshPlan.full("stored columns differ")
     if (entry.get("metadata") or {}).get("grid_signature") != signature:
-        return Start(None, "weather grid changed")
+        return RefreshPlan.full("weather grid changed")
     old: Mapping[str, str] = entry.get("inputs") or {}
     grid_files = {str(Path(f).absolute()) for f in grid.files}
     if any(old.get(p) != h for p, h in inputs.items() if p not in grid_files):
-        return Start(None, "a geometry layer changed")
+        return RefreshPlan.full("a geometry layer changed")
     if any(p not in inputs for p in old):
-        return Start(None, "a weather file recorded in the table is gone")
+        return RefreshPlan.full("a weather file recorded in the table is gone")
     if not entry.get("time_range") or entry["time_range"][0] is None:
-        return Start(None, "stored table has no dates")
+        return RefreshPlan.full("stored table has no dates")
     t0 = pd.Timestamp(since).normalize().tz_localize(source_tz).tz_convert("UTC").tz_localize(None)
     changed = sorted(p for p in grid_files if old.get(p) != inputs.get(p))
     if changed:
@@ -129,8 +121,8 @@ def refresh_start(
     first, last = (pd.Timestamp(t).date() for t in entry["time_range"])
     day = min(_local_day(np.datetime64(t0) - step, tz), last)  # never leave a day unwritten after the record
     if day <= first:
-        return Start(None, f"changes reach back to {day}, the start of the stored record")
-    return Start(day)
+        return RefreshPlan.full(f"changes reach back to {day}, the start of the stored record")
+    return RefreshPlan(RefreshMode.TAIL, day)
 
 
 def read_window(grid: Grid, day: date, tz: str) -> Grid:

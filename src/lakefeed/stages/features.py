@@ -21,11 +21,8 @@ wiring.
 
 from __future__ import annotations
 
-import hashlib
 import json
-import warnings
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -33,23 +30,20 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from lakefeed.config import Project
-from lakefeed.exceptions import ConfigError, FeatureError, LakefeedWarning
+from lakefeed.exceptions import FeatureError
 from lakefeed.features import (
     WindowPlan,
     refresh_start,
     sampling_diagnostics,
 )
 from lakefeed.features.batch import Series, iter_feature_blocks
-from lakefeed.features.windows import as_dates
+from lakefeed.progress import Progress, no_progress
 from lakefeed.stages._features_inputs import (
     driver_parts,
-    drivers_digest,
-    input_hashes,
     load_drivers,
-    read_dated,
-    refresh_plan,
     targets_digest,
 )
+from lakefeed.stages._features_job import FeatureJob, prepare_job
 from lakefeed.stages._features_output import (
     KEYS,
     arrow_rows,
@@ -61,7 +55,7 @@ from lakefeed.stages._features_output import (
     write_rows,
 )
 from lakefeed.stages._guard import refuse_shrink
-from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages._result import StageResult
 from lakefeed.store import Store
 
 __all__ = ["build_features", "build_features_many", "feature_units", "load_drivers"]
@@ -97,11 +91,6 @@ def feature_units(plan: WindowPlan, driver_units: dict[str, str]) -> dict[str, s
     return out
 
 
-def _config_hash(project: Project, columns: list[str]) -> str:
-    payload = {"lake": project.lake.id, "features": project.lake.features.model_dump(mode="json"), "drivers": columns}
-    return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
-
-
 def _full_again(project: Project, store: Store, progress: Progress, result: StageResult, allow: bool) -> StageResult:
     """Rebuild in full (the previous table cannot be extended)."""
     out = build_features(project, store, progress=progress, full=True, allow_shrink=allow)
@@ -109,134 +98,7 @@ def _full_again(project: Project, store: Store, progress: Progress, result: Stag
     return out
 
 
-@dataclass(eq=False)
-class _Job:
-    """One lake's build between reading its inputs and writing its tables."""
-
-    project: Project
-    result: StageResult
-    progress: Progress
-    mode: str  # "tail", "check" or "full" (see _refresh_plan)
-    since: pd.Timestamp | None  # first recomputed target date; None: every row
-    prev: dict | None
-    frames: dict[str | None, pd.DataFrame]
-    columns: list[str]
-    driver_units: dict[str, str]
-    read: list[str]
-    targets: pd.DataFrame
-    plan: WindowPlan
-    record: tuple[pd.Timestamp | None, pd.Timestamp | None]
-    through: tuple[pd.Timestamp, pd.Timestamp]
-    inputs: dict[str, str]
-    options_hash: str
-    config_hash: str
-    allow_shrink: bool = False  # write even when stored rows or values would be lost (see stages._guard)
-
-    def series(self) -> list[Series]:
-        """The lake's series: per driver frame (all AOIs, or each AOI's own zone) and lead."""
-        out = []
-        for key, drivers in self.frames.items():
-            tg = self.targets if key is None else self.targets[self.targets["aoi"] == key]
-            out += [Series(tg, drivers, lead=h, since=self.since) for h in self.project.lake.features.leads]
-        return out
-
-    def batch_key(self) -> tuple:
-        """Lakes computed in one pass share the window plan (driver columns, windows, statistics) and the
-        window options."""
-        o = self.project.lake.features
-        return (self.plan.windows, tuple(self.plan.stats.items()), o.include_target_day, o.max_missing_fraction)
-
-    def drivers_digest(self, day: object) -> str:
-        """Fingerprint of the drivers up to ``day``; unknown (empty) when only the tail was read: the next
-        check then rebuilds instead of trusting it."""
-        return "" if self.mode == "tail" else drivers_digest(self.frames, day)
-
-
-def _prepare(project: Project, store: Store, *, progress: Progress, full: bool) -> _Job | StageResult:
-    """Read what the lake's build needs and decide how to refresh; a result when there is nothing to compute."""
-    lake, opts = project.lake, project.lake.features
-    result = StageResult(stage="features", lake=lake.id)
-    if opts.fold_kind == "blocked" and opts.effective_embargo_days < max(opts.windows):
-        msg = (
-            f"features.embargo_days {opts.effective_embargo_days} is shorter than the longest antecedent window "
-            f"({max(opts.windows)} d): rows just after a fold boundary have windows reaching into the neighbouring "
-            f"fold's period, so cross-validation leaks; leave embargo_days unset (= {max(opts.windows)}) or raise it"
-        )
-        warnings.warn(f"lake {lake.id}: {msg}", LakefeedWarning, stacklevel=2)
-        result.warnings.append(msg)
-    if not store.has_table("target_daily", lake.id):
-        if opts.drivers:
-            load_drivers(store, lake.id, zone=opts.driver_zone, aois=[], wanted=list(opts.drivers))
-        result.skipped, result.reason = True, "no target_daily table for this lake; run the target (scenes) stage first"
-        return result
-    inputs = input_hashes(store, lake.id)
-    options_hash = _config_hash(project, [])
-    prev = store.entry("features", lake.id)
-    if (
-        not full
-        and prev
-        and prev.get("inputs") == inputs
-        and prev.get("metadata", {}).get("options_hash") == options_hash
-        and store.has_table("features", lake.id)
-        and store.has_table("diagnostics", lake.id)
-    ):  # same inputs, same configuration: the stored tables are the result (nothing to recompute)
-        diag = store.read_table("diagnostics", lake.id)
-        result.warnings = [f"AOI {d['aoi']}: {d['warnings']}" for _, d in diag.iterrows() if d["warnings"]]
-        result.tables = {"features": prev["rows"], "diagnostics": len(diag)}
-        progress("features: up to date", 3, 3)
-        return result
-    progress("features: reading", 0, 3)
-    td = read_dated(store, "target_daily", lake.id, None)
-    targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
-    targets["aoi"] = targets["aoi"].astype(str)
-    targets["date"] = as_dates(targets["date"])
-    targets = targets.sort_values(["aoi", "date"]).reset_index(drop=True)
-    if targets.empty:
-        result.skipped, result.reason = True, "target_daily has no chlorophyll-a values for this lake"
-        return result
-    aois = sorted(targets["aoi"].unique())
-    wanted = list(opts.drivers) if opts.drivers else None
-    md = (prev or {}).get("metadata", {})
-    mode, since, old = refresh_plan(store, lake.id, prev, targets, full=full)
-    tail_from = since - pd.Timedelta(days=max(opts.windows) + max(opts.leads) + 1) if mode == "tail" else None
-    frames, driver_units, read = load_drivers(
-        store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted, since=tail_from
-    )
-    if mode == "tail" and any(f.empty for f in frames.values()):  # no days to extend: read all
-        mode = "check"
-        frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
-    present = {c for f in frames.values() for c in f.columns}
-    columns = [c for c in wanted if c in present] if wanted else sorted(present)
-    frames = {k: f.reindex(columns=columns) for k, f in frames.items()}
-    if not columns:
-        result.warnings.append("no driver tables (drivers_daily, hydrology_daily): features hold no window columns")
-    cfg = _config_hash(project, columns)
-    if mode != "full" and prev.get("config_hash") != cfg:
-        if mode == "tail":
-            frames, driver_units, read = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
-            frames = {k: f.reindex(columns=columns) for k, f in frames.items()}
-        mode, since = "full", None
-    if mode == "check" and drivers_digest(frames, old[0]) != md.get("drivers_digest_at_through"):
-        mode, since = "full", None
-    stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
-    plan = WindowPlan.build(columns, windows=opts.windows, stats=stats)
-    all_days = [f.index for f in frames.values() if len(f)]
-    record = (min(i.min() for i in all_days), max(i.max() for i in all_days)) if all_days else (None, None)
-    if mode == "tail":
-        record = (pd.Timestamp(md["drivers_first"]), record[1])
-    if record[0] is not None and (too_long := opts.record_problems(record[0].date(), record[1].date(),
-                                                                   record="the stored driver record")):  # fmt: skip
-        raise ConfigError(f"{project.lake_file}: features cannot be built for lake {lake.id}", too_long)
-    through = (record[1] if record[1] is not None else pd.Timestamp("1900-01-01"), targets["date"].max())
-    return _Job(
-        project=project, result=result, progress=progress, mode=mode, since=since, prev=prev, frames=frames,
-        columns=columns, driver_units=driver_units, read=read, targets=targets, plan=plan, record=record,
-        through=through, inputs=inputs, options_hash=options_hash,
-        config_hash=cfg,
-    )  # fmt: skip
-
-
-def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
+def _finish(job: FeatureJob, store: Store, arrow: pa.Table) -> StageResult:
     """Folds, diagnostics and the writes of one lake's computed rows."""
     project, result, progress, since = job.project, job.result, job.progress, job.since
     lake, opts = project.lake, project.lake.features
@@ -280,7 +142,7 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
         "drivers_through": str(pd.Timestamp(through[0]).date()),
         "targets_through": str(pd.Timestamp(through[1]).date()),
         "drivers_first": str(pd.Timestamp(record[0]).date()) if record[0] is not None else "",
-        "drivers_digest_at_through": job.drivers_digest(through[0]),
+        "drivers_digest_at_through": job.recorded_drivers_digest(through[0]),
         "targets_digest_at_through": targets_digest(job.targets, through[1]),
         "input_parts": json.dumps(driver_parts(store, lake.id)),
         "options_hash": job.options_hash,
@@ -289,10 +151,26 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
         "fold_options": fold_options(opts),
         "tables_read": "; ".join(["target_daily", *job.read]),
     }
-    write_rows(store, lake.id, arrow, since=since, split=refresh_start(*through), drivers_digest=job.drivers_digest,
-                targets=job.targets, write=dict(units=units, descriptions=descr, metadata=meta, inputs=job.inputs,
-                                                config_hash=job.config_hash, time_column="target_date",
-                                                sort_by=KEYS))  # fmt: skip
+    write = dict(
+        units=units,
+        descriptions=descr,
+        metadata=meta,
+        inputs=job.inputs,
+        config_hash=job.config_hash,
+        time_column="target_date",
+        sort_by=KEYS,
+    )
+    digest = job.recorded_drivers_digest
+    write_rows(
+        store,
+        lake.id,
+        arrow,
+        since=since,
+        split=refresh_start(*through),
+        drivers_digest=digest,
+        targets=job.targets,
+        write=write,
+    )
     dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")}
     dunits |= {"coverage_fraction": "1", "embargo_days": "d"}
     store.write_table(
@@ -304,7 +182,9 @@ def _finish(job: _Job, store: Store, arrow: pa.Table) -> StageResult:
     return result
 
 
-def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | BaseException], None]) -> None:
+def _compute(
+    jobs: list[FeatureJob], store: Store, done: Callable[[FeatureJob, pa.Table | BaseException], None]
+) -> None:
     """Compute the rows of lakes that share a window plan in one pass, chunk by chunk, and hand each lake's
     rows to ``done`` as soon as they are complete (so about one chunk of rows is held at a time). A failure
     of the pass computes the lakes not yet handed on one by one, so only the lake at fault fails."""
@@ -315,16 +195,14 @@ def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | Ba
         series += s
         owner += [i] * len(s)
     last = {o: k for k, o in enumerate(owner)}  # each lake's last series
-    for i, job in enumerate(jobs):
+    for job in jobs:
         job.progress("features: computing", 1, 3)
-        if i not in last:  # no series (cannot happen: one driver frame at least); nothing to write
-            done(job, FeatureError(f"lake {job.project.id!r}: no feature series to compute"))
-    opts = jobs[0].project.lake.features
+    plan = jobs[0].plan
     pieces: dict[int, list[pa.Table]] = {i: [] for i in last}  # rows of the lakes not yet handed on
     try:
         chunks = iter_feature_blocks(
-            series, windows=jobs[0].plan.windows, stats=jobs[0].plan.stats,
-            include_target_day=opts.include_target_day, max_missing_fraction=opts.max_missing_fraction,
+            series, windows=plan.windows, stats=plan.stats, include_target_day=plan.include_target_day,
+            max_missing_fraction=plan.max_missing_fraction,
         )  # fmt: skip
     except Exception as err:
         _compute_alone(jobs, store, done, err)
@@ -356,7 +234,7 @@ def _compute(jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | Ba
 
 
 def _compute_alone(
-    jobs: list[_Job], store: Store, done: Callable[[_Job, pa.Table | BaseException], None], err: Exception
+    jobs: list[FeatureJob], store: Store, done: Callable[[FeatureJob, pa.Table | BaseException], None], err: Exception
 ) -> None:
     """After a failed shared pass: each lake on its own (a single lake gets the error)."""
     if len(jobs) == 1:
@@ -372,7 +250,6 @@ def build_features_many(
     *,
     progress: Progress | None = None,
     full: bool = False,
-    rebalance_folds: bool = False,
     isolate: bool = True,
     lakes_per_pass: int = 64,
     allow_shrink: bool = False,
@@ -390,7 +267,7 @@ def build_features_many(
         Lake configurations (distinct lake ids), all written to ``store``.
     progress
         Called per step for one lake; for several, once per finished lake (``features: lakes``, done, total).
-    full, rebalance_folds
+    full
         As for :func:`build_features`.
     isolate
         True: a lake that fails gets its exception as its result, the other lakes go on. False: the
@@ -423,7 +300,7 @@ def build_features_many(
         if len(projects) > 1:
             report("features: lakes", len(out), len(projects))
 
-    def finished(job: _Job, rows: pa.Table | BaseException) -> None:
+    def finished(job: FeatureJob, rows: pa.Table | BaseException) -> None:
         try:
             if isinstance(rows, BaseException):
                 raise rows
@@ -434,11 +311,11 @@ def build_features_many(
             settle(job.project.id, err)
 
     for at in range(0, len(projects), max(1, lakes_per_pass)):
-        jobs: dict[tuple, list[_Job]] = {}
+        jobs: dict[tuple, list[FeatureJob]] = {}
         for project in projects[at : at + max(1, lakes_per_pass)]:
             try:
-                job = _prepare(
-                    project, store, progress=lake_progress(project.id), full=full or rebalance_folds
+                job = prepare_job(
+                    project, store, progress=lake_progress(project.id), full=full
                 )  # fmt: skip
             except Exception as err:
                 if not isolate:
@@ -461,7 +338,6 @@ def build_features(
     *,
     progress: Progress | None = None,
     full: bool = False,
-    rebalance_folds: bool = False,
     allow_shrink: bool = False,
 ) -> StageResult:
     """Build ``features`` and ``diagnostics`` for one lake from the store's driver and target tables.
@@ -471,11 +347,9 @@ def build_features(
     When the driver tables only gained part files of later dates since the last build (an appended
     month), only their last days (the longest window and lead before the first new date) are read;
     otherwise all driver rows are read and their fingerprint is compared with the last build's.
-    ``full=True`` recomputes every row; ``rebalance_folds=True`` is the same (kept for callers of
-    the time when fold blocks depended on the record: folds are calendar blocks now, stable as the
-    record grows). The table read back equals a clean build's, folds included. All AOIs and leads of
-    the lake are computed in one pass; for many lakes use :func:`build_features_many` (``allow_shrink``
-    as there).
+    ``full=True`` recomputes every row (folds are calendar blocks, stable as the record grows). The table
+    read back equals a clean build's, folds included. All AOIs and leads of the lake are computed in one
+    pass; for many lakes use :func:`build_features_many` (``allow_shrink`` as there).
 
     Examples
     --------
@@ -483,7 +357,7 @@ def build_features(
     >>> build_features(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
     """
     out = build_features_many(
-        [project], store, progress=progress, full=full, rebalance_folds=rebalance_folds, isolate=False,
+        [project], store, progress=progress, full=full, isolate=False,
         allow_shrink=allow_shrink,
     )[project.id]  # fmt: skip
     assert isinstance(out, StageResult)  # isolate=False raises instead

@@ -43,6 +43,7 @@ from lakefeed.features import assign_folds
 from lakefeed.features.reforecast import reforecast_rows
 from lakefeed.geometry.weights import ZoneWeights
 from lakefeed.geometry.zones import build_zones, zone_latitudes
+from lakefeed.progress import Progress, no_progress
 from lakefeed.sources.forecasts import ISSUE, LEAD, ForecastArchive, open_forecasts
 from lakefeed.sources.grids import find_variable
 from lakefeed.sources.vectors import read_layer
@@ -50,7 +51,7 @@ from lakefeed.stages._features_output import KEYS as _FEATURE_KEYS
 from lakefeed.stages._forecast_refresh import SIGNATURE, content_hash, raw_drivers, raw_signature
 from lakefeed.stages._guard import refuse_shrink
 from lakefeed.stages._provenance import config_hash
-from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages._result import StageResult
 from lakefeed.stages._rewrite_tail import write_from_first_change
 from lakefeed.stages.weather import get_weights, hourly_drivers
 from lakefeed.store import Store

@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 
 from lakefeed.config import Project
 from lakefeed.exceptions import DamagedPartError
-from lakefeed.stages._result import Progress, no_progress
+from lakefeed.progress import Progress, no_progress
 from lakefeed.store import Store, partition_path, verify_store
 
 __all__ = ["STAGE_FUNCTIONS", "TABLE_STAGES", "Repair", "repair_store"]

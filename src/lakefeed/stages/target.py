@@ -24,12 +24,14 @@ from lakefeed.extract.scene_stats import STAT_COLUMNS, aoi_statistics
 from lakefeed.extract.screening import accept
 from lakefeed.extract.screening_reference import cross_sensor_screen, total_screening
 from lakefeed.extract.trophic import CAUTION, UNSCREENED, class_columns, exceedance_flags
+from lakefeed.progress import Progress, no_progress
 from lakefeed.sources.scenes import SceneReader, list_scenes, read_scenes
 from lakefeed.sources.vectors import read_layer
 from lakefeed.stages import _target_refresh
 from lakefeed.stages._guard import refuse_shrink
 from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
-from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages._result import StageResult
+from lakefeed.stages.refresh_plan import RefreshPlan
 from lakefeed.store import Store
 
 __all__ = [
@@ -260,9 +262,7 @@ def _input_files(scenes: pd.DataFrame, lake: LakeConfig, *, known: Mapping[str, 
     return dict(sorted((known | input_hashes(todo)).items()))
 
 
-def _plan(
-    project: Project, store: Store, scenes: pd.DataFrame, aoi_ids: list[str], since: object
-) -> _target_refresh.RefreshPlan:
+def _plan(project: Project, store: Store, scenes: pd.DataFrame, aoi_ids: list[str], since: object) -> RefreshPlan:
     """What a build from ``since`` can reuse of the stored ``target_obs`` (see :mod:`._target_refresh`)."""
     lake = project.lake
     entry = store.entry("target_obs", lake.id) if store.has_table("target_obs", lake.id) else None
@@ -326,11 +326,10 @@ def build_target(
     lake_poly = read_layer(lake.lake, what="lake polygon")
     reader = SceneReader(aois, id_field=lake.aois.id_field, lake=lake_poly)
     scenes = list_scenes(source)
-    plan = _target_refresh.RefreshPlan(None)
-    result.reason = "full build"
+    plan = RefreshPlan.full()
     if since is not None:
         plan = _plan(project, store, scenes, list(reader.aois.index), since)
-        result.reason = plan.reason if plan.reuse is not None else f"full build ({plan.reason})"
+    result.reason = plan.summary()
     read = scenes if plan.reuse is None else scenes[~scenes["scene_id"].isin(set(plan.reuse["scene_id"]))]
     raw = scene_statistics(
         read, reader, lake=lake.id, timezone=lake.timezone, sensors=lake.sensors, options=lake.target, progress=progress

@@ -5,7 +5,7 @@ weather grid (:mod:`lakefeed.sources.grids`) and the lake's layers, builds the z
 exact cell weights (cached under ``<store>/_cache/weights/``, keyed by grid signature and
 zone geometry hashes, so later runs and other files on the same grid reuse them), reads the
 grid once for every zone and variable at once, de-accumulates and converts units, and
-aggregates to the lake's local days. Writes ``drivers_daily`` (columns and units of DESIGN.md).
+aggregates to the lake's local days. Writes ``drivers_daily`` (columns and units: docs/architecture.md, "Store tables").
 
 Monthly refresh (``since``, from the flow: the first day of the earliest changed weather month):
 only the grid hours from the day before that month's first local day are read and only the local
@@ -37,18 +37,18 @@ from lakefeed.extract.accumulation import Deaccumulated, deaccumulate, step_of
 from lakefeed.extract.meteo import wind_speed
 from lakefeed.extract.zonal import zonal_mean
 from lakefeed.geometry.weights import ZoneWeights, zone_hash, zone_weights
+from lakefeed.progress import Progress, no_progress
 from lakefeed.sources.grid_rules import time_gaps
 from lakefeed.sources.grids import Grid, decode, open_grid, select_roles
 from lakefeed.stages._pool import (
-    _DaskProgress,
-    _Null,
-    _one_blas_thread,
     compute_by_time,
+    local_compute,
     local_scheduler,
     use_processes,
 )
-from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.stages._result import StageResult
 from lakefeed.stages._values import check_values
+from lakefeed.stages.refresh_plan import RefreshPlan
 
 if TYPE_CHECKING:  # heavy imports (geopandas, pint, pydantic, pyarrow) are deferred to keep start-up short
     import geopandas as gpd
@@ -175,8 +175,7 @@ def hourly_drivers(
     }
     zonal = {k: zonal_mean(v, weights, extremes=True) for k, v in fields.items()}
     checks = {k: (d.bad_steps, d.n_clipped) for k, d in deacc.items()}
-    cb = _DaskProgress(progress, "weather: reading grid") if progress else None
-    with cb if cb else _Null(), _one_blas_thread():  # small weight products: one BLAS thread is faster
+    with local_compute(progress, "weather: reading grid"):
         zonal, checks = dask.compute(zonal, checks, scheduler=local_scheduler())
     clipped = {k: deacc[k].check(bad_steps=b, n_clipped=n) for k, (b, n) in checks.items()}
     to_canonical = {
@@ -245,8 +244,7 @@ def zonal_long(
         )
         res = {k: (d, None, None) for k, d in zip(names, done, strict=True)}
     else:
-        cb = _DaskProgress(progress, "zonal: reading grid") if progress else None
-        with cb if cb else _Null(), _one_blas_thread():
+        with local_compute(progress, "zonal: reading grid"):
             (res,) = dask.compute(
                 {
                     k: (v[0], getattr(v[1], "bad_steps", None), getattr(v[1], "n_clipped", None))
@@ -316,8 +314,9 @@ def build_weather(
     from lakefeed.geometry.zones import build_zones, zone_latitudes
     from lakefeed.sources.vectors import read_layer
     from lakefeed.stages._guard import refuse_shrink
+    from lakefeed.stages._map import record_cells
     from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
-    from lakefeed.stages._weather_refresh import KEYS, read_window, refresh_start, tail_day, write_drivers
+    from lakefeed.stages._weather_refresh import KEYS, read_window, refresh_plan, tail_day, write_drivers
 
     p = progress or no_progress
     lake = project.lake
@@ -351,12 +350,13 @@ def build_weather(
         cache_dir=Path(store.root) / "_cache" / "weights",
         allow_partial_coverage=lake.zones.allow_partial_coverage,
     )
+    record_cells(store, lake.id, weights, grid.lat, grid.lon)
     p("weather: weights", 2, 3)
     inputs = input_hashes([*grid.files, *layer_paths(*layers)])
     cfg = config_hash(project)
-    start, how = None, "full build"
+    plan = RefreshPlan.full()
     if since is not None:
-        plan = refresh_start(
+        plan = refresh_plan(
             store.entry("drivers_daily", lake.id),
             since=since,
             grid=grid,
@@ -367,8 +367,7 @@ def build_weather(
             tz=lake.timezone,
             source_tz=src.time_zone,
         )
-        start = plan.day
-        how = f"incremental from {start}" if start is not None else f"full build ({plan.reason})"
+    start, how = plan.day, plan.summary()
     window = read_window(grid, start, lake.timezone) if start is not None else grid
     hourly, clipped = hourly_drivers(window, weights, source=src, progress=progress)
     warn += [f"{k}: {n} value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]

@@ -5,7 +5,7 @@ systematic part; its log residuals at the sample days are interpolated linearly 
 constant outside the sampled span) and added back, so the estimate passes through every sample
 and follows the flow between them. Being anchored to the observed loads, it needs no
 retransformation correction. Regression plus interpolated residuals did best in bootstrap
-comparisons of load methods under sparse sampling (Aulenbach & Hooper 2006; see PITFALLS.md).
+comparisons of load methods under sparse sampling (Aulenbach & Hooper 2006; docs/architecture.md, "Pitfalls").
 
 Uncertainty: a bootstrap over the samples (resampled with replacement, refitted, residuals
 re-interpolated; ``n_boot`` times, fixed seed) gives 95 % percentile intervals of the daily loads,
@@ -25,7 +25,7 @@ from lakefeed.extract.load_estimation._common import (
     standard_warnings,
 )
 from lakefeed.extract.load_estimation.rating import decimal_year, design_matrix
-from lakefeed.extract.load_estimation.simple import _bootstrap_indices, summarise_bootstrap
+from lakefeed.extract.load_estimation.simple import bootstrap_indices, summarise_bootstrap
 from lakefeed.extract.loads import load_factor
 
 __all__ = ["composite_load"]
@@ -87,7 +87,7 @@ def composite_load(
         return np.where(np.isnan(a.flow), np.nan, out)
 
     daily = predict(np.arange(len(y)))
-    boot = np.stack([predict(i) for i in _bootstrap_indices(len(y), n_boot, seed)])  # loop over replicates
+    boot = np.stack([predict(i) for i in bootstrap_indices(len(y), n_boot, seed)])  # loop over replicates
     return summarise_bootstrap(
         a, daily, boot, period, method="composite", kind="daily", n_boot=n_boot, warnings=warnings
     )

@@ -34,10 +34,11 @@ from lakefeed.extract.load_estimation._common import (
 )
 from lakefeed.extract.loads import load_factor
 
-__all__ = ["fwmc_load", "interpolation_load", "summarise_bootstrap"]
+__all__ = ["bootstrap_indices", "fwmc_load", "interpolation_load", "summarise_bootstrap"]
 
 
-def _bootstrap_indices(n: int, n_boot: int, seed: int) -> np.ndarray:
+def bootstrap_indices(n: int, n_boot: int, seed: int) -> np.ndarray:
+    """Sample indices of ``n_boot`` bootstrap resamples of ``n`` samples, shape (n_boot, n), each row sorted."""
     rng = np.random.default_rng(seed)
     return np.sort(rng.integers(0, n, size=(n_boot, n)), axis=1)
 
@@ -129,7 +130,7 @@ def interpolation_load(
     held += [f"{after} day(s) after the last sample"] if after else []
     if held:
         warnings.append(f"concentration held constant for {' and '.join(held)}")
-    idx = _bootstrap_indices(a.n, n_boot, seed)
+    idx = bootstrap_indices(a.n, n_boot, seed)
     boot_conc = np.stack([np.interp(t, xp[i], a.conc[i]) for i in idx])  # loop over replicates, not days
     boot = boot_conc * a.flow * k
     return summarise_bootstrap(
@@ -175,7 +176,7 @@ def fwmc_load(
         warnings.append(f"no samples in period(s) {empty}: the record's flow-weighted mean concentration is used")
     fw = fwmc_per_period(a.conc[None, :], a.sample_flow[None, :], scode[None, :])[0]
     daily = a.flow * fw[codes] * kf
-    idx = _bootstrap_indices(a.n, n_boot, seed)
+    idx = bootstrap_indices(a.n, n_boot, seed)
     bfw = fwmc_per_period(a.conc[idx], a.sample_flow[idx], scode[idx])  # (B, nper)
     boot = a.flow[None, :] * bfw[:, codes] * kf
     return summarise_bootstrap(

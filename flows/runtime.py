@@ -1,6 +1,6 @@
-"""Runtime plumbing shared by the flows: stage lookup, Prefect API, Dask task runner, store lock.
+"""Runtime plumbing shared by the flows: stage lookup, Prefect API, Dask task runner, progress.
 
-Takes lake config paths and store folders; returns stage callables, task runners and locks. Must not
+Takes lake config paths and store folders; returns stage callables and task runners. Must not
 hold any science: every stage is one call into :mod:`lakefeed.stages`.
 
 Prefect's local mode (no server to start) is used for ad-hoc runs. When tasks run in Dask worker
@@ -19,7 +19,8 @@ from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
-from lakefeed.stages._result import Progress, StageResult
+from lakefeed.progress import Progress
+from lakefeed.stages import StageResult
 
 __all__ = [
     "STAGES",
@@ -31,7 +32,6 @@ __all__ = [
     "run_stage",
     "run_stage_many",
     "set_progress",
-    "store_lock",
 ]
 
 #: Stage name -> (module, function), in the order the flows run them (features after the inputs it joins).
@@ -50,23 +50,9 @@ StageFn = Callable[..., StageResult]
 
 
 def available_stages() -> tuple[dict[str, StageFn], dict[str, str]]:
-    """Stages whose module exists, and a note for each one that does not (it is skipped)."""
-    found: dict[str, StageFn] = {}
-    missing: dict[str, str] = {}
-    for name, (module, func) in STAGES.items():
-        try:
-            mod = importlib.import_module(module)
-        except ModuleNotFoundError as err:
-            if err.name is not None and module.startswith(err.name):
-                missing[name] = f"stage {name!r} is not available yet ({module} does not exist); skipped"
-                continue
-            raise
-        fn = getattr(mod, func, None)
-        if fn is None:
-            missing[name] = f"stage {name!r}: {module} has no {func}(); skipped"
-        else:
-            found[name] = fn
-    return found, missing
+    """Every stage function by name, in run order, and the stages left out with why (none: all are part of lakefeed)."""
+    found = {name: getattr(importlib.import_module(module), func) for name, (module, func) in STAGES.items()}
+    return found, {}
 
 
 # --- progress: the CLI installs a callback; tasks running in this process use it -------------------------
@@ -105,10 +91,10 @@ def run_stage(
     from lakefeed.config import load_project
     from lakefeed.store import Store
 
-    stages, missing = available_stages()
+    stages, _ = available_stages()
     project = load_project(lake_file)
     if stage not in stages:
-        return StageResult(stage, project.id, skipped=True, reason=missing.get(stage, f"unknown stage {stage!r}"))
+        return StageResult(stage, project.id, skipped=True, reason=f"unknown stage {stage!r}")
     extra: dict[str, Any] = {"since": since} if since is not None else {}
     if allow_shrink:
         extra["allow_shrink"] = True
@@ -190,23 +176,6 @@ def dask_task_runner(address: str | None = None, *, n_workers: int | None = None
             "dashboard_address": None,
         },
     )
-
-
-# --- one refresh at a time per store ------------------------------------------------------------------------
-
-
-@contextlib.contextmanager
-def store_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "refresh") -> Iterator[Path]:
-    """Hold the store's run lock (``<store>/.run.lock``) for the duration of a run.
-
-    A second run, or a command that writes (``features``, ``forecast``, ``verify --repair``), on the same
-    store waits up to ``wait`` seconds, then refuses with :class:`StoreError` naming the holder
-    (:func:`lakefeed.store.run_lock`). The lock is an OS file lock: it is released when the holding process dies.
-    """
-    from lakefeed.store import run_lock
-
-    with run_lock(root, wait=wait, what=what) as path:
-        yield Path(path)
 
 
 def write_json_atomic(path: Path, data: Any) -> None:
