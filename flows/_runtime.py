@@ -112,7 +112,7 @@ def run_stage(
     extra: dict[str, Any] = {"since": since} if since is not None else {}
     if allow_shrink:
         extra["allow_shrink"] = True
-    return stages[stage](project, Store(store_root), progress=progress, **extra)
+    return stages[stage](project, Store(store_root, staged=True), progress=progress, **extra)
 
 
 def run_stage_many(
@@ -138,7 +138,7 @@ def run_stage_many(
         except Exception as err:  # this lake's configuration: reported for it alone
             out[lake] = err
     extra = {"allow_shrink": True} if allow_shrink else {}
-    out.update(fn(projects, Store(store_root), progress=progress, isolate=True, **extra))
+    out.update(fn(projects, Store(store_root, staged=True), progress=progress, isolate=True, **extra))
     return {lake: out[lake] for lake in lake_files if lake in out}
 
 
@@ -202,10 +202,12 @@ def store_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "
     A second run, or a command that writes (``features``, ``forecast``, ``verify --repair``), on the same
     store waits up to ``wait`` seconds, then refuses with :class:`StoreError` naming the holder
     (:func:`lakefeed.store.run_lock`). The lock is an OS file lock: it is released when the holding process dies.
+    The stages of the run write unpublished (``Store(root, staged=True)``); what they wrote is published as one
+    new store generation when the run ends without an exception, so readers see the whole run or none of it.
     """
-    from lakefeed.store import run_lock
+    from lakefeed.store import Store, run_lock
 
-    with run_lock(root, wait=wait, what=what) as path:
+    with run_lock(root, wait=wait, what=what) as path, Store(root).publishing():
         yield Path(path)
 
 

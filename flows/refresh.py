@@ -82,7 +82,7 @@ def process_lakes(
     order = [s for s in STAGES if s in found and (stages is None or s in stages)]
     for note in missing.values():
         logger.warning(note)
-    store = Store(store_root)
+    store = Store(store_root, staged=True)
     clock = {lake: time.perf_counter() for lake in lakes}
     rec: dict[str, dict[str, Any]] = {
         lake: {
@@ -234,7 +234,7 @@ def _task_runner(dask_address: str | None, sequential: bool, projects: dict[str,
 
 
 def _write_summary(store_root: str, summaries: list[dict[str, Any]], run_id: str, started: datetime) -> None:
-    store = Store(store_root)
+    store = Store(store_root, staged=True)  # published with the run's tables
     for s in summaries:
         row = pd.DataFrame([{"run_id": run_id, "started": pd.Timestamp(started), **s}]).drop(columns=["lake"])
         for col in ("new_rows", "rows_written", "seconds"):
