@@ -123,7 +123,8 @@ def _edges(centres: np.ndarray) -> np.ndarray:
 
 
 def render_report(project: Project, store: Store) -> str:
-    """The HTML text of the lake's quality report (self-contained)."""
+    """The HTML text of the lake's quality report (self-contained), from one store generation (one run)."""
+    store = store.pinned()
     lake = project.lake
     notes: list[str] = []
     parts = [

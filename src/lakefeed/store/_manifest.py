@@ -86,11 +86,15 @@ def load_json(fs: Any, path: str, *, immutable: bool = False) -> Any | None:
         hit = _CACHE.get(path)
         if hit is not None and hit[0] == key:
             return hit[1]
-    elif not fs.exists(path):
-        return None
     try:
-        with fs.open(path, "rb") as f:
-            data = json.loads(f.read())
+        if key is None:  # one GET, no listing or version check (another process may have replaced the object)
+            try:
+                data = json.loads(fs.cat_file(path))
+            except FileNotFoundError:
+                return None
+        else:
+            with fs.open(path, "rb") as f:
+                data = json.loads(f.read())
     except (OSError, ValueError) as err:
         raise StoreError(f"store manifest {path} cannot be read ({err}); restore it or rebuild the store") from err
     if immutable:

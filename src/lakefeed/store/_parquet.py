@@ -53,6 +53,9 @@ class Store(StoreWriter):
         For a run's stages: read the writers' view (what this run wrote so far) and leave writes unpublished
         until :meth:`publish` (the run publishes once at its end). Default: read the current generation,
         and publish each write when it is done.
+    lock_expiry
+        Seconds after which the writer lock of a remote store (an object store, where no OS lock exists) is
+        taken as left by a writer that died, and taken over.
     keep_generations
         Published generations kept before they are collected (recorded in the store at the next publish;
         default: the store's recorded value, else 3).
@@ -71,6 +74,7 @@ class Store(StoreWriter):
         storage_options: dict[str, Any] | None = None,
         staged: bool = False,
         keep_generations: int | None = None,
+        lock_expiry: float = 3600.0,
     ) -> None:
         if keep_generations is not None and (not isinstance(keep_generations, int) or keep_generations < 1):
             raise StoreError(f"keep_generations must be a whole number of at least 1, not {keep_generations!r}")
@@ -79,6 +83,7 @@ class Store(StoreWriter):
         self.local = is_local(self.fs)
         self.root = self.path if self.local else self.url.rstrip("/")
         self.lock_timeout = lock_timeout
+        self.lock_expiry = lock_expiry
         self.staged = staged
         self.keep_generations = keep_generations
         self._depth = 0
@@ -89,6 +94,9 @@ class Store(StoreWriter):
 
     # -- locking, manifest and generations ----------------------------------------------------------------
     def _ensure_root(self) -> None:
+        if not self.local:
+            self._check_remote()
+            return
         try:
             if self.fs.exists(self.path) and not self.fs.isdir(self.path):
                 raise StoreError(f"store path {self.url!r} is a file, not a folder; choose a folder for the store")
@@ -101,11 +109,25 @@ class Store(StoreWriter):
                 "(--store DIR or 'store:' in sources.yaml) or fix its permissions"
             ) from err
 
+    def _check_remote(self) -> None:
+        """A remote store's bucket (or top folder) must exist and be reachable: it is never created, and a
+        refusal writes nothing. Messages name the URL, never credentials."""
+        top = self.path.split("/", 1)[0]
+        try:
+            self.fs.ls(top, detail=False)
+        except FileNotFoundError as err:
+            raise StoreError(f"store {self.url!r}: bucket {top!r} does not exist; create it first or fix 'store:' "
+                             "(nothing was written)") from err  # fmt: skip
+        except (PermissionError, OSError) as err:
+            raise StoreError(f"store {self.url!r}: access to bucket {top!r} refused ({type(err).__name__}); check "
+                             "the credentials (environment variables or profile) and the endpoint (nothing was "
+                             "written)") from err  # fmt: skip
+
     @contextmanager
     def lock(self) -> Iterator[None]:
         """Hold the store's writer lock (re-entrant); a second writer waits, then refuses."""
         self._ensure_root()
-        with store_lock(self.fs, self.path, timeout=self.lock_timeout):
+        with store_lock(self.fs, self.path, timeout=self.lock_timeout, stale_after=self.lock_expiry):
             yield
 
     def generation(self) -> int | None:
