@@ -108,3 +108,16 @@ def test_wrong_credentials_are_a_clear_error_and_nothing_is_written(
     s3 = boto3.client("s3", endpoint_url=url, region_name="us-east-1", aws_access_key_id=key,
                       aws_secret_access_key=secret)  # fmt: skip
     assert s3.list_objects_v2(Bucket=bucket).get("KeyCount", 0) == 0  # nothing written
+
+
+def test_the_run_lock_of_a_bucket_store_refuses_a_second_run(s3_bucket: tuple[str, dict[str, Any]]) -> None:  # noqa: F811
+    from lakefeed.store import run_lock
+
+    bucket, _ = s3_bucket
+    url = f"s3://{bucket}/store"
+    with run_lock(url, what="refresh"):
+        with pytest.raises(StoreError, match="being written by"):
+            with run_lock(url, wait=0.5):
+                pass
+    with run_lock(url):  # released at the end of the first run
+        pass

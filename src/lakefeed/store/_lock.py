@@ -213,6 +213,10 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
     import fcntl
     import socket
 
+    if "://" in str(root) and not str(root).startswith("file://"):
+        with _remote_run_lock(str(root), wait) as held:
+            yield held
+        return
     path = os.path.join(os.fspath(root), RUN_LOCK_NAME)
     try:
         os.makedirs(os.fspath(root), exist_ok=True)
@@ -255,6 +259,24 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
             except OSError:
                 pass
         fh.close()
+
+
+#: Seconds after which the run lock of a remote store is taken as left by a run that died.
+RUN_LOCK_EXPIRY = 24 * 3600.0
+
+
+@contextmanager
+def _remote_run_lock(url: str, wait: float) -> Iterator[str]:
+    """The run lock of a store on an object store: a lock object (conditional PUT, expiry), as the writer lock."""
+    from lakefeed.store._fs import resolve
+
+    fs, root = resolve(url)
+    path = f"{root}/{RUN_LOCK_NAME}"
+    _acquire_remote(fs, path, url, max(0.0, wait), RUN_LOCK_EXPIRY)
+    try:
+        yield fs.unstrip_protocol(path)
+    finally:
+        _release(fs, path, None)
 
 
 #: Free space below which a run is refused at the start (a write would fail part-way).
