@@ -51,7 +51,7 @@ def zonal(
     from lakefeed.sources.grids import open_grid
     from lakefeed.sources.vectors import read_layer
     from lakefeed.stages.weather import get_weights, hourly_drivers, use_processes, zonal_long
-    from lakefeed.store._meta import schema_with_units
+    from lakefeed.store import schema_with_units
 
     if accumulation not in ("none", "since_reset", "per_step"):
         raise ConfigError(f"--accumulation {accumulation!r}: use none, since_reset or per_step")

@@ -17,6 +17,7 @@ readers. Must not compute any science.
 from lakefeed.store._fs import file_digest
 from lakefeed.store._lock import run_lock
 from lakefeed.store._manifest import SCHEMA_VERSION
+from lakefeed.store._meta import schema_with_units
 from lakefeed.store._options import WriteOptions
 from lakefeed.store._parquet import Store, read_descriptions, read_units
 from lakefeed.store._sql import check_read_only
@@ -41,6 +42,7 @@ __all__ = [
     "read_descriptions",
     "read_units",
     "run_lock",
+    "schema_with_units",
     "snapshot",
     "table_path",
     "verify_store",

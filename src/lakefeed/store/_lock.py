@@ -6,7 +6,7 @@ holder. It is an OS file lock, released when the holding process dies; it is not
 hold in the same process is refused too). A store that cannot be written gets one clear message here,
 before any work.
 
-:func:`store_lock` (``<store>/.lock``) is taken by every single store write. Local stores use
+:func:`writer_lock` (``<store>/.lock``) is taken by every single store write. Local stores use
 ``fcntl.flock`` on ``<store>/.lock`` (released by the OS if the writer
 dies) plus a per-process re-entrant lock (threads of one process, nested use). Other fsspec
 filesystems (object stores) get a lock object created by a conditional PUT (only if absent), naming its
@@ -29,7 +29,7 @@ from typing import Any
 from lakefeed.exceptions import StoreError
 from lakefeed.store._fs import is_local
 
-__all__ = ["LOCK_NAME", "RUN_LOCK_NAME", "run_lock", "store_lock"]
+__all__ = ["LOCK_NAME", "RUN_LOCK_NAME", "run_lock", "writer_lock"]
 
 LOCK_NAME = ".lock"
 RUN_LOCK_NAME = ".run.lock"
@@ -55,7 +55,7 @@ def _stamp(expire_after: float | None = None) -> bytes:
 
 
 @contextmanager
-def store_lock(fs: Any, root: str, *, timeout: float = 300.0, stale_after: float = 3600.0) -> Iterator[None]:
+def writer_lock(fs: Any, root: str, *, timeout: float = 300.0, stale_after: float = 3600.0) -> Iterator[None]:
     """Hold the store's writer lock for the duration of the block (re-entrant within a process)."""
     path = f"{root}/{LOCK_NAME}"
     with _REGISTRY_GUARD:

@@ -27,7 +27,7 @@ import pyarrow.parquet as pq
 from lakefeed.exceptions import LakefeedWarning, StoreError
 from lakefeed.store._fs import is_local, resolve
 from lakefeed.store._generations import current_generation, generation_entry, generations, read_generation
-from lakefeed.store._lock import store_lock
+from lakefeed.store._lock import writer_lock
 from lakefeed.store._manifest import read_head, read_manifest
 from lakefeed.store._meta import read_descriptions, read_units
 from lakefeed.store._parts import BASE, live_parts, read_parts
@@ -127,7 +127,7 @@ class Store(StoreWriter):
     def lock(self) -> Iterator[None]:
         """Hold the store's writer lock (re-entrant); a second writer waits, then refuses."""
         self._ensure_root()
-        with store_lock(self.fs, self.path, timeout=self.lock_timeout, stale_after=self.lock_expiry):
+        with writer_lock(self.fs, self.path, timeout=self.lock_timeout, stale_after=self.lock_expiry):
             yield
 
     def generation(self) -> int | None:
