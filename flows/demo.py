@@ -47,7 +47,7 @@ def demo(sample_dir: str, store: str, report: bool = True) -> dict[str, Any]:
     started = datetime.now(UTC)
     lake_file = demo_lake_file(sample_dir)
     project = load_project(lake_file)
-    with run_lock(store, what="demo"), prefect_api():
+    with run_lock(store, what="demo"), Store(store).publishing(), prefect_api():
         from prefect.task_runners import ThreadPoolTaskRunner
 
         runner = ThreadPoolTaskRunner(max_workers=1)

@@ -77,7 +77,7 @@ def process_lakes(
     """
     logger = get_run_logger()
     order = [s for s in STAGES if stages is None or s in stages]
-    store = Store(store_root)
+    store = Store(store_root, staged=True)
     rec = {lake: LakeRecord(lake) for lake in lakes}
     plans: dict[str, dict[str, Any]] = {}
     futures = {lake: plan_task.submit(lake, lf, store_root, order, full) for lake, lf in lakes.items()}
@@ -194,7 +194,7 @@ def _task_runner(dask_address: str | None, sequential: bool, projects: dict[str,
 
 
 def write_summary(store_root: str, summaries: list[dict[str, Any]], run_id: str, started: datetime) -> None:
-    store = Store(store_root)
+    store = Store(store_root, staged=True)  # published with the run's tables
     for s in summaries:
         row = pd.DataFrame([{"run_id": run_id, "started": pd.Timestamp(started), **s}]).drop(columns=["lake"])
         for col in ("new_rows", "rows_written", "seconds"):
@@ -236,7 +236,9 @@ def _run(
         raise ConfigError("no lake configuration could be loaded:\n" + "\n".join(f["error"] for f in failed))
     root = _store_root(store, projects)
     lakes = {lake: str(p.lake_file) for lake, p in projects.items()}
-    with run_lock(root, wait=wait, what=what), prefect_api():
+    # the stages write unpublished (Store(..., staged=True)); what the run wrote is published as one new
+    # store generation when it ends without an exception, so readers see the whole run or none of it
+    with run_lock(root, wait=wait, what=what), Store(root).publishing(), prefect_api():
         runner = _task_runner(dask_address, sequential, projects)
         summaries = process_lakes.with_options(task_runner=runner)(
             lakes, root, full=full, stages=stages, allow_shrink=allow_shrink

@@ -98,7 +98,7 @@ def run_stage(
     extra: dict[str, Any] = {"since": since} if since is not None else {}
     if allow_shrink:
         extra["allow_shrink"] = True
-    return stages[stage](project, Store(store_root), progress=progress, **extra)
+    return stages[stage](project, Store(store_root, staged=True), progress=progress, **extra)
 
 
 def run_stage_many(
@@ -124,7 +124,7 @@ def run_stage_many(
         except Exception as err:  # this lake's configuration: reported for it alone
             out[lake] = err
     extra = {"allow_shrink": True} if allow_shrink else {}
-    out.update(fn(projects, Store(store_root), progress=progress, isolate=True, **extra))
+    out.update(fn(projects, Store(store_root, staged=True), progress=progress, isolate=True, **extra))
     return {lake: out[lake] for lake in lake_files if lake in out}
 
 

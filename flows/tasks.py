@@ -141,7 +141,7 @@ def plan_task(lake: str, lake_file: str, store_root: str, stages: list[str], ful
     from lakefeed.store import Store
 
     project = load_project(lake_file)
-    store = Store(store_root)
+    store = Store(store_root, staged=True)
     new = fingerprint(project)
     old = {"sources": {}, "stages": {}} if full else read_state(store_root, lake)
     changed = changes(old.get("sources", {}), new)

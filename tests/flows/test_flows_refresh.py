@@ -170,18 +170,31 @@ def test_build_lake_validates_backfills_and_reports(small_sample, prefect_server
 
 
 def _consistent(root: Path) -> list[str]:
-    """Problems of a store's files: listed parts missing, unlisted or temporary files a reader would see."""
+    """Problems of a store's files: listed parts missing, files a glob sees that no kept generation or writer's
+    entry lists (half-written or stray), or a scan of the current generation's file list that differs from its
+    manifest. (A plain glob also sees the superseded files of the older generations the store keeps; readers
+    outside lakefeed read ``lakefeed.store.snapshot``.)"""
     import pyarrow.dataset as pads
 
+    from lakefeed.store import snapshot
+
     store, problems = Store(str(root)), []
+    kept: dict[tuple[str, str], set[str]] = {}
+    for gen in sorted((root / "_generations").glob("0*.json")):
+        for table, lakes in json.loads(gen.read_text())["partitions"].items():
+            for lake, ref in lakes.items():
+                kept.setdefault((table, lake), set()).update(p["file"] for p in ref["parts"])
+    snap = snapshot(store)
     for table in store.tables():
         for lake in store.lakes(table):
             listed = [Path(p).name for p in store.part_files(table, lake)]
+            writers = [Path(p).name for p in Store(str(root), staged=True).part_files(table, lake)]
             folder = root / table / f"lake={lake}"
             visible = sorted(p.name for p in folder.glob("*.parquet"))  # what DuckDB / pandas globs read
-            if sorted(listed) != visible:
+            if not set(listed) <= set(visible) or not set(visible) <= kept.get((table, lake), set()) | set(writers):
                 problems.append(f"{table}/{lake}: listed {listed}, on disk {visible}")
-            rows = pads.dataset(folder, format="parquet").count_rows()  # pyarrow.dataset skips dot-files
+            files = [f for f, lk in zip(snap.tables[table], snap.lakes[table], strict=True) if lk == lake]
+            rows = pads.dataset(files, format="parquet").count_rows()
             if rows != store.num_rows(table, lake):
                 problems.append(
                     f"{table}/{lake}: a dataset scan sees {rows} rows, the manifest {store.num_rows(table, lake)}"

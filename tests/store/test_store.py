@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import threading
 from pathlib import Path
 
@@ -279,8 +280,11 @@ def _glob_rows(root: Path, table: str = "features") -> pd.DataFrame:
 
 
 def test_append_adds_or_replaces_one_part_and_readers_agree(tmp_path: Path) -> None:
-    """Appending rows from a date: a new part, or the last part rewritten; every reader sees each key once."""
-    store = Store(tmp_path)
+    """Appending rows from a date: a new part, or the last part rewritten; every reader sees each key once.
+
+    The store keeps one generation here, so a plain glob (outside lakefeed) sees exactly the current one; with
+    more generations kept it sees their superseded files too (read through ``snapshot`` then)."""
+    store = Store(tmp_path, keep_generations=1)
     base = pd.DataFrame({"aoi": "a", "target_date": pd.date_range("2024-01-01", periods=6, freq="5D"), "chla": 1.0})
     kw = dict(units={"chla": "mg m-3"}, time_column="target_date", sort_by=["aoi", "target_date"])
     store.write_table("features", "tallow", base, **kw)
@@ -292,7 +296,8 @@ def test_append_adds_or_replaces_one_part_and_readers_agree(tmp_path: Path) -> N
     store.append_arrow("features", "tallow", rows("2024-02-01", 3, 2.0), since="2024-02-01", **kw)
     store.append_arrow("features", "tallow", rows("2024-02-03", 4, 3.0), since="2024-02-03", **kw)  # spill-over
     names = [Path(p).name for p in store.part_files("features", "tallow")]
-    assert names == ["part-0.parquet", "part-20240201.parquet"]
+    # the spill-over part is rewritten under a new, content-named file: the published generation listed the old one
+    assert names[0] == "part-0.parquet" and re.fullmatch(r"part-20240201-[0-9a-f]{16}\.parquet", names[1])
     back = store.read_table("features", "tallow")
     assert back["chla"].tolist() == [1.0] * 6 + [2.0] + [3.0] * 4 and back.attrs["units"] == {"chla": "mg m-3"}
     for got in (_glob_rows(tmp_path), query(store, "SELECT * FROM features")):
@@ -379,6 +384,13 @@ def test_a_newer_entry_file_is_refused(tmp_path: Path) -> None:
     doc = json.loads(entry.read_text())
     doc["schema_version"] = SCHEMA_VERSION + 1
     entry.write_text(json.dumps(doc))
+    with pytest.raises(StoreError, match="Upgrade lakefeed"):  # the writers' view (a run's stages)
+        Store(tmp_path, staged=True).read_table("features", "tallow")
+    with pytest.raises(StoreError, match="Upgrade lakefeed"):
+        store.write_table("features", "tallow", _frame())
+    # readers read the published generation's version of the entry (written when the generation was published)
+    (published,) = (tmp_path / "_generations" / "entries" / "features" / "tallow").glob("*.json")
+    published.write_text(json.dumps(doc))
     with pytest.raises(StoreError, match="Upgrade lakefeed"):
         store.read_table("features", "tallow")
 

@@ -146,8 +146,8 @@ def demo_command(
     if result.get("report"):
         console.print(f"quality report: {escape(result['report'])}")
     console.print(
-        "read it with pandas (pd.read_parquet) or DuckDB: "
-        f"SELECT * FROM read_parquet('{escape(str(store))}/features/*/*.parquet', hive_partitioning=true)"
+        "read it with lakefeed.store.Store(...).read_table, or give pandas or DuckDB the file list of the current "
+        f"generation: lakefeed.store.snapshot('{escape(str(store))}').tables['features']"
     )
     console.print(
         "[dim]Trophic classes and chlorophyll-a thresholds inform only; bathing and drinking-water "

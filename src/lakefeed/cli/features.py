@@ -45,10 +45,16 @@ def store_for(project: Project, store: str | None) -> Store:
 
 def held(store: Store, *, what: str, wait: float = 0.0) -> AbstractContextManager[object]:
     """The store's run lock for a command that writes (a local store; other filesystems: each write's own
-    lock only), so that it never interleaves with a build, a refresh or another writing command."""
+    lock only), so that it never interleaves with a build, a refresh or another writing command; what the
+    command writes is published together at its end (:meth:`lakefeed.store.Store.publishing`)."""
+    from contextlib import ExitStack
+
     from lakefeed.store import run_lock
 
-    return run_lock(store.path, wait=wait, what=what) if store.local else nullcontext()
+    stack = ExitStack()
+    stack.enter_context(run_lock(store.path, wait=wait, what=what) if store.local else nullcontext())
+    stack.enter_context(store.publishing())
+    return stack
 
 
 def _content(store: Store, lake: str) -> str | None:

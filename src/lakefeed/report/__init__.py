@@ -115,7 +115,8 @@ def _lake_cells(project: Project, store: Store, lake_g: object) -> tuple[np.ndar
 
 
 def render_report(project: Project, store: Store) -> str:
-    """The HTML text of the lake's quality report (self-contained)."""
+    """The HTML text of the lake's quality report (self-contained), from one store generation (one run)."""
+    store = store.pinned()
     lake = project.lake
     notes: list[str] = []
     parts = [

@@ -14,7 +14,10 @@ __all__ = ["file_digest", "is_local", "resolve"]
 
 def resolve(root: str | os.PathLike[str], storage_options: dict[str, Any] | None = None) -> tuple[Any, str]:
     """(filesystem, path without protocol) for a store root (folder or fsspec URL)."""
-    fs, path = fsspec.core.url_to_fs(str(root), **(storage_options or {}))
+    options = dict(storage_options or {})
+    if str(root).startswith(("s3://", "s3a://")):  # other processes replace objects: no stale cached listings
+        options.setdefault("use_listings_cache", False)
+    fs, path = fsspec.core.url_to_fs(str(root), **options)
     return fs, path.rstrip("/") or "/"
 
 

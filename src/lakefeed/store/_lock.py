@@ -6,11 +6,13 @@ holder. It is an OS file lock, released when the holding process dies; it is not
 hold in the same process is refused too). A store that cannot be written gets one clear message here,
 before any work.
 
-:func:`store_lock` (``<store>/.lock``) is taken by every single store write. Local stores use
+:func:`writer_lock` (``<store>/.lock``) is taken by every single store write. Local stores use
 ``fcntl.flock`` on ``<store>/.lock`` (released by the OS if the writer
 dies) plus a per-process re-entrant lock (threads of one process, nested use). Other fsspec
-filesystems get an advisory lock file (created if absent, removed on release; a lock older
-than ``stale_after`` seconds is taken over). A second writer waits up to ``timeout`` seconds,
+filesystems (object stores) get a lock object created by a conditional PUT (only if absent), naming its
+holder and an expiry (``stale_after`` seconds), removed on release; an expired lock (a writer that died) is
+taken over by a PUT conditional on its ETag, so a dead writer never blocks the store for ever.
+A second writer waits up to ``timeout`` seconds,
 then gets a :class:`StoreError` naming the holder.
 """
 
@@ -28,7 +30,7 @@ from lakefeed.exceptions import StoreError
 from lakefeed.store._fs import is_local
 from lakefeed.store.location import store_location_problem
 
-__all__ = ["LOCK_NAME", "RUN_LOCK_NAME", "run_lock", "store_lock"]
+__all__ = ["LOCK_NAME", "RUN_LOCK_NAME", "run_lock", "writer_lock"]
 
 LOCK_NAME = ".lock"
 RUN_LOCK_NAME = ".run.lock"
@@ -45,14 +47,16 @@ def _holder(fs: Any, path: str) -> str:
         return "another writer"
 
 
-def _stamp() -> bytes:
-    return json.dumps(
-        {"pid": os.getpid(), "host": os.uname().nodename, "since": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())}
-    ).encode()
+def _stamp(expire_after: float | None = None) -> bytes:
+    doc: dict[str, Any] = {"pid": os.getpid(), "host": os.uname().nodename,
+                           "since": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())}  # fmt: skip
+    if expire_after is not None:
+        doc["expires"] = time.time() + expire_after
+    return json.dumps(doc).encode()
 
 
 @contextmanager
-def store_lock(fs: Any, root: str, *, timeout: float = 300.0, stale_after: float = 3600.0) -> Iterator[None]:
+def writer_lock(fs: Any, root: str, *, timeout: float = 300.0, stale_after: float = 3600.0) -> Iterator[None]:
     """Hold the store's writer lock for the duration of the block (re-entrant within a process)."""
     path = f"{root}/{LOCK_NAME}"
     with _REGISTRY_GUARD:
@@ -110,23 +114,69 @@ def _read_fd(fd: int) -> str:
 
 
 def _acquire_remote(fs: Any, path: str, root: str, timeout: float, stale_after: float) -> None:
+    """Take the lock object on a filesystem without rename or OS locks (an object store).
+
+    The lock is created only if absent (a conditional PUT, ``If-None-Match: *``); it names its holder and
+    an expiry. An expired lock (its writer died) is taken over only if unchanged since it was read (a PUT
+    conditional on its ETag), so two writers never both take it. Filesystems without conditional writes
+    fall back to an advisory lock file (check, then write)."""
     deadline = time.monotonic() + timeout
-    while fs.exists(path):
-        try:
-            modified = fs.modified(path).timestamp()
-        except (NotImplementedError, OSError, AttributeError):
-            modified = time.time()
-        if time.time() - modified > stale_after:
-            break
+    conditional = hasattr(fs, "_call_s3")  # s3fs: conditional PUTs (If-None-Match / If-Match)
+    while True:
+        info = _lock_info(fs, path)
+        if info is None:
+            if not conditional:
+                fs.pipe_file(path, _stamp(stale_after))
+                return None
+            try:
+                fs.pipe_file(path, _stamp(stale_after), mode="create")
+                return None
+            except (FileExistsError, OSError) as err:
+                if not _precondition(err):
+                    raise
+        elif info["expires"] < time.time():
+            if not conditional:
+                fs.pipe_file(path, _stamp(stale_after))
+                return None
+            try:
+                fs.pipe_file(path, _stamp(stale_after), IfMatch=info["etag"])
+                return None
+            except (FileNotFoundError, OSError) as err:
+                if not _precondition(err) and not isinstance(err, FileNotFoundError):
+                    raise
         if time.monotonic() >= deadline:
             raise StoreError(
                 f"store {root!r} is being written by {_holder(fs, path)}; waited {timeout:.0f} s. "
-                f"Wait for that run to finish, or remove {path} if no writer is running."
+                f"Wait for that run to finish; a lock of a writer that died expires by itself ({stale_after:.0f} s)."
             )
         time.sleep(0.2)
-    with fs.open(path, "wb") as f:
-        f.write(_stamp())
-    return None
+
+
+def _precondition(err: BaseException) -> bool:
+    text = f"{type(err).__name__} {err} {getattr(err, '__cause__', '')}"
+    return isinstance(err, FileExistsError) or "PreconditionFailed" in text or "412" in text
+
+
+def _lock_info(fs: Any, path: str) -> dict[str, Any] | None:
+    """The lock object's expiry (seconds since the epoch) and ETag, or None when there is no lock."""
+    try:
+        fs.invalidate_cache(path)
+        meta = fs.info(path)
+        with fs.open(path, "rb") as f:
+            doc = json.loads(f.read() or b"{}")
+    except FileNotFoundError:
+        return None
+    except ValueError:
+        doc = {}
+    expires = doc.get("expires")
+    if not isinstance(expires, (int, float)):
+        modified = meta.get("LastModified") or meta.get("mtime") or meta.get("created")
+        try:
+            base = modified.timestamp() if hasattr(modified, "timestamp") else float(modified)
+        except (TypeError, ValueError):
+            base = time.time()
+        expires = base + 3600.0
+    return {"expires": float(expires), "etag": meta.get("ETag")}
 
 
 def _release(fs: Any, path: str, fd: int | None) -> None:
@@ -166,6 +216,10 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
 
     if problem := store_location_problem(root):
         raise StoreError(problem)
+    if "://" in str(root) and not str(root).startswith("file://"):
+        with _remote_run_lock(str(root), wait) as held:
+            yield held
+        return
     path = os.path.join(os.fspath(root), RUN_LOCK_NAME)
     try:
         os.makedirs(os.fspath(root), exist_ok=True)
@@ -208,6 +262,24 @@ def run_lock(root: str | os.PathLike[str], *, wait: float = 0.0, what: str = "re
             except OSError:
                 pass
         fh.close()
+
+
+#: Seconds after which the run lock of a remote store is taken as left by a run that died.
+RUN_LOCK_EXPIRY = 24 * 3600.0
+
+
+@contextmanager
+def _remote_run_lock(url: str, wait: float) -> Iterator[str]:
+    """The run lock of a store on an object store: a lock object (conditional PUT, expiry), as the writer lock."""
+    from lakefeed.store._fs import resolve
+
+    fs, root = resolve(url)
+    path = f"{root}/{RUN_LOCK_NAME}"
+    _acquire_remote(fs, path, url, max(0.0, wait), RUN_LOCK_EXPIRY)
+    try:
+        yield fs.unstrip_protocol(path)
+    finally:
+        _release(fs, path, None)
 
 
 #: Free space below which a run is refused at the start (a write would fail part-way).

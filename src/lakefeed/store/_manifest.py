@@ -6,12 +6,16 @@
   and range, config hash, content hashes of every input file, the live part files with their
   content hashes, and free-form metadata; plus the schema and package version that wrote it.
 
-A write replaces one entry file (aside, then one rename), so its cost does not grow with the
-number of lakes or tables in the store: with one document for the whole store, a store of 200
-lakes whose target tables list thousands of scene files each would rewrite hundreds of MB at every
+A write replaces one entry file (aside, then one rename; on an object store one PUT, which replaces an
+object whole), so its cost does not grow with the number of lakes or tables in the store: with one
+document for the whole store, a store of 200 lakes whose target tables list thousands of scene
+files each would rewrite hundreds of MB at every
 write. No timestamps, so the same inputs give the same bytes (idempotent writes). A store with a
 newer schema version than this lakefeed knows is refused. Stores of schema version 1 (every entry
 in ``_manifest.json``) are read as they are and split into entry files at their first write.
+
+The entry files are the writers' view of the store. Readers read a published generation
+(:mod:`lakefeed.store._generations`, schema version 3), which pins one version of every entry.
 """
 
 from __future__ import annotations
@@ -29,14 +33,17 @@ __all__ = [
     "MANIFEST_NAME",
     "SCHEMA_VERSION",
     "check_schema_version",
+    "load_json",
     "read_entry",
     "read_head",
     "read_manifest",
     "write_entry",
+    "write_json",
 ]
 
-#: Version of the store layout and manifest this lakefeed writes and reads (2: one entry file per partition).
-SCHEMA_VERSION = 2
+#: Version of the store layout and manifest this lakefeed writes and reads (2: one entry file per partition;
+#: 3: published generations that readers read).
+SCHEMA_VERSION = 3
 MANIFEST_NAME = "_manifest.json"
 ENTRY_DIR = "_manifest"
 
@@ -60,11 +67,15 @@ def check_schema_version(manifest: dict[str, Any], root: str) -> None:
 
 
 _CACHE: dict[str, tuple[tuple[int, int, int], Any]] = {}
+_IMMUTABLE: dict[str, Any] = {}
 
 
-def _load(fs: Any, path: str) -> Any | None:
+def load_json(fs: Any, path: str, *, immutable: bool = False) -> Any | None:
     """A JSON file (None when absent). Local files are parsed once per version (cached on inode, size and
-    modification time; files are always replaced by a rename, so a new version has a new inode)."""
+    modification time; files are always replaced by a rename, so a new version has a new inode); files that
+    are never rewritten once written (``immutable``: generations, entry versions) once per process."""
+    if immutable and path in _IMMUTABLE:
+        return _IMMUTABLE[path]
     key = None
     if _is_local(fs):
         try:
@@ -75,14 +86,22 @@ def _load(fs: Any, path: str) -> Any | None:
         hit = _CACHE.get(path)
         if hit is not None and hit[0] == key:
             return hit[1]
-    elif not fs.exists(path):
-        return None
     try:
-        with fs.open(path, "rb") as f:
-            data = json.loads(f.read())
+        if key is None:  # one GET, no listing or version check (another process may have replaced the object)
+            try:
+                data = json.loads(fs.cat_file(path))
+            except FileNotFoundError:
+                return None
+        else:
+            with fs.open(path, "rb") as f:
+                data = json.loads(f.read())
     except (OSError, ValueError) as err:
         raise StoreError(f"store manifest {path} cannot be read ({err}); restore it or rebuild the store") from err
-    if key is not None:
+    if immutable:
+        if len(_IMMUTABLE) > 4096:
+            _IMMUTABLE.clear()
+        _IMMUTABLE[path] = data
+    elif key is not None:
         if len(_CACHE) > 4096:
             _CACHE.clear()
         _CACHE[path] = (key, data)
@@ -91,7 +110,7 @@ def _load(fs: Any, path: str) -> Any | None:
 
 def read_head(fs: Any, root: str) -> dict[str, Any]:
     """The top-level manifest (checked; an empty one when the store has none). Shared: do not modify."""
-    head = _load(fs, f"{root}/{MANIFEST_NAME}")
+    head = load_json(fs, f"{root}/{MANIFEST_NAME}")
     if head is None:
         return empty_manifest()
     check_schema_version(head, root)
@@ -103,7 +122,7 @@ def read_entry(fs: Any, root: str, table: str, lake: str) -> dict[str, Any] | No
     head = read_head(fs, root)
     if "tables" in head and head.get("schema_version", 0) < 2:  # a version-1 store: every entry in the head
         return head.get("tables", {}).get(table, {}).get(lake)
-    doc = _load(fs, _entry_path(root, table, lake))
+    doc = load_json(fs, _entry_path(root, table, lake))
     if doc is None:
         return None
     check_schema_version(doc, root)
@@ -121,7 +140,7 @@ def read_manifest(fs: Any, root: str) -> dict[str, Any]:
     for table in _names(fs, base):
         for name in _names(fs, f"{base}/{table}"):
             if name.endswith(".json") and not name.startswith("."):
-                doc = _load(fs, f"{base}/{table}/{name}")
+                doc = load_json(fs, f"{base}/{table}/{name}")
                 if doc is not None:
                     check_schema_version(doc, root)
                     tables.setdefault(table, {})[name[: -len(".json")]] = doc.get("entry")
@@ -135,18 +154,18 @@ def write_entry(fs: Any, root: str, table: str, lake: str, entry: dict[str, Any]
     The first write to a store creates ``_manifest.json``; the first write to a version-1 store moves its
     entries into entry files first (each written atomically; the head is replaced last, so a crash in
     between leaves a version-1 store that the next write migrates again)."""
-    head = _load(fs, f"{root}/{MANIFEST_NAME}")
+    head = load_json(fs, f"{root}/{MANIFEST_NAME}")
     if head is not None:
         check_schema_version(head, root)
     if head is not None and "tables" in head and head.get("schema_version", 0) < 2:
         for t, lakes in head["tables"].items():
             for lk, e in lakes.items():
-                _write_json(fs, _entry_path(root, t, lk), _entry_doc(e), local=local)
+                write_json(fs, _entry_path(root, t, lk), _entry_doc(e), local=local)
         head = None
     if head is None:
-        _write_json(fs, f"{root}/{MANIFEST_NAME}", {"schema_version": SCHEMA_VERSION, "package_version": __version__},
+        write_json(fs, f"{root}/{MANIFEST_NAME}", {"schema_version": SCHEMA_VERSION, "package_version": __version__},
                     local=local)  # fmt: skip
-    _write_json(fs, _entry_path(root, table, lake), _entry_doc(entry), local=local)
+    write_json(fs, _entry_path(root, table, lake), _entry_doc(entry), local=local)
 
 
 def _entry_doc(entry: dict[str, Any]) -> dict[str, Any]:
@@ -164,18 +183,21 @@ def _names(fs: Any, folder: str) -> list[str]:
         return []
 
 
-def _write_json(fs: Any, path: str, doc: dict[str, Any], *, local: bool) -> None:
+def write_json(fs: Any, path: str, doc: dict[str, Any], *, local: bool) -> None:
+    """Replace a JSON file atomically (keys sorted for stable bytes): locally aside, then one rename; on other
+    filesystems one whole-object write (an object store's PUT replaces an object in one step)."""
     data = json.dumps(doc, sort_keys=True, separators=(",", ":"), default=str).encode()  # C encoder: fast
     folder = path.rsplit("/", 1)[0]
+    _CACHE.pop(path, None)
+    _IMMUTABLE.pop(path, None)
+    if not local:
+        fs.pipe_file(path, data)
+        return
     fs.makedirs(folder, exist_ok=True)
     tmp = f"{folder}/.tmp-manifest-{uuid.uuid4().hex}.json"
     with fs.open(tmp, "wb") as f:
         f.write(data)
-    _CACHE.pop(path, None)
-    if local:
-        os.replace(tmp, path)
-    else:
-        fs.mv(tmp, path)
+    os.replace(tmp, path)
 
 
 def _is_local(fs: Any) -> bool:

@@ -35,6 +35,8 @@ def with_schema(table: pa.Table, schema: pa.Schema) -> pa.Table:
 def schema_with_units(
     table: pa.Table, units: Mapping[str, str], descriptions: Mapping[str, str], extra: Mapping[str, str]
 ) -> pa.Schema:
+    """The schema of ``table`` with per-column units and descriptions (field metadata ``unit``,
+    ``description``) and table-level metadata ``lakefeed.<key>`` from ``extra``."""
     fields = []
     for f in table.schema:
         md = dict(f.metadata or {})

@@ -1,33 +1,21 @@
-"""Parquet I/O of store tables with per-column units, a manifest, a writer lock and atomic replace.
+"""The store: Parquet tables with per-column units, a manifest, locks and published generations.
 
-Takes pandas DataFrames; writes ``<store>/<table>/lake=<id>/part-*.parquet`` (Hive
-partitioning, readable unchanged by pyarrow.dataset, pandas, DuckDB and Spark) on a local
-folder or any fsspec URL; reads them back with their units in ``frame.attrs['units']``.
-Must not compute any science.
+Takes pandas DataFrames; writes ``<store>/<table>/lake=<id>/part-*.parquet`` (Hive partitioning, readable
+unchanged by pyarrow.dataset, pandas, DuckDB and Spark) on a local folder or any fsspec URL
+(``s3://bucket/store``); reads them back with their units in ``frame.attrs['units']``. Writing is in
+:mod:`lakefeed.store._write`, generations in :mod:`lakefeed.store._generations`. Must not compute any science.
 
-Writes are atomic: each file is written aside (a dot-file without the ``.parquet`` extension,
-which no reader's glob matches) and moved into place in one rename (``os.replace`` locally;
-``fs.mv`` elsewhere, atomic only where the filesystem's rename is); the manifest, which lists
-the live part files, is replaced last. A crash leaves the previous version intact.
-
-- ``write_table``/``write_arrow`` (full): a partition of one part is replaced in place (one
-  rename: every reader sees the old or the new table). A partition of several parts gets a new,
-  content-named base part; the manifest switches to it, then the old parts are removed (lakefeed's
-  readers switch at the manifest; a plain glob may see both for that moment, or after a crash
-  until the next write removes the unlisted file).
-- ``append_arrow`` (incremental): adds one part or rewrites the last one, in one rename; a plain
-  glob read never sees a key twice, at any moment.
-- ``compact``: merges the parts (a full write of the same rows).
-
-Writes are idempotent: the same frame gives the same bytes. One writer at a time per store
-(:func:`lakefeed.store._lock.store_lock`).
+Readers see whole runs: a :class:`Store` reads the store's current generation (each call resolves it
+anew; :meth:`Store.pinned` holds one for many reads), never a run's unpublished writes. A store opened
+``staged=True`` (by a run, for its stages) reads and writes the writers' view and publishes at the end.
 """
 
 from __future__ import annotations
 
+import copy
 import os
 import warnings
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from typing import Any
 
@@ -38,40 +26,18 @@ import pyarrow.parquet as pq
 
 from lakefeed.exceptions import LakefeedWarning, StoreError
 from lakefeed.store._fs import is_local, resolve
-from lakefeed.store._integrity import read_checked
-from lakefeed.store._lock import store_lock
-from lakefeed.store._manifest import read_entry, read_head, read_manifest, write_entry
-from lakefeed.store._meta import (
-    make_entry,
-    read_descriptions,
-    read_units,
-    schema_with_units,
-    time_range,
-    with_schema,
-    write_options,
-)
-from lakefeed.store._parts import (
-    BASE,
-    date_part_name,
-    ensure_intact,
-    folder_names,
-    glob_parts,
-    live_parts,
-    part_hashes,
-    pending_files,
-    read_parts,
-    write_file,
-)
+from lakefeed.store._generations import current_generation, generation_entry, generations, read_generation
+from lakefeed.store._lock import writer_lock
+from lakefeed.store._manifest import read_head, read_manifest
+from lakefeed.store._meta import read_descriptions, read_units
+from lakefeed.store._parts import BASE, live_parts, read_parts
+from lakefeed.store._write import StoreWriter, day_bound
 from lakefeed.store.layout import partition_path, table_path
 
-__all__ = ["PART", "Store", "read_units"]
-
-PART = BASE
-# names used by other modules before the split into _meta (kept importable)
-_write_options = write_options
+__all__ = ["Store", "read_descriptions", "read_units"]
 
 
-class Store:
+class Store(StoreWriter):
     """A lakefeed store rooted at a local folder or an fsspec URL (``s3://bucket/store``, ``memory://x``).
 
     Parameters
@@ -81,7 +47,18 @@ class Store:
     lock_timeout
         Seconds a writer waits for another writer on the same store before giving up.
     storage_options
-        Passed to fsspec (credentials etc. for remote filesystems).
+        Passed to fsspec (e.g. an endpoint URL for S3-compatible storage). Credentials are best left to the
+        environment or a profile; they are never written to the store.
+    staged
+        For a run's stages: read the writers' view (what this run wrote so far) and leave writes unpublished
+        until :meth:`publish` (the run publishes once at its end). Default: read the current generation,
+        and publish each write when it is done.
+    lock_expiry
+        Seconds after which the writer lock of a remote store (an object store, where no OS lock exists) is
+        taken as left by a writer that died, and taken over.
+    keep_generations
+        Published generations kept before they are collected (recorded in the store at the next publish;
+        default: the store's recorded value, else 3).
 
     Examples
     --------
@@ -95,7 +72,12 @@ class Store:
         *,
         lock_timeout: float = 300.0,
         storage_options: dict[str, Any] | None = None,
+        staged: bool = False,
+        keep_generations: int | None = None,
+        lock_expiry: float = 3600.0,
     ) -> None:
+        if keep_generations is not None and (not isinstance(keep_generations, int) or keep_generations < 1):
+            raise StoreError(f"keep_generations must be a whole number of at least 1, not {keep_generations!r}")
         self.url = str(root)
         self.fs, self.path = resolve(root, storage_options)
         self.local = is_local(self.fs)
@@ -104,12 +86,20 @@ class Store:
         if self.local and os.path.exists(self.path) and not os.path.isdir(self.path):
             advice = "choose another folder (--store DIR or 'store:' in sources.yaml)"
             raise StoreError(f"store {self.url!r} is a file, not a folder; {advice}")
+        self.lock_expiry = lock_expiry
+        self.staged = staged
+        self.keep_generations = keep_generations
+        self._depth = 0
+        self._pin: int | None = None
 
     def __repr__(self) -> str:
         return f"Store({self.url!r})"
 
-    # -- locking and manifest ---------------------------------------------------------------
+    # -- locking, manifest and generations ----------------------------------------------------------------
     def _ensure_root(self) -> None:
+        if not self.local:
+            self._check_remote()
+            return
         try:
             if self.fs.exists(self.path) and not self.fs.isdir(self.path):
                 raise StoreError(f"store path {self.url!r} is a file, not a folder; choose a folder for the store")
@@ -122,270 +112,105 @@ class Store:
                 "(--store DIR or 'store:' in sources.yaml) or fix its permissions"
             ) from err
 
+    def _check_remote(self) -> None:
+        """A remote store's bucket (or top folder) must exist and be reachable: it is never created, and a
+        refusal writes nothing. Messages name the URL, never credentials."""
+        top = self.path.split("/", 1)[0]
+        try:
+            self.fs.ls(top, detail=False)
+        except FileNotFoundError as err:
+            raise StoreError(f"store {self.url!r}: bucket {top!r} does not exist; create it first or fix 'store:' "
+                             "(nothing was written)") from err  # fmt: skip
+        except (PermissionError, OSError) as err:
+            raise StoreError(f"store {self.url!r}: access to bucket {top!r} refused ({type(err).__name__}); check "
+                             "the credentials (environment variables or profile) and the endpoint (nothing was "
+                             "written)") from err  # fmt: skip
+
     @contextmanager
     def lock(self) -> Iterator[None]:
         """Hold the store's writer lock (re-entrant); a second writer waits, then refuses."""
         self._ensure_root()
-        with store_lock(self.fs, self.path, timeout=self.lock_timeout):
+        with writer_lock(self.fs, self.path, timeout=self.lock_timeout, stale_after=self.lock_expiry):
             yield
 
+    def generation(self) -> int | None:
+        """The generation this store reads: the pinned one, else the current one (None: a store without
+        generations, or a staged store, which reads the writers' view)."""
+        if self.staged:
+            return None
+        return self._pin if self._pin is not None else current_generation(self.fs, self.path)
+
+    def pinned(self) -> Store:
+        """This store with its reads held to the current generation (for a report or a query reading several
+        tables: all from one run). A staged store is returned unchanged."""
+        out = copy.copy(self)
+        if not self.staged:
+            out._pin = current_generation(self.fs, self.path)
+        return out
+
+    def at(self, generation: int) -> Store:
+        """This store with its reads held to a kept ``generation`` (:class:`StoreError` when it is not kept)."""
+        if generation not in generations(self.fs, self.path):
+            kept = generations(self.fs, self.path)
+            raise StoreError(f"store {self.url!r}: generation {generation} is not kept (collected, or never "
+                             f"published); kept: {kept}")  # fmt: skip
+        out = copy.copy(self)
+        out.staged, out._pin = False, generation
+        return out
+
+    def _generation_doc(self) -> dict[str, Any] | None:
+        read_head(self.fs, self.path)  # refuses a store of a newer schema version
+        n = self.generation()
+        return None if n is None else read_generation(self.fs, self.path, n)
+
     def manifest(self) -> dict[str, Any]:
-        """The store's whole manifest (schema version, package version, per-table provenance of every
-        lake; reads every entry: use :meth:`entry` for one partition)."""
-        return read_manifest(self.fs, self.path)
+        """The whole manifest as readers see it (schema and package version, ``tables`` -> lake -> entry;
+        reads every entry: use :meth:`entry` for one partition)."""
+        doc = self._generation_doc()
+        if doc is None:
+            return read_manifest(self.fs, self.path)
+        out = {k: v for k, v in read_head(self.fs, self.path).items() if k != "tables"}
+        out["generation"] = doc["generation"]
+        out["tables"] = {t: {lk: generation_entry(self.fs, self.path, doc, t, lk) for lk in lakes}
+                         for t, lakes in doc.get("partitions", {}).items()}  # fmt: skip
+        return out
 
     def check_version(self) -> None:
         """Refuse a store written by a newer schema version (reads only the store's head file)."""
         read_head(self.fs, self.path)
 
     def entry(self, table: str, lake: str) -> dict[str, Any] | None:
-        """Manifest entry of one table partition, or None (read-only: do not modify it); refuses a store
-        of a newer schema version."""
-        return read_entry(self.fs, self.path, table, lake)
+        """Manifest entry of one table partition as this store reads it, or None (read-only: do not modify
+        it); refuses a store of a newer schema version."""
+        doc = self._generation_doc()
+        if doc is None:
+            return self.writer_entry(table, lake)
+        return generation_entry(self.fs, self.path, doc, table, lake)
 
-    def _set_entry(self, table: str, lake: str, entry: dict[str, Any]) -> None:
-        write_entry(self.fs, self.path, table, lake, entry, local=self.local)
-
-    # -- writing ----------------------------------------------------------------------------
-    def write_table(
-        self,
-        table: str,
-        lake: str,
-        frame: pd.DataFrame,
-        *,
-        units: Mapping[str, str] | None = None,
-        descriptions: Mapping[str, str] | None = None,
-        metadata: Mapping[str, str] | None = None,
-        inputs: Mapping[str, str] | Sequence[str] | None = None,
-        config_hash: str | None = None,
-        time_column: str | None = None,
-        sort_by: Sequence[str] | None = None,
-    ) -> str:
-        """Atomically replace the partition of ``lake`` in ``table`` with ``frame``; record it in the manifest.
-
-        Parameters
-        ----------
-        frame
-            The rows; a ``lake`` column is dropped (it is the Hive partition key).
-        units, descriptions
-            Per-column unit strings and descriptions, stored in the Arrow field metadata.
-        metadata
-            Extra table-level key/values (schema metadata ``lakefeed.<key>`` and the manifest).
-        inputs
-            Input files: either {path or URL: sha256} or a list of paths to hash.
-        config_hash
-            Hash of the configuration that produced the table.
-        time_column
-            Column giving the table's time range (default: the first of target_date, date, time).
-        sort_by
-            Key columns by which readers sort the rows once the partition holds several part files
-            (after :meth:`append_arrow`).
-
-        Returns
-        -------
-        str
-            Path (or URL) of the written file.
-        """
-        frame = frame.drop(columns=["lake"], errors="ignore").reset_index(drop=True)
-        frame.attrs = {}
-        arrow = pa.Table.from_pandas(frame, preserve_index=False)
-        return self.write_arrow(
-            table,
-            lake,
-            arrow,
-            units=units,
-            descriptions=descriptions,
-            metadata=metadata,
-            inputs=inputs,
-            config_hash=config_hash,
-            time_column=time_column,
-            sort_by=sort_by,
-        )
-
-    def write_arrow(
-        self,
-        table: str,
-        lake: str,
-        arrow: pa.Table,
-        *,
-        units: Mapping[str, str] | None = None,
-        descriptions: Mapping[str, str] | None = None,
-        metadata: Mapping[str, str] | None = None,
-        inputs: Mapping[str, str] | Sequence[str] | None = None,
-        config_hash: str | None = None,
-        time_column: str | None = None,
-        sort_by: Sequence[str] | None = None,
-    ) -> str:
-        """As :meth:`write_table`, for an Arrow table (e.g. rows merged without pandas).
-
-        ``sort_by``: key columns by which a reader sorts the rows of several part files (recorded
-        in the manifest; :meth:`append_arrow` keeps it).
-        """
-        if "lake" in arrow.column_names:
-            arrow = arrow.drop_columns(["lake"])
-        arrow = with_schema(arrow, schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
-        part_dir = partition_path(self.path, table, lake)
-        with self.lock():
-            old = live_parts(self.entry(table, lake), self.fs, part_dir)
-            # a single base part is replaced in place (one rename: atomic for every reader); a partition
-            # of several parts gets a new, content-named base, listed in the manifest before the old
-            # parts are removed (lakefeed's readers switch at the manifest; see the module docstring)
-            name: Any = BASE if BASE not in old or old == [BASE] else (lambda d: f"part-0-{d[:16]}.parquet")
-            name, digest = write_file(self.fs, self.local, part_dir, name, arrow, write_options(arrow.schema))
-            col, trange = time_range(arrow, time_column)
-            parts = [{"file": name, "rows": arrow.num_rows, "first": trange[0], "last": trange[1], "sha256": digest}]
-            self._set_entry(table, lake, make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by))
-            self._remove_unlisted(part_dir, [name])
-        return self._located(f"{part_dir}/{name}")
-
-    def append_arrow(
-        self,
-        table: str,
-        lake: str,
-        arrow: pa.Table,
-        *,
-        since: object,
-        time_column: str,
-        units: Mapping[str, str] | None = None,
-        descriptions: Mapping[str, str] | None = None,
-        metadata: Mapping[str, str] | None = None,
-        inputs: Mapping[str, str] | Sequence[str] | None = None,
-        config_hash: str | None = None,
-        sort_by: Sequence[str] | None = None,
-        max_parts: int = 24,
-    ) -> str:
-        """Replace the rows keyed on or after ``since`` by ``arrow`` without rewriting the older rows.
-
-        The rows of ``arrow`` (all keyed on or after ``since`` in ``time_column``) go into one part
-        file. When no live part holds rows on or after ``since``, that is a new file
-        ``part-<since>.parquet``. When only the last part does (the spill-over rows of the previous
-        refresh), that part is rewritten under its own name with its rows before ``since`` plus
-        ``arrow`` (one rename). Either way one file appears or changes in one atomic step, so a plain
-        glob read (DuckDB, pandas, pyarrow.dataset) sees the old or the new rows, never both. Any other
-        overlap, or more than ``max_parts`` parts afterwards, rewrites the partition in full (a
-        compaction). The columns must equal the stored ones. Without a stored partition this is
-        :meth:`write_arrow`.
-
-        Returns
-        -------
-        str
-            Path (or URL) of the part file written.
-        """
-        since = pd.Timestamp(since)
-        part_dir = partition_path(self.path, table, lake)
-        if "lake" in arrow.column_names:
-            arrow = arrow.drop_columns(["lake"])
-        arrow = with_schema(arrow, schema_with_units(arrow, units or {}, descriptions or {}, metadata or {}))
-        kw = dict(units=units, descriptions=descriptions, metadata=metadata, inputs=inputs, config_hash=config_hash,
-                  time_column=time_column, sort_by=sort_by)  # fmt: skip
-        with self.lock():
-            entry = self.entry(table, lake)
-            parts = [dict(p) for p in (entry or {}).get("parts") or []]
-            if not parts and self._present(table, lake, entry):
-                return self._rewrite(table, lake, [(since, arrow)], **kw)  # a store without part list: merge
-            if not parts or not self.fs.exists(f"{part_dir}/{parts[0]['file']}"):
-                return self.write_arrow(table, lake, arrow, **kw)  # type: ignore[arg-type]
-            ensure_intact(self.fs, self.local, part_dir, entry)  # never extend a damaged partition
-            if list(entry.get("columns", [])) != arrow.column_names:
-                raise StoreError(
-                    f"cannot append to {table}/lake={lake}: columns differ from the stored ones; rewrite it in full"
-                )
-            after = [i for i, p in enumerate(parts) if p.get("last") is None or pd.Timestamp(p["last"]) >= since]
-            if not after and arrow.num_rows == 0:  # nothing to add or replace: new provenance, same files
-                new = make_entry(arrow, parts, entry.get("time_column") or time_column, inputs, config_hash, metadata,
-                                 sort_by)  # fmt: skip
-                self._set_entry(table, lake, new)
-                return self._located(f"{part_dir}/{parts[-1]['file']}")
-            if after and after != [len(parts) - 1]:
-                return self._rewrite(table, lake, [(since, arrow)], **kw)
-            if after:  # the last part holds spill-over rows: keep its rows before `since`, add the new ones
-                name = parts[-1]["file"]
-                old = read_checked(self.fs, self.local, f"{part_dir}/{name}", part_hashes(entry).get(name), None)
-                tcol = old[time_column]
-                kept = old.filter(pc.less(tcol, _bound(since, tcol.type)))
-                arrow = pa.concat_tables([kept, arrow.cast(kept.schema)])
-                if sort_by:  # one part file is read back as stored: keep it in key order
-                    arrow = arrow.sort_by([(k, "ascending") for k in sort_by])
-                parts = parts[:-1]
-            else:
-                name = date_part_name(since)
-            if len(parts) + 1 > max_parts:
-                return self._rewrite(table, lake, [(since, arrow)], **kw)
-            name, digest = write_file(self.fs, self.local, part_dir, name, arrow, write_options(arrow.schema))
-            col, trange = time_range(arrow, time_column)
-            parts.append({"file": name, "rows": arrow.num_rows, "first": trange[0], "last": trange[1],
-                          "sha256": digest})  # fmt: skip
-            self._set_entry(table, lake, make_entry(arrow, parts, col, inputs, config_hash, metadata, sort_by))
-            self._remove_unlisted(part_dir, [p["file"] for p in parts])
-        return self._located(f"{part_dir}/{name}")
-
-    def _rewrite(
-        self, table: str, lake: str, replace: list[tuple[pd.Timestamp, pa.Table]] | None = None, **kw: Any
-    ) -> str:
-        """Rewrite a partition as one base part (compaction), optionally replacing rows from a date on."""
-        current = self.read_arrow(table, lake)
-        entry = self.entry(table, lake) or {}
-        sort_by = kw.get("sort_by") or entry.get("sort_by")
-        col = kw.get("time_column") or entry.get("time_column")
-        for since, rows in replace or []:
-            tcol = current[col]
-            kept = current.filter(pc.less(tcol, _bound(since, tcol.type)))
-            current = pa.concat_tables([kept, rows.cast(kept.schema)])
-        if sort_by:
-            current = current.sort_by([(k, "ascending") for k in sort_by])
-        units = kw.get("units") or read_units(current.schema)
-        descriptions = kw.get("descriptions") or read_descriptions(current.schema)
-        metadata = kw.get("metadata") if kw.get("metadata") is not None else entry.get("metadata")
-        inputs = kw.get("inputs") if kw.get("inputs") is not None else entry.get("inputs")
-        config_hash = kw.get("config_hash") or entry.get("config_hash")
-        return self.write_arrow(table, lake, current, units=units, descriptions=descriptions, metadata=metadata,
-                                inputs=inputs, config_hash=config_hash, time_column=col, sort_by=sort_by)  # fmt: skip
-
-    def compact(self, table: str, lake: str) -> str:
-        """Merge the part files of a partition into one (same rows, same order as a fresh full write)."""
-        with self.lock():
-            return self._rewrite(table, lake)
-
-    def _remove_unlisted(self, part_dir: str, keep: Sequence[str]) -> None:
-        """Remove part files the manifest no longer lists (superseded parts, leftovers of a crash) and
-        temporary files of writers that died mid-write (under the lock no other writer is busy here)."""
-        names = folder_names(self.fs, part_dir)
-        stale = [n for n in glob_parts(self.fs, part_dir, names) if n not in keep] + pending_files(names)
-        for n in stale:
-            try:
-                self.fs.rm(f"{part_dir}/{n}")
-            except FileNotFoundError:
-                pass
-
-    def _url(self, path: str) -> str:
-        return self.fs.unstrip_protocol(path)
-
-    def _located(self, path: str) -> str:
-        """A written file as the caller names it: a local path, or a URL on a remote filesystem."""
-        return path if self.local else self._url(path)
-
-    # -- reading ----------------------------------------------------------------------------
+    # -- reading ------------------------------------------------------------------------------------------
     def lakes(self, table: str) -> list[str]:
         """Lake ids with a partition of ``table``."""
-        root = table_path(self.path, table)
-        if not self.fs.exists(root):
-            return []
-        out = []
-        for p in self.fs.ls(root, detail=False):
-            name = p.rstrip("/").rsplit("/", 1)[-1]
-            if name.startswith("lake="):
-                lake = name.split("=", 1)[1]
-                if self._present(table, lake, self.entry(table, lake)):
-                    out.append(lake)
-        return sorted(out)
+        doc = self._generation_doc()
+        if doc is not None:
+            names = list(doc.get("partitions", {}).get(table, {}))
+        else:
+            root = table_path(self.path, table)
+            if not self.fs.exists(root):
+                return []
+            names = [n.split("=", 1)[1] for p in self.fs.ls(root, detail=False)
+                     if (n := p.rstrip("/").rsplit("/", 1)[-1]).startswith("lake=")]  # fmt: skip
+        return sorted(lk for lk in names if self._present(table, lk, self.entry(table, lk)))
 
-    def _present(self, table: str, lake: str, entry: Mapping[str, Any] | None) -> bool:
+    def _present(self, table: str, lake: str, entry: dict[str, Any] | None) -> bool:
         part_dir = partition_path(self.path, table, lake)
         names = live_parts(entry, self.fs, part_dir)
         return bool(names) and bool(self.fs.exists(f"{part_dir}/{names[0]}"))
 
     def tables(self) -> list[str]:
         """Tables present in the store."""
+        doc = self._generation_doc()
+        if doc is not None:
+            return sorted(t for t in doc.get("partitions", {}) if self.lakes(t))
         if not self.fs.exists(self.path):
             return []
         names = [p.rstrip("/").rsplit("/", 1)[-1] for p in self.fs.ls(self.path, detail=False)]
@@ -437,7 +262,7 @@ class Store:
                     + "; read it whole or include the time column"
                 )
             tcol = arrow[col]
-            arrow = arrow.filter(pc.greater_equal(tcol, _bound(pd.Timestamp(since), tcol.type)))
+            arrow = arrow.filter(pc.greater_equal(tcol, day_bound(pd.Timestamp(since), tcol.type)))
         sort_by = [k for k in (entry or {}).get("sort_by") or [] if k in arrow.column_names]
         if len((entry or {}).get("parts") or []) > 1 and sort_by:
             arrow = arrow.sort_by([(k, "ascending") for k in sort_by])
@@ -446,20 +271,21 @@ class Store:
     def read_table(
         self, table: str, lake: str | None = None, *, columns: Sequence[str] | None = None, since: object = None
     ) -> pd.DataFrame:
-        """Read a table (one lake, or all lakes) as pandas with a ``lake`` column first.
+        """Read a table (one lake, or all lakes, from one generation) as pandas with a ``lake`` column first.
 
         Units are in ``frame.attrs['units']``, descriptions in ``frame.attrs['descriptions']``;
         ``since`` as for :meth:`read_arrow`. A column whose description starts with ``DEPRECATED``
         (e.g. ``target_daily.trophic_class``) gives a :class:`~lakefeed.exceptions.LakefeedWarning`
         quoting that description; pass ``columns`` without it to read quietly.
         """
-        lakes = [lake] if lake is not None else self.lakes(table)
+        store = self if lake is not None else self.pinned()
+        lakes = [lake] if lake is not None else store.lakes(table)
         if not lakes:
             self.check_version()
             raise StoreError(f"table {table!r} not found in {self.url}; run the stage first")
         frames, units, descr = [], {}, {}
         for lk in lakes:
-            t = self.read_arrow(table, lk, columns=columns, since=since)
+            t = store.read_arrow(table, lk, columns=columns, since=since)
             units.update(read_units(t.schema))
             descr.update(read_descriptions(t.schema))
             f = t.to_pandas(coerce_temporal_nanoseconds=True)
@@ -475,8 +301,3 @@ class Store:
     def has_table(self, table: str, lake: str) -> bool:
         """True when ``table`` has a partition for ``lake``."""
         return self._present(table, lake, self.entry(table, lake))
-
-
-def _bound(day: pd.Timestamp, kind: pa.DataType) -> pa.Scalar:
-    """A date as a scalar comparable with a date or timestamp column."""
-    return pa.scalar(day.date() if pa.types.is_date(kind) else day.to_pydatetime(), kind)

@@ -87,29 +87,26 @@ def live_parts(entry: Mapping[str, Any] | None, fs: Any, part_dir: str) -> list[
 def write_file(
     fs: Any, local: bool, part_dir: str, name: str | Callable[[str], str], arrow: pa.Table, options: dict[str, Any]
 ) -> tuple[str, str]:
-    """Write ``arrow`` aside (a dot-file), then move it to ``part_dir/name`` in one rename.
+    """Write ``arrow`` as ``part_dir/name`` in one atomic step.
 
-    ``name`` may be a function of the file's SHA-256 (content-named parts). Returns (final name,
-    SHA-256 of the bytes). A failure removes the temporary file and leaves whatever was at the
-    final name before unchanged.
+    Locally the file is written aside (a dot-file), then moved into place in one rename; on other
+    filesystems (object stores) the bytes are made in memory and written in one whole-object PUT, which
+    a reader sees whole or not at all. ``name`` may be a function of the file's SHA-256 (content-named
+    parts). Returns (final name, SHA-256 of the bytes). A failure removes the temporary file and leaves
+    whatever was at the final name before unchanged.
     """
+    if not local:
+        return _put_file(fs, part_dir, name, arrow, options)
     final = f"{part_dir}/{name}" if isinstance(name, str) else ""
     tmp = f"{part_dir}/.tmp-{uuid.uuid4().hex}.pending"
     try:
         fs.makedirs(part_dir, exist_ok=True)
-        if local:
-            pq.write_table(arrow, tmp, **options)
-        else:
-            with fs.open(tmp, "wb") as f:
-                pq.write_table(arrow, f, **options)
+        pq.write_table(arrow, tmp, **options)
         digest = _digest(fs, tmp)
         if not isinstance(name, str):
             final = f"{part_dir}/{name(digest)}"
-        if local:
-            os.replace(tmp, final)
-            mark_verified(fs, local, final, digest)
-        else:
-            fs.mv(tmp, final)
+        os.replace(tmp, final)
+        mark_verified(fs, local, final, digest)
     except BaseException as err:
         try:
             if fs.exists(tmp):
@@ -119,6 +116,21 @@ def write_file(
         if isinstance(err, OSError):
             raise StoreError(f"could not write {final or part_dir}: {err}; the previous version is unchanged") from err
         raise
+    return final.rsplit("/", 1)[-1], digest
+
+
+def _put_file(
+    fs: Any, part_dir: str, name: str | Callable[[str], str], arrow: pa.Table, options: dict[str, Any]
+) -> tuple[str, str]:
+    sink = pa.BufferOutputStream()
+    pq.write_table(arrow, sink, **options)
+    data = sink.getvalue().to_pybytes()
+    digest = hashlib.sha256(data).hexdigest()
+    final = f"{part_dir}/{name if isinstance(name, str) else name(digest)}"
+    try:
+        fs.pipe_file(final, data)
+    except OSError as err:
+        raise StoreError(f"could not write {final}: {err}; the previous version is unchanged") from err
     return final.rsplit("/", 1)[-1], digest
 
 

@@ -71,17 +71,16 @@ def _open(
 def connect(store: Store, *, tables: list[str] | None = None, read_only: bool = True) -> Any:
     """An in-memory DuckDB connection with a view per store table (``SELECT * FROM features``).
 
-    Views read the live part files ``<store>/<table>/lake=*/part-*.parquet`` listed in the manifest
-    (so a write in progress is never half seen) with Hive partitioning; remote stores are read
-    through the store's fsspec filesystem. A plain ``read_parquet('<store>/features/*/*.parquet',
-    hive_partitioning = true)`` reads the same rows once no write is in progress.
+    Views read the part files of the store's current generation (:func:`lakefeed.store.snapshot`: every
+    table from the same run, a run in progress never seen) with Hive partitioning; remote stores are read
+    through the store's fsspec filesystem.
 
     ``read_only`` (default): the connection can read only those part files: it cannot write, attach,
     export, install or load extensions, read other files or change its settings. Extension
     auto-install and auto-load are off either way (no network). A lake whose part has a damaged
     Parquet footer is left out of the views, with a :class:`LakefeedWarning` naming the file.
     """
-    con, bad = _open(store, tables, read_only=read_only)
+    con, bad = _open(store.pinned(), tables, read_only=read_only)
     for err in bad:
         warnings.warn(f"{err}; left out of the views", LakefeedWarning, stacklevel=2)
     return con
@@ -110,6 +109,7 @@ def query(store: Store, sql: str) -> pd.DataFrame:
     import duckdb
 
     statement = check_read_only(sql)
+    store = store.pinned()  # every table and every retry from one generation
     tables = store.tables()
     bad: list[DamagedPartError] = []
     retried = False
