@@ -21,7 +21,9 @@ __all__ = ["zonal"]
 
 @app.command("zonal")
 def zonal(
-    grid: list[str] = typer.Argument(..., help="NetCDF file(s), glob(s) or a Zarr store of a lat/lon grid."),
+    grid: list[str] = typer.Argument(
+        ..., help="NetCDF or GRIB file(s), glob(s) or a Zarr store of a lat/lon grid; local or URLs (s3://...)."
+    ),
     zones: Path = typer.Option(..., "--zones", help="Polygon layer (any format geopandas reads, any CRS)."),
     id_field: str = typer.Option(..., "--id-field", help="Field holding each polygon's zone name."),
     out: Path = typer.Option(..., "--out", help="Output Parquet file."),
@@ -33,6 +35,13 @@ def zonal(
         help="How accumulated amounts (precipitation, radiation energy) are stored: none, since_reset, per_step.",
     ),
     reset_hour: int = typer.Option(0, "--reset-hour", help="UTC hour of the reset (since_reset)."),
+    variable: list[str] = typer.Option(
+        [],
+        "--variable",
+        help="ROLE=NAME: the grid's variable playing a role where it has no CF standard_name (with --daily), "
+        "e.g. precipitation=tp; repeat for several.",
+    ),
+    grid_format: str = typer.Option("auto", "--format", help="auto (from the content), netcdf, zarr or grib."),
     allow_partial: bool = typer.Option(False, "--allow-partial", help="Accept zones partly outside the grid."),
     weights_cache: Path | None = typer.Option(None, "--weights-cache", help="Folder to cache exact weights in."),
     skip_bad_files: bool = typer.Option(False, "--skip-bad-files", help="Leave out unreadable files (warn)."),
@@ -56,7 +65,11 @@ def zonal(
     if accumulation not in ("none", "since_reset", "per_step"):
         raise ConfigError(f"--accumulation {accumulation!r}: use none, since_reset or per_step")
     acc = Accumulation(kind=accumulation, reset_hour=reset_hour)  # type: ignore[arg-type]
-    g = open_grid(grid, on_error="skip" if skip_bad_files else "raise")
+    bad = [v for v in variable if "=" not in v]
+    if bad:
+        raise ConfigError(f"--variable {bad[0]!r}: write ROLE=NAME, e.g. precipitation=tp")
+    mapping = dict(v.split("=", 1) for v in variable)
+    g = open_grid(grid, on_error="skip" if skip_bad_files else "raise", format=grid_format)
     for msg in g.skipped:
         console.print(f"[yellow]left out:[/yellow] {msg}")
     layer = read_layer(zones, what="zones", id_field=id_field)
@@ -84,7 +97,9 @@ def zonal(
             from lakefeed.extract.daily import DAILY_UNITS, to_daily
             from lakefeed.geometry.zones import zone_latitudes
 
-            source = WeatherSource(paths=[], accumulation={"precipitation": acc, "shortwave_radiation": acc})
+            source = WeatherSource(
+                paths=[], variables=mapping, accumulation={"precipitation": acc, "shortwave_radiation": acc}
+            )
             hourly, _clipped = hourly_drivers(g, weights, source=source, progress=progress)
             flags = {z: weights.flags(z) for z in weights.zones}
             frame = to_daily(hourly, tz=tz, latitude=zone_latitudes(zgdf), zone_flags=flags)

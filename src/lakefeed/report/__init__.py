@@ -109,7 +109,9 @@ def _lake_cells(project: Project, store: Store, lake_g: object) -> tuple[np.ndar
     src = project.sources.weather
     if src is None:
         return None
-    grid = open_grid(src.paths[:1] if len(src.paths) == 1 else src.paths, time_zone=src.time_zone, on_error="skip")
+    grid = open_grid(
+        src.paths[:1] if len(src.paths) == 1 else src.paths, time_zone=src.time_zone, on_error="skip", format=src.format
+    )
     zones = build_zones(lake_g, crs=grid.crs)  # type: ignore[arg-type]
     weights, _ = get_weights(zones, grid, cache_dir=Path(store.root) / "_cache" / "weights")
     row = np.asarray(weights.matrix[list(weights.zones).index("lake")].todense()).ravel()
