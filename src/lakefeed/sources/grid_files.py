@@ -37,8 +37,11 @@ def engine_of(path: Path | RemotePath, fmt: str = "auto", *, what: str = "weathe
     if fmt == "zarr" or (fmt == "auto" and _is_zarr(path)):
         return "zarr"
     try:
-        with path.open("rb") as fh:
-            magic = fh.read(8)
+        if isinstance(path, RemotePath):
+            magic = path.head(8)
+        else:
+            with path.open("rb") as fh:
+                magic = fh.read(8)
     except OSError as err:
         raise SourceError(f"{what} {path}: cannot read ({err})") from err
     if fmt == "grib" or (fmt == "auto" and is_grib(magic)):
@@ -67,10 +70,7 @@ def _open_zarr(path: Path | RemotePath) -> xr.Dataset:
 
 def _open_netcdf(path: Path | RemotePath, chunk_cache: int) -> xr.Dataset:
     if isinstance(path, RemotePath):
-        fh = path.open("rb", block_size=2**20, cache_type="readahead")
-        with fh:
-            head = fh.read(4)
-            fh.seek(0)
+        head = path.head(4)
         fh = path.open("rb", block_size=2**20, cache_type="readahead")  # stays open: the dataset reads from it
         engine = "h5netcdf" if head.startswith(b"\x89HDF") else "scipy"
         return xr.open_dataset(fh, engine=engine, chunks=None, cache=False, mask_and_scale=False)

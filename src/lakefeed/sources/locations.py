@@ -121,9 +121,19 @@ class RemotePath:
     def exists(self) -> bool:
         """True when the object or prefix exists (a missing bucket or refused credentials raise)."""
         try:
-            return bool(self._call("look up", self.fs.exists, self.key))
+            self._call("look up", self.fs.info, self.key)
+            return True
         except FileNotFoundError:
-            return False
+            pass
+        root = self.key.split("/", 1)[0]
+        try:
+            self._call("look up", self.fs.ls, root)
+        except FileNotFoundError as err:
+            raise SourceError(
+                f"cannot read {self.url}: bucket {root!r} does not exist; check the URL in sources.yaml "
+                "(and AWS_ENDPOINT_URL)"
+            ) from err
+        return False
 
     def is_dir(self) -> bool:
         """True for a prefix holding objects (a "folder")."""
@@ -142,6 +152,13 @@ class RemotePath:
             return self._call("open", self.fs.open, self.key, mode, **kwargs)
         except FileNotFoundError as err:
             raise remote_error(self.url, err, "open") from err
+
+    def head(self, n: int) -> bytes:
+        """The first ``n`` bytes (one range request)."""
+        try:
+            return bytes(self._call("read", self.fs.cat_file, self.key, start=0, end=n))
+        except FileNotFoundError as err:
+            raise remote_error(self.url, err, "read") from err
 
     def read_bytes(self) -> bytes:
         """The whole object."""
