@@ -84,3 +84,46 @@ def test_grib_on_s3_is_cached_locally_by_content(s3_bucket, s3_env, grid_files):
     assert s3_env.counter.served_for("a.grib2") < grid_files["grib"].stat().st_size / 20
     xr.testing.assert_equal(first.dataset.load(), second.dataset.load())
     assert str(first.files[0]) == url
+
+
+def _tiled_scene(path, n: int = 1024, tile: int = 256):
+    import rasterio
+    from affine import Affine
+
+    data = np.arange(n * n, dtype="float32").reshape(n, n)
+    profile = dict(
+        driver="GTiff", width=n, height=n, count=1, dtype="float32", crs="EPSG:32632", nodata=-9999.0,
+        transform=Affine(20.0, 0.0, 500_000.0, 0.0, -20.0, 5_300_000.0), tiled=True, blockxsize=tile,
+        blockysize=tile,
+    )  # fmt: skip
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(data, 1)
+    return path
+
+
+def test_scene_on_s3_transfers_only_its_window(s3_bucket, s3_env, tmp_path):
+    from lakefeed.sources.scenes import SceneReader
+
+    tif = _tiled_scene(tmp_path / "scene.tif")
+    url = s3_env.upload(tif, f"s3://{s3_bucket}/scenes/scene.tif")
+    # an AOI of 30 x 30 pixels inside one 256 x 256 tile (uncompressed: 256 kB of a 4 MB file)
+    x0, y0 = 500_000.0 + 20 * 300, 5_300_000.0 - 20 * 300
+    aoi = gpd.GeoDataFrame({"aoi_id": ["a"]}, geometry=[box(x0, y0 - 600, x0 + 600, y0)], crs=32632)
+    reader = SceneReader(aoi, id_field="aoi_id")
+    s3_env.counter.reset()
+    remote = reader.read("s", url, shore_buffer_m=0)
+    served = s3_env.counter.served_for("scene.tif")
+    local = reader.read("s", str(tif), shore_buffer_m=0)
+    np.testing.assert_array_equal(remote.pixels["a"].values, local.pixels["a"].values)
+    assert remote.pixels["a"].values.size == 900
+    size = tif.stat().st_size
+    # the header and the one tile the window touches travel, not the scene
+    assert 256 * 256 * 4 <= served < size / 8, (served, size)
+
+
+def test_scene_on_s3_missing_object_is_a_clear_error(s3_bucket, s3_env, tmp_path):
+    from lakefeed.sources.scenes import SceneReader
+
+    aoi = gpd.GeoDataFrame({"aoi_id": ["a"]}, geometry=[box(500_100, 5_299_000, 500_600, 5_299_500)], crs=32632)
+    with pytest.raises(SourceError, match=r"scene s: chlorophyll-a file s3://.*/scenes/none\.tif is unreadable"):
+        SceneReader(aoi, id_field="aoi_id").read("s", f"s3://{s3_bucket}/scenes/none.tif", shore_buffer_m=0)
