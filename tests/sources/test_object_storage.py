@@ -127,3 +127,32 @@ def test_scene_on_s3_missing_object_is_a_clear_error(s3_bucket, s3_env, tmp_path
     aoi = gpd.GeoDataFrame({"aoi_id": ["a"]}, geometry=[box(500_100, 5_299_000, 500_600, 5_299_500)], crs=32632)
     with pytest.raises(SourceError, match=r"scene s: chlorophyll-a file s3://.*/scenes/none\.tif is unreadable"):
         SceneReader(aoi, id_field="aoi_id").read("s", f"s3://{s3_bucket}/scenes/none.tif", shore_buffer_m=0)
+
+
+def test_tables_and_layers_on_s3_read_like_local(s3_bucket, s3_env, tmp_path):
+    from lakefeed.config.sources import HydrologySource, SampleSheet
+    from lakefeed.sources.hydrology import read_hydrology
+    from lakefeed.sources.lab_sheet import read_sheet
+    from lakefeed.sources.vectors import read_layer
+
+    layer = tmp_path / "lake.gpkg"
+    gpd.GeoDataFrame({"id": ["L"]}, geometry=[box(8.1, 47.1, 8.3, 47.3)], crs=4326).to_file(layer)
+    sheet = tmp_path / "samples.csv"
+    sheet.write_text("date;tp;tn\n03.01.2024;0,05;1,2\n17.01.2024;<0,01;1,1\n", encoding="utf-8")
+    long = tmp_path / "hydro.csv"
+    days = pd.date_range("2024-01-01", periods=5, freq="D")
+    pd.DataFrame(
+        {"date": np.repeat(days, 2), "subbasin": ["S1", "S2"] * 5, "variable": "discharge", "value": np.arange(10.0)}
+    ).to_csv(long, index=False)
+    urls = {p.name: s3_env.upload(p, f"s3://{s3_bucket}/in/{p.name}") for p in (layer, sheet, long)}
+
+    a, b = read_layer(urls["lake.gpkg"], what="lake polygon"), read_layer(layer, what="lake polygon")
+    assert a.geom_equals(b).all() and a.crs == b.crs
+    how = SampleSheet(date_format="%d.%m.%Y")
+    pd.testing.assert_frame_equal(read_sheet(urls["samples.csv"], how), read_sheet(sheet, how))
+    src = {"format": "long", "units": {"discharge": "m3 s-1"}, "nutrients": []}
+    remote = read_hydrology(HydrologySource(path=urls["hydro.csv"], **src))
+    local = read_hydrology(HydrologySource(path=str(long), **src))
+    pd.testing.assert_frame_equal(remote["discharge"], local["discharge"])
+    with pytest.raises(SourceError, match=r"file not found: s3://.*/in/absent\.csv"):
+        read_sheet(f"s3://{s3_bucket}/in/absent.csv", how)

@@ -36,6 +36,7 @@ __all__ = [
     "gdal_path",
     "is_url",
     "local_copy",
+    "readable_path",
     "remote_error",
 ]
 
@@ -247,6 +248,20 @@ def local_copy(loc: Path | RemotePath) -> Path:
             raise remote_error(loc.url, err, "download") from err
         tmp.replace(target)
     return target
+
+
+def readable_path(value: str | os.PathLike[str], *, what: str = "input") -> Path:
+    """A local path to read ``value`` from: the path itself, or for a URL the object's copy in the cache.
+
+    For small whole-file inputs (hydrology tables, lab sheets, vector layers in one file). A missing object
+    or bucket and refused credentials are a :class:`SourceError` naming the URL.
+    """
+    loc = as_location(value)
+    if isinstance(loc, Path):
+        return loc
+    if not loc.exists():
+        raise SourceError(f"{what}: file not found: {loc}; check the URL in the config")
+    return local_copy(loc)
 
 
 def gdal_path(loc: str | os.PathLike[str]) -> str:
