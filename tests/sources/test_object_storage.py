@@ -156,3 +156,28 @@ def test_tables_and_layers_on_s3_read_like_local(s3_bucket, s3_env, tmp_path):
     pd.testing.assert_frame_equal(remote["discharge"], local["discharge"])
     with pytest.raises(SourceError, match=r"file not found: s3://.*/in/absent\.csv"):
         read_sheet(f"s3://{s3_bucket}/in/absent.csv", how)
+
+
+def test_check_opens_an_s3_grid_as_the_build_does(s3_bucket, s3_env, grid_files):
+    from lakefeed.checks.grids import check_weather
+    from lakefeed.config.sources import Accumulation, WeatherSource
+
+    for kind in ("nc", "grib"):
+        s3_env.upload(grid_files[kind], f"s3://{s3_bucket}/c/{grid_files[kind].name}")
+    lake = gpd.GeoDataFrame(geometry=[box(LON0 + 0.1, LAT0 - 0.5, LON0 + 0.5, LAT0 - 0.2)], crs=4326)
+    acc = {"precipitation": Accumulation(kind="since_reset"), "shortwave_radiation": Accumulation(kind="since_reset")}
+    src = WeatherSource(paths=[f"s3://{s3_bucket}/c/a.nc"], accumulation=acc)
+    res, period = check_weather(src, {"lake": lake})
+    assert all(r.ok for r in res), [str(r) for r in res if not r.ok]
+    assert period is not None
+    grib = src.model_copy(
+        update={
+            "paths": [f"s3://{s3_bucket}/c/a.grib2"],
+            "variables": {"dewpoint_temperature": "d2m", "precipitation": "tp"},
+        }
+    )
+    res, period_grib = check_weather(grib, {"lake": lake})
+    assert all(r.ok for r in res), [str(r) for r in res if not r.ok]
+    assert period_grib == period
+    res, _ = check_weather(src.model_copy(update={"paths": [f"s3://{s3_bucket}/c/none.nc"]}), {"lake": lake})
+    assert any(not r.ok and "s3://" in r.message for r in res)
