@@ -181,3 +181,28 @@ def test_check_opens_an_s3_grid_as_the_build_does(s3_bucket, s3_env, grid_files)
     assert period_grib == period
     res, _ = check_weather(src.model_copy(update={"paths": [f"s3://{s3_bucket}/c/none.nc"]}), {"lake": lake})
     assert any(not r.ok and "s3://" in r.message for r in res)
+
+
+def test_stac_catalogue_on_s3_lists_scenes_read_from_the_bucket(s3_bucket, s3_env, tmp_path):
+    from scene_factory import write_catalog, write_item
+
+    from lakefeed.sources.scenes import SceneReader, list_scenes
+
+    root = tmp_path / "stac"
+    (root / "items").mkdir(parents=True)
+    _tiled_scene(root / "items" / "s1.tif")
+    items = [
+        write_item(root / "items", "s1", datetime="2024-05-01T10:00:00Z", sensor="alpha", assets={"chla": "./s1.tif"})
+    ]
+    write_catalog(root, items)
+    s3_env.upload(root, f"s3://{s3_bucket}/stac")
+    remote = list_scenes(f"s3://{s3_bucket}/stac/catalog.json")
+    local = list_scenes(str(root / "catalog.json"))
+    assert list(remote["scene_id"]) == list(local["scene_id"]) == ["s1"]
+    assert remote["value_href"].iloc[0] == f"s3://{s3_bucket}/stac/items/s1.tif"
+    assert (remote["reason"].fillna("") == "").all()
+    aoi = gpd.GeoDataFrame({"aoi_id": ["a"]}, geometry=[box(506_000, 5_293_400, 506_600, 5_294_000)], crs=32632)
+    reader = SceneReader(aoi, id_field="aoi_id")
+    a = reader.read("s1", remote["value_href"].iloc[0], shore_buffer_m=0)
+    b = reader.read("s1", local["value_href"].iloc[0], shore_buffer_m=0)
+    np.testing.assert_array_equal(a.pixels["a"].values, b.pixels["a"].values)

@@ -154,6 +154,10 @@ class RemotePath:
         except FileNotFoundError as err:
             raise remote_error(self.url, err, "open") from err
 
+    def glob(self, pattern: str) -> list[RemotePath]:
+        """Objects under this prefix matching ``pattern`` (sorted)."""
+        return _glob_remote(f"{self.url}/{pattern}")
+
     def head(self, n: int) -> bytes:
         """The first ``n`` bytes (one range request)."""
         try:
