@@ -11,7 +11,7 @@ STAMP  := $(VENV)/.installed
 $(STAMP): pyproject.toml
 	test -x $(PY) || $(PYTHON) -m venv $(VENV)
 	$(PY) -m pip install --quiet --upgrade pip
-	$(PY) -m pip install --quiet -e ".[test]"
+	$(PY) -m pip install --quiet -e ".[test,grib,s3]"
 	touch $(STAMP)
 
 demo: $(STAMP)
@@ -26,7 +26,7 @@ lint: $(STAMP)
 	$(VENV)/bin/ruff format --check src tests flows benchmarks
 
 bench: $(STAMP)
-	$(PY) -m pip install --quiet -e ".[test,bench]"
+	$(PY) -m pip install --quiet -e ".[test,grib,s3,bench]"
 	$(PY) benchmarks/zonal.py
 	$(PY) benchmarks/scenes.py
 	$(PY) benchmarks/features.py

@@ -8,6 +8,9 @@ from pathlib import Path
 import pytest
 from hypothesis import settings
 
+# the S3-compatible server on loopback (moto), shared by every test folder
+from s3server import s3_bucket, s3_env, s3_server  # noqa: F401
+
 # No per-example deadline: a busy 2-core CI machine makes timing-based failures meaningless.
 # Under CI the examples are derandomised so that a red run can be reproduced exactly.
 settings.register_profile("lakefeed", deadline=None)

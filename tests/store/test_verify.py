@@ -151,7 +151,7 @@ def test_query_names_the_damaged_file_and_answers_for_the_other_lakes(
 def test_run_lock_on_a_store_that_cannot_be_written_is_one_line(tmp_path: Path, monkeypatch) -> None:
     blocker = tmp_path / "file"
     blocker.write_text("x")
-    with pytest.raises(StoreError, match="cannot be created: .* in its path is a file") as err:
+    with pytest.raises(StoreError, match=r"cannot be created: .* in its path is a file") as err:
         with run_lock(blocker / "store"):
             pass
     assert "\n" not in str(err.value)

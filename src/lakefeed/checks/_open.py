@@ -13,6 +13,7 @@ from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Literal
 
 import numpy as np
 import pandas as pd
@@ -20,6 +21,8 @@ import xarray as xr
 
 from lakefeed.checks._result import CheckResult, failed, passed, warned
 from lakefeed.exceptions import SourceError
+from lakefeed.sources.grid_files import engine_of, open_raw
+from lakefeed.sources.locations import RemotePath, expand_paths, is_url
 
 __all__ = ["Period", "expand", "find_coord", "lonlat_bounds", "open_lazy", "scan_files", "time_period"]
 
@@ -35,28 +38,42 @@ class Period:
         return f"{self.start:%Y-%m-%d} .. {self.end:%Y-%m-%d}"
 
 
-def expand(patterns: Sequence[str], *, key: str) -> tuple[list[Path], list[str]]:
-    """Files matching each pattern (globs expanded, sorted); problems name ``key[i]`` for patterns matching nothing."""
-    files: list[Path] = []
+def expand(patterns: Sequence[str], *, key: str) -> tuple[list[Path | RemotePath], list[str]]:
+    """Files matching each pattern (globs expanded, sorted; local or URLs); problems name ``key[i]`` for patterns
+    matching nothing (or an object store refusing access)."""
+    files: list[Path | RemotePath] = []
     problems: list[str] = []
     for i, pat in enumerate(patterns):
-        hits = sorted(glob.glob(pat)) if glob.has_magic(pat) else ([pat] if Path(pat).exists() else [])
-        if not hits:
-            what = "no file matches" if glob.has_magic(pat) else "file not found:"
-            problems.append(f"{key}[{i}]: {what} {pat}")
-        files += [Path(h) for h in hits]
+        try:
+            files += expand_paths([pat], what="source", key=f"{key}[{i}]")
+        except SourceError as err:
+            magic = glob.has_magic(pat.split("://", 1)[-1])
+            said = str(err) if is_url(pat) else f"{'no file matches' if magic else 'file not found:'} {pat}"
+            problems.append(f"{key}[{i}]: {said}")
     return files, problems
 
 
 @contextmanager
-def open_lazy(path: Path) -> Iterator[xr.Dataset]:
-    """Open a NetCDF file or Zarr store lazily (no data variable is read) and close it afterwards."""
+def open_lazy(
+    path: Path | RemotePath, *, fmt: str = "auto", kind: Literal["analysis", "forecast"] = "analysis"
+) -> Iterator[xr.Dataset]:
+    """Open a NetCDF file, Zarr store or GRIB file (its index) lazily (no data variable is read); close it afterwards.
+
+    A GRIB file is opened as the build opens it (:func:`lakefeed.sources.grib.open_grib`: its messages'
+    framing checked once, then cfgrib's index from lakefeed's cache folder).
+    """
     try:
-        zarr = path.is_dir() and ((path / ".zgroup").exists() or (path / "zarr.json").exists())
-        if path.suffix == ".zarr" or zarr:
-            ds = xr.open_zarr(path, decode_timedelta=True)
+        engine = engine_of(path, fmt, what="source")
+        if engine == "grib":
+            ds = open_raw(path, engine, kind=kind)
+        elif engine == "zarr":
+            ds = xr.open_zarr(path.mapper() if isinstance(path, RemotePath) else path, decode_timedelta=True)
         else:
-            ds = xr.open_dataset(path, decode_timedelta=True, cache=False)
+            ds = xr.open_dataset(
+                path.open("rb") if isinstance(path, RemotePath) else path, decode_timedelta=True, cache=False
+            )
+    except SourceError:
+        raise
     except Exception as err:
         head = b""
         if path.is_file():
@@ -155,7 +172,7 @@ def _span(step: pd.Timedelta | None) -> str:
 
 
 def scan_files(
-    files: Sequence[Path], coord: str, *, section: str, gaps: bool = True
+    files: Sequence[Path | RemotePath], coord: str, *, section: str, gaps: bool = True, fmt: str = "auto"
 ) -> tuple[list[CheckResult], Period | None]:
     """Read one time coordinate (and the grid's shape) of every file: period, gaps between files, odd grids.
 
@@ -168,8 +185,9 @@ def scan_files(
     spans: list[tuple[pd.Timestamp, pd.Timestamp, Path]] = []
     steps: list[pd.Timedelta] = []
     ref: tuple[object, ...] | None = None
+    kind: Literal["analysis", "forecast"] = "forecast" if coord == "forecast_reference_time" else "analysis"
     for f in files:
-        with open_lazy(f) as ds:
+        with open_lazy(f, fmt=fmt, kind=kind) as ds:
             sig = _signature(ds)
             if ref is None:
                 ref = sig

@@ -25,6 +25,7 @@ from lakefeed.config import WEATHER_ROLES, Accumulation, ForecastSource, Weather
 from lakefeed.exceptions import SourceError
 from lakefeed.sources.grid_roles import find_variable
 from lakefeed.sources.grid_rules import GridPart, key_problems, role_problems, time_gaps
+from lakefeed.sources.locations import RemotePath
 
 __all__ = [
     "check_forecast",
@@ -129,7 +130,7 @@ def grid_extent_results(
     return out
 
 
-def _source_files(paths: list[str], section: str) -> tuple[list[CheckResult], list[Path]]:
+def _source_files(paths: list[str], section: str) -> tuple[list[CheckResult], list[Path | RemotePath]]:
     """Expand a grid source's paths: one problem per unmatched pattern, one ok line with the file range."""
     files, problems = expand(paths, key=f"{section}.paths")
     out = [failed(f"{section} files", p, f"fix {section}.paths in the sources config") for p in problems]
@@ -159,12 +160,12 @@ def check_weather(
     out, files = _source_files(src.paths, "weather")
     grid = None
     try:  # as the build opens them: every file's metadata, time axis and a probe element
-        grid = open_grid(src.paths, time_zone=src.time_zone)
+        grid = open_grid(src.paths, time_zone=src.time_zone, format=src.format)
     except SourceError as err:
         out += [failed("weather files", line) for line in str(err).splitlines()]
     if not files or grid is None:  # the build stops here too, with the same words
         return out, None
-    with open_lazy(files[0]) as ds:
+    with open_lazy(files[0], fmt=src.format) as ds:
         found = weather_variables(
             ds,
             variables=src.variables,
@@ -176,7 +177,7 @@ def check_weather(
             label=grid.label,
         )
         out += found + grid_extent_results(ds, zones, section="weather", file=files[0])
-    res, period = scan_files(files, "time", section="weather", gaps=False)
+    res, period = scan_files(files, "time", section="weather", gaps=False, fmt=src.format)
     out += res + [warned("weather time axis", gap) for gap in time_gaps(grid.dataset["time"].values, grid.parts)]
     if grid_zones is not None and all(r.ok for r in out):
         out += value_results(grid, src, grid_zones, allow_partial_coverage=allow_partial_coverage)
@@ -199,7 +200,7 @@ def check_forecast(
     out, files = _source_files(src.paths, "forecast")
     if not files:
         return out, None
-    with open_lazy(files[0]) as ds:
+    with open_lazy(files[0], fmt=src.format, kind="forecast") as ds:
         ref = find_coord(ds, "forecast_reference_time")
         lead = find_coord(ds, "forecast_period")
         if ref is None:
@@ -236,5 +237,5 @@ def check_forecast(
             required=False,
         )
         out += grid_extent_results(ds, zones, section="forecast", file=files[0])
-    res, period = scan_files(files, "forecast_reference_time", section="forecast")
+    res, period = scan_files(files, "forecast_reference_time", section="forecast", fmt=src.format)
     return out + res, period

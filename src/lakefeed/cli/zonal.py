@@ -19,7 +19,9 @@ __all__ = ["zonal"]
 
 @app.command("zonal")
 def zonal(
-    grid: list[str] = typer.Argument(..., help="NetCDF file(s), glob(s) or a Zarr store of a lat/lon grid."),
+    grid: list[str] = typer.Argument(
+        ..., help="NetCDF or GRIB file(s), glob(s) or a Zarr store of a lat/lon grid; local or URLs (s3://...)."
+    ),
     zones: Path = typer.Option(..., "--zones", help="Polygon layer (any format geopandas reads, any CRS)."),
     id_field: str = typer.Option(..., "--id-field", help="Field holding each polygon's zone name."),
     out: Path = typer.Option(..., "--out", help="Output Parquet file."),
@@ -31,6 +33,13 @@ def zonal(
         help="How accumulated amounts (precipitation, radiation energy) are stored: none, since_reset, per_step.",
     ),
     reset_hour: int = typer.Option(0, "--reset-hour", help="UTC hour of the reset (since_reset)."),
+    variable: list[str] = typer.Option(
+        [],
+        "--variable",
+        help="ROLE=NAME: the grid's variable playing a role where it has no CF standard_name (with --daily), "
+        "e.g. precipitation=tp; repeat for several.",
+    ),
+    grid_format: str = typer.Option("auto", "--format", help="auto (from the content), netcdf, zarr or grib."),
     allow_partial: bool = typer.Option(False, "--allow-partial", help="Accept zones partly outside the grid."),
     weights_cache: Path | None = typer.Option(None, "--weights-cache", help="Folder to cache exact weights in."),
     skip_bad_files: bool = typer.Option(False, "--skip-bad-files", help="Leave out unreadable files (warn)."),
@@ -45,6 +54,10 @@ def zonal(
     from lakefeed.stages.zonal import zonal_to_parquet
 
     _check_arguments(grid, zones, tz, reset_hour)
+    bad = [v for v in variable if "=" not in v]
+    if bad:
+        raise typer.BadParameter(f"{bad[0]!r}: write ROLE=NAME, e.g. precipitation=tp", param_hint="--variable")
+    mapping = dict(v.split("=", 1) for v in variable)
     # decided before the progress bar starts its refresh thread (the workers never touch the console)
     processes = use_processes() if processes is None else processes
     with Progress(
@@ -73,6 +86,8 @@ def zonal(
             weights_cache=weights_cache,
             skip_bad_files=skip_bad_files,
             processes=processes,
+            variables=mapping,
+            grid_format=grid_format,
             progress=progress,
         )
     for msg in written.skipped:
@@ -88,8 +103,10 @@ def _check_arguments(grid: list[str], zones: Path, tz: str, reset_hour: int) -> 
     import zoneinfo
 
     for pattern in grid:
-        if "://" not in pattern and not glob.has_magic(pattern) and not Path(pattern).exists():
-            hint = "give NetCDF files, globs or a Zarr store"
+        if "://" in pattern:  # a URL is listed by its file system when opened
+            continue
+        if not glob.has_magic(pattern) and not Path(pattern).exists():
+            hint = "give NetCDF or GRIB files, globs or a Zarr store"
             raise typer.BadParameter(f"{pattern}: no such file or folder; {hint}", param_hint="GRID...")
         if glob.has_magic(pattern) and not glob.glob(pattern):
             raise typer.BadParameter(f"{pattern}: the pattern matches no file", param_hint="GRID...")

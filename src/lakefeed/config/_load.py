@@ -143,7 +143,9 @@ def _resolve_file_maps(data: dict[str, Any], base: Path) -> None:
     hyd = data.get("hydrology")
     if isinstance(hyd, dict) and isinstance(hyd.get("files"), dict):
         hyd["files"] = {
-            k: os.path.normpath(Path(v) if Path(v).is_absolute() else base / v) if isinstance(v, str) else v
+            k: os.path.normpath(Path(v) if Path(v).is_absolute() else base / v)
+            if isinstance(v, str) and "://" not in v
+            else v
             for k, v in hyd["files"].items()
         }
 

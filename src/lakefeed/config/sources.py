@@ -47,10 +47,18 @@ class Accumulation(StrictModel):
     reset_hour: int = Field(default=0, ge=0, le=23)
 
 
+#: How a weather or forecast source's files are written: ``auto`` tells NetCDF, Zarr and GRIB by content.
+GridFormat = Literal["auto", "netcdf", "zarr", "grib"]
+
+
 class WeatherSource(StrictModel):
-    """Hourly gridded reanalysis (CF NetCDF files, a glob of them, or a Zarr store)."""
+    """Hourly gridded reanalysis (CF NetCDF or GRIB files, a glob of them, or a Zarr store; local or URLs).
+
+    ``format``: ``auto`` (default: from each file's content), ``netcdf``, ``zarr`` or ``grib``.
+    """
 
     paths: list[str]
+    format: GridFormat = "auto"
     variables: dict[str, str] = Field(default_factory=dict)
     units: dict[str, str] = Field(default_factory=dict)
     accumulation: dict[str, Accumulation] = Field(default_factory=dict)
@@ -224,9 +232,12 @@ class SceneSource(StrictModel):
 
 
 class ForecastSource(StrictModel):
-    """Archived weather forecasts: CF NetCDF with forecast_reference_time and forecast_period."""
+    """Archived weather forecasts: CF NetCDF with forecast_reference_time and forecast_period, or GRIB
+    (issue ``time`` and ``step``); ``format`` as for :class:`WeatherSource`.
+    """
 
     paths: list[str]
+    format: GridFormat = "auto"
     variables: dict[str, str] = Field(default_factory=dict)
     units: dict[str, str] = Field(default_factory=dict)
     accumulation: dict[str, Accumulation] = Field(default_factory=dict)
@@ -271,6 +282,7 @@ __all__ = [
     "WEATHER_ROLES",
     "Accumulation",
     "ForecastSource",
+    "GridFormat",
     "HydrologySource",
     "SampleSheet",
     "SampleStation",

@@ -19,6 +19,7 @@ import pystac
 
 from lakefeed.config.sources import SceneSource
 from lakefeed.exceptions import SourceError
+from lakefeed.sources.locations import RemotePath, as_location
 
 __all__ = ["CANONICAL_UNIT", "SCENE_COLUMNS", "list_scenes"]
 
@@ -71,7 +72,7 @@ def list_scenes(source: SceneSource | str | Path, *, asset: str | None = None) -
         source = SceneSource(catalog=str(source))
     asset = asset or source.asset
     if source.catalog is not None:
-        rows = list(_stac_rows(Path(source.catalog), source, asset))
+        rows = list(_stac_rows(as_location(source.catalog), source, asset))
         where = source.catalog
     else:
         rows = list(_folder_rows(Path(source.folder or ""), source, asset))
@@ -81,7 +82,7 @@ def list_scenes(source: SceneSource | str | Path, *, asset: str | None = None) -
         raise SourceError(f"scene catalogue {where}: no scenes found; check the path and filename_pattern{hint}")
     table = pd.DataFrame(rows, columns=SCENE_COLUMNS)
     # the JSON files read (catalogue, item files), for the provenance of the tables built from them
-    read = [source.catalog] if source.catalog is not None and Path(source.catalog).is_file() else []
+    read = [source.catalog] if source.catalog is not None and not as_location(source.catalog).is_dir() else []
     read += [r["item_path"] for r in rows if r.get("item_path")]
     table["unit"] = table["unit"].fillna(source.units)
     table["time"] = pd.to_datetime(table["time"], utc=True)
@@ -109,7 +110,12 @@ def _mark_duplicates(table: pd.DataFrame) -> pd.DataFrame:
     return table
 
 
-def _stac_rows(path: Path, source: SceneSource, asset: str | None) -> Iterator[dict[str, Any]]:
+def _read_stac(path: Path | RemotePath) -> Any:
+    """A STAC object from a local file or an object-storage URL (pystac reads local files and http only)."""
+    return pystac.read_dict(json.loads(path.read_text()), href=str(path))
+
+
+def _stac_rows(path: Path | RemotePath, source: SceneSource, asset: str | None) -> Iterator[dict[str, Any]]:
     if not path.exists():
         raise SourceError(f"scene catalogue {path}: not found; give a STAC catalog/collection file or a folder")
     if path.is_dir():
@@ -118,7 +124,7 @@ def _stac_rows(path: Path, source: SceneSource, asset: str | None) -> Iterator[d
             yield _item_row(f, source, asset)
         return
     try:
-        root = pystac.read_file(str(path))
+        root = _read_stac(path)
     except Exception as err:  # pystac raises several kinds on bad JSON / unknown types
         raise SourceError(f"scene catalogue {path}: not a readable STAC file ({err})") from err
     if isinstance(root, pystac.Item):
@@ -137,10 +143,10 @@ def _walk(cat: pystac.Catalog, source: SceneSource, asset: str | None, seen: set
             continue
         seen.add(href)
         if link.rel == "item":
-            yield _item_row(Path(href), source, asset)
+            yield _item_row(as_location(href), source, asset)
         else:
             try:
-                child = pystac.read_file(href)
+                child = _read_stac(as_location(href))
             except Exception as err:
                 yield _rejected(Path(href).stem, f"child catalogue {href} unreadable: {err}")
                 continue
@@ -164,10 +170,10 @@ def _rejected(scene_id: str, reason: str, sensor: str = "", time: Any = None) ->
     )
 
 
-def _item_row(path: Path, source: SceneSource, asset: str | None) -> dict[str, Any]:
+def _item_row(path: Path | RemotePath, source: SceneSource, asset: str | None) -> dict[str, Any]:
     try:
-        data = json.loads(Path(path).read_text())
-    except (OSError, ValueError) as err:
+        data = json.loads(path.read_text())
+    except (OSError, ValueError, SourceError) as err:
         return _rejected(path.stem, f"STAC item {path} unreadable: {err}")
     scene_id = str(data.get("id") or path.stem)
     props = data.get("properties") or {}

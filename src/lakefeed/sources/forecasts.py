@@ -29,7 +29,9 @@ import pandas as pd
 import xarray as xr
 
 from lakefeed.exceptions import SourceError
-from lakefeed.sources.grids import Grid, expand_paths
+from lakefeed.sources.grid_files import FORMATS, engine_of, open_raw
+from lakefeed.sources.grid_model import Grid
+from lakefeed.sources.locations import RemotePath, expand_paths
 from lakefeed.units import parse_unit, ureg
 
 __all__ = ["ISSUE", "LEAD", "ForecastArchive", "find_issue_gaps", "open_forecasts"]
@@ -145,11 +147,20 @@ def _find_dim(ds: xr.Dataset, standard_name: str, names: tuple[str, ...]) -> str
     return None
 
 
-def _open_one(path: Path) -> xr.Dataset:
+def _open_one(path: Path | RemotePath, fmt: str = "auto") -> xr.Dataset:
     from lakefeed.sources.grids import normalise_lon, spatial_dims
 
+    what = "forecast archive"
     try:
-        ds = xr.open_dataset(path, chunks={}, cache=False)
+        engine = engine_of(path, fmt, what=what)
+        if engine == "grib":  # issue time and step as forecast_reference_time and forecast_period
+            ds = open_raw(path, engine, kind="forecast", what=what)
+        elif engine == "zarr":
+            ds = xr.open_zarr(path.mapper() if isinstance(path, RemotePath) else path, chunks={})
+        else:
+            ds = xr.open_dataset(path.open("rb") if isinstance(path, RemotePath) else path, chunks={}, cache=False)
+    except SourceError:
+        raise
     except Exception as err:
         raise SourceError(
             f"forecast archive {path}: cannot open ({type(err).__name__}: {err}); the file may be corrupt or truncated"
@@ -191,14 +202,17 @@ def find_issue_gaps(issue_times: pd.DatetimeIndex, step: pd.Timedelta) -> list[s
     return out
 
 
-def open_forecasts(paths: str | Path | Iterable[str | Path]) -> ForecastArchive:
+def open_forecasts(paths: str | Path | Iterable[str | Path], *, format: str = "auto") -> ForecastArchive:
     """Open forecast archive file(s) as a normalised lazy :class:`ForecastArchive`.
 
     Parameters
     ----------
     paths
         CF NetCDF file(s) or glob(s) with dims forecast_reference_time, forecast_period, latitude,
-        longitude (all files on one grid and with the same leads).
+        longitude (all files on one grid and with the same leads), or GRIB files (issue ``time`` and
+        ``step``); local or URLs (``s3://...``).
+    format
+        ``auto`` (from each file's content), ``netcdf``, ``zarr`` or ``grib``.
 
     Raises
     ------
@@ -206,8 +220,10 @@ def open_forecasts(paths: str | Path | Iterable[str | Path]) -> ForecastArchive:
         Missing or unreadable lead dimension, irregular leads, files on different grids or with
         different leads, duplicate issue times.
     """
-    files = expand_paths(paths)
-    opened = [(f, _open_one(f)) for f in files]
+    if format not in FORMATS:
+        raise SourceError(f"forecast archive: format {format!r} is not one of {', '.join(FORMATS)}")
+    files = expand_paths(paths, what="forecast archive", key="forecast.paths")
+    opened = [(f, _open_one(f, format)) for f in files]
     opened.sort(key=lambda fd: fd[1][ISSUE].values[0])
     ref_f, ref = opened[0]
     for f, ds in opened[1:]:

@@ -27,7 +27,6 @@ Must not: compute the data (only one probe element per variable and file is read
 from __future__ import annotations
 
 import dataclasses
-import glob
 from collections.abc import Iterable, Mapping
 from pathlib import Path
 from typing import Literal
@@ -38,9 +37,11 @@ import xarray as xr
 
 from lakefeed.exceptions import SourceError
 from lakefeed.sources._h5grid import Layout, Record, layout_of, open_like, stack, to_h5
+from lakefeed.sources.grid_files import FORMATS, engine_of, open_raw, zarr_chunks
 from lakefeed.sources.grid_model import Grid
 from lakefeed.sources.grid_roles import decode, find_variable, select_roles
 from lakefeed.sources.grid_rules import GridPart
+from lakefeed.sources.locations import RemotePath, expand_paths
 
 __all__ = [
     "Grid",
@@ -61,26 +62,6 @@ TARGET_CHUNK_BYTES = 96 * 2**20
 #: small cache suffices; the library default (tens of MiB per variable and file) grows with the
 #: number of files kept open and made memory grow with the record length.
 CHUNK_CACHE_BYTES = 2 * 2**20
-
-
-def expand_paths(paths: str | Path | Iterable[str | Path]) -> list[Path]:
-    """Expand globs (sorted); a pattern matching nothing is an error naming it."""
-    items = [paths] if isinstance(paths, str | Path) else list(paths)
-    out: list[Path] = []
-    for p in items:
-        s = str(p)
-        if any(ch in s for ch in "*?["):
-            found = sorted(glob.glob(s))
-            if not found:
-                raise SourceError(f"weather grid: no file matches {s!r}; check weather.paths in sources.yaml")
-            out.extend(Path(f) for f in found)
-        else:
-            if not Path(s).exists():
-                raise SourceError(f"weather grid: file not found: {s}; check weather.paths in sources.yaml")
-            out.append(Path(s))
-    if not out:
-        raise SourceError("weather grid: no paths given; set weather.paths in sources.yaml")
-    return out
 
 
 def _is_coord(var: xr.DataArray, kind: Literal["latitude", "longitude"]) -> bool:
@@ -108,47 +89,10 @@ def spatial_dims(ds: xr.Dataset, path: Path) -> tuple[str, str]:
     return str(ydim), str(xdim)
 
 
-def _engine(path: Path) -> str:
-    """Backend by content (guessing by trying every installed xarray backend is slow)."""
-    if path.suffix == ".zarr" or (path.is_dir() and ((path / ".zgroup").exists() or (path / "zarr.json").exists())):
-        return "zarr"
-    try:
-        with open(path, "rb") as fh:
-            magic = fh.read(8)
-    except OSError as err:
-        raise SourceError(f"weather grid {path}: cannot read ({err})") from err
-    if magic.startswith((b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF")):
-        return "netcdf4"
-    raise SourceError(
-        f"weather grid {path}: not a NetCDF (classic or NetCDF-4/HDF5) file nor a Zarr store (starts with "
-        f"{magic[:4]!r}); the file may be corrupt, truncated or of another format"
-    )
-
-
-def _open_one(path: Path, chunk_time: int | None) -> tuple[xr.Dataset, Layout | None]:
+def _open_one(path: Path | RemotePath, chunk_time: int | None, fmt: str = "auto") -> tuple[xr.Dataset, Layout | None]:
     """One file opened the general way, and its fast-path layout for the record's other files."""
-    engine = _engine(path)
-    try:
-        if engine == "zarr":
-            meta = path / "zarr.json"
-            consolidated = (path / ".zmetadata").exists() or (
-                meta.exists() and '"consolidated_metadata"' in meta.read_text(encoding="utf-8")
-            )
-            ds = xr.open_zarr(path, chunks=None, mask_and_scale=False, consolidated=consolidated)
-        else:
-            import netCDF4
-
-            previous = netCDF4.get_chunk_cache()
-            netCDF4.set_chunk_cache(CHUNK_CACHE_BYTES)
-            try:
-                ds = xr.open_dataset(path, engine=engine, chunks=None, cache=False, mask_and_scale=False)
-            finally:
-                netCDF4.set_chunk_cache(*previous)
-    except Exception as err:  # netCDF4/HDF5/zarr raise many types
-        raise SourceError(
-            f"weather grid {path}: cannot open ({type(err).__name__}: {err}); the file may be corrupt "
-            "or truncated: download it again"
-        ) from err
+    engine = engine_of(path, fmt)
+    ds = open_raw(path, engine, chunk_cache=CHUNK_CACHE_BYTES)
     raw = ds
     if "time" not in ds.dims:
         cand = [n for n, v in ds.variables.items() if v.ndim == 1 and np.issubdtype(v.dtype, np.datetime64)]
@@ -165,7 +109,7 @@ def _open_one(path: Path, chunk_time: int | None) -> tuple[xr.Dataset, Layout | 
     grid_vars = [n for n, v in ds.data_vars.items() if set(v.dims) == {"time", "latitude", "longitude"}]
     ds = ds[grid_vars].transpose("time", "latitude", "longitude")
     if engine == "zarr":
-        _zarr_chunks(path, grid_vars)
+        zarr_chunks(path, grid_vars)
     # probe: read one element of the last chunk of every variable (truncation shows up here)
     try:
         for n in grid_vars:
@@ -184,30 +128,13 @@ def _open_one(path: Path, chunk_time: int | None) -> tuple[xr.Dataset, Layout | 
         chunk_time = nt
     # one dask chunk per time block over the whole grid; a later window selection reads only the window
     ds = ds.chunk({"time": min(chunk_time, max(1, ds.sizes["time"])), "latitude": -1, "longitude": -1})
-    lay = layout_of(path, raw, ds, ("time", ydim, xdim), chunk_time, CHUNK_CACHE_BYTES) if engine == "netcdf4" else None
+    local = engine == "netcdf4" and isinstance(path, Path)
+    lay = layout_of(path, raw, ds, ("time", ydim, xdim), chunk_time, CHUNK_CACHE_BYTES) if local else None
     if lay is not None:  # read through h5py too (fresh handles in worker processes); netCDF4 closes the file
         ds = to_h5(path, ds, lay)
         lay = dataclasses.replace(lay, template=ds)
         raw.close()
     return ds, lay
-
-
-def _zarr_chunks(path: Path, names: list[str]) -> None:
-    """Refuse a Zarr store whose grid variables lack chunks: a missing chunk would read as fill values."""
-    import zarr
-
-    group = zarr.open_group(str(path), mode="r")
-    gaps = [
-        (n, a.nchunks - a.nchunks_initialized, a.nchunks)
-        for n in names
-        if (a := group[n]).nchunks_initialized < a.nchunks
-    ]
-    if gaps:
-        said = ", ".join(f"{n!r} {k} of {m}" for n, k, m in gaps)
-        raise SourceError(
-            f"weather grid {path}: Zarr chunks missing ({said}); they would read as missing values: copy the "
-            "store again (or write it with write_empty_chunks=True if those chunks are truly empty)"
-        )
 
 
 _PACKING = ("scale_factor", "add_offset", "_FillValue", "missing_value")
@@ -275,13 +202,14 @@ def open_grid(
     time_zone: str = "UTC",
     on_error: Literal["raise", "skip"] = "raise",
     chunk_time: int | None = None,
+    format: str = "auto",
 ) -> Grid:
     """Open one file, a glob of files or a Zarr store as a normalised lazy :class:`Grid`.
 
     Parameters
     ----------
     paths
-        Path(s) or glob(s) of CF NetCDF files, or a Zarr store.
+        Path(s) or glob(s) of CF NetCDF or GRIB files, or a Zarr store; local or URLs (``s3://...``).
     time_zone
         Time zone of naive time stamps in the files (CF files are UTC; then leave "UTC").
     on_error
@@ -290,16 +218,20 @@ def open_grid(
     chunk_time
         Time steps per dask chunk (default: about 96 MiB of float64 per chunk, a multiple of the
         file's own chunking).
+    format
+        ``auto`` (from each file's content), ``netcdf``, ``zarr`` or ``grib`` (:data:`FORMATS`).
     """
+    if format not in FORMATS:
+        raise SourceError(f"weather grid: format {format!r} is not one of {', '.join(FORMATS)}")
     files = expand_paths(paths)
     opened: list[tuple[Path, xr.Dataset | Record]] = []
     problems: list[str] = []
     layout: Layout | None = None  # of the first NetCDF-4 file: the others are read like it when they match
     for f in files:
         try:
-            rec = open_like(f, layout) if layout is not None else None
+            rec = open_like(f, layout) if layout is not None and isinstance(f, Path) else None
             if rec is None:
-                ds, lay = _open_one(f, chunk_time)
+                ds, lay = _open_one(f, chunk_time, format)
                 layout = layout or lay
                 rec = Record(f, ds["time"].values) if lay is not None and lay is layout else ds
             opened.append((f, rec))

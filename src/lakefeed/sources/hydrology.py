@@ -22,6 +22,7 @@ import xarray as xr
 
 from lakefeed.config import HydrologySource
 from lakefeed.exceptions import SourceError
+from lakefeed.sources.locations import readable_path
 from lakefeed.units import CANONICAL, convert, parse_unit
 
 __all__ = ["MOLAR_MASS_G_PER_MOL", "STANDARD_NAMES", "read_hydrology", "to_canonical_unit"]
@@ -123,7 +124,8 @@ def _read_dsg(path: Path, roles: list[str], source: HydrologySource) -> dict[str
         return out
 
 
-def _read_table(path: Path) -> pd.DataFrame:
+def _read_table(path: str | Path) -> pd.DataFrame:
+    path = readable_path(path, what="hydrology output")
     if not path.exists():
         raise SourceError(f"hydrology output: file not found: {path}; check sources.yaml hydrology")
     try:
@@ -134,7 +136,7 @@ def _read_table(path: Path) -> pd.DataFrame:
         raise SourceError(f"hydrology output: cannot read {path}: {err}") from err
 
 
-def _read_wide(path: Path, role: str, source: HydrologySource) -> tuple[pd.DataFrame, str | None]:
+def _read_wide(path: str | Path, role: str, source: HydrologySource) -> tuple[pd.DataFrame, str | None]:
     table = _read_table(path)
     if "date" not in table.columns:
         raise SourceError(f"hydrology output {path}: no 'date' column; columns are {list(table.columns)[:10]}")
@@ -142,7 +144,9 @@ def _read_wide(path: Path, role: str, source: HydrologySource) -> tuple[pd.DataF
     return frame, source.units.get(role)
 
 
-def _read_long(path: Path, roles: list[str], source: HydrologySource) -> dict[str, tuple[pd.DataFrame, str | None]]:
+def _read_long(
+    path: str | Path, roles: list[str], source: HydrologySource
+) -> dict[str, tuple[pd.DataFrame, str | None]]:
     table = _read_table(path)
     sub_col = "subbasin" if "subbasin" in table.columns else "subbasin_id"
     missing = {"date", sub_col, "variable", "value"} - set(table.columns)
@@ -206,13 +210,12 @@ def read_hydrology(
     """
     roles = list(roles) if roles is not None else ["discharge", *source.nutrients]
     if source.format == "dsg":
-        path = Path(source.path or "")
+        path = readable_path(source.path or "", what="hydrology output")
         if not path.exists():
             raise SourceError(f"hydrology output: file not found: {path}; check sources.yaml hydrology.path")
         raw = _read_dsg(path, roles, source)
     elif source.format == "long":
-        path = Path(source.path or "")
-        raw = _read_long(path, roles, source)
+        raw = _read_long(source.path or "", roles, source)
     else:
         raw = {}
         for role in roles:
@@ -220,7 +223,7 @@ def read_hydrology(
                 raise SourceError(
                     f"hydrology output: no wide CSV for {role!r}; add it under sources.yaml hydrology.files.{role}"
                 )
-            raw[role] = _read_wide(Path(source.files[role]), role, source)
+            raw[role] = _read_wide(source.files[role], role, source)
     out: dict[str, pd.DataFrame] = {}
     for role, (frame, unit) in raw.items():
         where = str(source.files.get(role, source.path))

@@ -20,6 +20,7 @@ import pandas as pd
 
 from lakefeed.config import SampleSheet
 from lakefeed.exceptions import SourceError
+from lakefeed.sources.locations import readable_path
 
 __all__ = ["find_column", "parse_dates", "parse_times", "parse_values", "read_sheet", "row_numbers"]
 
@@ -60,7 +61,7 @@ def read_sheet(path: str | Path, sheet: SampleSheet, *, what: str = "samples") -
     SourceError
         Missing file, unreadable file or sheet, ``.xls``, or a sheet with a header but no rows.
     """
-    path = Path(path)
+    path = readable_path(path, what=what)
     if not path.exists():
         raise SourceError(f"{what}: file not found: {path}")
     suffix = path.suffix.lower()

@@ -42,6 +42,7 @@ from lakefeed.exceptions import SourceError
 from lakefeed.geometry.zones import shore_buffered
 from lakefeed.progress import Progress, no_progress
 from lakefeed.sources._scene_catalog import CANONICAL_UNIT, SCENE_COLUMNS, list_scenes
+from lakefeed.sources.locations import gdal_env, gdal_path, is_url
 from lakefeed.units import factor as unit_factor
 
 __all__ = ["SCENE_COLUMNS", "AoiPixels", "SceneReader", "SceneWindow", "list_scenes", "read_scenes"]
@@ -145,6 +146,8 @@ class SceneReader:
             shape or grid differs from the value band.
         """
         with ExitStack() as stack:
+            if any(h and is_url(h) for h in (value_href, quality_href, uncertainty_href)):
+                stack.enter_context(gdal_env())  # object storage: GDAL's /vsis3/, only the windows' bytes travel
             src = stack.enter_context(_open(value_href, scene_id, "chlorophyll-a"))
             if src.crs is None:
                 raise SourceError(
@@ -249,7 +252,7 @@ def _open(href: str, scene_id: str, what: str) -> rasterio.io.DatasetReader:
     if "://" not in href and not Path(href).exists():
         raise SourceError(f"scene {scene_id}: {what} file {href} is missing")
     try:
-        return rasterio.open(href)
+        return rasterio.open(gdal_path(href))
     except (RasterioError, OSError) as err:
         raise SourceError(f"scene {scene_id}: {what} file {href} is unreadable or corrupt ({err})") from err
 

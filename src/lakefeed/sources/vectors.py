@@ -23,6 +23,7 @@ import shapely
 
 from lakefeed.config import LayerRef
 from lakefeed.exceptions import GeometryError, LakefeedWarning, SourceError
+from lakefeed.sources.locations import readable_path
 
 __all__ = ["read_layer"]
 
@@ -125,9 +126,9 @@ def read_layer(
     GeometryError
         Non-polygon geometries; duplicate or null ids; a polygon with no area after repair.
     """
-    path = Path(ref.path if isinstance(ref, LayerRef) else ref)
     layer = ref.layer if isinstance(ref, LayerRef) else None
     where = _where(what, key)
+    path = readable_path(ref.path if isinstance(ref, LayerRef) else ref, what=where)
     if not path.exists():
         raise SourceError(f"{where}: file not found: {path}; check the path in the lake config")
     gdf = _open(path, layer, where)

@@ -57,7 +57,7 @@ def _to_utc(day: object, tz: str) -> pd.Timestamp:
     return local.tz_convert("UTC").tz_localize(None)
 
 
-def _first_stamp(path: Path, source_tz: str) -> pd.Timestamp:
+def _first_stamp(path: str, source_tz: str) -> pd.Timestamp:
     from lakefeed.sources.grids import open_grid
 
     return pd.Timestamp(open_grid(path, time_zone=source_tz).dataset["time"].values[0])
@@ -116,7 +116,7 @@ def refresh_plan(
     t0 = pd.Timestamp(since).normalize().tz_localize(source_tz).tz_convert("UTC").tz_localize(None)
     changed = sorted(p for p in grid_files if old.get(p) != inputs.get(p))
     if changed:
-        t0 = min(t0, *(_first_stamp(Path(p), source_tz) for p in changed))
+        t0 = min(t0, *(_first_stamp(str(p), source_tz) for p in changed))
     step = step_of(grid.dataset["time"].values)
     first, last = (pd.Timestamp(t).date() for t in entry["time_range"])
     day = min(_local_day(np.datetime64(t0) - step, tz), last)  # never leave a day unwritten after the record

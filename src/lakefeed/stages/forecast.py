@@ -327,7 +327,7 @@ def build_forecast(
         result.skipped, result.reason = True, "no drivers_daily table for this lake; run the weather stage first"
         return result
     p("forecast: reading archive", 0, 5)
-    archive = open_forecasts(src.paths)
+    archive = open_forecasts(src.paths, format=src.format)
     result.warnings += [f"forecast issue gap: {g}" for g in archive.issue_gaps]
     raw, warn, inputs, result.reason = raw_drivers(
         project, store, archive, since=since, full=full, extract=daily_forecasts, progress=progress

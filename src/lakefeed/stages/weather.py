@@ -325,7 +325,7 @@ def build_weather(
         return StageResult("weather", lake.id, skipped=True, reason="no weather source in sources.yaml")
     # an unreadable file fails the stage naming it (as `lakefeed check` reports it): a month left out would
     # replace its stored rows with missing ones
-    grid = open_grid(src.paths, time_zone=src.time_zone, on_error="raise")
+    grid = open_grid(src.paths, time_zone=src.time_zone, on_error="raise", format=src.format)
     warn = time_gaps(grid.dataset["time"].values, grid.parts)
     p("weather: zones", 0, 3)
     lake_g = read_layer(lake.lake, what="lake polygon")

@@ -62,6 +62,8 @@ def zonal_to_parquet(
     weights_cache: Path | None = None,
     skip_bad_files: bool = False,
     processes: bool | None = None,
+    variables: Mapping[str, str] | None = None,
+    grid_format: str = "auto",
     progress: Progress | None = None,
 ) -> ZonalFile:
     """Area-weighted means of every grid variable over every polygon, written to ``out``.
@@ -86,6 +88,10 @@ def zonal_to_parquet(
         Leave out unreadable grid files (listed in ``ZonalFile.skipped``) instead of failing.
     processes
         Read time chunks in forked worker processes (None: when safe).
+    variables
+        Role to the grid's variable name, for variables without a CF ``standard_name`` (with ``daily``).
+    grid_format
+        ``auto`` (from the content), ``netcdf``, ``zarr`` or ``grib``.
     progress
         Progress callback.
     """
@@ -101,14 +107,16 @@ def zonal_to_parquet(
     if accumulation not in ("none", "since_reset", "per_step"):
         raise ConfigError(f"--accumulation {accumulation!r}: use none, since_reset or per_step")
     acc = Accumulation(kind=accumulation, reset_hour=reset_hour)  # type: ignore[arg-type]
-    g = open_grid(list(map(str, grid)), on_error="skip" if skip_bad_files else "raise")
+    g = open_grid(list(map(str, grid)), on_error="skip" if skip_bad_files else "raise", format=grid_format)
     layer = to_crs(read_layer(zones, what="zones", id_field=id_field), g.crs, what="zones")
     zgdf = gpd.GeoDataFrame({"zone": layer[id_field].astype(str).to_numpy()}, geometry=layer.geometry.values, crs=g.crs)
     weights, cached = get_weights(zgdf, g, cache_dir=weights_cache, allow_partial_coverage=allow_partial)
     if daily:  # imported only here: the daily aggregation's modules are not needed for the long table
         from lakefeed.extract.daily import DAILY_UNITS, to_daily
 
-        source = WeatherSource(paths=[], accumulation={"precipitation": acc, "shortwave_radiation": acc})
+        source = WeatherSource(
+            paths=[], variables=dict(variables or {}), accumulation={"precipitation": acc, "shortwave_radiation": acc}
+        )
         hourly, _clipped = hourly_drivers(g, weights, source=source, progress=progress)
         flags = {z: weights.flags(z) for z in weights.zones}
         frame = to_daily(hourly, tz=tz, latitude=zone_latitudes(zgdf), zone_flags=flags)
