@@ -30,14 +30,12 @@ import xarray as xr
 
 from lakefeed.exceptions import SourceError
 from lakefeed.sources.grid_files import FORMATS, engine_of, open_raw
-from lakefeed.sources.grid_model import Grid
+from lakefeed.sources.grid_model import ISSUE, LEAD, Grid
 from lakefeed.sources.locations import RemotePath, expand_paths
 from lakefeed.units import parse_unit, ureg
 
 __all__ = ["ISSUE", "LEAD", "ForecastArchive", "find_issue_gaps", "open_forecasts"]
 
-ISSUE = "forecast_reference_time"
-LEAD = "forecast_period"
 _ISSUE_NAMES = ("forecast_reference_time", "reference_time", "issue_time", "init_time", "time")
 _LEAD_NAMES = ("forecast_period", "step", "lead_time", "leadtime", "lead", "forecast_hour")
 

@@ -24,7 +24,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 import warnings
 from functools import cache
 from pathlib import Path
@@ -34,20 +33,13 @@ import numpy as np
 import xarray as xr
 
 from lakefeed.exceptions import SourceError
+from lakefeed.sources.grid_model import ISSUE, LEAD
+from lakefeed.sources.locations import cache_dir
 
 __all__ = ["GRIB_MAGIC", "cache_dir", "index_path", "is_grib", "open_grib", "scan_messages"]
 
 GRIB_MAGIC = b"GRIB"
 _KEEP_ATTRS = ("GRIB_paramId", "GRIB_shortName", "GRIB_stepType", "GRIB_typeOfLevel", "GRIB_name")
-
-
-def cache_dir() -> Path:
-    """lakefeed's cache folder: ``$LAKEFEED_CACHE_DIR``, else ``$XDG_CACHE_HOME/lakefeed`` or ``~/.cache/lakefeed``."""
-    own = os.environ.get("LAKEFEED_CACHE_DIR")
-    if own:
-        return Path(own).expanduser()
-    base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
-    return Path(base).expanduser() / "lakefeed"
 
 
 def index_path(path: Path) -> str:
@@ -203,7 +195,6 @@ def _to_valid_time(ds: xr.Dataset, label: str) -> xr.Dataset:
 
 
 def _to_forecast(ds: xr.Dataset) -> xr.Dataset:
-    from lakefeed.sources.forecasts import ISSUE, LEAD
 
     ds = ds.drop_vars("valid_time", errors="ignore")
     for d in ("time", "step"):

@@ -15,7 +15,7 @@ import xarray as xr
 
 from lakefeed.sources.grid_rules import GridPart
 
-__all__ = ["Grid", "grid_signature"]
+__all__ = ["ISSUE", "LEAD", "Grid", "grid_signature"]
 
 
 def grid_signature(lat: np.ndarray, lon: np.ndarray, *, crs: str = "EPSG:4326") -> str:
@@ -25,6 +25,11 @@ def grid_signature(lat: np.ndarray, lon: np.ndarray, *, crs: str = "EPSG:4326") 
         h.update(np.ascontiguousarray(np.asarray(arr, dtype=np.float64)).tobytes())
     h.update(crs.encode())
     return h.hexdigest()[:20]
+
+
+#: Names of the forecast archive's issue-time and lead-time coordinates (CF).
+ISSUE = "forecast_reference_time"
+LEAD = "forecast_period"
 
 
 @dataclass(frozen=True)

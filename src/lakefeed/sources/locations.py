@@ -30,6 +30,7 @@ from lakefeed.exceptions import SourceError
 __all__ = [
     "RemotePath",
     "as_location",
+    "cache_dir",
     "expand_paths",
     "gdal_env",
     "gdal_options",
@@ -39,6 +40,15 @@ __all__ = [
     "readable_path",
     "remote_error",
 ]
+
+
+def cache_dir() -> Path:
+    """lakefeed's cache folder: ``$LAKEFEED_CACHE_DIR``, else ``$XDG_CACHE_HOME/lakefeed`` or ``~/.cache/lakefeed``."""
+    own = os.environ.get("LAKEFEED_CACHE_DIR")
+    if own:
+        return Path(own).expanduser()
+    base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
+    return Path(base).expanduser() / "lakefeed"
 
 
 def is_url(value: str | os.PathLike[str]) -> bool:
@@ -236,7 +246,6 @@ def local_copy(loc: Path | RemotePath) -> Path:
     """
     if isinstance(loc, Path):
         return loc
-    from lakefeed.sources.grib import cache_dir
 
     info = loc.stat()
     tag = str(info.get("ETag") or info.get("etag") or info.get("LastModified") or info.get("mtime") or "")
