@@ -29,7 +29,8 @@ __all__ = ["TABLES", "build_skill"]
 TABLES = ("feature_screening", "baseline_skill")
 
 _SCREEN_DESCR = {
-    "fold": "cross-validation fold whose TRAINING rows were screened (the other folds, no embargoed row); all: every row",
+    "fold": "cross-validation fold whose TRAINING rows were screened (the other folds, no embargoed row); "
+    "all: every row",
     "feature": "feature column of the features table",
     "n_rows": "rows (target dates) screened",
     "missing_fraction": "fraction of the screened target dates without a value",
@@ -93,7 +94,7 @@ def build_skill(project: Project, store: Store, *, progress: Progress | None = N
         result.skipped, result.reason = True, "no features table for this lake; run the features stage first"
         return result
     entry = store.entry("features", lake.id) or {}
-    inputs = {f"features/lake={lake.id}": str(entry.get("content_hash") or entry.get("config_hash") or "")}
+    inputs = {f"features/lake={lake.id}": str(entry.get("content_hash") or "")}
     options = _options_hash(project)
     if inputs[f"features/lake={lake.id}"] and _up_to_date(store, lake.id, inputs, options):
         result.tables = {t: int((store.entry(t, lake.id) or {}).get("rows", 0)) for t in TABLES}

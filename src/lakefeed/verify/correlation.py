@@ -66,7 +66,11 @@ def spearman_matrix(values: np.ndarray) -> np.ndarray:
 
     def ranks(g: int, rows: np.ndarray) -> np.ndarray:
         cached = own[g]
-        return cached if cached is not None and np.array_equal(rows, masks[g]) else _standardised_ranks(x[rows][:, groups[g]])
+        return (
+            cached
+            if cached is not None and np.array_equal(rows, masks[g])
+            else _standardised_ranks(x[rows][:, groups[g]])
+        )
 
     for i in range(len(masks)):
         for j in range(i, len(masks)):

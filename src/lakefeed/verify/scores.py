@@ -28,8 +28,8 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = [
-    "CONTINUOUS_METRICS",
     "CONTINGENCY_METRICS",
+    "CONTINUOUS_METRICS",
     "Contingency",
     "contingency",
     "continuous_scores",
@@ -112,9 +112,7 @@ def contingency(forecast_event: np.ndarray, observed_event: np.ndarray) -> Conti
     o = np.asarray(observed_event, dtype=bool)
     if f.shape != o.shape:
         raise ValueError(f"forecast and observed events differ in shape: {f.shape} vs {o.shape}")
-    return Contingency(
-        a=int(np.sum(f & o)), b=int(np.sum(f & ~o)), c=int(np.sum(~f & o)), d=int(np.sum(~f & ~o))
-    )
+    return Contingency(a=int(np.sum(f & o)), b=int(np.sum(f & ~o)), c=int(np.sum(~f & o)), d=int(np.sum(~f & ~o)))
 
 
 def _continuous(f: np.ndarray, o: np.ndarray) -> dict[str, float]:

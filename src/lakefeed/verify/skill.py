@@ -37,7 +37,9 @@ def _check_columns(frame: pd.DataFrame, needed: Iterable[str], what: str) -> Non
 
 
 def _scored(
-    frame: pd.DataFrame, columns: Mapping[str, str], thresholds: Mapping[str, float] | Iterable[object],
+    frame: pd.DataFrame,
+    columns: Mapping[str, str],
+    thresholds: Mapping[str, float] | Iterable[object],
     window_days: int,
 ) -> pd.DataFrame:
     """Long scores of the prediction columns ``columns`` (label -> column of ``frame`` or a baseline name)."""
