@@ -128,8 +128,9 @@ def screen_block(
     message = np.full(p, "", dtype=object)
     for i in np.flatnonzero(leak):
         message[i] = (
-            f"|Spearman rho| of {names[i]!r} with {target_name!r} is {abs(rho_t[i]):.3f} > {leak_threshold}: "
-            "implausibly high for a predictor; check that it uses only data known at the issue time"
+            f"|Spearman rho| of {names[i]!r} with {target_name!r} is {abs(rho_t[i]):.3f} > {leak_threshold} over "
+            f"{int(n_present[i])} rows: implausibly high for a predictor; check that it uses only data known at the "
+            "issue time (on few rows a smooth seasonal driver can reach it by coincidence)"
         )
     rho = spearman_matrix(x)
     np.fill_diagonal(rho, np.nan)
