@@ -21,7 +21,7 @@ from lakefeed.verify.baselines import Event, climatology, climatology_at, events
 from lakefeed.verify.read import skill
 from lakefeed.verify.scores import Contingency, contingency, continuous_scores
 from lakefeed.verify.screening import screen
-from lakefeed.verify.skill import SkillError, baseline_skill, mse_skill, score_predictions
+from lakefeed.verify.skill_tables import SkillError, baseline_skill, mse_skill, score_predictions
 
 __all__ = [
     "CAUTION",

@@ -46,6 +46,7 @@ __all__ = [
     "climatology_at",
     "day_bins",
     "events",
+    "fold_rows",
     "score_table",
 ]
 

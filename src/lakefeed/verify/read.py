@@ -2,7 +2,7 @@
 :mod:`lakefeed.verify` that reads (through the :class:`lakefeed.store.Store` API only).
 
 Takes a predictions frame, a store (object or root path) and a lake id; returns the long score table of
-:func:`lakefeed.verify.skill.score_predictions`. Not the ``lakefeed verify`` command (store integrity).
+:func:`lakefeed.verify.skill_tables.score_predictions`. Not the ``lakefeed verify`` command (store integrity).
 """
 
 from __future__ import annotations
@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING
 import pandas as pd
 
 from lakefeed.verify.baselines import BASELINES
-from lakefeed.verify.skill import SkillError, score_predictions
+from lakefeed.verify.skill_tables import SkillError, score_predictions
 
 if TYPE_CHECKING:
     from lakefeed.config import Project

@@ -2,7 +2,7 @@
 
 Takes a frame shaped like ``features`` (and, for :func:`score_predictions`, a frame of predictions with
 ``aoi, target_date, lead_days, prediction``); returns long tables of scores. Pure: no file I/O, no store
-(:func:`lakefeed.verify.skill_from_store` reads the store and calls these).
+(:func:`lakefeed.verify.read.skill` reads the store and calls these).
 
 Skill scores relative to a baseline (common practice; Wilks, *Statistical Methods in the Atmospheric
 Sciences*, the MSE skill score, from memory): ``skill_vs_<baseline>`` = 1 - MSE / MSE_baseline on the linear
