@@ -45,6 +45,7 @@ STAGE_INPUTS: dict[str, tuple[str, ...]] = {
     "target": ("config", "scenes"),
     "features": ("config", "weather", "hydrology", "samples", "scenes"),
     "forecast": ("config", "forecast", "weather"),
+    "skill": ("config",),
 }
 
 #: Stages that can process only the changed months of one source kind (their ``since`` argument).
@@ -152,7 +153,8 @@ def plan_stages(
     A stage runs when one of its inputs changed, when it has no record of a successful run, or when a
     table it wrote last time is missing from the store or unfinished (``has_table``: :func:`table_complete`).
     ``features`` runs when any earlier stage runs, and ``forecast`` (which extends the feature table with
-    forecast leads) when ``features`` runs.
+    forecast leads) when ``features`` runs; ``skill`` (screening and baseline skill of the feature table) when
+    ``features`` or ``forecast`` runs.
     """
     order = list(stages)
     plan = {
@@ -166,6 +168,8 @@ def plan_stages(
         plan.add("features")
     if "forecast" in order and "features" in plan:
         plan.add("forecast")
+    if "skill" in order and plan & {"features", "forecast"}:
+        plan.add("skill")
     return sorted(plan, key=order.index)
 
 

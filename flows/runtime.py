@@ -41,6 +41,7 @@ STAGES: dict[str, tuple[str, str]] = {
     "target": ("lakefeed.stages.target", "build_target"),
     "features": ("lakefeed.stages.features", "build_features"),
     "forecast": ("lakefeed.stages.forecast", "build_forecast"),
+    "skill": ("lakefeed.stages.skill", "build_skill"),
 }
 
 #: Stages with an entry point for many lakes at once (lakes sharing its work; each lake read and written alone).

@@ -57,6 +57,11 @@ class FeatureError(LakefeedError):
     """Feature tables cannot be built as configured."""
 
 
+class SkillError(LakefeedError):
+    """Predictions or a feature table cannot be scored (:mod:`lakefeed.verify`): missing columns, repeated keys,
+    rows that are not in the lake's features table."""
+
+
 class StoreError(LakefeedError):
     """The store cannot be read or written safely."""
 

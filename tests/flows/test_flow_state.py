@@ -78,4 +78,17 @@ def test_store_lock_refuses_a_second_run(tmp_path: Path) -> None:
 
 def test_all_stages_are_found() -> None:
     found, missing = available_stages()
-    assert set(found) | set(missing) == set(ORDER)
+    assert set(found) | set(missing) == {*ORDER, "skill"}
+
+
+def test_skill_follows_features_and_forecast() -> None:
+    order = [*ORDER, "skill"]
+    recorded = {s: [] for s in order}
+    have = lambda table: True  # noqa: E731
+    assert plan_stages(order, {}, recorded=recorded, has_table=have) == []
+    # new forecasts extend the feature table: its screening and baseline skill are redone
+    assert plan_stages(order, {"forecast": ["2022-03"]}, recorded=recorded, has_table=have) == ["forecast", "skill"]
+    assert plan_stages(order, {"scenes": ["2022-03"]}, recorded=recorded, has_table=have)[-2:] == ["forecast", "skill"]
+    assert plan_stages(order, {"hydrology": ["2022-03"]}, recorded=recorded, has_table=have) == [
+        "hydrology", "features", "forecast", "skill",
+    ]  # fmt: skip

@@ -36,6 +36,7 @@ _COMMANDS = (
     "schedule",
     "report",
     "verify",
+    "skill",
 )
 for _name in _COMMANDS:
     importlib.import_module(f"lakefeed.cli.{_name}")

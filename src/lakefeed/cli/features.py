@@ -7,7 +7,8 @@ together, each lake is read and written on its own, and a lake that fails is rep
 are written (the exit code is then 1). Incremental by default: only new dates are computed and appended
 as one part file; ``--full`` and ``--rebuild`` recompute every row (folds are calendar blocks: a row's
 fold is the same either way); ``--compact`` merges the table's part
-files into one. Prints the diagnostics as a rich table. Holds no science.
+files into one. Then runs the skill stage (``feature_screening``, ``baseline_skill``; :mod:`lakefeed.stages.skill`).
+Prints the diagnostics as a rich table. Holds no science.
 """
 
 from __future__ import annotations
@@ -86,6 +87,30 @@ def _reforecast(
     return failed
 
 
+def _skill(store: Store, projects: list[Project], results: dict[str, object]) -> list[str]:
+    """Run the skill stage (feature screening, baseline skill) for the lakes whose features were built, as the
+    flows do after the forecast stage. Returns the lakes whose skill stage failed."""
+    from lakefeed.stages.skill import build_skill
+
+    failed = []
+    for project in projects:
+        result = results.get(project.id)
+        if isinstance(result, Exception) or getattr(result, "skipped", False):
+            continue
+        try:
+            out = build_skill(project, store)
+        except LakefeedError as err:
+            console.print(f"[red]{project.id}: feature screening and baseline skill failed[/]: {err}", highlight=False)
+            failed.append(project.id)
+            continue
+        counts = ", ".join(f"{t} {n} rows" for t, n in out.tables.items())
+        console.print(f"{project.id}: {counts} ({out.reason or 'computed'})" if counts else f"{project.id}: skill "
+                      f"skipped: {out.reason}")  # fmt: skip
+        for w in out.warnings:
+            console.print(f"[yellow]warning:[/] {project.id}: {w}", highlight=False)
+    return failed
+
+
 def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
     """A rich table of sampling diagnostics (one row per lake and AOI); warnings as short codes."""
     import pandas as pd
@@ -139,6 +164,7 @@ def features(
             results = build_features_many(group, st, full=full or rebuild, allow_shrink=allow_shrink)
             changed = [p for p in group if _content(st, p.id) != before[p.id]]
             failed += _reforecast(st, changed, results, allow_shrink=allow_shrink)
+            failed += _skill(st, group, results)
             if compact:
                 for project in group:
                     if not isinstance(results[project.id], Exception) and st.has_table("features", project.id):

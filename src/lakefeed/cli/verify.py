@@ -5,6 +5,9 @@ prints each damaged file with its table and lake; exit code 1 when any is damage
 store's run lock and rebuilds the damaged partitions from the sources
 (:func:`lakefeed.stages.repair.repair_store`; the lake configurations are needed for that), then checks
 again. Holds no logic of its own.
+
+Not to be confused with the Python package :mod:`lakefeed.verify`, which scores forecasts (feature screening,
+baseline skill, ``lakefeed skill``); this command checks the store's files.
 """
 
 from __future__ import annotations

@@ -234,6 +234,19 @@ class FeatureOptions(StrictModel):
         return out
 
 
+class SkillOptions(StrictModel):
+    """Feature screening and baseline skill (``feature_screening``, ``baseline_skill``; :mod:`lakefeed.verify`)."""
+
+    #: |Spearman rho| at or above which features share a cluster (one representative kept).
+    cluster_threshold: float = Field(default=0.95, gt=0, le=1)
+    #: |Spearman rho| with the target above which a feature is flagged ``suspect_leak``.
+    leak_threshold: float = Field(default=0.98, gt=0, le=1)
+    #: Largest fraction of missing values over the target dates of a feature kept.
+    max_missing_fraction: float = Field(default=0.5, ge=0, le=1)
+    #: Length (days) of the circular window smoothing the day-of-year climatology.
+    climatology_window_days: int = Field(default=31, ge=1, le=365)
+
+
 class LakeConfig(StrictModel):
     """One lake or reservoir. Loaded from ``config/lake-<id>.yaml``."""
 
@@ -252,6 +265,7 @@ class LakeConfig(StrictModel):
     target: TargetOptions = Field(default_factory=TargetOptions)
     thresholds: list[Threshold] = Field(default_factory=list)
     features: FeatureOptions = Field(default_factory=FeatureOptions)
+    skill: SkillOptions = Field(default_factory=SkillOptions)
 
     @field_validator("id")
     @classmethod
@@ -291,6 +305,7 @@ __all__ = [
     "FeatureOptions",
     "LakeConfig",
     "SensorConfig",
+    "SkillOptions",
     "SubbasinLayer",
     "TargetOptions",
     "Threshold",

@@ -22,6 +22,7 @@ import pandas as pd
 from lakefeed import __version__
 from lakefeed.config import Project
 from lakefeed.report._figures import calendar_figure, drivers_figure, map_figure, target_figure, to_png64
+from lakefeed.report.skill import skill_section
 from lakefeed.store import Store
 
 __all__ = ["CAUTION", "render_report", "write_report"]
@@ -206,6 +207,7 @@ def render_report(project: Project, store: Store) -> str:
     if evaluation is not None:
         parts.append("<h2>Forecast bias by lead time</h2>")
         parts.append(_table(evaluation.drop(columns=["lake"])))
+    parts.append(skill_section(store, lake.id))
     parts.append(f'<p class="caution">{html.escape(CAUTION)}</p>')
     body = "\n".join(parts)
     return (

@@ -31,6 +31,7 @@ STAGE_FUNCTIONS: dict[str, tuple[str, str, dict[str, object]]] = {
     "target": ("lakefeed.stages.target", "build_target", {}),
     "features": ("lakefeed.stages.features", "build_features", {"full": True}),
     "forecast": ("lakefeed.stages.forecast", "build_forecast", {}),
+    "skill": ("lakefeed.stages.skill", "build_skill", {}),
 }
 
 #: Table -> the stages that rebuild it (``features`` holds rows of the features and the forecast stage).
@@ -47,6 +48,8 @@ TABLE_STAGES: dict[str, tuple[str, ...]] = {
     "forecast_drivers_daily": ("forecast",),
     "bias_adjustment": ("forecast",),
     "forecast_evaluation": ("forecast",),
+    "feature_screening": ("skill",),
+    "baseline_skill": ("skill",),
 }
 
 
