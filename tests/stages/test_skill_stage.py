@@ -21,7 +21,7 @@ pytestmark = pytest.mark.slow
 
 @pytest.fixture(scope="module")
 def built(small_sample, tmp_path_factory):
-    from lakefeed.flows._runtime import available_stages
+    from lakefeed.flows.runtime import available_stages
     from lakefeed.stages.skill import build_skill
 
     project = load_project(small_sample / "config" / "lake-tallow.yaml")

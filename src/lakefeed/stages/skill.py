@@ -19,7 +19,8 @@ import hashlib
 import json
 
 from lakefeed.config import Project
-from lakefeed.stages._result import Progress, StageResult, no_progress
+from lakefeed.progress import Progress, no_progress
+from lakefeed.stages._result import StageResult
 from lakefeed.store import Store
 from lakefeed.verify import CAUTION, baseline_skill, screen
 
