@@ -128,7 +128,7 @@ def estimators_figure(totals: pd.DataFrame) -> Figure:
         ax.invert_yaxis()
         ax.set_title(f"{station}: {nutrient.upper()}", fontsize=9)
         ax.set_xlabel("annual load (t)", fontsize=8)
-        ax.set_ylabel("estimator and year", fontsize=8)
+        ax.set_ylabel("estimator (method, year)", fontsize=8)
     fig.suptitle("Annual loads per estimator (green: selected; bars: interval)", fontsize=10)
     fig.tight_layout()
     return fig
