@@ -171,7 +171,7 @@ def test_weight_colour_scale_for_two_and_two_thousand_cells() -> None:
     norm, kind = weight_norm(many)
     assert kind == "log" and isinstance(norm, LogNorm)
     assert norm.vmax == many.max() and norm.vmin == pytest.approx(max(many.min(), many.max() * 1e-4))
-    even, kind = weight_norm(np.full(2000, 100 / 2000))  # equal weights: no false contrast
+    _, kind = weight_norm(np.full(2000, 100 / 2000))  # equal weights: no false contrast
     assert kind == "linear"
 
 
