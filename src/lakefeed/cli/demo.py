@@ -19,6 +19,7 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, SpinnerColumn
 from rich.table import Table
 
 from lakefeed.cli._app import app, console
+from lakefeed.cli.query import caution_for
 from lakefeed.stages._result import Progress as ProgressFn
 
 __all__ = ["demo_command", "print_store_summary", "progress_bars"]
@@ -149,7 +150,6 @@ def demo_command(
         "read it with pandas (pd.read_parquet) or DuckDB: "
         f"SELECT * FROM read_parquet('{escape(str(store))}/features/*/*.parquet', hive_partitioning=true)"
     )
-    console.print(
-        "[dim]Trophic classes and chlorophyll-a thresholds inform only; bathing and drinking-water "
-        "decisions follow local regulations and the responsible authority.[/]"
-    )
+    caution = caution_for((s.entry("target_daily", lake) or {}).get("columns", []))
+    if caution:
+        console.print(f"[yellow]{escape(caution)}[/]", highlight=False)
