@@ -106,6 +106,7 @@ def test_report_is_self_contained(built) -> None:
     assert "SB01" in text  # direct inflows named under the map
     assert len(text.encode()) < 5e6  # the limit for the sample lake
     assert "not configured" not in text
+    assert "could not be drawn" not in text  # every section rendered (warnings are errors in the tests)
 
 
 def test_report_sections_figures_and_tables(built) -> None:

@@ -39,6 +39,10 @@ __all__ = [
 ]
 
 
+#: Deprecated alias columns the report does not read (reading them warns; their content is in other columns).
+DEPRECATED_COLUMNS = {"target_daily": ("trophic_class",)}
+
+
 @dataclass
 class ReportContext:
     """What every section builder reads: the project (config), the store and the lake's tables (read once)."""
@@ -55,8 +59,13 @@ class ReportContext:
     def table(self, name: str) -> pd.DataFrame | None:
         """The lake's stored table ``name`` (None when the store does not hold it)."""
         if name not in self._frames:
-            has = self.store.has_table(name, self.lake)
-            self._frames[name] = self.store.read_table(name, self.lake) if has else None
+            frame = None
+            if self.store.has_table(name, self.lake):
+                skip = DEPRECATED_COLUMNS.get(name, ())
+                stored = (self.store.entry(name, self.lake) or {}).get("columns") or []
+                columns = [c for c in stored if c not in skip] if skip and stored else None
+                frame = self.store.read_table(name, self.lake, columns=columns)
+            self._frames[name] = frame
         return self._frames[name]
 
     def metadata(self, name: str) -> dict[str, str]:
