@@ -126,30 +126,70 @@ def map_figure(
     id_field: str = "subbasin_id",
     aoi_field: str = "aoi_id",
 ) -> Figure:
-    """Map in longitude/latitude: cell weights (percent of the lake zone), sub-basins, catchment, lake, AOIs.
+    """Map in longitude/latitude, two panels: the catchment with its sub-basins (left) and the lake with its AOIs
+    labelled by id (right); both show the lake zone's cell weights (percent of the zone) on one colour scale.
 
     Labels carry a white halo and the lake outline a white casing, so both stay readable on any cell colour.
     """
-    fig, ax = plt.subplots(figsize=(8.5, 7))
-    if cells is not None:
-        lon_e, lat_e, w = cells
-        pct = 100 * w
-        norm, kind = weight_norm(pct)
-        mesh = ax.pcolormesh(
-            lon_e, lat_e, np.ma.masked_less_equal(pct, 0), cmap="viridis", norm=norm, alpha=0.75,
-            edgecolors="0.7", linewidth=0.2 if pct.size > 400 else 0.5,
-        )  # fmt: skip
-        n = int((w > 0).sum())
-        fig.colorbar(mesh, ax=ax, shrink=0.7, label=f"lake-surface weight of the cell (% of zone, {kind} scale)")
-        ax.text(0.99, 0.01, f"{n} weighted cell(s)", transform=ax.transAxes, ha="right", va="bottom",
-                fontsize=7, path_effects=_HALO)  # fmt: skip
+    fig, (whole, zoom) = plt.subplots(
+        1, 2, figsize=(13, 6.2), gridspec_kw={"width_ratios": [1.15, 1]}, layout="constrained"
+    )
+    mesh = None
+    for ax in (whole, zoom):
+        mesh = _cells(ax, cells) if cells is not None else None
+        _outlines(ax, layers, inflows, id_field, label_subbasins=ax is whole)
+        aois = layers.get("aois")
+        if aois is not None:
+            aois.plot(ax=ax, facecolor="tab:red", alpha=0.35, edgecolor="darkred", linewidth=1.0)
+            for _, row in aois.iterrows() if ax is zoom else ():
+                p = row.geometry.representative_point()
+                ax.annotate(str(row[aoi_field]), (p.x, p.y), xytext=(0, 6), textcoords="offset points", fontsize=9,
+                            ha="center", color="darkred", weight="bold", path_effects=_HALO)  # fmt: skip
+        ax.set_xlabel("longitude (degrees east)")
+        ax.set_ylabel("latitude (degrees north)")
+    outer = next((layers[k] for k in ("subbasins", "catchment", "lake") if layers.get(k) is not None), None)
+    _frame(whole, outer, 0.06)
+    _frame(zoom, layers.get("lake"), 0.25)
+    if mesh is not None and cells is not None:
+        kind = "log" if isinstance(mesh.norm, LogNorm) else "linear"
+        fig.colorbar(mesh, ax=[whole, zoom], shrink=0.75,
+                     label=f"lake-surface weight of the cell (% of the lake zone, {kind} scale)")  # fmt: skip
+        zoom.text(0.99, 0.01, f"{int((cells[2] > 0).sum())} weighted cell(s)", transform=zoom.transAxes,
+                  ha="right", va="bottom", fontsize=8, path_effects=_HALO)  # fmt: skip
+    handles = [
+        Line2D([], [], color="black", lw=1.4, label="lake"),
+        Patch(facecolor="tab:red", alpha=0.35, edgecolor="darkred", label="areas of interest (by id)"),
+        Line2D([], [], color="tab:green", lw=1.6, label="catchment"),
+        Patch(facecolor="none", edgecolor="tab:orange", hatch="//", label="direct inflows"),
+        Line2D([], [], color="0.35", lw=0.6, label="sub-basins (by id)"),
+    ]
+    whole.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=3, fontsize=8, frameon=False)
+    whole.set_title("Catchment, sub-basins and direct inflows", fontsize=10)
+    zoom.set_title("Lake and areas of interest (by id)", fontsize=10)
+    fig.suptitle("Lake, areas of interest, catchment and grid-cell weights")
+    return fig
+
+
+def _cells(ax: plt.Axes, cells: Cells) -> object:
+    lon_e, lat_e, w = cells
+    pct = 100 * w
+    norm, _ = weight_norm(pct)
+    return ax.pcolormesh(
+        lon_e, lat_e, np.ma.masked_less_equal(pct, 0), cmap="viridis", norm=norm, alpha=0.75,
+        edgecolors="none" if pct.size > 400 else "0.7", linewidth=0.5,  # cell edges only while few enough to see
+    )  # fmt: skip
+
+
+def _outlines(
+    ax: plt.Axes, layers: dict[str, gpd.GeoDataFrame], inflows: list[str], id_field: str, *, label_subbasins: bool
+) -> None:
     subs = layers.get("subbasins")
     if subs is not None:
         direct = subs[subs[id_field].astype(str).isin(list(inflows))]
         if len(direct):
             direct.plot(ax=ax, facecolor="none", edgecolor="tab:orange", hatch="//", linewidth=1.0)
         subs.boundary.plot(ax=ax, color="0.35", linewidth=0.6)
-        for _, row in subs.iterrows():
+        for _, row in subs.iterrows() if label_subbasins else ():
             p = row.geometry.representative_point()
             ax.annotate(str(row[id_field]), (p.x, p.y), fontsize=7, color="0.15", ha="center", path_effects=_HALO)
     if layers.get("catchment") is not None:
@@ -158,29 +198,13 @@ def map_figure(
     if layers.get("lake") is not None:
         layers["lake"].boundary.plot(ax=ax, color="white", linewidth=3.4)
         layers["lake"].boundary.plot(ax=ax, color="black", linewidth=1.4)
-    aois = layers.get("aois")
-    if aois is not None:
-        aois.plot(ax=ax, facecolor="tab:red", alpha=0.35, edgecolor="darkred", linewidth=1.0)
-        for _, row in aois.iterrows():
-            p = row.geometry.representative_point()
-            ax.annotate(str(row[aoi_field]), (p.x, p.y), xytext=(4, 4), textcoords="offset points", fontsize=8,
-                        color="darkred", weight="bold", path_effects=_HALO)  # fmt: skip
-    handles = [
-        Line2D([], [], color="black", lw=1.4, label="lake"),
-        Patch(facecolor="tab:red", alpha=0.35, edgecolor="darkred", label="areas of interest (by id)"),
-        Line2D([], [], color="tab:green", lw=1.6, label="catchment"),
-        Patch(facecolor="none", edgecolor="tab:orange", hatch="//", label="direct inflows"),
-        Line2D([], [], color="0.35", lw=0.6, label="sub-basins (by id)"),
-    ]
-    ax.legend(handles=handles, loc="upper left", fontsize=7, framealpha=0.9)
-    frame = next((layers[k] for k in ("subbasins", "catchment", "lake") if layers.get(k) is not None), None)
-    if frame is not None:
-        x0, y0, x1, y1 = frame.total_bounds
-        pad = 0.08 * max(x1 - x0, y1 - y0, 0.05)
-        ax.set_xlim(x0 - pad, x1 + pad)
-        ax.set_ylim(y0 - pad, y1 + pad)
-    ax.set_xlabel("longitude (degrees east)")
-    ax.set_ylabel("latitude (degrees north)")
+
+
+def _frame(ax: plt.Axes, layer: gpd.GeoDataFrame | None, pad: float) -> None:
+    """Limits around ``layer`` (padded by a fraction of its extent), map aspect at its latitude."""
+    if layer is not None:
+        x0, y0, x1, y1 = layer.total_bounds
+        d = pad * max(x1 - x0, y1 - y0, 0.01)
+        ax.set_xlim(x0 - d, x1 + d)
+        ax.set_ylim(y0 - d, y1 + d)
     ax.set_aspect(1 / np.cos(np.deg2rad(np.mean(ax.get_ylim()))))
-    ax.set_title("Lake, areas of interest, catchment and grid-cell weights")
-    return fig
