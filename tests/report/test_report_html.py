@@ -225,3 +225,13 @@ def test_report_without_scenes_or_forecasts_in_headless_chromium(built, tmp_path
     assert dom.sections == SECTION_IDS
     assert dom.body.get("data-figures-loaded") == dom.body.get("data-figures-total")
     assert text.count("not configured") >= 4
+
+
+def test_table_precision_fits_the_variable() -> None:
+    """About three significant digits of a column's typical value; durations to at most a tenth."""
+    frame = pd.DataFrame({"gap_days": [5.0, 12.25], "tp_fwmc": [0.04321, 0.05], "load": [356434.2, 5521.7]})
+    text = table_html(frame, name="p", source="x", units={"gap_days": "d", "tp_fwmc": "mg L-1", "load": "kg"})
+    assert "<td>5.0</td>" in text and "<td>12.2</td>" in text  # days: one decimal (12.25 rounds half to even)
+    assert "<td>0.0432</td>" in text  # small concentrations keep their digits
+    assert "<td>356434</td>" in text  # large loads: no false decimals
+    assert "gap_days (d)" in text and "tp_fwmc (mg L-1)" in text  # units on every column

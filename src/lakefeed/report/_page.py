@@ -172,6 +172,9 @@ def table_html(
         for c in shown.columns
     )
     decimals = {c: _decimals(shown[c]) for c in shown.columns if shown[c].dtype.kind == "f"}
+    for c in decimals:  # durations: whole days or seconds carry no more than one decimal
+        if units.get(c) in ("d", "s", "h"):
+            decimals[c] = min(decimals[c], 1)
     rows = []
     for row in shown.itertuples(index=False):
         cells = []

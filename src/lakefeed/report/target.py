@@ -171,6 +171,9 @@ def tsi_figure(daily: pd.DataFrame, thresholds: list[tuple[str, float]]) -> Figu
             ax.axhline(tsi, color="crimson", ls="--", lw=0.8, alpha=0.8)
             ax.annotate(f"{name} ({value:g} mg m-3)", (1.0, tsi), xycoords=("axes fraction", "data"), ha="right",
                         va="bottom", fontsize=6, color="crimson")  # fmt: skip
+        lines = [float(carlson_tsi(v)) for _, v in thresholds]
+        lo, hi = ax.get_ylim()
+        ax.set_ylim(min([lo, *lines]) - 2, max([hi, *lines]) + 6)  # every threshold line and its label inside
         ax.set_ylabel(f"{aoi}\nTSI (1)", fontsize=8)
         ax.legend(fontsize=6, loc="upper left", ncol=3)
     axes[-1, 0].set_xlabel("date (local calendar day)")
