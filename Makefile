@@ -9,15 +9,19 @@ STAMP  := $(VENV)/.installed
 .PHONY: demo test lint bench clean
 
 $(STAMP): pyproject.toml
+	@echo ">>> installing lakefeed and its dependencies into $(VENV) (a few minutes on the first run; pip's progress follows)"
 	test -x $(PY) || $(PYTHON) -m venv $(VENV)
-	$(PY) -m pip install --quiet --upgrade pip
-	$(PY) -m pip install --quiet -e ".[test,grib,s3]"
+	$(PY) -m pip install --progress-bar on --upgrade pip
+	$(PY) -m pip install --progress-bar on -e ".[test,grib,s3]"
 	touch $(STAMP)
+	@echo ">>> $(VENV) is ready"
 
 demo: $(STAMP)
+	@echo ">>> running the demo: sample scenario, every pipeline stage, store and report into ./demo"
 	$(VENV)/bin/lakefeed demo demo
 
 test: $(STAMP)
+	@echo ">>> linting with ruff, then running the test suite with pytest (a few minutes)"
 	$(VENV)/bin/ruff check src tests flows benchmarks
 	$(PY) -m pytest -q
 

@@ -55,7 +55,11 @@ def demo(sample_dir: str, store: str, report: bool = True) -> dict[str, Any]:
         write_summary(store, [summary], "demo", started)
     path = None
     if report:  # also after a failed stage: the report shows what exists and the run's errors
+        from lakefeed.flows.runtime import get_progress
         from lakefeed.report import write_report
 
+        progress = get_progress() or (lambda *_: None)
+        progress("report: writing the quality report", 0, 1)
         path = str(write_report(project, Store(store), Path(store).parent / f"report-{project.id}.html"))
+        progress("report: done", 1, 1)
     return {"summary": summary, "report": path}

@@ -38,6 +38,7 @@ def test_demo_end_to_end(small_sample, tmp_path, monkeypatch) -> None:
         SubprocessASGIServer().stop()
     assert result.exit_code == 0, result.output
     assert "reusing the sample scenario" in result.output
+    assert "time per stage" in result.output and "report" in result.output  # the timing table, report step too
     store = demo / "store"
     for table in NEEDED:
         path = store / table / "lake=tallow" / "part-0.parquet"

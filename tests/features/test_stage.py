@@ -449,7 +449,7 @@ def test_cli_features_and_query(tmp_path: Path) -> None:
     q = runner.invoke(app, ["query", "SELECT aoi, count(*) AS n FROM features GROUP BY aoi ORDER BY aoi",
                             "--store", str(tmp_path / "store"), "--csv"])  # fmt: skip
     assert q.exit_code == 0, q.output
-    lines = q.output.strip().splitlines()
+    lines = q.stdout.strip().splitlines()  # the CSV on stdout; which store was read goes to stderr
     assert lines[0] == "aoi,n" and lines[1].startswith("intake,")
     t = runner.invoke(app, ["query", "SELECT count(*) AS n FROM diagnostics", "--store", str(tmp_path / "store")])
     assert t.exit_code == 0 and "2" in t.output

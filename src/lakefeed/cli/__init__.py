@@ -18,7 +18,7 @@ import typer
 from rich.markup import escape
 
 from lakefeed import __version__, show_versions
-from lakefeed.cli._app import app, err_console
+from lakefeed.cli._app import app, err_console, finish_help
 from lakefeed.cli.children import guard_children
 from lakefeed.exceptions import LakefeedError
 
@@ -40,6 +40,34 @@ _COMMANDS = (
 )
 for _name in _COMMANDS:
     importlib.import_module(f"lakefeed.cli.{_name}")
+
+#: ``lakefeed --help`` lists the commands in the order of the workflow; commands not named here follow.
+WORKFLOW_ORDER = (
+    "init",
+    "check",
+    "build",
+    "refresh",
+    "report",
+    "query",
+    "verify",
+    "zonal",
+    "loads",
+    "scenes",
+    "features",
+    "forecast",
+    "sample",
+    "demo",
+    "schedule",
+)
+
+
+def _workflow_rank(info: typer.models.CommandInfo) -> int:
+    name = info.name or (info.callback.__name__ if info.callback else "")
+    return WORKFLOW_ORDER.index(name) if name in WORKFLOW_ORDER else len(WORKFLOW_ORDER)
+
+
+app.registered_commands.sort(key=_workflow_rank)  # stable: unknown commands keep their order at the end
+finish_help(app)
 
 
 #: commands that may start other processes (servers, Dask workers, process pools)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import time
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -19,9 +20,60 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, SpinnerColumn
 from rich.table import Table
 
 from lakefeed.cli._app import app, console
+from lakefeed.cli.query import caution_for
 from lakefeed.progress import Progress as ProgressFn
 
-__all__ = ["demo_command", "print_store_summary", "progress_bars"]
+__all__ = ["StepClock", "demo_command", "forecast_lead_notes", "print_store_summary", "progress_bars"]
+
+
+class StepClock:
+    """Wraps a progress callback and records, per step (text before ':'), the first and last time it reported."""
+
+    def __init__(self, progress: ProgressFn) -> None:
+        self._progress = progress
+        self.spans: dict[str, list[float]] = {}
+
+    def __call__(self, description: str, done: int, total: int) -> None:
+        import time
+
+        now = time.perf_counter()
+        self.spans.setdefault(description.split(":", 1)[0], [now, now])[1] = now
+        self._progress(description, done, total)
+
+    def table(self, total_s: float, *, title: str) -> Table:
+        """Seconds per step (first to last report) and the rest of ``total_s`` (start-up, planning)."""
+        table = Table(title=title)
+        for col in ("step", "seconds", "share"):
+            table.add_column(col, justify="left" if col == "step" else "right")
+        steps = {k: b - a for k, (a, b) in self.spans.items()}
+        steps["other (start-up, planning, between steps)"] = max(0.0, total_s - sum(steps.values()))
+        for name, sec in steps.items():
+            table.add_row(escape(name), f"{sec:.1f}", f"{sec / total_s:.0%}" if total_s > 0 else "-")
+        table.add_row("[bold]total[/]", f"[bold]{total_s:.1f}[/]", "100%")
+        return table
+
+
+def forecast_lead_notes(configured: list[int], evaluated: list[int], features: object | None) -> list[str]:
+    """One line per configured forecast lead longer than the archive's longest full local day (evaluated leads).
+
+    ``features``: the lake's features frame with ``lead_days`` and ``forecast_days`` (or None).
+    """
+    import pandas as pd
+
+    if not evaluated:
+        return []
+    longest = max(evaluated)
+    notes = []
+    for lead in sorted(h for h in configured if h > longest):
+        used = longest
+        if isinstance(features, pd.DataFrame) and "forecast_days" in features:
+            days = features.loc[features["lead_days"] == lead, "forecast_days"].dropna()
+            used = int(days.max()) if len(days) else used
+        notes.append(
+            f"lead {lead} uses forecast days 1-{used}: the archive's forecasts end inside day {longest + 1} "
+            f"(longest full local day: {longest}); its bias is shown at lead {longest}"
+        )
+    return notes
 
 
 @contextlib.contextmanager
@@ -109,13 +161,19 @@ def demo_command(
         with progress_bars() as bar:
             generate(sample, seed=seed, small=small, progress=bar)
     lake_file = demo_lake_file(sample)
-    console.print(f"running the pipeline for {escape(str(lake_file))} into {escape(str(store))} (Prefect local mode)")
+    console.print(
+        f"running the pipeline for {escape(str(lake_file))} into {escape(str(store))} (Prefect local mode): "
+        "one bar per stage, then the report"
+    )
+    started = time.perf_counter()
     with progress_bars() as bar:
-        set_progress(bar)
+        clock = StepClock(bar)
+        set_progress(clock)
         try:
             result = demo(str(sample.resolve()), str(store.resolve()))
         finally:
             set_progress(None)
+    elapsed = time.perf_counter() - started
     summary = result["summary"]
     print_store_summary(store)
     s = Store(store)
@@ -128,12 +186,25 @@ def demo_command(
         )
     if s.has_table("forecast_evaluation", lake):
         from lakefeed.cli.forecast import bias_rich_table
+        from lakefeed.config import load_project
 
         ev = s.read_table("forecast_evaluation", lake)
-        # the demo's feature leads (1, 3, 5, 10) where the archive has them, else its longest lead
-        leads = sorted({h for h in (1, 3, 5, 10) if h in set(ev["lead_days"])} | {int(ev["lead_days"].max())})
+        configured = list(load_project(lake_file).lake.features.forecast_leads)
+        evaluated = sorted(int(h) for h in set(ev["lead_days"]))
+        # the configured re-forecast leads the archive covers, and its longest lead for those beyond it
+        leads = sorted({h for h in configured if h in evaluated} | {max(evaluated)})
         ev = ev[ev["lead_days"].isin(leads) & (ev["method"] == ev["method"].iloc[0])]
-        console.print(bias_rich_table(ev, title=f"forecast bias before/after quantile mapping, leads {leads} (days)"))
+        title = f"forecast bias before/after quantile mapping, leads {', '.join(map(str, leads))} (days)"
+        if configured != leads:
+            title += f"; configured leads {', '.join(map(str, configured))}"
+        console.print(bias_rich_table(ev, title=title))
+        feats = (
+            s.read_table("features", lake, columns=["lead_days", "forecast_days"])
+            if s.has_table("features", lake)
+            else None
+        )
+        for note in forecast_lead_notes(configured, evaluated, feats):
+            console.print(f"[yellow]{escape(note)}[/]", highlight=False)
     status = summary["status"]
     colour = {"failed": "red", "ok": "green"}.get(status, "yellow")
     console.print(
@@ -145,11 +216,11 @@ def demo_command(
             console.print(f"  {key}: {escape(summary[key])}")
     if result.get("report"):
         console.print(f"quality report: {escape(result['report'])}")
+    console.print(clock.table(elapsed, title="time per stage (seconds, wall clock)"))
     console.print(
         "read it with lakefeed.store.Store(...).read_table, or give pandas or DuckDB the file list of the current "
         f"generation: lakefeed.store.snapshot('{escape(str(store))}').tables['features']"
     )
-    console.print(
-        "[dim]Trophic classes and chlorophyll-a thresholds inform only; bathing and drinking-water "
-        "decisions follow local regulations and the responsible authority.[/]"
-    )
+    caution = caution_for((s.entry("target_daily", lake) or {}).get("columns", []))
+    if caution:
+        console.print(f"[yellow]{escape(caution)}[/]", highlight=False)

@@ -18,8 +18,10 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 import typer
+from rich.markup import escape
 
 from lakefeed.cli._app import SHRINK_HELP, app, console
+from lakefeed.cli.query import caution_for
 from lakefeed.exceptions import ConfigError, LakefeedError
 
 if TYPE_CHECKING:  # heavy libraries are imported inside the functions (short CLI start-up)
@@ -186,6 +188,9 @@ def features(
             console.print(diagnostics_table(diag, title=f"Sampling diagnostics: {project.lake.name}"))
             for w in result.warnings:
                 console.print(f"[yellow]warning:[/] {w}", highlight=False)
+            caution = caution_for((st.entry("features", project.id) or {}).get("columns", []))
+            if caution:  # the feature table carries screening marks (flags) or trophic columns
+                console.print(f"[yellow]{escape(caution)}[/]", highlight=False)
     if failed:
         failed = sorted(set(failed))
         console.print(

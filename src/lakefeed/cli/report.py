@@ -18,7 +18,7 @@ def report_command(
     store: Path | None = typer.Option(None, "--store", help="Store folder; default 'store:' of sources.yaml."),
     out: Path | None = typer.Option(None, "--out", help="HTML file; default <store>/reports/<lake>.html."),
 ) -> None:
-    """Write the quality report of one lake (map, drivers, targets, sampling, diagnostics, forecast bias)."""
+    """Write a lake's quality report: map, weather, loads, chlorophyll-a, sensors, sampling, forecast, runs."""
     from lakefeed.config import load_project
     from lakefeed.exceptions import ConfigError
     from lakefeed.report import write_report
@@ -28,5 +28,6 @@ def report_command(
     root = store or (Path(project.sources.store) if project.sources.store else None)
     if root is None:
         raise ConfigError("no store folder: pass --store DIR or set 'store:' in sources.yaml")
-    path = write_report(project, Store(root), out or Path(root) / "reports" / f"{project.id}.html")
+    with console.status(f"writing the quality report of {escape(project.id)} from {escape(str(root))} ..."):
+        path = write_report(project, Store(root), out or Path(root) / "reports" / f"{project.id}.html")
     console.print(f"report written: {escape(str(path))}")

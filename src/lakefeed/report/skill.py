@@ -18,8 +18,7 @@ import matplotlib.pyplot as plt
 import pandas as pd
 from matplotlib.figure import Figure
 
-from lakefeed.report._figures import to_png64
-from lakefeed.store import Store
+from lakefeed.report._page import ReportContext, Section, figure_html, missing, table_html
 from lakefeed.verify import CAUTION
 
 __all__ = ["skill_figure", "skill_section"]
@@ -33,7 +32,7 @@ def skill_figure(scores: pd.DataFrame, *, fold: str = "cv") -> Figure:
     aois = sorted(rows["aoi"].unique())
     fig, axes = plt.subplots(2, max(len(aois), 1), figsize=(3.6 * max(len(aois), 1), 5.2), squeeze=False, sharex=True)
     for j, aoi in enumerate(aois):
-        for i, (metric, label) in enumerate((("rmse", "RMSE (mg m-3)"), ("rmse_log", "RMSE of ln chla"))):
+        for i, (metric, label) in enumerate((("rmse", "RMSE (mg m-3)"), ("rmse_log", "RMSE of ln chla (1)"))):
             ax = axes[i][j]
             for baseline, (colour, marker) in _STYLE.items():
                 s = rows[(rows["aoi"] == aoi) & (rows["baseline"] == baseline) & (rows["metric"] == metric)]
@@ -53,10 +52,6 @@ def skill_figure(scores: pd.DataFrame, *, fold: str = "cv") -> Figure:
     return fig
 
 
-def _table(frame: pd.DataFrame) -> str:
-    return frame.to_html(index=False, escape=True, float_format=lambda v: f"{v:.3g}", border=0)
-
-
 def _screening_summary(screening: pd.DataFrame) -> pd.DataFrame:
     rows = screening[screening["fold"] == "all"]
     reason = rows["reason"].str.split(":").str[0]
@@ -65,29 +60,31 @@ def _screening_summary(screening: pd.DataFrame) -> pd.DataFrame:
     return counts.rename(columns={"ok": "kept", "redundant_with": "redundant"})
 
 
-def skill_section(store: Store, lake: str) -> str:
-    """The HTML fragment of the baseline-skill and feature-screening section for one lake."""
-    parts = ["<h2>Baseline skill by lead and feature screening</h2>"]
-    if not store.has_table("baseline_skill", lake):
-        parts.append('<p class="missing">no baseline_skill table (skill stage not run)</p>')
+def skill_section(ctx: ReportContext) -> Section:
+    """Baseline skill by lead (figure and table of the out-of-sample scores) and the feature-screening summary."""
+    parts = []
+    scores = ctx.table("baseline_skill")
+    if scores is None:
+        parts.append(missing("no baseline_skill table: run the skill stage (lakefeed features, build or refresh)"))
     else:
-        scores = store.read_table("baseline_skill", lake)
-        b64 = to_png64(skill_figure(scores))
-        parts.append(
-            '<figure><img id="fig-skill" class="figure" alt="RMSE of persistence and climatology by lead time" '
-            f'src="data:image/png;base64,{b64}"/></figure>'
-        )
+        parts.append(figure_html(skill_figure(scores), "skill", "RMSE of persistence and climatology by lead time"))
         cont = scores[(scores["fold"] == "cv") & scores["metric"].isin(["rmse", "mae", "bias", "r", "rmse_log"])]
         wide = cont.pivot_table(index=["aoi", "lead_days", "baseline"], columns="metric", values="value")
         n = cont[cont["metric"] == "rmse"].set_index(["aoi", "lead_days", "baseline"])["n"].rename("n")
-        parts.append(_table(wide.join(n).reset_index()))
-    if not store.has_table("feature_screening", lake):
-        parts.append('<p class="missing">no feature_screening table (skill stage not run)</p>')
+        parts.append(
+            "<p>Out-of-sample scores (fold cv) in mg m-3 (rmse, mae, bias), of ln chlorophyll-a (rmse_log) and "
+            "Pearson r (all folds and metrics: table baseline_skill).</p>"
+        )
+        units = {"rmse": "mg m-3", "mae": "mg m-3", "bias": "mg m-3", "rmse_log": "1", "r": "1", "lead_days": "d"}
+        parts.append(table_html(wide.join(n).reset_index(), name="skill", source="baseline_skill", units=units))
+    screening = ctx.table("feature_screening")
+    if screening is None:
+        parts.append(missing("no feature_screening table: run the skill stage (lakefeed features, build or refresh)"))
     else:
-        screening = store.read_table("feature_screening", lake)
         parts.append("<p>Feature screening over all rows (fold all): kept and dropped features by reason.</p>")
-        parts.append(_table(_screening_summary(screening)))
+        summary = _screening_summary(screening)
+        parts.append(table_html(summary, name="screening", source="feature_screening", units={"lead_days": "d"}))
         leaks = screening[screening["suspect_leak"] & (screening["fold"] == "all")].drop_duplicates("feature")
         parts += [f'<p class="warn">{html.escape(m)}</p>' for m in leaks["message"]]
     parts.append(f'<p class="caution">{html.escape(CAUTION)}</p>')
-    return "\n".join(parts)
+    return Section("skill", "Baseline skill by lead and feature screening", "\n".join(parts))

@@ -189,9 +189,15 @@ def standard_warnings(a: Aligned, method: str, min_samples: dict[str, int] | Non
     q = a.flow[~np.isnan(a.flow)]
     above, below = int((q > hi).sum()), int((q < lo).sum())
     if above:
-        out.append(f"{above} day(s) with flow above the sampled range (max sampled {hi:.4g} m3 s-1, max {q.max():.4g})")
+        out.append(
+            f"{above} day(s) with flow above the sampled range (max sampled {hi:.4g} m3 s-1, "
+            f"highest flow {q.max():.4g} m3 s-1)"
+        )
     if below:
-        out.append(f"{below} day(s) with flow below the sampled range (min sampled {lo:.4g} m3 s-1)")
+        out.append(
+            f"{below} day(s) with flow below the sampled range (min sampled {lo:.4g} m3 s-1, "
+            f"lowest flow {q.min():.4g} m3 s-1)"
+        )
     gaps = int(np.isnan(a.flow).sum())
     if gaps:
         out.append(f"{gaps} day(s) without flow: their loads and the record total are missing")
