@@ -30,12 +30,12 @@ needs_chromium = pytest.mark.skipif(
 @pytest.fixture(scope="module")
 def built(small_sample, tmp_path_factory):
     """The sample lake's store with every stage run directly (weather to forecast)."""
-    from lakefeed.flows._runtime import available_stages
+    from lakefeed.flows.runtime import available_stages
 
     project = load_project(small_sample / "config" / "lake-tallow.yaml")
     store = Store(tmp_path_factory.mktemp("report") / "store")
     stages, _ = available_stages()
-    for name in ("weather", "hydrology", "target", "features", "forecast"):
+    for name in ("weather", "hydrology", "target", "features", "forecast", "skill"):
         if name in stages:
             stages[name](project, store)
     return project, store
