@@ -187,14 +187,14 @@ def test_reforecast_folds_are_the_calendar_folds_of_their_target_dates():
     2024 H1 = block 4048 -> 0, 2024 H2 -> 1; embargo 30 d takes out 2024-07-01..07-30), never one fitted to the
     re-forecast dates; random folds are the date hash of the features stage."""
     from lakefeed.config.lake import FeatureOptions
-    from lakefeed.stages.forecast import _reforecast_folds
+    from lakefeed.stages.forecast_features import reforecast_folds
 
     rows = pd.DataFrame({"aoi": "a", "target_date": pd.to_datetime(["2024-07-01", "2024-07-31", "2024-08-03",
                                                                     "2024-01-10", "2024-05-31"])})  # fmt: skip
-    assert _reforecast_folds(rows, FeatureOptions(folds=2)).tolist() == [-1, 1, 1, -1, 0]
-    assert _reforecast_folds(rows, FeatureOptions(folds=2, embargo_days=0)).tolist() == [1, 1, 1, 0, 0]
+    assert reforecast_folds(rows, FeatureOptions(folds=2)).tolist() == [-1, 1, 1, -1, 0]
+    assert reforecast_folds(rows, FeatureOptions(folds=2, embargo_days=0)).tolist() == [1, 1, 1, 0, 0]
     ropts = FeatureOptions(folds=3, fold_kind="random")
-    assert _reforecast_folds(rows, ropts).tolist() == date_hash_folds(rows["target_date"], k=3).tolist()
+    assert reforecast_folds(rows, ropts).tolist() == date_hash_folds(rows["target_date"], k=3).tolist()
 
 
 def test_stored_table_is_reused_when_nothing_changed():

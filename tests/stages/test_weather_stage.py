@@ -14,8 +14,9 @@ from typer.testing import CliRunner
 from lakefeed.config import load_project
 from lakefeed.exceptions import SourceError
 from lakefeed.extract.daily import DAILY_COLUMNS, DAILY_UNITS
+from lakefeed.extract.step_units import to_mm_per_step
 from lakefeed.sources.grids import open_grid
-from lakefeed.stages.weather import _to_mm_per_step, build_weather, get_weights
+from lakefeed.stages.weather import build_weather, get_weights
 from lakefeed.store import Store
 
 pytestmark = pytest.mark.slow
@@ -113,11 +114,11 @@ def test_zonal_command_long_and_daily(small_sample, tmp_path):
 def test_unconvertible_units_and_precipitation_units(small_sample):
     grid = open_grid(sorted((small_sample / "weather").glob("reanalysis_*.nc"))[0])
     x = xr.DataArray([1.0])
-    assert _to_mm_per_step(x, "m", 3600).item() == pytest.approx(1000.0)
-    assert _to_mm_per_step(x, "kg m-2", 3600).item() == pytest.approx(1.0)
-    assert _to_mm_per_step(x, "kg m-2 s-1", 3600).item() == pytest.approx(3600.0)
+    assert to_mm_per_step(x, "m", 3600).item() == pytest.approx(1000.0)
+    assert to_mm_per_step(x, "kg m-2", 3600).item() == pytest.approx(1.0)
+    assert to_mm_per_step(x, "kg m-2 s-1", 3600).item() == pytest.approx(3600.0)
     with pytest.raises(SourceError, match="not an amount"):
-        _to_mm_per_step(x, "K", 3600)
+        to_mm_per_step(x, "K", 3600)
     from lakefeed.config.sources import WeatherSource
     from lakefeed.stages.weather import hourly_drivers
 

@@ -63,11 +63,22 @@ def check_quality_bits(src: SceneSource | None, lake: LakeConfig) -> list[CheckR
         depth, kind = _band_bits(href)
         key = f"sensors.{name}.bad_quality_bits"
         if depth is None:
-            out.append(failed("quality bits", f"{key}: the quality band of {href} is {kind}, not an integer band: "
-                              "bits cannot be tested", "use bad_quality_values or an integer band"))  # fmt: skip
+            out.append(
+                failed(
+                    "quality bits",
+                    f"{key}: the quality band of {href} is {kind}, not an integer band: bits cannot be tested",
+                    "use bad_quality_values or an integer band",
+                )
+            )
         elif bad := [b for b in bits if b >= depth]:
-            out.append(failed("quality bits", f"{key}: bit(s) {bad} outside the {depth}-bit quality band ({kind}) of "
-                              f"{href}: they would never flag a pixel", f"use bits 0..{depth - 1}"))  # fmt: skip
+            out.append(
+                failed(
+                    "quality bits",
+                    f"{key}: bit(s) {bad} outside the {depth}-bit quality band ({kind}) of "
+                    f"{href}: they would never flag a pixel",
+                    f"use bits 0..{depth - 1}",
+                )
+            )
         else:
             out.append(passed("quality bits", f"sensor {name}: bits {bits} within the {depth}-bit quality band"))
     return out

@@ -84,8 +84,9 @@ def _reforecast(
             console.print(f"[red]{project.id}: re-forecast rows not restored[/]: {err}", highlight=False)
             failed.append(project.id)
             continue
-        console.print(f"{project.id}: forecast stage rerun: {out.tables.get('features', 0)} feature rows with "
-                      "re-forecast leads")  # fmt: skip
+        console.print(
+            f"{project.id}: forecast stage rerun: {out.tables.get('features', 0)} feature rows with re-forecast leads"
+        )
     return failed
 
 
@@ -106,8 +107,11 @@ def _skill(store: Store, projects: list[Project], results: dict[str, object]) ->
             failed.append(project.id)
             continue
         counts = ", ".join(f"{t} {n} rows" for t, n in out.tables.items())
-        console.print(f"{project.id}: {counts} ({out.reason or 'computed'})" if counts else f"{project.id}: skill "
-                      f"skipped: {out.reason}")  # fmt: skip
+        console.print(
+            f"{project.id}: {counts} ({out.reason or 'computed'})"
+            if counts
+            else f"{project.id}: skill skipped: {out.reason}"
+        )
         for w in out.warnings:
             console.print(f"[yellow]warning:[/] {project.id}: {w}", highlight=False)
     return failed
@@ -126,8 +130,11 @@ def diagnostics_table(diag: pd.DataFrame, *, title: str) -> Table:
         gap_max = "-" if pd.isna(r["gap_max_days"]) else f"{r['gap_max_days']:.0f}"
         if pd.notna(r["longest_gap_start"]):
             gap_max += f" from {pd.Timestamp(r['longest_gap_start']).date()}"
-        warn = [w for w, on in (("few obs", r["warn_few_observations"]), ("season", r["warn_season_under_represented"]))
-                if on]  # fmt: skip
+        warn = [
+            w
+            for w, on in (("few obs", r["warn_few_observations"]), ("season", r["warn_season_under_represented"]))
+            if on
+        ]
         t.add_row(
             str(r.get("lake", "")),
             str(r["aoi"]),

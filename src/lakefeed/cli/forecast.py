@@ -36,8 +36,19 @@ def bias_rich_table(evaluation: pd.DataFrame, *, title: str) -> Table:
         caption="bias = mean(forecast - reanalysis); KS = two-sample Kolmogorov-Smirnov statistic; "
         "q-RMSE = RMSE of the 1st..99th percentiles. Adjusted values come from fits on earlier data only.",
     )
-    for col in ("variable", "lead d", "method", "n", "bias raw", "bias adj", "KS raw", "KS adj", "q-RMSE raw",
-                "q-RMSE adj", "unit"):  # fmt: skip
+    for col in (
+        "variable",
+        "lead d",
+        "method",
+        "n",
+        "bias raw",
+        "bias adj",
+        "KS raw",
+        "KS adj",
+        "q-RMSE raw",
+        "q-RMSE adj",
+        "unit",
+    ):
         t.add_column(col, justify="left" if col in ("variable", "method", "unit") else "right")
     for _, r in evaluation.sort_values(["method", "variable", "lead_days"]).iterrows():
         better = abs(r["mean_bias_adjusted"]) <= abs(r["mean_bias_raw"])

@@ -157,8 +157,9 @@ def loads(
         raise ExtractError(f"--period {period!r} is unknown; choose 'record' or 'year'")
     if method not in METHOD_NAMES:
         raise ExtractError(f"--method {method!r} is unknown; choose one of {', '.join(METHOD_NAMES)}")
-    spec = sheet_options(units=units, column=column, date_format=date_format, sheet=sheet, separator=separator,
-                         decimal=decimal)  # fmt: skip
+    spec = sheet_options(
+        units=units, column=column, date_format=date_format, sheet=sheet, separator=separator, decimal=decimal
+    )
     found = compare_loads(
         samples, flow, sheet=spec, nutrient=nutrient, station=station, period=period, seasonal=seasonal, trend=trend
     )

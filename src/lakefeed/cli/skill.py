@@ -52,11 +52,19 @@ def skill_table(scores: pd.DataFrame, *, reference: str, fold: str, title: str) 
 
     rows = scores[scores["fold"] == fold]
     t = Table(title=title, caption=f"fold {fold}; skill = 1 - MSE/MSE_baseline (linear; _log on ln chla)")
-    for col in ("aoi", "lead d", "n", *_SHOWN[:4], f"{reference} rmse", "skill vs persistence",
-                "skill vs climatology", "skill_log vs persistence", "skill_log vs climatology"):  # fmt: skip
+    for col in (
+        "aoi",
+        "lead d",
+        "n",
+        *_SHOWN[:4],
+        f"{reference} rmse",
+        "skill vs persistence",
+        "skill vs climatology",
+        "skill_log vs persistence",
+        "skill_log vs climatology",
+    ):
         t.add_column(col, justify="left" if col == "aoi" else "right")
-    wide = rows.pivot_table(index=["aoi", "lead_days"], columns=["baseline", "metric"], values="value",
-                            aggfunc="first")  # fmt: skip
+    wide = rows.pivot_table(index=["aoi", "lead_days"], columns=["baseline", "metric"], values="value", aggfunc="first")
     n = rows[(rows["baseline"] == "model") & (rows["metric"] == "rmse")].set_index(["aoi", "lead_days"])["n"]
 
     def cell(key: tuple, who: str, metric: str) -> str:
@@ -64,10 +72,14 @@ def skill_table(scores: pd.DataFrame, *, reference: str, fold: str, title: str) 
         return "-" if pd.isna(v) else f"{v:.3g}"
 
     for key in wide.index:
-        t.add_row(str(key[0]), str(key[1]), str(int(n.get(key, 0))), *(cell(key, "model", m) for m in _SHOWN[:4]),
-                  cell(key, reference, "rmse"),
-                  *(cell(key, "model", f"skill_vs_{b}{s}") for s in ("", "_log")
-                    for b in ("persistence", "climatology")))  # fmt: skip
+        t.add_row(
+            str(key[0]),
+            str(key[1]),
+            str(int(n.get(key, 0))),
+            *(cell(key, "model", m) for m in _SHOWN[:4]),
+            cell(key, reference, "rmse"),
+            *(cell(key, "model", f"skill_vs_{b}{s}") for s in ("", "_log") for b in ("persistence", "climatology")),
+        )
     return t
 
 

@@ -27,8 +27,12 @@ __all__ = ["verify_command"]
 def _print_damage(damage: list[DamagedPartError]) -> None:
     console.print(f"[red]{len(damage)} damaged part file(s)[/]:")
     for err in damage:  # one line each, never wrapped (the path is what the user looks for)
-        console.print(f"  {err.path} (table {err.table}, lake {err.lake}): {err.problem}", soft_wrap=True,
-                      markup=False, highlight=False)  # fmt: skip
+        console.print(
+            f"  {err.path} (table {err.table}, lake {err.lake}): {err.problem}",
+            soft_wrap=True,
+            markup=False,
+            highlight=False,
+        )
 
 
 @app.command("verify")

@@ -166,8 +166,9 @@ def total_screening(
         value was screened, or why not; empty for rows not accepted).
     """
     accepted = obs["accepted"].astype(bool) & (obs["median"] > 0)
-    first = screen_outliers(obs, window_days=window_days, max_window_days=max_window_days, threshold=threshold,
-                            min_points=min_points)  # fmt: skip
+    first = screen_outliers(
+        obs, window_days=window_days, max_window_days=max_window_days, threshold=threshold, min_points=min_points
+    )
     outlier = first["outlier"].to_numpy().copy()
     own = first["examined"].to_numpy() & accepted.to_numpy()
     text = np.where(own, _window_text("own sensor's series", first["window_days"].to_numpy(), window_days), "")
@@ -177,8 +178,9 @@ def total_screening(
     outlier |= cross["outlier"].to_numpy()
     by_cross = ~own & cross["examined"].to_numpy()
     text = np.where(by_cross, _window_text("harmonised sensors", cross["window_days"].to_numpy(), window_days), text)
-    text = np.where(own & cross["outlier"].to_numpy(), np.char.add(text.astype(str), "; flagged among harmonised "
-                    "sensors"), text)  # fmt: skip
+    text = np.where(
+        own & cross["outlier"].to_numpy(), np.char.add(text.astype(str), "; flagged among harmonised sensors"), text
+    )
     screened = own | by_cross
     harmonised = _harmonised_sensors(fits) if obs["sensor"].isin(_harmonised_sensors(fits)).any() else set()
     sensor = obs["sensor"].astype(str)
@@ -191,12 +193,20 @@ def total_screening(
     day = pd.to_datetime(obs["time"], utc=True).dt.tz_localize(None).to_numpy()
     todo = accepted.to_numpy() & ~screened & ~outlier
     flags, by_clim, n_ref = climatology_screen(
-        day, ln, groups.to_numpy(), todo, accepted.to_numpy() & ~outlier,
-        half_window_days=max_window_days / 2, threshold=threshold, min_points=min_points,
-    )  # fmt: skip
+        day,
+        ln,
+        groups.to_numpy(),
+        todo,
+        accepted.to_numpy() & ~outlier,
+        half_window_days=max_window_days / 2,
+        threshold=threshold,
+        min_points=min_points,
+    )
     outlier |= flags
-    clim_text = [f"seasonal climatology of earlier years ({k} values within {max_window_days / 2:g} days of the day "
-                 "of year)" for k in n_ref]  # fmt: skip
+    clim_text = [
+        f"seasonal climatology of earlier years ({k} values within {max_window_days / 2:g} days of the day of year)"
+        for k in n_ref
+    ]
     text = np.where(by_clim, clim_text, text)
     screened |= by_clim
     why = (

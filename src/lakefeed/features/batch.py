@@ -4,11 +4,9 @@ A series is the targets of one lake (one AOI or all) at one lead time with their
 (:class:`Series`). Series with the same driver columns and window plan are computed together:
 their driver records are laid end to end, each target's window is gathered from its own record
 only (days outside it are missing, exactly as for one series), all windows are reduced in one
-call and the rows come out as one :class:`~lakefeed.features.pit.FeatureBlock` per chunk of
-series, which the caller converts to Arrow once. Per-call costs that do not depend on the number
-of rows (building 570 Arrow columns takes about 0.5 ms whatever the row count) are then paid once
-per chunk, not once per lake, AOI and lead: a monthly refresh of a few new rows for many lakes
-costs little more than one lake.
+call and the rows come out as one :class:`~lakefeed.features.rows.FeatureBlock` per chunk of series,
+converted to Arrow once by the caller: per-call costs that do not depend on the row count (building
+570 Arrow columns: about 0.5 ms) are paid once per chunk, not once per lake, AOI and lead.
 
 Rows with the same drivers, target date, lead and forecast input are computed once (AOIs that
 share the lake's drivers are typically observed on the same scene dates). The rows of the block
@@ -229,9 +227,15 @@ def _prepare(
         obs = s.observations if s.observations is not None else s.targets
         labels = s.targets[by].to_numpy()[keep] if by else None
         prepared.append(
-            _Prepared(tdays=tdays, labels=labels, values=s.targets[value].to_numpy(dtype=float)[keep], segment=seg,
-                      source=src, observations=obs)
-        )  # fmt: skip
+            _Prepared(
+                tdays=tdays,
+                labels=labels,
+                values=s.targets[value].to_numpy(dtype=float)[keep],
+                segment=seg,
+                source=src,
+                observations=obs,
+            )
+        )
     if len(sources) >= 1 << (63 - _LEAD_BITS - _DAY_BITS):
         raise FeatureError(f"too many driver records in one batch ({len(sources)}); split the series")
     return prepared, segments, columns or []

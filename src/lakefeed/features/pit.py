@@ -95,7 +95,12 @@ def feature_block(
     """
     one = Series(targets, drivers, lead=lead, observations=observations, forecast_drivers=forecast_drivers)
     [chunk] = feature_block_many(
-        [one], windows=windows, stats=stats, include_target_day=include_target_day,
-        max_missing_fraction=max_missing_fraction, by=by, value=value,
-    )  # fmt: skip
+        [one],
+        windows=windows,
+        stats=stats,
+        include_target_day=include_target_day,
+        max_missing_fraction=max_missing_fraction,
+        by=by,
+        value=value,
+    )
     return replace(chunk.block, index=targets.index)

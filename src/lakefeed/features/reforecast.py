@@ -87,8 +87,15 @@ def reforecast_rows(
     lead_days = sorted({int(x) for x in leads})
     # all leads in one pass: the drivers and the forecast cube are laid out once
     series = [Series(targets, drivers, lead=h, forecast_drivers=forecast_drivers) for h in lead_days]
-    chunks = iter_feature_blocks(series, windows=windows, stats=stats, include_target_day=include_target_day,
-                                 max_missing_fraction=max_missing_fraction, by=by, value=value)  # fmt: skip
+    chunks = iter_feature_blocks(
+        series,
+        windows=windows,
+        stats=stats,
+        include_target_day=include_target_day,
+        max_missing_fraction=max_missing_fraction,
+        by=by,
+        value=value,
+    )
     frames = [c.block.to_pandas() for c in chunks]
     rows = frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)
     days = np.array([forecast_days(h, include_target_day=include_target_day) for h in lead_days], dtype=np.int16)

@@ -26,8 +26,9 @@ def forecast_section(ctx: ReportContext) -> Section:
     if ev is None or ev.empty:
         return Section("forecast", title, missing("no forecast_evaluation table (forecast stage not run)"))
     body = figure_html(bias_figure(ev), "forecast", "mean forecast bias against lead time, raw and adjusted")
-    table = table_html(ev.drop(columns=["lake"]), name="forecast", source="forecast_evaluation",
-                       units=ev.attrs.get("units", {}))  # fmt: skip
+    table = table_html(
+        ev.drop(columns=["lake"]), name="forecast", source="forecast_evaluation", units=ev.attrs.get("units", {})
+    )
     body += details(f"full forecast evaluation table ({len(ev)} rows; units in the unit column)", table)
     return Section("forecast", title, body)
 
@@ -45,10 +46,18 @@ def bias_figure(ev: pd.DataFrame) -> Figure:
         for j, method in enumerate(methods):
             m = sel[sel["method"] == method].sort_values("lead_days")
             style = ["-", "--", ":"][j % 3]
-            ax.plot(m["lead_days"], m["mean_bias_raw"], style, color="tab:red", marker="o", ms=3,
-                    label=f"raw ({method})")  # fmt: skip
-            ax.plot(m["lead_days"], m["mean_bias_adjusted"], style, color="tab:blue", marker="o", ms=3,
-                    label=f"adjusted ({method})")  # fmt: skip
+            ax.plot(
+                m["lead_days"], m["mean_bias_raw"], style, color="tab:red", marker="o", ms=3, label=f"raw ({method})"
+            )
+            ax.plot(
+                m["lead_days"],
+                m["mean_bias_adjusted"],
+                style,
+                color="tab:blue",
+                marker="o",
+                ms=3,
+                label=f"adjusted ({method})",
+            )
         ax.axhline(0, color="0.5", lw=0.6)
         unit = str(sel["unit"].iloc[0]) if "unit" in sel and len(sel) else "?"
         ax.set_title(var, fontsize=8)

@@ -44,8 +44,24 @@ def harmonisation_section(ctx: ReportContext) -> Section:
     pairs = matchups(use, reference=reference, window_days=lake.target.matchup_window_days)
     unit = obs.attrs.get("units", {}).get("median", "mg m-3")
     body = figure_html(matchup_figure(pairs, fits, reference, unit), "matchups", "matchup scatter per sensor")
-    cols = [c for c in ("sensor", "reference", "model", "n", "n_excluded", "ratio", "ln_ratio_se", "slope",
-                        "intercept", "r2", "adjusted", "note") if c in fits]  # fmt: skip
+    cols = [
+        c
+        for c in (
+            "sensor",
+            "reference",
+            "model",
+            "n",
+            "n_excluded",
+            "ratio",
+            "ln_ratio_se",
+            "slope",
+            "intercept",
+            "r2",
+            "adjusted",
+            "note",
+        )
+        if c in fits
+    ]
     body += table_html(fits[cols], name="sensor-bias", source="sensor_bias", units=fits.attrs.get("units", {}))
     return Section("harmonisation", title, body)
 

@@ -149,8 +149,17 @@ def map_figure(
             aois.plot(ax=ax, facecolor="tab:red", alpha=0.35, edgecolor="darkred", linewidth=1.0)
             for _, row in aois.iterrows() if ax is zoom else ():
                 p = row.geometry.representative_point()
-                ax.annotate(str(row[aoi_field]), (p.x, p.y), xytext=(0, 6), textcoords="offset points", fontsize=9,
-                            ha="center", color="darkred", weight="bold", path_effects=_HALO)  # fmt: skip
+                ax.annotate(
+                    str(row[aoi_field]),
+                    (p.x, p.y),
+                    xytext=(0, 6),
+                    textcoords="offset points",
+                    fontsize=9,
+                    ha="center",
+                    color="darkred",
+                    weight="bold",
+                    path_effects=_HALO,
+                )
         ax.set_xlabel("longitude (degrees east)")
         ax.set_ylabel("latitude (degrees north)")
     outer = next((layers[k] for k in ("subbasins", "catchment", "lake") if layers.get(k) is not None), None)
@@ -158,10 +167,22 @@ def map_figure(
     _frame(zoom, layers.get("lake"), 0.25)
     if mesh is not None and cells is not None:
         kind = "log" if isinstance(mesh.norm, LogNorm) else "linear"
-        fig.colorbar(mesh, ax=[whole, zoom], shrink=0.75,
-                     label=f"lake-surface weight of the cell (% of the lake zone, {kind} scale)")  # fmt: skip
-        zoom.text(0.99, 0.01, f"{int((cells[2] > 0).sum())} weighted cell(s)", transform=zoom.transAxes,
-                  ha="right", va="bottom", fontsize=8, path_effects=_HALO)  # fmt: skip
+        fig.colorbar(
+            mesh,
+            ax=[whole, zoom],
+            shrink=0.75,
+            label=f"lake-surface weight of the cell (% of the lake zone, {kind} scale)",
+        )
+        zoom.text(
+            0.99,
+            0.01,
+            f"{int((cells[2] > 0).sum())} weighted cell(s)",
+            transform=zoom.transAxes,
+            ha="right",
+            va="bottom",
+            fontsize=8,
+            path_effects=_HALO,
+        )
     handles = [
         Line2D([], [], color="black", lw=1.4, label="lake"),
         Patch(facecolor="tab:red", alpha=0.35, edgecolor="darkred", label="areas of interest (by id)"),
@@ -181,9 +202,15 @@ def _cells(ax: plt.Axes, cells: Cells) -> object:
     pct = 100 * w
     norm, _ = weight_norm(pct)
     return ax.pcolormesh(
-        lon_e, lat_e, np.ma.masked_less_equal(pct, 0), cmap="viridis", norm=norm, alpha=0.75,
-        edgecolors="none" if pct.size > 400 else "0.7", linewidth=0.5,  # cell edges only while few enough to see
-    )  # fmt: skip
+        lon_e,
+        lat_e,
+        np.ma.masked_less_equal(pct, 0),
+        cmap="viridis",
+        norm=norm,
+        alpha=0.75,
+        edgecolors="none" if pct.size > 400 else "0.7",
+        linewidth=0.5,  # cell edges only while few enough to see
+    )
 
 
 def _outlines(

@@ -16,8 +16,22 @@ def runs_section(ctx: ReportContext) -> Section:
     if runs is None or runs.empty:
         return Section("runs", title, missing("no run_summary table (no build or refresh recorded yet)"))
     runs = runs.sort_values("started", ascending=False)
-    cols = [c for c in ("started", "run_id", "status", "stages_run", "rows_written", "mode", "changed", "skipped",
-                        "error", "seconds") if c in runs]  # fmt: skip
+    cols = [
+        c
+        for c in (
+            "started",
+            "run_id",
+            "status",
+            "stages_run",
+            "rows_written",
+            "mode",
+            "changed",
+            "skipped",
+            "error",
+            "seconds",
+        )
+        if c in runs
+    ]
     body = table_html(runs[cols], name="runs", source="run_summary", units=runs.attrs.get("units", {}))
     last = runs.iloc[0]
     for col in ("error", "skipped"):

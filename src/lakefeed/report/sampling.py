@@ -47,8 +47,18 @@ def sampling_section(ctx: ReportContext) -> Section:
     diag = ctx.table("diagnostics")
     if diag is None:
         return Section("sampling", title, body + missing("no diagnostics table (features stage not run)"))
-    wanted = ("aoi", "n_obs", "obs_per_year", "gap_median_days", "gap_p90_days", "gap_max_days",
-              "longest_gap_start", "longest_gap_end", "coverage_fraction", "warnings")  # fmt: skip
+    wanted = (
+        "aoi",
+        "n_obs",
+        "obs_per_year",
+        "gap_median_days",
+        "gap_p90_days",
+        "gap_max_days",
+        "longest_gap_start",
+        "longest_gap_end",
+        "coverage_fraction",
+        "warnings",
+    )
     keep = [c for c in wanted if c in diag]
     body += table_html(diag[keep], name="diagnostics", source="diagnostics", units=diag.attrs.get("units", {}))
     body += f'<p class="note">{html.escape(RULE_NOTE)}</p>'
@@ -57,8 +67,9 @@ def sampling_section(ctx: ReportContext) -> Section:
 
 def calendar_figure(dates: pd.DataFrame) -> Figure:
     """Left: a tick per observation day per AOI on a readable date axis. Right: gap histogram per AOI."""
-    fig, (cal, hist) = plt.subplots(1, 2, figsize=(11, 0.5 * dates["aoi"].nunique() + 2.4),
-                                    gridspec_kw={"width_ratios": [2.3, 1]})  # fmt: skip
+    fig, (cal, hist) = plt.subplots(
+        1, 2, figsize=(11, 0.5 * dates["aoi"].nunique() + 2.4), gridspec_kw={"width_ratios": [2.3, 1]}
+    )
     aois = sorted(dates["aoi"].unique())
     gaps: dict[str, np.ndarray] = {}
     for i, aoi in enumerate(aois):

@@ -125,19 +125,38 @@ def target_figure(
             for kind, mask in kinds.items():
                 sel = obs[here & mask & (obs["sensor"] == sensor) & (obs["median"] > 0)]
                 if len(sel):
-                    ax.scatter(pd.to_datetime(sel["date"]), sel["median"], color=colours.get(sensor, "0.4"),
-                               label=f"{sensor} {kind}", alpha=0.8 if kind == "accepted" else 0.6,
-                               **_STYLE[kind])  # fmt: skip
+                    ax.scatter(
+                        pd.to_datetime(sel["date"]),
+                        sel["median"],
+                        color=colours.get(sensor, "0.4"),
+                        label=f"{sensor} {kind}",
+                        alpha=0.8 if kind == "accepted" else 0.6,
+                        **_STYLE[kind],
+                    )
         if daily is not None:
             d = daily[daily["aoi"] == aoi].assign(date=lambda f: pd.to_datetime(f["date"])).sort_values("date")
             lo = (d["chla"] - d["chla_uncertainty"]).clip(lower=d["chla"] * 0.05)
-            ax.fill_between(d["date"], lo, d["chla"] + d["chla_uncertainty"], color="0.2", alpha=0.18, lw=0,
-                            label="fused ±1 uncertainty")  # fmt: skip
+            ax.fill_between(
+                d["date"],
+                lo,
+                d["chla"] + d["chla_uncertainty"],
+                color="0.2",
+                alpha=0.18,
+                lw=0,
+                label="fused ±1 uncertainty",
+            )
             ax.plot(d["date"], d["chla"], color="black", lw=0.9, label="fused daily")
         for name, value in thresholds:
             ax.axhline(value, color="crimson", ls="--", lw=0.9, alpha=0.8)
-            ax.annotate(f"{name} {value:g}", (1.0, value), xycoords=("axes fraction", "data"), ha="right",
-                        va="bottom", fontsize=6, color="crimson")  # fmt: skip
+            ax.annotate(
+                f"{name} {value:g}",
+                (1.0, value),
+                xycoords=("axes fraction", "data"),
+                ha="right",
+                va="bottom",
+                fontsize=6,
+                color="crimson",
+            )
         ax.set_yscale("log")
         plain_log_axes(ax)
         ax.set_ylabel(f"{aoi}\nchl-a ({unit})", fontsize=8)
@@ -164,13 +183,27 @@ def tsi_figure(daily: pd.DataFrame, thresholds: list[tuple[str, float]]) -> Figu
                 ax.scatter(sel["date"], sel["tsi"], s=14, color=cmap(k), label=f"Carlson: {name}", zorder=3)
         unscreened = d[~d.get("screened", pd.Series(True, index=d.index)).fillna(False).astype(bool)]
         if len(unscreened):
-            ax.scatter(unscreened["date"], unscreened["tsi"], s=40, facecolors="none", edgecolors="black",
-                       label="unscreened day", zorder=4)  # fmt: skip
+            ax.scatter(
+                unscreened["date"],
+                unscreened["tsi"],
+                s=40,
+                facecolors="none",
+                edgecolors="black",
+                label="unscreened day",
+                zorder=4,
+            )
         for name, value in thresholds:  # the thresholds on the TSI scale
             tsi = float(carlson_tsi(value))
             ax.axhline(tsi, color="crimson", ls="--", lw=0.8, alpha=0.8)
-            ax.annotate(f"{name} ({value:g} mg m-3)", (1.0, tsi), xycoords=("axes fraction", "data"), ha="right",
-                        va="bottom", fontsize=6, color="crimson")  # fmt: skip
+            ax.annotate(
+                f"{name} ({value:g} mg m-3)",
+                (1.0, tsi),
+                xycoords=("axes fraction", "data"),
+                ha="right",
+                va="bottom",
+                fontsize=6,
+                color="crimson",
+            )
         lines = [float(carlson_tsi(v)) for _, v in thresholds]
         lo, hi = ax.get_ylim()
         ax.set_ylim(min([lo, *lines]) - 2, max([hi, *lines]) + 6)  # every threshold line and its label inside

@@ -19,8 +19,15 @@ from lakefeed.features.windows import as_dates
 from lakefeed.stages.refresh_plan import RefreshMode, RefreshPlan
 from lakefeed.store import Store, read_units
 
-__all__ = ["driver_parts", "drivers_digest", "load_drivers", "partition_hashes", "read_dated", "refresh_plan",
-           "targets_digest"]  # fmt: skip
+__all__ = [
+    "driver_parts",
+    "drivers_digest",
+    "load_drivers",
+    "partition_hashes",
+    "read_dated",
+    "refresh_plan",
+    "targets_digest",
+]
 
 _DRIVER_TABLES = ("drivers_daily", "hydrology_daily")
 _TAIL_REACH = pd.Timedelta(days=62)  # driver changes reaching further back are checked by fingerprint

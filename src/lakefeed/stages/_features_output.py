@@ -22,8 +22,16 @@ from lakefeed.features.pit import FeatureBlock
 from lakefeed.stages._features_inputs import targets_digest
 from lakefeed.store import Store
 
-__all__ = ["KEYS", "arrow_rows", "fold_diagnostics", "fold_options", "folds", "sorted_by_keys", "with_stored_extras",
-           "write_rows"]  # fmt: skip
+__all__ = [
+    "KEYS",
+    "arrow_rows",
+    "fold_diagnostics",
+    "fold_options",
+    "folds",
+    "sorted_by_keys",
+    "with_stored_extras",
+    "write_rows",
+]
 
 KEYS = ["aoi", "target_date", "lead_days"]
 _ADDED_LATER = ("forecast_days", "forecast_fraction")  # features columns written by the forecast stage
@@ -54,8 +62,15 @@ def with_stored_extras(store: Store, lake: str, arrow: pa.Table, prev: dict | No
 
 def fold_options(opts: FeatureOptions) -> str:
     """The fold options as stored in the table's metadata (JSON; the embargo as applied, in days)."""
-    return json.dumps({"k": opts.folds, "kind": opts.fold_kind, "embargo_days": opts.effective_embargo_days,
-                       "block_months": opts.fold_block_months}, sort_keys=True)  # fmt: skip
+    return json.dumps(
+        {
+            "k": opts.folds,
+            "kind": opts.fold_kind,
+            "embargo_days": opts.effective_embargo_days,
+            "block_months": opts.fold_block_months,
+        },
+        sort_keys=True,
+    )
 
 
 def folds(arrow: pa.Table, opts: FeatureOptions) -> np.ndarray:
@@ -63,8 +78,13 @@ def folds(arrow: pa.Table, opts: FeatureOptions) -> np.ndarray:
     calendar blocks (blocked) or a hash of the date (random); never from the other rows, so a row's fold is
     the same in an incremental refresh and in a clean build."""
     dates = arrow["target_date"].to_numpy()
-    return assign_folds(dates, k=opts.folds, kind=opts.fold_kind, block_months=opts.fold_block_months,
-                        embargo_days=opts.effective_embargo_days)  # fmt: skip
+    return assign_folds(
+        dates,
+        k=opts.folds,
+        kind=opts.fold_kind,
+        block_months=opts.fold_block_months,
+        embargo_days=opts.effective_embargo_days,
+    )
 
 
 def fold_diagnostics(targets: pd.DataFrame, opts: FeatureOptions) -> pd.DataFrame:
@@ -75,9 +95,12 @@ def fold_diagnostics(targets: pd.DataFrame, opts: FeatureOptions) -> pd.DataFram
         kept = lost = ""
         if opts.fold_kind == "blocked":
             kept, lost = fold_counts(
-                g["date"].drop_duplicates(), k=opts.folds, block_months=opts.fold_block_months,
-                embargo_days=opts.effective_embargo_days, rows_per_date=len(opts.leads),
-            )  # fmt: skip
+                g["date"].drop_duplicates(),
+                k=opts.folds,
+                block_months=opts.fold_block_months,
+                embargo_days=opts.effective_embargo_days,
+                rows_per_date=len(opts.leads),
+            )
         embargo = opts.effective_embargo_days if opts.fold_kind == "blocked" else 0
         rows.append({"aoi": str(a), "embargo_days": embargo, "fold_rows": kept, "embargoed_rows": lost})
     return pd.DataFrame(rows, columns=["aoi", "embargo_days", "fold_rows", "embargoed_rows"])
@@ -115,8 +138,12 @@ def write_rows(
         if i < len(steps) - 1:  # the state after this step: the table of the inputs up to split - 1
             day = str((split - pd.Timedelta(days=1)).date())
             md = dict(kw["metadata"])  # type: ignore[call-overload]
-            md |= {"drivers_through": day, "targets_through": day, "drivers_digest_at_through": drivers_digest(day),
-                   "targets_digest_at_through": targets_digest(targets, day)}  # fmt: skip
+            md |= {
+                "drivers_through": day,
+                "targets_through": day,
+                "drivers_digest_at_through": drivers_digest(day),
+                "targets_digest_at_through": targets_digest(targets, day),
+            }
             kw |= {"metadata": md, "inputs": {}}
         if start is None:
             store.write_arrow("features", lake, rows, **kw)  # type: ignore[arg-type]

@@ -176,8 +176,16 @@ def raw_drivers(
         stored = None
         if entry and store.has_table("forecast_drivers_daily", lake.id):
             stored = store.read_table("forecast_drivers_daily", lake.id)
-        plan = refresh_plan(entry, stored, archive.issue_times, files=archive.files, since=since, inputs=inputs,
-                            config_hash=config_hash(project), signature=raw_signature(project))  # fmt: skip
+        plan = refresh_plan(
+            entry,
+            stored,
+            archive.issue_times,
+            files=archive.files,
+            since=since,
+            inputs=inputs,
+            config_hash=config_hash(project),
+            signature=raw_signature(project),
+        )
     if plan.reuse is None:
         raw, warnings = extract(archive, project, cache_dir=cache, progress=progress)
         return raw, warnings, inputs, plan.summary()

@@ -118,11 +118,21 @@ def shrinkage(
             continue
         lo, hi = got.min(), got.max()
         if lo > dates.min():
-            ranges.append((label, f"the record would start on {_day(lo)} instead of {_day(dates.min())} "
-                                  f"(lost: {_ranges(dates[dates < lo])})"))  # fmt: skip
+            ranges.append(
+                (
+                    label,
+                    f"the record would start on {_day(lo)} instead of {_day(dates.min())} "
+                    f"(lost: {_ranges(dates[dates < lo])})",
+                )
+            )
         if hi < dates.max():
-            ranges.append((label, f"the record would end on {_day(hi)} instead of {_day(dates.max())} "
-                                  f"(lost: {_ranges(dates[dates > hi])})"))  # fmt: skip
+            ranges.append(
+                (
+                    label,
+                    f"the record would end on {_day(hi)} instead of {_day(dates.max())} "
+                    f"(lost: {_ranges(dates[dates > hi])})",
+                )
+            )
     problems = _merged(ranges, "")
     if new.empty:
         return problems

@@ -54,8 +54,15 @@ def write_from_first_change(
     manifest entry's provenance and metadata are kept. Returns what was done: ``unchanged``,
     ``appended from YYYY-MM-DD`` or ``rewritten`` (columns changed)."""
     entry = store.entry(table, lake) or {}
-    kw = dict(units=units, descriptions=descriptions, metadata=entry.get("metadata"), inputs=entry.get("inputs"),
-              config_hash=entry.get("config_hash"), time_column=date, sort_by=list(keys))  # fmt: skip
+    kw = dict(
+        units=units,
+        descriptions=descriptions,
+        metadata=entry.get("metadata"),
+        inputs=entry.get("inputs"),
+        config_hash=entry.get("config_hash"),
+        time_column=date,
+        sort_by=list(keys),
+    )
     old = old.drop(columns=["lake"], errors="ignore")
     new = new.drop(columns=["lake"], errors="ignore")
     since = first_change(old, new, keys=keys, date=date)

@@ -27,12 +27,12 @@ from typing import Any
 
 import pandas as pd
 
-from lakefeed.config.lake import TargetOptions
+from lakefeed.config.lake import LakeConfig, TargetOptions
 from lakefeed.extract.screening import accept
-from lakefeed.stages._provenance import input_hashes
+from lakefeed.stages._provenance import input_hashes, layer_paths
 from lakefeed.stages.refresh_plan import RefreshMode, RefreshPlan
 
-__all__ = ["raster_paths", "raw_reasons", "refresh_plan", "since_utc"]
+__all__ = ["input_files", "raster_paths", "raw_reasons", "refresh_plan", "since_utc"]
 
 _MONTH = re.compile(r"(?<!\d)(\d{4})-?(0[1-9]|1[0-2])(?:-?\d{2})?(?!\d)")  # as the refresh flow's months
 _HREFS = ["value_href", "quality_href", "uncertainty_href"]
@@ -151,3 +151,15 @@ def refresh_plan(
             return RefreshPlan.full(f"raster {Path(p).name} of a scene before {since} appeared or is gone")
     reuse = rows.assign(reason=raw_reasons(rows, options)).drop(columns=["accepted", "outlier"])
     return RefreshPlan(RefreshMode.TAIL, start.date(), reuse=reuse, known=known)
+
+
+def input_files(scenes: pd.DataFrame, lake: LakeConfig, *, known: Mapping[str, str] | None = None) -> dict[str, str]:
+    """Content hashes of the catalogue and item JSONs, every local raster asset of the listed scenes
+    and the AOI/lake layers (the rasters too: a re-processed GeoTIFF under the same item changes them).
+    ``known``: hashes already recorded for unchanged files ({absolute path: sha256}), not hashed again."""
+    known = dict(known or {})
+    hrefs = scenes[["value_href", "quality_href", "uncertainty_href"]].to_numpy().ravel()
+    rasters = [Path(h) for h in pd.unique(hrefs[pd.notna(hrefs)]) if "://" not in str(h) and Path(h).is_file()]
+    files = [*scenes.attrs.get("source_files", []), *rasters, *layer_paths(lake.lake, lake.aois)]
+    todo = [f for f in files if str(Path(f).absolute()) not in known]
+    return dict(sorted((known | input_hashes(todo)).items()))

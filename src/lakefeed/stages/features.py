@@ -123,11 +123,30 @@ def _finish(job: FeatureJob, store: Store, arrow: pa.Table) -> StageResult:
             result.warnings.append(f"AOI {d['aoi']}: {d['warnings']}")
 
     progress("features: writing", 2, 3)
-    result.warnings += refuse_shrink(store, "features", lake.id, arrow, keys=KEYS, time_column="target_date",
-                                     since=since, groups=["aoi", "lead_days"], others="forecast_days",
-                                     allow_shrink=job.allow_shrink, why=result.reason)  # fmt: skip
-    units = {"chla": "mg m-3", "persistence_chla": "mg m-3", "persistence_age_days": "d", "days_since_prev_obs": "d",
-             "doy_sin": "1", "doy_cos": "1", "lead_days": "d", "fold": "1", "incomplete_windows": "1"}  # fmt: skip
+    result.warnings += refuse_shrink(
+        store,
+        "features",
+        lake.id,
+        arrow,
+        keys=KEYS,
+        time_column="target_date",
+        since=since,
+        groups=["aoi", "lead_days"],
+        others="forecast_days",
+        allow_shrink=job.allow_shrink,
+        why=result.reason,
+    )
+    units = {
+        "chla": "mg m-3",
+        "persistence_chla": "mg m-3",
+        "persistence_age_days": "d",
+        "days_since_prev_obs": "d",
+        "doy_sin": "1",
+        "doy_cos": "1",
+        "lead_days": "d",
+        "fold": "1",
+        "incomplete_windows": "1",
+    }
     units |= feature_units(job.plan, job.driver_units)
     descr = dict(_DESCRIPTIONS)
     descr["fold"] = (
@@ -174,9 +193,14 @@ def _finish(job: FeatureJob, store: Store, arrow: pa.Table) -> StageResult:
     dunits = {c: "d" for c in diag.columns if c.startswith("gap_") and c.endswith("_days")}
     dunits |= {"coverage_fraction": "1", "embargo_days": "d"}
     store.write_table(
-        "diagnostics", lake.id, diag, units=dunits, inputs=job.inputs, config_hash=job.config_hash,
+        "diagnostics",
+        lake.id,
+        diag,
+        units=dunits,
+        inputs=job.inputs,
+        config_hash=job.config_hash,
         time_column="first_date",
-    )  # fmt: skip
+    )
     progress("features: done", 3, 3)
     result.tables = {"features": int((store.entry("features", lake.id) or {}).get("rows", 0)), "diagnostics": len(diag)}
     return result
@@ -201,9 +225,12 @@ def _compute(
     pieces: dict[int, list[pa.Table]] = {i: [] for i in last}  # rows of the lakes not yet handed on
     try:
         chunks = iter_feature_blocks(
-            series, windows=plan.windows, stats=plan.stats, include_target_day=plan.include_target_day,
+            series,
+            windows=plan.windows,
+            stats=plan.stats,
+            include_target_day=plan.include_target_day,
             max_missing_fraction=plan.max_missing_fraction,
-        )  # fmt: skip
+        )
     except Exception as err:
         _compute_alone(jobs, store, done, err)
         return
@@ -314,9 +341,7 @@ def build_features_many(
         jobs: dict[tuple, list[FeatureJob]] = {}
         for project in projects[at : at + max(1, lakes_per_pass)]:
             try:
-                job = prepare_job(
-                    project, store, progress=lake_progress(project.id), full=full
-                )  # fmt: skip
+                job = prepare_job(project, store, progress=lake_progress(project.id), full=full)
             except Exception as err:
                 if not isolate:
                     raise
@@ -357,8 +382,12 @@ def build_features(
     >>> build_features(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
     """
     out = build_features_many(
-        [project], store, progress=progress, full=full, isolate=False,
+        [project],
+        store,
+        progress=progress,
+        full=full,
+        isolate=False,
         allow_shrink=allow_shrink,
-    )[project.id]  # fmt: skip
+    )[project.id]
     assert isinstance(out, StageResult)  # isolate=False raises instead
     return out

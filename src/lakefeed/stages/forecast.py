@@ -32,15 +32,12 @@ import pandas as pd
 import xarray as xr
 
 from lakefeed.config import Project
-from lakefeed.config.lake import FeatureOptions
 from lakefeed.config.sources import Accumulation, ForecastSource, WeatherSource
 from lakefeed.exceptions import ExtractError
 from lakefeed.extract.daily import DAILY_UNITS
 from lakefeed.extract.forecast_daily import check_increments, deaccumulate_forecast, to_daily_by_lead
 from lakefeed.extract.forecast_evaluation import bias_table, expanding_adjustment, leave_one_year_out, overlap_days
 from lakefeed.extract.quantile_mapping import DEFAULT_KINDS, fit_quantile_mapping
-from lakefeed.features import assign_folds
-from lakefeed.features.reforecast import reforecast_rows
 from lakefeed.geometry.weights import ZoneWeights
 from lakefeed.geometry.zones import build_zones, zone_latitudes
 from lakefeed.progress import Progress, no_progress
@@ -53,6 +50,7 @@ from lakefeed.stages._guard import refuse_shrink
 from lakefeed.stages._provenance import config_hash
 from lakefeed.stages._result import StageResult
 from lakefeed.stages._rewrite_tail import write_from_first_change
+from lakefeed.stages.forecast_features import reforecast_features
 from lakefeed.stages.weather import get_weights, hourly_drivers
 from lakefeed.store import Store
 from lakefeed.units import convert
@@ -132,8 +130,15 @@ def daily_forecasts(
     subs = None
     if lake.zones.catchment or lake.zones.subbasins:
         subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
-    zones = build_zones(lake_g, aois=aois, aoi_id_field=lake.aois.id_field, subbasins=subs,
-                        subbasin_layer=lake.subbasins, options=lake.zones, crs=grid.crs)  # fmt: skip
+    zones = build_zones(
+        lake_g,
+        aois=aois,
+        aoi_id_field=lake.aois.id_field,
+        subbasins=subs,
+        subbasin_layer=lake.subbasins,
+        options=lake.zones,
+        crs=grid.crs,
+    )
     weights, _ = get_weights(zones, grid, cache_dir=cache_dir, allow_partial_coverage=lake.zones.allow_partial_coverage)
     cube, warnings = forecast_steps(archive, weights, source=project.sources.forecast, progress=progress)
     flags = {z: weights.flags(z) for z in weights.zones}
@@ -182,8 +187,9 @@ def adjust_forecasts(
         same = stored["settings"].iat[0] == settings and pd.Timestamp(stored["fitted_through"].iat[0]) == end
         return stored.drop(columns=["settings", "fitted_through", "unit"], errors="ignore") if same else None
 
-    res = expanding_adjustment(raw, reference, variables=variables, min_overlap_days=src.min_overlap_days,
-                               options=options, reuse=reuse)  # fmt: skip
+    res = expanding_adjustment(
+        raw, reference, variables=variables, min_overlap_days=src.min_overlap_days, options=options, reuse=reuse
+    )
     final = reuse(end + pd.Timedelta(days=1))
     reused = final is not None
     if final is None:
@@ -198,98 +204,26 @@ def adjust_forecasts(
     done = adj[variables].notna().any(axis=1).to_numpy()
     evaluation = bias_table(raw[done], adj[done], reference, variables=variables, units=DAILY_UNITS)
     if pd.DatetimeIndex(raw["issue_date"]).year.nunique() >= 2:
-        loyo = leave_one_year_out(raw, reference, variables=variables, min_overlap_days=src.min_overlap_days,
-                                  options=options)  # fmt: skip
+        loyo = leave_one_year_out(
+            raw, reference, variables=variables, min_overlap_days=src.min_overlap_days, options=options
+        )
         ok = loyo[variables].notna().any(axis=1).to_numpy()
-        evaluation = pd.concat([evaluation, bias_table(raw[ok], loyo[ok], reference, variables=variables,
-                                                       units=DAILY_UNITS, method="leave_one_year_out")])  # fmt: skip
-    info = {"unadjusted_issues": len(res.unadjusted_issues), "fallback_rows": res.fallback_rows, "reused": reused,
-            "overlap_days": have, "variables": variables}  # fmt: skip
+        evaluation = pd.concat(
+            [
+                evaluation,
+                bias_table(
+                    raw[ok], loyo[ok], reference, variables=variables, units=DAILY_UNITS, method="leave_one_year_out"
+                ),
+            ]
+        )
+    info = {
+        "unadjusted_issues": len(res.unadjusted_issues),
+        "fallback_rows": res.fallback_rows,
+        "reused": reused,
+        "overlap_days": have,
+        "variables": variables,
+    }
     return adj, final, evaluation.reset_index(drop=True), info
-
-
-_FORECAST_COLUMNS = {
-    "forecast_days": "re-forecast rows: window days after the issue date filled by forecasts (missing: hindcast row)",
-    "forecast_fraction": "re-forecast rows: forecast_days / longest window (missing: hindcast row)",
-}
-
-
-def _reforecast(
-    project: Project, store: Store, adjusted: pd.DataFrame, result: StageResult
-) -> tuple[pd.DataFrame, dict[str, str], dict[str, str], pd.DataFrame] | None:
-    """Features table with the re-forecast rows appended, its units and descriptions, and the stored table
-    (or None when it cannot be built yet)."""
-    from lakefeed.stages.features import load_drivers
-
-    lake, opts = project.lake, project.lake.features
-    if not (store.has_table("features", lake.id) and store.has_table("target_daily", lake.id)):
-        result.warnings.append("no features/target_daily table: re-forecast rows not built (run the features stage)")
-        return None
-    existing = store.read_table("features", lake.id)
-    units = dict(existing.attrs.get("units", {}))
-    descriptions = dict(existing.attrs.get("descriptions", {}))
-    existing = existing.drop(columns=["lake"], errors="ignore")
-    td = store.read_table("target_daily", lake.id, columns=["aoi", "date", "chla"])
-    targets = td.loc[td["chla"].notna(), ["aoi", "date", "chla"]].copy()
-    targets["aoi"] = targets["aoi"].astype(str)
-    targets["date"] = pd.to_datetime(targets["date"]).dt.normalize()
-    aois = sorted(targets["aoi"].unique())
-    wanted = list(opts.drivers) if opts.drivers else None
-    frames, _, _ = load_drivers(store, lake.id, zone=opts.driver_zone, aois=aois, wanted=wanted)
-    stats = {c: list(s) for c, s in (opts.drivers or {}).items() if s}
-    blocks = []
-    for key, drivers in frames.items():
-        zone = f"aoi:{key}" if key is not None else opts.driver_zone
-        fc = adjusted[adjusted["zone"] == zone]
-        cols = [c for c in drivers.columns if c in fc.columns]
-        fc = fc[["issue_date", "date", *cols]].assign(
-            issue_date=lambda f: pd.to_datetime(f["issue_date"]), date=lambda f: pd.to_datetime(f["date"])
-        )
-        tg = targets if key is None else targets[targets["aoi"] == key]
-        blocks.append(
-            reforecast_rows(
-                tg,
-                drivers,
-                fc,
-                leads=opts.forecast_leads,
-                windows=opts.windows,
-                stats=stats or None,
-                include_target_day=opts.include_target_day,
-                max_missing_fraction=opts.max_missing_fraction,
-            )
-        )
-    rows = pd.concat(blocks, ignore_index=True)
-    mine = existing["forecast_days"].notna() if "forecast_days" in existing else pd.Series(False, index=existing.index)
-    hind = existing.loc[~mine.to_numpy()]
-    clash = hind["lead_days"].isin(opts.forecast_leads)
-    if clash.any():
-        result.warnings.append(
-            f"{int(clash.sum())} hindcast feature row(s) at leads {sorted(set(hind.loc[clash, 'lead_days']))} "
-            "are replaced by re-forecast rows (features.leads and features.forecast_leads overlap)"
-        )
-        hind = hind.loc[~clash.to_numpy()]
-    rows["target_date"] = pd.to_datetime(rows["target_date"])
-    rows["issue_date"] = pd.to_datetime(rows["issue_date"])
-    rows["fold"] = _reforecast_folds(rows, opts)
-    rows["fold"] = rows["fold"].astype(np.int16)
-    if "fold_kind" in hind:
-        rows["fold_kind"] = opts.fold_kind
-    cols = [c for c in hind.columns if c in rows]
-    cols += [c for c in ("forecast_days", "forecast_fraction") if c not in cols]  # a rerun finds them in hind
-    out = pd.concat([hind, rows[cols]], ignore_index=True)
-    out = out.sort_values(["aoi", "target_date", "lead_days"], kind="stable").reset_index(drop=True)
-    units |= {"forecast_days": "d", "forecast_fraction": "1", "lead_days": "d"}
-    descriptions |= {k: v for k, v in _FORECAST_COLUMNS.items() if k in out}
-    return out, units, descriptions, existing
-
-
-def _reforecast_folds(rows: pd.DataFrame, opts: FeatureOptions) -> np.ndarray:
-    """Fold of each re-forecast row: the fold the features stage gives its target date (calendar blocks or a
-    hash of the date, :func:`lakefeed.features.assign_folds`), so a target date carries one fold across all
-    its leads, hindcast and re-forecast."""
-    dates = pd.to_datetime(rows["target_date"]).to_numpy()
-    return assign_folds(dates, k=opts.folds, kind=opts.fold_kind, block_months=opts.fold_block_months,
-                        embargo_days=opts.effective_embargo_days)  # fmt: skip
 
 
 def build_forecast(
@@ -350,22 +284,27 @@ def build_forecast(
     ref_entry = store.entry("drivers_daily", lake.id) or {}
     inputs[f"drivers_daily/lake={lake.id}"] = str(ref_entry.get("content_hash", ""))  # the adjustment's reference
     prov = {"inputs": dict(sorted(inputs.items())), "config_hash": config_hash(project)}
-    both = pd.concat([raw.assign(adjustment="raw", fitted_through=pd.NaT), adjusted.assign(adjustment=ADJUSTED)],
-                     ignore_index=True)  # fmt: skip
+    both = pd.concat(
+        [raw.assign(adjustment="raw", fitted_through=pd.NaT), adjusted.assign(adjustment=ADJUSTED)], ignore_index=True
+    )
     keys = ["zone", "issue_date", "lead_days", "adjustment", "issue_time", "date"]
     both = both[keys + [c for c in both.columns if c not in keys]]
     for c in ("issue_date", "date", "fitted_through"):
         both[c] = pd.to_datetime(both[c]).dt.date
     units = dict(DAILY_UNITS) | {"lead_days": "d"}
-    meta = {"settings": str(table["settings"].iat[0]), "overlap_days": str(info["overlap_days"]),
-            "bias_table_reused": str(info["reused"]),
-            "method": "empirical quantile mapping (type-7 quantiles at nodes (i + 0.5)/n, linear interpolation, "
-                      "constant extrapolation of the correction); refit at each month start on pairs with valid date "
-                      "before it (fitted_through); groups: zone x lead group x calendar month of the valid date "
-                      "+- month_window, pooled over months when a group has < 20 pairs",
-            "fit_options": json.dumps(fit_options(src) | {"kinds": DEFAULT_KINDS}, default=str),
-            "min_overlap_days": str(src.min_overlap_days), "raw_hash": raw_hash,
-            SIGNATURE: raw_signature(project)}  # fmt: skip
+    meta = {
+        "settings": str(table["settings"].iat[0]),
+        "overlap_days": str(info["overlap_days"]),
+        "bias_table_reused": str(info["reused"]),
+        "method": "empirical quantile mapping (type-7 quantiles at nodes (i + 0.5)/n, linear interpolation, "
+        "constant extrapolation of the correction); refit at each month start on pairs with valid date "
+        "before it (fitted_through); groups: zone x lead group x calendar month of the valid date "
+        "+- month_window, pooled over months when a group has < 20 pairs",
+        "fit_options": json.dumps(fit_options(src) | {"kinds": DEFAULT_KINDS}, default=str),
+        "min_overlap_days": str(src.min_overlap_days),
+        "raw_hash": raw_hash,
+        SIGNATURE: raw_signature(project),
+    }
     descr = {
         "issue_date": "the forecast's issue date: lead 1 (the first full local day after the issue time) minus 1 day",
         "lead_days": "date - issue_date (lead 1 = first full local day after the issue time)",
@@ -374,29 +313,80 @@ def build_forecast(
         "fitted_through": "last reanalysis date used by the adjustment's fit (always before issue_date)",
     }
     guard = {"allow_shrink": allow_shrink, "why": result.reason}
-    result.warnings += refuse_shrink(store, "forecast_drivers_daily", lake.id, both, keys=keys, time_column="date",
-                                     groups=["zone", "lead_days", "adjustment"], **guard)  # fmt: skip
-    feats = _reforecast(project, store, adjusted, result)
+    result.warnings += refuse_shrink(
+        store,
+        "forecast_drivers_daily",
+        lake.id,
+        both,
+        keys=keys,
+        time_column="date",
+        groups=["zone", "lead_days", "adjustment"],
+        **guard,
+    )
+    feats = reforecast_features(project, store, adjusted, result)
     if feats is not None:
-        result.warnings += refuse_shrink(store, "features", lake.id, feats[0], keys=_FEATURE_KEYS,
-                                         time_column="target_date", groups=["aoi", "lead_days"], **guard)  # fmt: skip
-    store.write_table("forecast_drivers_daily", lake.id, both, units=units, metadata=meta, time_column="date",
-                      descriptions=descr, **prov)  # fmt: skip
+        result.warnings += refuse_shrink(
+            store,
+            "features",
+            lake.id,
+            feats[0],
+            keys=_FEATURE_KEYS,
+            time_column="target_date",
+            groups=["aoi", "lead_days"],
+            **guard,
+        )
+    store.write_table(
+        "forecast_drivers_daily",
+        lake.id,
+        both,
+        units=units,
+        metadata=meta,
+        time_column="date",
+        descriptions=descr,
+        **prov,
+    )
     tunits = {"quantile": "1", "lead_min": "d", "lead_max": "d", "factor": "1 (multiplicative) or unit (additive)"}
     through = pd.Timestamp(table["fitted_through"].iat[0]).date()
     stored_table = table.assign(fitted_through=through, unit=table["variable"].map(DAILY_UNITS))
     descr = {"hist": "forecast quantile (in the row's unit)", "ref": "reanalysis quantile (in the row's unit)"}
-    store.write_table("bias_adjustment", lake.id, stored_table, units=tunits, metadata=meta, time_column=None,
-                      descriptions=descr, **prov)  # fmt: skip
-    store.write_table("forecast_evaluation", lake.id, evaluation, units={"lead_days": "d", "ks_raw": "1",
-                      "ks_adjusted": "1"}, metadata=meta, time_column=None, **prov)  # fmt: skip
-    result.tables = {"forecast_drivers_daily": len(both), "bias_adjustment": len(table),
-                     "forecast_evaluation": len(evaluation)}  # fmt: skip
+    store.write_table(
+        "bias_adjustment",
+        lake.id,
+        stored_table,
+        units=tunits,
+        metadata=meta,
+        time_column=None,
+        descriptions=descr,
+        **prov,
+    )
+    store.write_table(
+        "forecast_evaluation",
+        lake.id,
+        evaluation,
+        units={"lead_days": "d", "ks_raw": "1", "ks_adjusted": "1"},
+        metadata=meta,
+        time_column=None,
+        **prov,
+    )
+    result.tables = {
+        "forecast_drivers_daily": len(both),
+        "bias_adjustment": len(table),
+        "forecast_evaluation": len(evaluation),
+    }
     p("forecast: re-forecast features", 4, 5)
     if feats is not None:  # only the rows from the first changed target date on are written
         frame, funits, fdescr, stored = feats
-        write_from_first_change(store, "features", lake.id, stored, frame, keys=_FEATURE_KEYS,
-                                date="target_date", units=funits, descriptions=fdescr)  # fmt: skip
+        write_from_first_change(
+            store,
+            "features",
+            lake.id,
+            stored,
+            frame,
+            keys=_FEATURE_KEYS,
+            date="target_date",
+            units=funits,
+            descriptions=fdescr,
+        )
         result.tables["features"] = len(frame)
     p("forecast: done", 5, 5)
     return result

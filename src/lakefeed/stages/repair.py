@@ -145,8 +145,14 @@ def repair_store(
     out = []
     for lake, errors in sorted(by_lake.items()):
         if lake not in known:
-            out.append(Repair(lake, sorted({e.table for e in errors}), message=f"no lake configuration given for "
-                              f"lake {lake!r}; pass its YAML file to rebuild it from its sources"))  # fmt: skip
+            out.append(
+                Repair(
+                    lake,
+                    sorted({e.table for e in errors}),
+                    message=f"no lake configuration given for "
+                    f"lake {lake!r}; pass its YAML file to rebuild it from its sources",
+                )
+            )
             continue
         out.append(_repair_lake(store, known[lake], errors, progress or no_progress))
     return out

@@ -62,8 +62,10 @@ _SKILL_DESCR = {
 
 def _options_hash(project: Project) -> str:
     lake = project.lake
-    payload = {"skill": lake.skill.model_dump(mode="json"), "thresholds": [t.model_dump(mode="json")
-               for t in lake.thresholds]}  # fmt: skip
+    payload = {
+        "skill": lake.skill.model_dump(mode="json"),
+        "thresholds": [t.model_dump(mode="json") for t in lake.thresholds],
+    }
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
 
 
@@ -106,20 +108,41 @@ def build_skill(project: Project, store: Store, *, progress: Progress | None = N
     frame = store.read_table("features", lake.id)
     frame = frame[frame["chla"].notna()]
     p("skill: screening", 1, 3)
-    screening = screen(frame, "chla", cluster_threshold=opts.cluster_threshold, leak_threshold=opts.leak_threshold,
-                       max_missing_fraction=opts.max_missing_fraction)  # fmt: skip
+    screening = screen(
+        frame,
+        "chla",
+        cluster_threshold=opts.cluster_threshold,
+        leak_threshold=opts.leak_threshold,
+        max_missing_fraction=opts.max_missing_fraction,
+    )
     p("skill: baselines", 2, 3)
     scores = baseline_skill(frame, thresholds=lake.thresholds, window_days=opts.climatology_window_days)
     leaks = screening[screening["suspect_leak"] & (screening["fold"] == "all")]
     for _, row in leaks.drop_duplicates("feature").iterrows():
         result.warnings.append(f"feature screening: {row['message']}")
     meta = {"caution": CAUTION, "options": json.dumps(opts.model_dump(mode="json"), sort_keys=True)}
-    store.write_table("feature_screening", lake.id, screening, units={"lead_days": "d", "n_rows": "1"},
-                      descriptions=_SCREEN_DESCR, metadata=meta, inputs=inputs, config_hash=options,
-                      sort_by=["aoi", "lead_days", "fold", "feature"])  # fmt: skip
-    store.write_table("baseline_skill", lake.id, scores, units={"lead_days": "d", "n": "1"},
-                      descriptions=_SKILL_DESCR, metadata=meta, inputs=inputs, config_hash=options,
-                      sort_by=["aoi", "lead_days", "baseline", "fold", "metric"])  # fmt: skip
+    store.write_table(
+        "feature_screening",
+        lake.id,
+        screening,
+        units={"lead_days": "d", "n_rows": "1"},
+        descriptions=_SCREEN_DESCR,
+        metadata=meta,
+        inputs=inputs,
+        config_hash=options,
+        sort_by=["aoi", "lead_days", "fold", "feature"],
+    )
+    store.write_table(
+        "baseline_skill",
+        lake.id,
+        scores,
+        units={"lead_days": "d", "n": "1"},
+        descriptions=_SKILL_DESCR,
+        metadata=meta,
+        inputs=inputs,
+        config_hash=options,
+        sort_by=["aoi", "lead_days", "baseline", "fold", "metric"],
+    )
     p("skill: done", 3, 3)
     result.tables = {"feature_screening": len(screening), "baseline_skill": len(scores)}
     return result

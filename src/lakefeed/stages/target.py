@@ -11,14 +11,13 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from datetime import date
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from lakefeed.config import Project
-from lakefeed.config.lake import LakeConfig, SensorConfig, TargetOptions, Threshold
+from lakefeed.config.lake import SensorConfig, TargetOptions, Threshold
 from lakefeed.extract.harmonise import BIAS_COLUMNS, apply_bias, fit_bias, fuse_daily, matchups
 from lakefeed.extract.scene_stats import STAT_COLUMNS, aoi_statistics
 from lakefeed.extract.screening import accept
@@ -174,8 +173,11 @@ def screen_total(obs: pd.DataFrame, fits: pd.DataFrame, *, options: TargetOption
 def _filter(options: TargetOptions | None) -> dict[str, float]:
     """The outlier filter's window, widest window (days) and threshold from the lake's target options."""
     o = options or TargetOptions()
-    return {"window_days": o.outlier_window_days, "max_window_days": o.outlier_max_window_days,
-            "threshold": o.outlier_threshold}  # fmt: skip
+    return {
+        "window_days": o.outlier_window_days,
+        "max_window_days": o.outlier_max_window_days,
+        "threshold": o.outlier_threshold,
+    }
 
 
 def extract_observations(
@@ -248,18 +250,6 @@ def cross_sensor_outliers(obs: pd.DataFrame, fits: pd.DataFrame, *, options: Tar
     """Outlier flags (bool Series aligned with ``obs``) from screening each AOI's series of ALL harmonised
     sensors: :func:`lakefeed.extract.screening_reference.cross_sensor_screen` with the lake's options."""
     return cross_sensor_screen(obs, fits, **_filter(options))["outlier"]
-
-
-def _input_files(scenes: pd.DataFrame, lake: LakeConfig, *, known: Mapping[str, str] | None = None) -> dict[str, str]:
-    """Content hashes of the catalogue and item JSONs, every local raster asset of the listed scenes
-    and the AOI/lake layers (the rasters too: a re-processed GeoTIFF under the same item changes them).
-    ``known``: hashes already recorded for unchanged files ({absolute path: sha256}), not hashed again."""
-    known = dict(known or {})
-    hrefs = scenes[["value_href", "quality_href", "uncertainty_href"]].to_numpy().ravel()
-    rasters = [Path(h) for h in pd.unique(hrefs[pd.notna(hrefs)]) if "://" not in str(h) and Path(h).is_file()]
-    files = [*scenes.attrs.get("source_files", []), *rasters, *layer_paths(lake.lake, lake.aois)]
-    todo = [f for f in files if str(Path(f).absolute()) not in known]
-    return dict(sorted((known | input_hashes(todo)).items()))
 
 
 def _plan(project: Project, store: Store, scenes: pd.DataFrame, aoi_ids: list[str], since: object) -> RefreshPlan:
@@ -389,7 +379,7 @@ def build_target(
         c: f"chla >= threshold '{c.removeprefix('exceeds_')}'. {CAUTION}" for c in daily if c.startswith("exceeds_")
     }
     fit_meta = {"sensor_bias": fits.to_json(orient="records")}
-    prov = {"inputs": _input_files(scenes, lake, known=plan.known), "config_hash": config_hash(project)}
+    prov = {"inputs": _target_refresh.input_files(scenes, lake, known=plan.known), "config_hash": config_hash(project)}
     guard = {"allow_shrink": allow_shrink, "time_column": "date", "why": result.reason}
     result.warnings += refuse_shrink(store, "target_obs", lake.id, obs, keys=["aoi", "scene_id"], **guard)
     result.warnings += refuse_shrink(store, "target_daily", lake.id, daily, keys=KEYS, groups=["aoi"], **guard)

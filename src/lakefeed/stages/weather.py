@@ -35,6 +35,7 @@ import xarray as xr
 from lakefeed.exceptions import SourceError
 from lakefeed.extract.accumulation import Deaccumulated, deaccumulate, step_of
 from lakefeed.extract.meteo import wind_speed
+from lakefeed.extract.step_units import to_mm_per_step, to_watts
 from lakefeed.extract.zonal import zonal_mean
 from lakefeed.geometry.weights import ZoneWeights, zone_hash, zone_weights
 from lakefeed.progress import Progress, no_progress
@@ -73,7 +74,6 @@ _AMOUNT_NAMES = {
     "precipitation_amount",
 }
 #: Density of liquid water for precipitation mass -> depth, kg m-3 (common practice).
-WATER_DENSITY_KG_M3 = 1000.0
 
 
 def get_weights(
@@ -100,30 +100,6 @@ def get_weights(
         np.savez(tmp, **w.to_arrays())
         tmp.replace(path)
     return w, False
-
-
-def _to_mm_per_step(values: xr.DataArray, unit: str, step_s: float) -> xr.DataArray:
-    from lakefeed.units import parse_unit, ureg
-
-    q = ureg.Quantity(1.0, parse_unit(unit))
-    if q.check("[mass] / [length] ** 2") or q.check("[mass] / [length] ** 2 / [time]"):
-        q = q / ureg.Quantity(WATER_DENSITY_KG_M3, "kg m-3")
-    if q.check("[length] / [time]"):
-        q = q * ureg.Quantity(step_s, "s")
-    if not q.check("[length]"):
-        raise SourceError(f"precipitation unit {unit!r} is not an amount, depth or flux; declare weather.units")
-    return values * float(q.to("mm").magnitude)
-
-
-def _to_watts(values: xr.DataArray, unit: str, step_s: float) -> xr.DataArray:
-    from lakefeed.units import parse_unit, ureg
-
-    q = ureg.Quantity(1.0, parse_unit(unit))
-    if q.check("[mass] / [time] ** 2"):  # J m-2 per step
-        q = q / ureg.Quantity(step_s, "s")
-    if not q.check("[mass] / [time] ** 3"):
-        raise SourceError(f"shortwave unit {unit!r} is neither J m-2 nor W m-2; declare weather.units")
-    return values * float(q.to("W m-2").magnitude)
 
 
 def hourly_drivers(
@@ -182,8 +158,8 @@ def hourly_drivers(
         "air_temperature": lambda x: convert(x, var["air_temperature"].attrs["units"], "degC"),
         "dewpoint": lambda x: convert(x, var["dewpoint_temperature"].attrs["units"], "degC"),
         "wind_speed": lambda x: x,
-        "precipitation": lambda x: _to_mm_per_step(x, var["precipitation"].attrs["units"], step_s),
-        "shortwave_radiation": lambda x: _to_watts(x, var["shortwave_radiation"].attrs["units"], step_s),
+        "precipitation": lambda x: to_mm_per_step(x, var["precipitation"].attrs["units"], step_s),
+        "shortwave_radiation": lambda x: to_watts(x, var["shortwave_radiation"].attrs["units"], step_s),
     }
     names = {"dewpoint": "dewpoint_temperature", "wind_speed": "eastward_wind"}
     if value_rules:
@@ -264,9 +240,9 @@ def zonal_long(
         elif role in ("eastward_wind", "northward_wind"):
             mean, unit = convert(mean, unit, "m s-1"), "m s-1"
         elif role == "precipitation":
-            mean, unit = _to_mm_per_step(mean, unit, step_s), "mm"
+            mean, unit = to_mm_per_step(mean, unit, step_s), "mm"
         elif role == "shortwave_radiation":
-            mean, unit = _to_watts(mean, unit, step_s), "W m-2"
+            mean, unit = to_watts(mean, unit, step_s), "W m-2"
         f = xr.Dataset({"value": mean, "valid_fraction": z["valid_fraction"]}).to_dataframe().reset_index()
         f["variable"], f["unit"] = label, unit
         frames.append(f)
@@ -378,8 +354,19 @@ def build_weather(
     daily["date"] = daily["date"].dt.date
     if start is not None:
         daily = daily[daily["date"] >= start].reset_index(drop=True)
-    warn += refuse_shrink(store, "drivers_daily", lake.id, daily, keys=KEYS, time_column="date", since=start,
-                          groups=["zone"], complete=True, allow_shrink=allow_shrink, why=how)  # fmt: skip
+    warn += refuse_shrink(
+        store,
+        "drivers_daily",
+        lake.id,
+        daily,
+        keys=KEYS,
+        time_column="date",
+        since=start,
+        groups=["zone"],
+        complete=True,
+        allow_shrink=allow_shrink,
+        why=how,
+    )
     write_drivers(
         store,
         lake.id,

@@ -85,8 +85,10 @@ def current_generation(fs: Any, root: str) -> int | None:
         return None
     n = doc.get("generation") if isinstance(doc, dict) else None
     if not isinstance(n, int) or n < 1:
-        raise StoreError(f"store {root!r}: {GEN_DIR}/{POINTER} names no valid generation ({doc!r}); the store is "
-                         "damaged: restore the file or run 'lakefeed verify --repair'")  # fmt: skip
+        raise StoreError(
+            f"store {root!r}: {GEN_DIR}/{POINTER} names no valid generation ({doc!r}); the store is "
+            "damaged: restore the file or run 'lakefeed verify --repair'"
+        )
     return n
 
 
@@ -94,8 +96,10 @@ def read_generation(fs: Any, root: str, n: int) -> dict[str, Any]:
     """Generation ``n`` (read-only: shared with the cache)."""
     doc = load_json(fs, _gen_path(root, n), immutable=True)
     if doc is None:
-        raise StoreError(f"store {root!r}: generation {n} is gone (collected after newer runs published); "
-                         "read the current generation")  # fmt: skip
+        raise StoreError(
+            f"store {root!r}: generation {n} is gone (collected after newer runs published); "
+            "read the current generation"
+        )
     check_schema_version(doc, root)
     return doc
 
@@ -107,8 +111,10 @@ def generation_entry(fs: Any, root: str, doc: Mapping[str, Any], table: str, lak
         return None
     version = load_json(fs, _version_path(root, table, lake, ref["entry"]), immutable=True)
     if version is None:
-        raise StoreError(f"store {root!r}: entry version {ref['entry']} of {table}/lake={lake} (generation "
-                         f"{doc.get('generation')}) is missing; the store is damaged")  # fmt: skip
+        raise StoreError(
+            f"store {root!r}: entry version {ref['entry']} of {table}/lake={lake} (generation "
+            f"{doc.get('generation')}) is missing; the store is damaged"
+        )
     check_schema_version(version, root)
     return version.get("entry")
 
@@ -199,8 +205,12 @@ def publish(
     if prev is None or partitions != prev.get("partitions"):
         _upgrade_head(fs, root, keep, local=local)
         n = (n or 0) + 1
-        doc = {"schema_version": SCHEMA_VERSION, "package_version": __version__, "generation": n,
-               "partitions": partitions}  # fmt: skip
+        doc = {
+            "schema_version": SCHEMA_VERSION,
+            "package_version": __version__,
+            "generation": n,
+            "partitions": partitions,
+        }
         write_json(fs, _gen_path(root, n), doc, local=local)
         write_json(fs, f"{root}/{GEN_DIR}/{POINTER}", {"generation": n}, local=local)  # the atomic step
     for table, lake in sorted(changed & pending):

@@ -48,8 +48,11 @@ def _holder(fs: Any, path: str) -> str:
 
 
 def _stamp(expire_after: float | None = None) -> bytes:
-    doc: dict[str, Any] = {"pid": os.getpid(), "host": os.uname().nodename,
-                           "since": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())}  # fmt: skip
+    doc: dict[str, Any] = {
+        "pid": os.getpid(),
+        "host": os.uname().nodename,
+        "since": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+    }
     if expire_after is not None:
         doc["expires"] = time.time() + expire_after
     return json.dumps(doc).encode()
@@ -302,9 +305,14 @@ def _check_writable(root: str) -> None:
 def _unwritable(root: str | os.PathLike[str], err: OSError) -> str:
     import errno
 
-    reasons = {errno.ENOSPC: "the disk is full", errno.EDQUOT: "the disk quota is exceeded",
-               errno.EROFS: "the file system is read-only", errno.EACCES: "no write permission",
-               errno.EPERM: "no write permission", errno.ENOTDIR: "a part of the path is a file"}  # fmt: skip
+    reasons = {
+        errno.ENOSPC: "the disk is full",
+        errno.EDQUOT: "the disk quota is exceeded",
+        errno.EROFS: "the file system is read-only",
+        errno.EACCES: "no write permission",
+        errno.EPERM: "no write permission",
+        errno.ENOTDIR: "a part of the path is a file",
+    }
     why = reasons.get(err.errno or 0)
     return (
         f"store {os.fspath(root)!r} cannot be written ({why or err.strerror or err}: {err.filename or root}); "

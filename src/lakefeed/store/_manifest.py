@@ -163,8 +163,12 @@ def write_entry(fs: Any, root: str, table: str, lake: str, entry: dict[str, Any]
                 write_json(fs, _entry_path(root, t, lk), _entry_doc(e), local=local)
         head = None
     if head is None:
-        write_json(fs, f"{root}/{MANIFEST_NAME}", {"schema_version": SCHEMA_VERSION, "package_version": __version__},
-                    local=local)  # fmt: skip
+        write_json(
+            fs,
+            f"{root}/{MANIFEST_NAME}",
+            {"schema_version": SCHEMA_VERSION, "package_version": __version__},
+            local=local,
+        )
     write_json(fs, _entry_path(root, table, lake), _entry_doc(entry), local=local)
 
 

@@ -18,8 +18,16 @@ import pyarrow.compute as pc
 
 from lakefeed.store._fs import file_digest
 
-__all__ = ["TIME_COLUMNS", "make_entry", "read_descriptions", "read_units", "schema_with_units", "time_range",
-           "with_schema", "write_options"]  # fmt: skip
+__all__ = [
+    "TIME_COLUMNS",
+    "make_entry",
+    "read_descriptions",
+    "read_units",
+    "schema_with_units",
+    "time_range",
+    "with_schema",
+    "write_options",
+]
 
 #: Candidate time columns for a table's time range in the manifest, in order of preference.
 TIME_COLUMNS = ("target_date", "date", "time", "issue_date")

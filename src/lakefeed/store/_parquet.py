@@ -119,12 +119,16 @@ class Store(StoreWriter):
         try:
             self.fs.ls(top, detail=False)
         except FileNotFoundError as err:
-            raise StoreError(f"store {self.url!r}: bucket {top!r} does not exist; create it first or fix 'store:' "
-                             "(nothing was written)") from err  # fmt: skip
+            raise StoreError(
+                f"store {self.url!r}: bucket {top!r} does not exist; create it first or fix 'store:' "
+                "(nothing was written)"
+            ) from err
         except (PermissionError, OSError) as err:
-            raise StoreError(f"store {self.url!r}: access to bucket {top!r} refused ({type(err).__name__}); check "
-                             "the credentials (environment variables or profile) and the endpoint (nothing was "
-                             "written)") from err  # fmt: skip
+            raise StoreError(
+                f"store {self.url!r}: access to bucket {top!r} refused ({type(err).__name__}); check "
+                "the credentials (environment variables or profile) and the endpoint (nothing was "
+                "written)"
+            ) from err
 
     @contextmanager
     def lock(self) -> Iterator[None]:
@@ -152,8 +156,9 @@ class Store(StoreWriter):
         """This store with its reads held to a kept ``generation`` (:class:`StoreError` when it is not kept)."""
         if generation not in generations(self.fs, self.path):
             kept = generations(self.fs, self.path)
-            raise StoreError(f"store {self.url!r}: generation {generation} is not kept (collected, or never "
-                             f"published); kept: {kept}")  # fmt: skip
+            raise StoreError(
+                f"store {self.url!r}: generation {generation} is not kept (collected, or never published); kept: {kept}"
+            )
         out = copy.copy(self)
         out.staged, out._pin = False, generation
         return out
@@ -171,8 +176,10 @@ class Store(StoreWriter):
             return read_manifest(self.fs, self.path)
         out = {k: v for k, v in read_head(self.fs, self.path).items() if k != "tables"}
         out["generation"] = doc["generation"]
-        out["tables"] = {t: {lk: generation_entry(self.fs, self.path, doc, t, lk) for lk in lakes}
-                         for t, lakes in doc.get("partitions", {}).items()}  # fmt: skip
+        out["tables"] = {
+            t: {lk: generation_entry(self.fs, self.path, doc, t, lk) for lk in lakes}
+            for t, lakes in doc.get("partitions", {}).items()
+        }
         return out
 
     def check_version(self) -> None:
@@ -197,8 +204,11 @@ class Store(StoreWriter):
             root = table_path(self.path, table)
             if not self.fs.exists(root):
                 return []
-            names = [n.split("=", 1)[1] for p in self.fs.ls(root, detail=False)
-                     if (n := p.rstrip("/").rsplit("/", 1)[-1]).startswith("lake=")]  # fmt: skip
+            names = [
+                n.split("=", 1)[1]
+                for p in self.fs.ls(root, detail=False)
+                if (n := p.rstrip("/").rsplit("/", 1)[-1]).startswith("lake=")
+            ]
         return sorted(lk for lk in names if self._present(table, lk, self.entry(table, lk)))
 
     def _present(self, table: str, lake: str, entry: dict[str, Any] | None) -> bool:

@@ -93,8 +93,9 @@ def check_read_only(sql: str) -> str:
             what = _kind(explained[0]) if len(explained) == 1 else "an unrecognised statement"
             raise StoreError(f"query refused: EXPLAIN of {what} ({sql.strip()[:80]!r}). {_HINT}")
     elif kind != "SELECT":
-        raise StoreError(f"query refused: a {kind} statement ({sql.strip()[:80]!r}) may write or reach outside "
-                         f"the store. {_HINT}")  # fmt: skip
+        raise StoreError(
+            f"query refused: a {kind} statement ({sql.strip()[:80]!r}) may write or reach outside the store. {_HINT}"
+        )
     return statement.query.strip().rstrip(";").strip()
 
 

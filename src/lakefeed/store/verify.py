@@ -47,8 +47,11 @@ def partition_damage(store: Store, table: str, lake: str, *, deep: bool = True) 
 def _lake_folders(store: Store, table: str) -> list[str]:
     names = folder_names(store.fs, f"{store.path}/{table}")
     from_folders = {n.split("=", 1)[1] for n in names if n.startswith("lake=")}
-    from_entries = {n[: -len(".json")] for n in folder_names(store.fs, f"{store.path}/{ENTRY_DIR}/{table}")
-                    if n.endswith(".json") and not n.startswith(".")}  # fmt: skip
+    from_entries = {
+        n[: -len(".json")]
+        for n in folder_names(store.fs, f"{store.path}/{ENTRY_DIR}/{table}")
+        if n.endswith(".json") and not n.startswith(".")
+    }
     return sorted(from_folders | from_entries)
 
 

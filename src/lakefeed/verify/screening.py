@@ -42,15 +42,37 @@ __all__ = ["NOT_FEATURES", "SCREENING_COLUMNS", "fold_blocks", "screen", "screen
 
 #: Columns of the ``features`` table that are keys or bookkeeping, never screened as features.
 NOT_FEATURES = (
-    "lake", "aoi", "target_date", "issue_date", "lead_days", "fold", "fold_kind", "flags", "incomplete_windows",
-    "outside_driver_record", "forecast_days",
-)  # fmt: skip
+    "lake",
+    "aoi",
+    "target_date",
+    "issue_date",
+    "lead_days",
+    "fold",
+    "fold_kind",
+    "flags",
+    "incomplete_windows",
+    "outside_driver_record",
+    "forecast_days",
+)
 
 #: Columns of the screening table (after the group keys ``aoi``, ``lead_days``, ``fold``).
 SCREENING_COLUMNS = (
-    "feature", "n_rows", "missing_fraction", "n_distinct", "variance", "rho_target", "nearest_feature",
-    "rho_nearest", "cluster", "representative", "vif", "keep", "reason", "suspect_leak", "message",
-)  # fmt: skip
+    "feature",
+    "n_rows",
+    "missing_fraction",
+    "n_distinct",
+    "variance",
+    "rho_target",
+    "nearest_feature",
+    "rho_nearest",
+    "cluster",
+    "representative",
+    "vif",
+    "keep",
+    "reason",
+    "suspect_leak",
+    "message",
+)
 
 
 def _n_distinct(x: np.ndarray) -> np.ndarray:
@@ -231,14 +253,19 @@ def screen(
     if features is None:
         skip = set(NOT_FEATURES) | {target}
         features = [
-            c for c in frame.columns
+            c
+            for c in frame.columns
             if c not in skip and (pd.api.types.is_numeric_dtype(frame[c]) or pd.api.types.is_bool_dtype(frame[c]))
-        ]  # fmt: skip
+        ]
     features = list(features)
     keys = [c for c in by if c in frame.columns]
     has_fold = fold_column is not None and fold_column in frame.columns
-    opts = dict(target_name=target, cluster_threshold=cluster_threshold, leak_threshold=leak_threshold,
-                max_missing_fraction=max_missing_fraction)  # fmt: skip
+    opts = dict(
+        target_name=target,
+        cluster_threshold=cluster_threshold,
+        leak_threshold=leak_threshold,
+        max_missing_fraction=max_missing_fraction,
+    )
     out = []
     groups = frame.groupby(keys, sort=True, dropna=False) if keys else [((), frame)]
     for key, rows in groups:

@@ -141,8 +141,10 @@ def score_predictions(
     pred["lead_days"] = pd.to_numeric(pred["lead_days"]).astype(np.int64)
     dup = pred.duplicated(list(KEYS))
     if dup.any():
-        raise SkillError(f"{int(dup.sum())} prediction row(s) repeat a key (aoi, target_date, lead_days), e.g. "
-                         f"{pred.loc[dup, list(KEYS)].iloc[0].tolist()}; give one prediction per row")  # fmt: skip
+        raise SkillError(
+            f"{int(dup.sum())} prediction row(s) repeat a key (aoi, target_date, lead_days), e.g. "
+            f"{pred.loc[dup, list(KEYS)].iloc[0].tolist()}; give one prediction per row"
+        )
     rows = frame[frame["chla"].notna()].copy()
     rows["aoi"] = rows["aoi"].astype(str)
     rows["target_date"] = pd.to_datetime(rows["target_date"]).dt.normalize()
