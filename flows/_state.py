@@ -31,6 +31,7 @@ __all__ = [
     "fingerprint",
     "plan_stages",
     "read_state",
+    "shared_sources",
     "stage_since",
     "state_path",
     "table_complete",
@@ -114,6 +115,23 @@ def fingerprint(project: Project) -> dict[str, dict[str, str]]:
         out["scenes"] = _by_month((p for p in base.rglob("*") if p.is_file()), base)
     if src.forecast is not None:
         out["forecast"] = _by_month(_expand(src.forecast.paths, "forecast"))
+    return out
+
+
+def shared_sources(project: Project) -> dict[str, str]:
+    """Stage -> key of the source files it reads (lakes with equal keys can share one read of them).
+
+    Weather: the time zone of the stamps and the matched grid files (absolute); hydrology: the model output
+    file(s). A stage without such a source has no key.
+    """
+    src = project.sources
+    out: dict[str, str] = {}
+    if src.weather is not None:
+        files = sorted(str(Path(f).absolute()) for f in _expand(src.weather.paths, "weather"))
+        out["weather"] = json.dumps([src.weather.time_zone, *files])
+    if src.hydrology is not None:
+        hyd = [src.hydrology.path] if src.hydrology.path else sorted(src.hydrology.files.values())
+        out["hydrology"] = json.dumps([str(Path(str(f)).absolute()) for f in hyd])
     return out
 
 

@@ -2,7 +2,8 @@
 
 Takes lake config files or folders of them and a store folder; returns one summary dict per lake and
 stores them in the ``run_summary`` table. Lakes fan out as coarse tasks (one per lake per stage; the
-features stage, whose work lakes share, in tasks of up to 32 lakes) on a Dask cluster: a local one sized to
+weather and features stages, whose reads and work lakes share, in tasks of up to ``lakes_per_task`` lakes
+naming the same sources) on a Dask cluster: a local one sized to
 the machine by default, or an existing one (``dask_address`` argument or ``dask_address:`` in sources.yaml).
 Each lake is isolated: its failure is recorded with the reason, its later stages are not run, and the other
 lakes go on. Only one run writes a store at a time (:func:`lakefeed.flows._runtime.store_lock`). Must not
@@ -46,9 +47,19 @@ from lakefeed.flows._state import state_path
 from lakefeed.flows.tasks import lakes_task, plan_task, stage_task
 from lakefeed.store import Store
 
-__all__ = ["SUMMARY_UNITS", "build_lake", "format_summary", "onboard_lake", "process_lakes", "refresh"]
+__all__ = [
+    "LAKES_PER_TASK",
+    "SUMMARY_UNITS",
+    "build_lake",
+    "format_summary",
+    "onboard_lake",
+    "process_lakes",
+    "refresh",
+]
 
 SUMMARY_UNITS = {"new_rows": "1", "rows_written": "1", "seconds": "s"}
+#: Default of the most lakes in one task of a stage that shares work between lakes (STAGES_MANY).
+LAKES_PER_TASK = 32
 
 
 def _row_counts(store: Store, lake: str) -> dict[str, int]:
@@ -71,11 +82,14 @@ def process_lakes(
     full: bool = False,
     stages: list[str] | None = None,
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
 ) -> list[dict[str, Any]]:
     """Run the stages each lake needs, stage by stage across lakes; one summary dict per lake.
 
     ``lakes`` maps lake id to its config file; ``stages`` limits the stages (default: all that exist);
-    ``allow_shrink``: stages write even when their new rows lose stored dates or values (else they fail).
+    ``allow_shrink``: stages write even when their new rows lose stored dates or values (else they fail);
+    ``lakes_per_task``: most lakes sharing sources run in one task of a stage that computes lakes together
+    (1: every lake in a task of its own).
     """
     logger = get_run_logger()
     found, missing = available_stages()
@@ -113,7 +127,7 @@ def process_lakes(
         rec[lake].update(status="unchanged", skipped=["no new or changed source months"])
     for stage in order:
         todo = [lake for lake in sorted(alive) if stage in plans[lake]["stages"]]
-        for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans, allow_shrink).items():
+        for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans, allow_shrink, lakes_per_task).items():
             try:
                 result = outcome.result() if not isinstance(outcome, dict) else outcome
             except Exception as err:
@@ -156,9 +170,6 @@ def process_lakes(
     return summaries
 
 
-_LAKES_PER_TASK = 32  # lakes of one task of a stage that shares work between lakes (STAGES_MANY)
-
-
 def _run_stage(
     stage: str,
     todo: list[str],
@@ -166,14 +177,24 @@ def _run_stage(
     store_root: str,
     plans: dict[str, dict[str, Any]],
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
 ) -> dict[str, Any]:
     """Run a stage for the lakes ``todo``: lake -> its result dict, or a future of one. Stages that share work
-    between lakes run in tasks of up to :data:`_LAKES_PER_TASK` lakes; a lake that failed there is run
-    again alone (a task of its own, with retries), so its error and retries stay its own."""
-    if stage not in STAGES_MANY or len(todo) < 2:
+    between lakes run in tasks of up to ``lakes_per_task`` lakes that read the same sources (the plan's
+    ``share`` key of the stage); a lake that failed there is run again alone (a task of its own, with retries),
+    so its error and retries stay its own."""
+    groups: dict[str, list[str]] = {}
+    for lake in todo:
+        groups.setdefault(plans[lake].get("share", {}).get(stage, ""), []).append(lake)
+    if stage not in STAGES_MANY or lakes_per_task < 2 or all(len(g) < 2 for g in groups.values()):
         return {lake: _one(stage, lake, lakes, store_root, plans, allow_shrink) for lake in todo}
-    batches = [todo[i : i + _LAKES_PER_TASK] for i in range(0, len(todo), _LAKES_PER_TASK)]
-    futures = [lakes_task.submit(stage, {lk: lakes[lk] for lk in b}, store_root, b[0], allow_shrink) for b in batches]
+    n = lakes_per_task
+    batches = [g[i : i + n] for g in groups.values() for i in range(0, len(g), n)]
+    futures = []
+    for b in batches:
+        since = {lk: d for lk in b if (d := plans[lk].get("since", {}).get(stage)) is not None}
+        lake_files = {lk: lakes[lk] for lk in b}
+        futures.append(lakes_task.submit(stage, lake_files, store_root, b[0], allow_shrink, since or None))
     out: dict[str, Any] = {}
     for batch, fut in zip(batches, futures, strict=True):
         try:
@@ -268,6 +289,7 @@ def _run(
     what: str,
     stages: list[str] | None = None,
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
 ) -> list[dict[str, Any]]:
     started = datetime.now(UTC)
     run_id = uuid.uuid4().hex[:12]
@@ -279,7 +301,7 @@ def _run(
     with store_lock(root, wait=wait, what=what), prefect_api():
         runner = _task_runner(dask_address, sequential, projects)
         summaries = process_lakes.with_options(task_runner=runner)(
-            lakes, root, full=full, stages=stages, allow_shrink=allow_shrink
+            lakes, root, full=full, stages=stages, allow_shrink=allow_shrink, lakes_per_task=lakes_per_task
         )
         summaries += failed
         _write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
@@ -296,6 +318,7 @@ def refresh(
     wait: float = 0.0,
     stages: list[str] | None = None,
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
 ) -> list[dict[str, Any]]:
     """Monthly refresh: for every lake in ``configs`` (files or folders), process what is new or changed.
 
@@ -318,6 +341,9 @@ def refresh(
         Let a stage write although its new rows shorten a table's stored date range or turn stored values into
         missing ones (a source file removed on purpose). Without it such a stage refuses (nothing written) and
         the lake fails, with the dates and columns in its error.
+    lakes_per_task
+        Most lakes that read the same sources computed in one task of a stage that shares its reads (weather,
+        features; the sources are read once per task); 1 runs every lake in a task of its own.
 
     Returns
     -------
@@ -337,6 +363,7 @@ def refresh(
         what="refresh",
         stages=stages,
         allow_shrink=allow_shrink,
+        lakes_per_task=lakes_per_task,
     )
 
 
@@ -350,13 +377,15 @@ def build_lake(
     report: bool = True,
     stages: list[str] | None = None,
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
 ) -> list[dict[str, Any]]:
     """Full build of lakes: validate, backfill the whole record (all stages), write each lake's report.
 
     Geometry (zones, catchment) and exact grid-cell weights are derived by the weather stage and cached
     in the store; the run records its source hashes, so the next :func:`refresh` is incremental.
     Lakes whose checks fail are not built (reported as failed with the problems). ``allow_shrink`` as for
-    :func:`refresh` (a rebuild over a store that holds more than the sources give now).
+    :func:`refresh` (a rebuild over a store that holds more than the sources give now); ``lakes_per_task`` as
+    for :func:`refresh`.
     """
     from lakefeed.checks import check_project
 
@@ -385,6 +414,7 @@ def build_lake(
         what="build",
         stages=stages,
         allow_shrink=allow_shrink,
+        lakes_per_task=lakes_per_task,
     )
     summaries += rejected
     if report:

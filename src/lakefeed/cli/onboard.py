@@ -328,6 +328,9 @@ def build_command(
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
     report: bool = typer.Option(True, "--report/--no-report", help="Write each lake's quality report."),
     allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
+    lakes_per_task: int = typer.Option(
+        32, "--lakes-per-task", min=1, help="Most lakes naming the same sources computed in one task (1: each alone)."
+    ),
 ) -> None:
     """Full build: validate, derive geometry and weights, backfill the whole record, write the reports."""
     from lakefeed.flows.refresh import build_lake
@@ -341,6 +344,7 @@ def build_command(
             wait=wait,
             report=report,
             allow_shrink=allow_shrink,
+            lakes_per_task=lakes_per_task,
         )
     if not _print_summary(summaries):
         raise typer.Exit(1)
@@ -354,6 +358,9 @@ def refresh_command(
     sequential: bool = typer.Option(False, "--sequential", help="No Dask: lakes one after the other here."),
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
     allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
+    lakes_per_task: int = typer.Option(
+        32, "--lakes-per-task", min=1, help="Most lakes naming the same sources computed in one task (1: each alone)."
+    ),
 ) -> None:
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
@@ -366,6 +373,7 @@ def refresh_command(
             sequential=sequential,
             wait=wait,
             allow_shrink=allow_shrink,
+            lakes_per_task=lakes_per_task,
         )
     if not _print_summary(summaries):
         raise typer.Exit(1)
