@@ -83,13 +83,15 @@ def process_lakes(
     stages: list[str] | None = None,
     allow_shrink: bool = False,
     lakes_per_task: int = LAKES_PER_TASK,
+    verify_hashes: bool = False,
 ) -> list[dict[str, Any]]:
     """Run the stages each lake needs, stage by stage across lakes; one summary dict per lake.
 
     ``lakes`` maps lake id to its config file; ``stages`` limits the stages (default: all that exist);
     ``allow_shrink``: stages write even when their new rows lose stored dates or values (else they fail);
     ``lakes_per_task``: most lakes sharing sources run in one task of a stage that computes lakes together
-    (1: every lake in a task of its own).
+    (1: every lake in a task of its own); ``verify_hashes``: hash every source file in full (else only the files
+    whose size or modification time changed since the last run).
     """
     logger = get_run_logger()
     found, missing = available_stages()
@@ -112,7 +114,7 @@ def process_lakes(
         for lake in lakes
     }
     plans: dict[str, dict[str, Any]] = {}
-    futures = {lake: plan_task.submit(lake, lf, store_root, order, full) for lake, lf in lakes.items()}
+    futures = {lake: plan_task.submit(lake, lf, store_root, order, full, verify_hashes) for lake, lf in lakes.items()}
     for lake, fut in futures.items():
         try:
             plans[lake] = fut.result()
@@ -147,7 +149,8 @@ def process_lakes(
         recorded = {
             s: t for s, t in plan["recorded"].items() if s in rec[lake]["stages_run"] or s not in plan["stages"]
         }
-        write_json_atomic(state_path(store_root, lake), {"sources": plan["sources"], "stages": recorded})
+        record = {"sources": plan["sources"], "stages": recorded, "files": plan.get("files", {})}
+        write_json_atomic(state_path(store_root, lake), record)
     summaries = []
     for lake, r in rec.items():
         after = _row_counts(store, lake) if lake in before else {}
@@ -290,6 +293,7 @@ def _run(
     stages: list[str] | None = None,
     allow_shrink: bool = False,
     lakes_per_task: int = LAKES_PER_TASK,
+    verify_hashes: bool = False,
 ) -> list[dict[str, Any]]:
     started = datetime.now(UTC)
     run_id = uuid.uuid4().hex[:12]
@@ -301,7 +305,13 @@ def _run(
     with store_lock(root, wait=wait, what=what), prefect_api():
         runner = _task_runner(dask_address, sequential, projects)
         summaries = process_lakes.with_options(task_runner=runner)(
-            lakes, root, full=full, stages=stages, allow_shrink=allow_shrink, lakes_per_task=lakes_per_task
+            lakes,
+            root,
+            full=full,
+            stages=stages,
+            allow_shrink=allow_shrink,
+            lakes_per_task=lakes_per_task,
+            verify_hashes=verify_hashes,
         )
         summaries += failed
         _write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
@@ -319,6 +329,7 @@ def refresh(
     stages: list[str] | None = None,
     allow_shrink: bool = False,
     lakes_per_task: int = LAKES_PER_TASK,
+    verify_hashes: bool = False,
 ) -> list[dict[str, Any]]:
     """Monthly refresh: for every lake in ``configs`` (files or folders), process what is new or changed.
 
@@ -344,6 +355,9 @@ def refresh(
     lakes_per_task
         Most lakes that read the same sources computed in one task of a stage that shares its reads (weather,
         features; the sources are read once per task); 1 runs every lake in a task of its own.
+    verify_hashes
+        Hash every source file in full. Otherwise a file whose size and modification time equal the ones recorded
+        with its hash at the last run keeps that hash (it is not read); the others are hashed.
 
     Returns
     -------
@@ -364,6 +378,7 @@ def refresh(
         stages=stages,
         allow_shrink=allow_shrink,
         lakes_per_task=lakes_per_task,
+        verify_hashes=verify_hashes,
     )
 
 

@@ -146,18 +146,26 @@ def lakes_task(
     retry_condition_fn=_retry_transient,
     cache_policy=NO_CACHE,
 )
-def plan_task(lake: str, lake_file: str, store_root: str, stages: list[str], full: bool = False) -> dict[str, Any]:
+def plan_task(
+    lake: str, lake_file: str, store_root: str, stages: list[str], full: bool = False, verify_hashes: bool = False
+) -> dict[str, Any]:
     """Hash the lake's sources; decide which stages must run (all of them when ``full``) and from which day.
 
-    ``since`` maps an incremental stage to the first day of its earliest changed source month (absent: in full).
+    ``since`` maps an incremental stage to the first day of its earliest changed source month (absent: in full);
+    ``share`` maps a stage to the key of the sources it reads (lakes with the same key share their reads);
+    ``files``: per source file [size, mtime ns, sha256], kept in the state record: the next run hashes only the
+    files whose size or modification time changed, or every file with ``verify_hashes``.
     """
     from lakefeed.config import load_project
     from lakefeed.store import Store
 
     project = load_project(lake_file)
     store = Store(store_root)
-    new = fingerprint(project)
-    old = {"sources": {}, "stages": {}} if full else read_state(store_root, lake)
+    state = read_state(store_root, lake)
+    files: dict[str, list[Any]] = {}
+    known = None if verify_hashes or not isinstance(state.get("files"), dict) else state["files"]
+    new = fingerprint(project, known=known, seen=files)
+    old = {"sources": {}, "stages": {}} if full else state
     changed = changes(old.get("sources", {}), new)
     recorded = old.get("stages", {}) if isinstance(old.get("stages"), dict) else {}
     plan = plan_stages(stages, changed, recorded=recorded, has_table=lambda t: table_complete(store, t, lake))
@@ -178,4 +186,5 @@ def plan_task(lake: str, lake_file: str, store_root: str, stages: list[str], ful
         "recorded": recorded,
         "since": since,
         "share": share,
+        "files": files,
     }

@@ -361,6 +361,9 @@ def refresh_command(
     lakes_per_task: int = typer.Option(
         32, "--lakes-per-task", min=1, help="Most lakes naming the same sources computed in one task (1: each alone)."
     ),
+    verify_hashes: bool = typer.Option(
+        False, "--verify-hashes", help="Hash every source file in full, not only those whose size or time changed."
+    ),
 ) -> None:
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
@@ -374,6 +377,7 @@ def refresh_command(
             wait=wait,
             allow_shrink=allow_shrink,
             lakes_per_task=lakes_per_task,
+            verify_hashes=verify_hashes,
         )
     if not _print_summary(summaries):
         raise typer.Exit(1)
