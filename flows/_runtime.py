@@ -46,6 +46,7 @@ STAGES: dict[str, tuple[str, str]] = {
 #: Stages with an entry point for many lakes at once (lakes sharing its work; each lake read and written alone).
 STAGES_MANY: dict[str, tuple[str, str]] = {
     "weather": ("lakefeed.stages.weather_group", "build_weather_many"),
+    "hydrology": ("lakefeed.stages.hydrology_group", "build_hydrology_many"),
     "features": ("lakefeed.stages.features", "build_features_many"),
 }
 

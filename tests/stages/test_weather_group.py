@@ -9,12 +9,10 @@ fail the bad lake alone, and read each time block of each grid file once (a spy 
 from __future__ import annotations
 
 from collections import Counter
-from pathlib import Path
 
-import geopandas as gpd
 import pandas as pd
 import pytest
-import yaml
+from many_lakes_setup import lake_configs
 
 from lakefeed.config import load_project
 from lakefeed.exceptions import GeometryError
@@ -32,30 +30,6 @@ LAKES = {
     "north": (-9_000.0, 6_000.0, "Europe/Berlin"),
     "offgrid": (600_000.0, 0.0, "UTC"),
 }
-
-
-def lake_configs(sample: Path, root: Path, lakes: dict[str, tuple[float, float, str]]) -> dict[str, Path]:
-    """One config per lake over the sample's sources: its layers translated, its own time zone."""
-    cfg = sample / "config"
-    (root / "config").mkdir(parents=True)
-    src = yaml.safe_load((cfg / "sources.yaml").read_text())
-    src["weather"]["paths"] = [str((cfg / p).resolve()) for p in src["weather"]["paths"]]
-    src.pop("store", None)
-    (root / "config" / "sources.yaml").write_text(yaml.safe_dump(src))
-    base = yaml.safe_load((cfg / "lake-tallow.yaml").read_text())
-    out = {}
-    for lake, (dx, dy, tz) in lakes.items():
-        conf = dict(base, id=lake, timezone=tz, sources="sources.yaml")
-        for key in ("lake", "aois", "subbasins"):
-            layer = gpd.read_file(cfg / base[key]["path"])
-            layer["geometry"] = layer.geometry.translate(dx, dy)
-            path = root / "geometry" / lake / f"{key}.gpkg"
-            path.parent.mkdir(parents=True, exist_ok=True)
-            layer.to_file(path)
-            conf[key] = dict(base[key], path=str(path))
-        out[lake] = root / "config" / f"lake-{lake}.yaml"
-        out[lake].write_text(yaml.safe_dump(conf))
-    return out
 
 
 def _reads(monkeypatch: pytest.MonkeyPatch) -> Counter:
