@@ -87,3 +87,30 @@ def test_grouped_refresh_from_a_month_equals_one_lake_refresh(small_sample, tmp_
         pd.testing.assert_frame_equal(
             store.read_table("drivers_daily", lake), alone.read_table("drivers_daily", lake), check_exact=True
         )
+
+
+def test_grouped_weather_on_a_local_dask_cluster_equals_sequential(small_sample, tmp_path) -> None:
+    """On a real ``distributed.LocalCluster`` over loopback (two worker processes) the time chunks of the group
+    are computed by the workers: the tables equal the sequential ones exactly."""
+    from distributed import Client, LocalCluster, get_task_stream
+
+    files = lake_configs(small_sample, tmp_path, {k: v for k, v in LAKES.items() if k in ("tallow", "east")})
+    projects = [load_project(f) for f in files.values()]
+    sequential = Store(tmp_path / "sequential")
+    build_weather_many(projects, sequential)
+    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None)
+    try:
+        with Client(cluster) as client:
+            store = Store(tmp_path / "cluster")
+            with get_task_stream(client) as stream:
+                got = build_weather_many(projects, store)
+            keys = [str(t["key"]) for t in stream.data]
+            workers = {t["worker"] for t in stream.data if "apply_weights_many" in str(t["key"])}
+            assert any("apply_weights_many" in k for k in keys) and workers  # time chunks ran on the workers
+    finally:
+        cluster.close()
+    for lake in files:
+        assert not isinstance(got[lake], Exception)
+        pd.testing.assert_frame_equal(
+            store.read_table("drivers_daily", lake), sequential.read_table("drivers_daily", lake), check_exact=True
+        )
