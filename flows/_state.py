@@ -31,6 +31,7 @@ __all__ = [
     "fingerprint",
     "plan_stages",
     "read_state",
+    "shared_sources",
     "stage_since",
     "state_path",
     "table_complete",
@@ -56,12 +57,31 @@ INCREMENTAL: dict[str, str] = {"weather": "weather", "target": "scenes", "foreca
 CHECKS_UNDATED: frozenset[str] = frozenset({"scenes"})
 
 
-def _hash_file(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
+#: Per file (absolute path): [size in bytes, modification time in ns, SHA-256] known from the last run.
+FileHashes = dict[str, list[Any]]
+
+
+class _Hasher:
+    """SHA-256 of files, reusing a known hash when a file's size and modification time are unchanged."""
+
+    def __init__(self, known: FileHashes | None) -> None:
+        self.known = known or {}
+        self.seen: FileHashes = {}
+
+    def __call__(self, path: Path) -> str:
+        key = str(Path(path).absolute())
+        st = Path(path).stat()
+        old = self.known.get(key)
+        if isinstance(old, list) and len(old) == 3 and old[:2] == [st.st_size, st.st_mtime_ns]:
+            digest = str(old[2])
+        else:
+            h = hashlib.sha256()
+            with open(path, "rb") as fh:
+                for block in iter(lambda: fh.read(1 << 20), b""):
+                    h.update(block)
+            digest = h.hexdigest()
+        self.seen[key] = [st.st_size, st.st_mtime_ns, digest]
+        return digest
 
 
 def _month(path: Path) -> str:
@@ -79,31 +99,37 @@ def _expand(patterns: Iterable[str], what: str) -> list[Path]:
     return files
 
 
-def _by_month(files: Iterable[Path], base: Path | None = None) -> dict[str, str]:
+def _by_month(files: Iterable[Path], hasher: _Hasher, base: Path | None = None) -> dict[str, str]:
     groups: dict[str, list[tuple[str, str]]] = {}
     for f in files:
         name = str(f.relative_to(base)) if base is not None else f.name
-        groups.setdefault(_month(f), []).append((name, _hash_file(f)))
+        groups.setdefault(_month(f), []).append((name, hasher(f)))
     return {m: hashlib.sha256(json.dumps(sorted(v)).encode()).hexdigest() for m, v in sorted(groups.items())}
 
 
-def fingerprint(project: Project) -> dict[str, dict[str, str]]:
+def fingerprint(
+    project: Project, *, known: FileHashes | None = None, seen: FileHashes | None = None
+) -> dict[str, dict[str, str]]:
     """Content hashes of every input of a lake, by source kind and month.
 
+    ``known``: per file, [size, mtime ns, sha256] from the last run (the ``files`` of the lake's state record):
+    a file whose size and modification time are unchanged is not read again (None: every file is hashed, as
+    ``--verify-hashes`` asks). ``seen`` (filled in): the same record of every file hashed now.
     Raises :class:`SourceError` naming the source when a configured file is missing.
     """
+    hasher = _Hasher(known)
     lake, src = project.lake, project.sources
     config_files = [project.lake_file, project.sources_file, lake.lake.path, lake.aois.path, lake.subbasins.path]
     out: dict[str, dict[str, str]] = {
-        "config": {"all": hashlib.sha256("".join(_hash_file(Path(f)) for f in config_files).encode()).hexdigest()}
+        "config": {"all": hashlib.sha256("".join(hasher(Path(f)) for f in config_files).encode()).hexdigest()}
     }
     if src.weather is not None:
-        out["weather"] = _by_month(_expand(src.weather.paths, "weather"))
+        out["weather"] = _by_month(_expand(src.weather.paths, "weather"), hasher)
     if src.hydrology is not None:
         hyd = [src.hydrology.path] if src.hydrology.path else list(src.hydrology.files.values())
-        out["hydrology"] = _by_month(_expand(hyd, "hydrology"))
+        out["hydrology"] = _by_month(_expand(hyd, "hydrology"), hasher)
     if src.samples:
-        out["samples"] = _by_month(_expand([s.path for s in src.samples], "samples"))
+        out["samples"] = _by_month(_expand([s.path for s in src.samples], "samples"), hasher)
     if src.scenes is not None:
         if src.scenes.catalog:
             cat = _expand([src.scenes.catalog], "scenes catalog")[0]
@@ -112,9 +138,28 @@ def fingerprint(project: Project) -> dict[str, dict[str, str]]:
             base = Path(str(src.scenes.folder))
         if not base.is_dir():
             raise SourceError(f"scenes: folder {base} does not exist; check sources.yaml scenes")
-        out["scenes"] = _by_month((p for p in base.rglob("*") if p.is_file()), base)
+        out["scenes"] = _by_month((p for p in base.rglob("*") if p.is_file()), hasher, base)
     if src.forecast is not None:
-        out["forecast"] = _by_month(_expand(src.forecast.paths, "forecast"))
+        out["forecast"] = _by_month(_expand(src.forecast.paths, "forecast"), hasher)
+    if seen is not None:
+        seen.update(hasher.seen)
+    return out
+
+
+def shared_sources(project: Project) -> dict[str, str]:
+    """Stage -> key of the source files it reads (lakes with equal keys can share one read of them).
+
+    Weather: the time zone of the stamps and the matched grid files (absolute); hydrology: the model output
+    file(s). A stage without such a source has no key.
+    """
+    src = project.sources
+    out: dict[str, str] = {}
+    if src.weather is not None:
+        files = sorted(str(Path(f).absolute()) for f in _expand(src.weather.paths, "weather"))
+        out["weather"] = json.dumps([src.weather.time_zone, *files])
+    if src.hydrology is not None:
+        hyd = [src.hydrology.path] if src.hydrology.path else sorted(src.hydrology.files.values())
+        out["hydrology"] = json.dumps([str(Path(str(f)).absolute()) for f in hyd])
     return out
 
 
@@ -135,7 +180,8 @@ def state_path(store_root: str | Path, lake: str) -> Path:
 
 
 def read_state(store_root: str | Path, lake: str) -> dict[str, Any]:
-    """The last record (``{"sources": {kind: {month: hash}}, "stages": {stage: [tables]}}``), or an empty one."""
+    """The last record (``{"sources": {kind: {month: hash}}, "stages": {stage: [tables]}}``, and ``files``: per
+    file [size, mtime ns, sha256], see :func:`fingerprint`), or an empty one."""
     path = state_path(store_root, lake)
     if not path.exists():
         return {"sources": {}, "stages": {}}

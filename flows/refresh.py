@@ -2,7 +2,8 @@
 
 Takes lake config files or folders of them and a store folder; returns one summary dict per lake and
 stores them in the ``run_summary`` table. Lakes fan out as coarse tasks (one per lake per stage; the
-features stage, whose work lakes share, in tasks of up to 32 lakes) on a Dask cluster: a local one sized to
+weather and features stages, whose reads and work lakes share, in tasks of up to ``lakes_per_task`` lakes
+naming the same sources) on a Dask cluster: a local one sized to
 the machine by default, or an existing one (``dask_address`` argument or ``dask_address:`` in sources.yaml).
 Each lake is isolated: its failure is recorded with the reason, its later stages are not run, and the other
 lakes go on. Only one run writes a store at a time (:func:`lakefeed.store.run_lock`). Must not
@@ -44,9 +45,19 @@ from lakefeed.flows.runtime import (
 from lakefeed.flows.tasks import lakes_task, plan_task, stage_task
 from lakefeed.store import Store, run_lock
 
-__all__ = ["SUMMARY_UNITS", "build_lake", "format_summary", "onboard_lake", "process_lakes", "refresh"]
+__all__ = [
+    "LAKES_PER_TASK",
+    "SUMMARY_UNITS",
+    "build_lake",
+    "format_summary",
+    "onboard_lake",
+    "process_lakes",
+    "refresh",
+]
 
 SUMMARY_UNITS = {"new_rows": "1", "rows_written": "1", "seconds": "s"}
+#: Default of the most lakes in one task of a stage that shares work between lakes (STAGES_MANY).
+LAKES_PER_TASK = 32
 
 
 def _row_counts(store: Store, lake: str) -> dict[str, int]:
@@ -69,18 +80,23 @@ def process_lakes(
     full: bool = False,
     stages: list[str] | None = None,
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
+    verify_hashes: bool = False,
 ) -> list[dict[str, Any]]:
     """Run the stages each lake needs, stage by stage across lakes; one summary dict per lake.
 
     ``lakes`` maps lake id to its config file; ``stages`` limits the stages (default: all that exist);
-    ``allow_shrink``: stages write even when their new rows lose stored dates or values (else they fail).
+    ``allow_shrink``: stages write even when their new rows lose stored dates or values (else they fail);
+    ``lakes_per_task``: most lakes sharing sources run in one task of a stage that computes lakes together
+    (1: every lake in a task of its own); ``verify_hashes``: hash every source file in full (else only the files
+    whose size or modification time changed since the last run).
     """
     logger = get_run_logger()
     order = [s for s in STAGES if stages is None or s in stages]
     store = Store(store_root, staged=True)
     rec = {lake: LakeRecord(lake) for lake in lakes}
     plans: dict[str, dict[str, Any]] = {}
-    futures = {lake: plan_task.submit(lake, lf, store_root, order, full) for lake, lf in lakes.items()}
+    futures = {lake: plan_task.submit(lake, lf, store_root, order, full, verify_hashes) for lake, lf in lakes.items()}
     for lake, fut in futures.items():
         try:
             plans[lake] = fut.result()
@@ -95,7 +111,7 @@ def process_lakes(
         rec[lake].status, rec[lake].skipped = "unchanged", ["no new or changed source months"]
     for stage in order:
         todo = [lake for lake in sorted(alive) if stage in plans[lake]["stages"]]
-        for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans, allow_shrink).items():
+        for lake, outcome in _run_stage(stage, todo, lakes, store_root, plans, allow_shrink, lakes_per_task).items():
             try:
                 result = outcome.result() if not isinstance(outcome, dict) else outcome
             except Exception as err:
@@ -107,16 +123,14 @@ def process_lakes(
             plans[lake]["recorded"][stage] = sorted(result["tables"])
     for lake, plan in plans.items():  # remember what the store now reflects; unfinished stages run next time
         recorded = {s: t for s, t in plan["recorded"].items() if s in rec[lake].stages_run or s not in plan["stages"]}
-        write_json_atomic(state_path(store_root, lake), {"sources": plan["sources"], "stages": recorded})
+        record = {"sources": plan["sources"], "stages": recorded, "files": plan.get("files", {})}
+        write_json_atomic(state_path(store_root, lake), record)
     summaries = []
     for lake, r in rec.items():
         after = _row_counts(store, lake) if lake in before else {}
         new = sum(max(0, n - before.get(lake, {}).get(t, 0)) for t, n in after.items() if t in r.tables)
         summaries.append(r.summary(new))
     return summaries
-
-
-_LAKES_PER_TASK = 32  # lakes of one task of a stage that shares work between lakes (STAGES_MANY)
 
 
 def _run_stage(
@@ -126,14 +140,24 @@ def _run_stage(
     store_root: str,
     plans: dict[str, dict[str, Any]],
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
 ) -> dict[str, Any]:
     """Run a stage for the lakes ``todo``: lake -> its result dict, or a future of one. Stages that share work
-    between lakes run in tasks of up to :data:`_LAKES_PER_TASK` lakes; a lake that failed there is run
-    again alone (a task of its own, with retries), so its error and retries stay its own."""
-    if stage not in STAGES_MANY or len(todo) < 2:
+    between lakes run in tasks of up to ``lakes_per_task`` lakes that read the same sources (the plan's
+    ``share`` key of the stage); a lake that failed there is run again alone (a task of its own, with retries),
+    so its error and retries stay its own."""
+    groups: dict[str, list[str]] = {}
+    for lake in todo:
+        groups.setdefault(plans[lake].get("share", {}).get(stage, ""), []).append(lake)
+    if stage not in STAGES_MANY or lakes_per_task < 2 or all(len(g) < 2 for g in groups.values()):
         return {lake: _one(stage, lake, lakes, store_root, plans, allow_shrink) for lake in todo}
-    batches = [todo[i : i + _LAKES_PER_TASK] for i in range(0, len(todo), _LAKES_PER_TASK)]
-    futures = [lakes_task.submit(stage, {lk: lakes[lk] for lk in b}, store_root, b[0], allow_shrink) for b in batches]
+    n = lakes_per_task
+    batches = [g[i : i + n] for g in groups.values() for i in range(0, len(g), n)]
+    futures = []
+    for b in batches:
+        since = {lk: d for lk in b if (d := plans[lk].get("since", {}).get(stage)) is not None}
+        lake_files = {lk: lakes[lk] for lk in b}
+        futures.append(lakes_task.submit(stage, lake_files, store_root, b[0], allow_shrink, since or None))
     out: dict[str, Any] = {}
     for batch, fut in zip(batches, futures, strict=True):
         try:
@@ -228,6 +252,8 @@ def _run(
     what: str,
     stages: list[str] | None = None,
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
+    verify_hashes: bool = False,
 ) -> list[dict[str, Any]]:
     started = datetime.now(UTC)
     run_id = uuid.uuid4().hex[:12]
@@ -241,7 +267,13 @@ def _run(
     with run_lock(root, wait=wait, what=what), Store(root).publishing(), prefect_api():
         runner = _task_runner(dask_address, sequential, projects)
         summaries = process_lakes.with_options(task_runner=runner)(
-            lakes, root, full=full, stages=stages, allow_shrink=allow_shrink
+            lakes,
+            root,
+            full=full,
+            stages=stages,
+            allow_shrink=allow_shrink,
+            lakes_per_task=lakes_per_task,
+            verify_hashes=verify_hashes,
         )
         summaries += failed
         write_summary(root, [s for s in summaries if s["lake"] in projects], run_id, started)
@@ -258,6 +290,8 @@ def refresh(
     wait: float = 0.0,
     stages: list[str] | None = None,
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
+    verify_hashes: bool = False,
 ) -> list[dict[str, Any]]:
     """Monthly refresh: for every lake in ``configs`` (files or folders), process what is new or changed.
 
@@ -280,6 +314,12 @@ def refresh(
         Let a stage write although its new rows shorten a table's stored date range or turn stored values into
         missing ones (a source file removed on purpose). Without it such a stage refuses (nothing written) and
         the lake fails, with the dates and columns in its error.
+    lakes_per_task
+        Most lakes that read the same sources computed in one task of a stage that shares its reads (weather,
+        features; the sources are read once per task); 1 runs every lake in a task of its own.
+    verify_hashes
+        Hash every source file in full. Otherwise a file whose size and modification time equal the ones recorded
+        with its hash at the last run keeps that hash (it is not read); the others are hashed.
 
     Returns
     -------
@@ -299,6 +339,8 @@ def refresh(
         what="refresh",
         stages=stages,
         allow_shrink=allow_shrink,
+        lakes_per_task=lakes_per_task,
+        verify_hashes=verify_hashes,
     )
 
 
@@ -312,13 +354,15 @@ def build_lake(
     report: bool = True,
     stages: list[str] | None = None,
     allow_shrink: bool = False,
+    lakes_per_task: int = LAKES_PER_TASK,
 ) -> list[dict[str, Any]]:
     """Full build of lakes: validate, backfill the whole record (all stages), write each lake's report.
 
     Geometry (zones, catchment) and exact grid-cell weights are derived by the weather stage and cached
     in the store; the run records its source hashes, so the next :func:`refresh` is incremental.
     Lakes whose checks fail are not built (reported as failed with the problems). ``allow_shrink`` as for
-    :func:`refresh` (a rebuild over a store that holds more than the sources give now).
+    :func:`refresh` (a rebuild over a store that holds more than the sources give now); ``lakes_per_task`` as
+    for :func:`refresh`.
     """
     from lakefeed.checks import check_project
 
@@ -347,6 +391,7 @@ def build_lake(
         what="build",
         stages=stages,
         allow_shrink=allow_shrink,
+        lakes_per_task=lakes_per_task,
     )
     summaries += rejected
     if report:

@@ -45,7 +45,11 @@ STAGES: dict[str, tuple[str, str]] = {
 }
 
 #: Stages with an entry point for many lakes at once (lakes sharing its work; each lake read and written alone).
-STAGES_MANY: dict[str, tuple[str, str]] = {"features": ("lakefeed.stages.features", "build_features_many")}
+STAGES_MANY: dict[str, tuple[str, str]] = {
+    "weather": ("lakefeed.stages.weather_group", "build_weather_many"),
+    "hydrology": ("lakefeed.stages.hydrology_group", "build_hydrology_many"),
+    "features": ("lakefeed.stages.features", "build_features_many"),
+}
 
 StageFn = Callable[..., StageResult]
 
@@ -109,9 +113,12 @@ def run_stage_many(
     *,
     progress: Progress | None = None,
     allow_shrink: bool = False,
+    since: dict[str, str] | None = None,
 ) -> dict[str, StageResult | Exception]:
     """Run a stage of :data:`STAGES_MANY` for many lakes in one call; lake id -> its result, or the
-    exception that stopped that lake (the other lakes go on); ``allow_shrink`` as for :func:`run_stage`."""
+    exception that stopped that lake (the other lakes go on); ``allow_shrink`` as for :func:`run_stage`;
+    ``since``: lake id -> first day of its earliest changed source month, for a stage that takes it (a lake
+    left out is built in full)."""
     from lakefeed.config import load_project
     from lakefeed.store import Store
 
@@ -124,7 +131,9 @@ def run_stage_many(
             projects.append(load_project(lake_file))
         except Exception as err:  # this lake's configuration: reported for it alone
             out[lake] = err
-    extra = {"allow_shrink": True} if allow_shrink else {}
+    extra: dict[str, Any] = {"allow_shrink": True} if allow_shrink else {}
+    if since:
+        extra["since"] = since
     out.update(fn(projects, Store(store_root, staged=True), progress=progress, isolate=True, **extra))
     return {lake: out[lake] for lake in lake_files if lake in out}
 

@@ -20,7 +20,15 @@ from prefect import get_run_logger, task
 from prefect.cache_policies import NO_CACHE
 from prefect.tasks import exponential_backoff
 
-from lakefeed.flows._state import changes, fingerprint, plan_stages, read_state, stage_since, table_complete
+from lakefeed.flows._state import (
+    changes,
+    fingerprint,
+    plan_stages,
+    read_state,
+    shared_sources,
+    stage_since,
+    table_complete,
+)
 from lakefeed.flows.runtime import get_progress, run_stage, run_stage_many
 
 __all__ = ["is_transient", "lakes_task", "plan_task", "stage_task"]
@@ -102,16 +110,22 @@ def stage_task(
 
 @task(name="stage-lakes", task_run_name="{stage}:{first_lake}+", cache_policy=NO_CACHE)
 def lakes_task(
-    stage: str, lakes: dict[str, str], store_root: str, first_lake: str = "", allow_shrink: bool = False
+    stage: str,
+    lakes: dict[str, str],
+    store_root: str,
+    first_lake: str = "",
+    allow_shrink: bool = False,
+    since: dict[str, str] | None = None,
 ) -> dict[str, dict[str, Any]]:
     """Run one stage for several lakes in one call (the stage shares work between them; see
     :data:`lakefeed.flows.runtime.STAGES_MANY`). Lake id -> ``{"result": StageResult as a dict}`` or
     ``{"error": text, "transient": bool}``; the flow reruns the failed lakes one by one (with retries), so
-    a lake's failure stays its own. Not retried itself: its lakes' errors are reported, not raised."""
+    a lake's failure stays its own. Not retried itself: its lakes' errors are reported, not raised. ``since``:
+    lake id -> first day of its earliest changed source month (an incremental stage; absent: in full)."""
     logger = get_run_logger()
     progress = get_progress() or (lambda text, done, total: None)
     with _cluster_client():
-        results = run_stage_many(stage, lakes, store_root, progress=progress, allow_shrink=allow_shrink)
+        results = run_stage_many(stage, lakes, store_root, progress=progress, allow_shrink=allow_shrink, since=since)
     out: dict[str, dict[str, Any]] = {}
     for lake, r in results.items():
         if isinstance(r, Exception):
@@ -132,18 +146,26 @@ def lakes_task(
     retry_condition_fn=_retry_transient,
     cache_policy=NO_CACHE,
 )
-def plan_task(lake: str, lake_file: str, store_root: str, stages: list[str], full: bool = False) -> dict[str, Any]:
+def plan_task(
+    lake: str, lake_file: str, store_root: str, stages: list[str], full: bool = False, verify_hashes: bool = False
+) -> dict[str, Any]:
     """Hash the lake's sources; decide which stages must run (all of them when ``full``) and from which day.
 
-    ``since`` maps an incremental stage to the first day of its earliest changed source month (absent: in full).
+    ``since`` maps an incremental stage to the first day of its earliest changed source month (absent: in full);
+    ``share`` maps a stage to the key of the sources it reads (lakes with the same key share their reads);
+    ``files``: per source file [size, mtime ns, sha256], kept in the state record: the next run hashes only the
+    files whose size or modification time changed, or every file with ``verify_hashes``.
     """
     from lakefeed.config import load_project
     from lakefeed.store import Store
 
     project = load_project(lake_file)
     store = Store(store_root, staged=True)
-    new = fingerprint(project)
-    old = {"sources": {}, "stages": {}} if full else read_state(store_root, lake)
+    state = read_state(store_root, lake)
+    files: dict[str, list[Any]] = {}
+    known = None if verify_hashes or not isinstance(state.get("files"), dict) else state["files"]
+    new = fingerprint(project, known=known, seen=files)
+    old = {"sources": {}, "stages": {}} if full else state
     changed = changes(old.get("sources", {}), new)
     recorded = old.get("stages", {}) if isinstance(old.get("stages"), dict) else {}
     plan = plan_stages(stages, changed, recorded=recorded, has_table=lambda t: table_complete(store, t, lake))
@@ -155,4 +177,14 @@ def plan_task(lake: str, lake_file: str, store_root: str, stages: list[str], ful
         plan or "none",
         "".join(f"; {s} from {d}" for s, d in since.items()),
     )
-    return {"lake": lake, "sources": new, "changed": changed, "stages": plan, "recorded": recorded, "since": since}
+    share = shared_sources(project)
+    return {
+        "lake": lake,
+        "sources": new,
+        "changed": changed,
+        "stages": plan,
+        "recorded": recorded,
+        "since": since,
+        "share": share,
+        "files": files,
+    }

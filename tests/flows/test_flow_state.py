@@ -92,3 +92,40 @@ def test_skill_follows_features_and_forecast() -> None:
     assert plan_stages(order, {"hydrology": ["2022-03"]}, recorded=recorded, has_table=have) == [
         "hydrology", "features", "forecast", "skill",
     ]  # fmt: skip
+
+
+def test_fingerprint_rehashes_only_files_whose_size_or_time_changed(tmp_path: Path) -> None:
+    """A file with its recorded size and modification time keeps its recorded hash (not read again); a touched
+    file and ``--verify-hashes`` (no record) are hashed from their bytes (reference: hashlib.sha256)."""
+    import hashlib
+    import os
+
+    import yaml
+
+    from lakefeed.config import load_project
+    from lakefeed.flows._state import fingerprint
+
+    for name in ("lake.gpkg", "aois.gpkg", "subbasins.gpkg"):
+        (tmp_path / name).write_text(name)
+    (tmp_path / "w").mkdir()
+    for month in ("2022-01", "2022-02"):
+        (tmp_path / "w" / f"grid_{month}.nc").write_bytes(month.encode() * 10)
+    (tmp_path / "sources.yaml").write_text(yaml.safe_dump({"weather": {"paths": [str(tmp_path / "w" / "*.nc")]}}))
+    layers = {k: {"path": f"{k}.gpkg"} for k in ("lake", "aois", "subbasins")}
+    cfg = {"id": "alder", "name": "Alder", "timezone": "UTC", "sources": "sources.yaml", **layers}
+    (tmp_path / "lake-alder.yaml").write_text(yaml.safe_dump(cfg))
+    project = load_project(tmp_path / "lake-alder.yaml")
+    seen: dict = {}
+    first = fingerprint(project, seen=seen)
+    jan, feb = (str((tmp_path / "w" / f"grid_{m}.nc").absolute()) for m in ("2022-01", "2022-02"))
+    assert seen[jan][2] == hashlib.sha256(b"2022-01" * 10).hexdigest()
+    known = {k: [*v[:2], "recorded"] if k in (jan, feb) else v for k, v in seen.items()}
+    again = fingerprint(project, known=known)  # unchanged size and time: the recorded hashes are taken
+    assert again["weather"] != first["weather"] and again["config"] == first["config"]
+    st = os.stat(feb)
+    os.utime(feb, ns=(st.st_atime_ns, st.st_mtime_ns + 10**9))  # February touched: hashed again
+    seen2: dict = {}
+    touched = fingerprint(project, known=known, seen=seen2)
+    assert seen2[jan][2] == "recorded" and seen2[feb][2] == hashlib.sha256(b"2022-02" * 10).hexdigest()
+    assert changes({"weather": again["weather"]}, {"weather": touched["weather"]}) == {"weather": ["2022-02"]}
+    assert fingerprint(project) == first  # verify: every file from its bytes

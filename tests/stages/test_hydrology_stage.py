@@ -21,7 +21,7 @@ from pyproj import Geod
 from shapely.geometry import box
 
 from lakefeed.config import load_project
-from lakefeed.exceptions import GeometryError
+from lakefeed.exceptions import GeometryError, LakefeedError
 from lakefeed.stages.hydrology import build_hydrology, catchment_of
 from lakefeed.store import Store
 
@@ -289,3 +289,32 @@ def test_network_error_names_the_layer_file(scenario: dict, tmp_path: Path) -> N
     with pytest.raises(GeometryError, match=r"basins\.parquet \(config key 'subbasins'.*101 -> 103 -> 102 -> 101"):
         build_hydrology(load_project(root / "cfg" / "lake-wren.yaml"), Store(tmp_path / "store"))
     assert not (tmp_path / "store").exists()
+
+
+def test_hydrology_of_many_lakes_reads_the_output_once_with_one_lake_tables(small_sample, tmp_path, monkeypatch):
+    """Lakes naming one model output: the file is opened once, each lake's tables equal its one-lake run
+    (exact), and a lake whose sub-basin layer is missing fails alone."""
+    from many_lakes_setup import lake_configs
+
+    import lakefeed.sources.hydrology as hydrology
+    from lakefeed.stages.hydrology_group import build_hydrology_many
+
+    files = lake_configs(small_sample, tmp_path, {"tallow": (0, 0, "Europe/Berlin"), "east": (14_000, -7_000, "UTC")})
+    broken = lake_configs(small_sample, tmp_path / "b", {"nolayer": (0, 0, "UTC")})["nolayer"]
+    (tmp_path / "b" / "geometry" / "nolayer" / "subbasins.gpkg").unlink()
+    opened: list[str] = []
+    real = hydrology._read_dsg
+    monkeypatch.setattr(hydrology, "_read_dsg", lambda path, *a: opened.append(str(path)) or real(path, *a))
+    projects = [load_project(f) for f in files.values()] + [load_project(broken)]
+    store = Store(tmp_path / "group")
+    got = build_hydrology_many(projects, store)
+    assert len(opened) == 1
+    assert isinstance(got["nolayer"], LakefeedError) and "subbasins.gpkg" in str(got["nolayer"])
+    assert not store.has_table("hydrology_daily", "nolayer")
+    for lake, f in files.items():
+        alone = Store(tmp_path / f"alone-{lake}")
+        assert build_hydrology(load_project(f), alone) == got[lake]
+        for table in ("hydrology_daily", "load_estimates"):
+            pd.testing.assert_frame_equal(
+                store.read_table(table, lake), alone.read_table(table, lake), check_exact=True
+            )

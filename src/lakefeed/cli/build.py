@@ -24,6 +24,9 @@ def build_command(
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
     report: bool = typer.Option(True, "--report/--no-report", help="Write each lake's quality report."),
     allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
+    lakes_per_task: int = typer.Option(
+        32, "--lakes-per-task", min=1, help="Most lakes naming the same sources computed in one task (1: each alone)."
+    ),
 ) -> None:
     """Full build: validate, derive geometry and weights, backfill the whole record, write the reports."""
     from lakefeed.flows.refresh import build_lake
@@ -37,4 +40,5 @@ def build_command(
         wait=wait,
         report=report,
         allow_shrink=allow_shrink,
+        lakes_per_task=lakes_per_task,
     )

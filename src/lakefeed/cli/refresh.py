@@ -23,6 +23,12 @@ def refresh_command(
     sequential: bool = typer.Option(False, "--sequential", help="No Dask: lakes one after the other here."),
     wait: float = typer.Option(0.0, "--wait", help="Seconds to wait if another run holds the store."),
     allow_shrink: bool = typer.Option(False, "--allow-shrink", help=SHRINK_HELP),
+    lakes_per_task: int = typer.Option(
+        32, "--lakes-per-task", min=1, help="Most lakes naming the same sources computed in one task (1: each alone)."
+    ),
+    verify_hashes: bool = typer.Option(
+        False, "--verify-hashes", help="Hash every source file in full, not only those whose size or time changed."
+    ),
 ) -> None:
     """Process only new or changed source months of every lake; one lake's failure never stops the others."""
     from lakefeed.flows.refresh import refresh
@@ -35,4 +41,6 @@ def refresh_command(
         dask_address=dask_address,
         wait=wait,
         allow_shrink=allow_shrink,
+        lakes_per_task=lakes_per_task,
+        verify_hashes=verify_hashes,
     )

@@ -19,7 +19,8 @@ Must not: compute dask arrays (everything stays lazy until the caller asks), ope
 
 from __future__ import annotations
 
-from collections.abc import Hashable, Sequence
+from collections.abc import Callable, Hashable, Sequence
+from typing import Any
 
 import dask.array as da
 import numpy as np
@@ -29,15 +30,28 @@ import xarray as xr
 from lakefeed.exceptions import ExtractError
 from lakefeed.geometry.weights import ZoneWeights
 
-__all__ = ["PACKING_ATTRS", "apply_weights", "packing_of", "zonal_mean", "zonal_means"]
+__all__ = [
+    "PACKING_ATTRS",
+    "apply_weights",
+    "grid_dims",
+    "packing_of",
+    "prepare_weights",
+    "weigh_blocks",
+    "zonal_dataset",
+    "zonal_mean",
+    "zonal_means",
+]
 
 
 #: Above this many (cells x zones) entries the weights are applied as a sparse matrix, else dense BLAS.
 DENSE_LIMIT = 4_000_000
 
 
-def _prepare(weights_t: sp.csr_matrix) -> tuple[np.ndarray, np.ndarray | sp.csr_matrix, np.ndarray]:
-    """Weighted cell indices, their (cells x zones) weights (dense when small) and zone totals."""
+def prepare_weights(weights_t: sp.csr_matrix) -> tuple[np.ndarray, np.ndarray | sp.csr_matrix, np.ndarray]:
+    """Weighted cell indices, their (cells x zones) weights (dense when small) and zone totals (m2).
+
+    ``weights_t``: sparse (cells x zones) weights, cells numbered row-major in the window read.
+    """
     w = sp.csr_matrix(weights_t)
     cols = np.flatnonzero(np.diff(w.indptr))
     sub = w[cols]
@@ -83,7 +97,7 @@ def apply_weights(
     -------
     ndarray (n_time, 2 * n_zones): means in the block's (decoded) units, then valid fractions (0..1).
     """
-    cols, w, total = weights_t if isinstance(weights_t, tuple) else _prepare(weights_t)
+    cols, w, total = weights_t if isinstance(weights_t, tuple) else prepare_weights(weights_t)
     nt = block.shape[0]
     x = np.asarray(block).reshape(nt, -1)[:, cols]  # a copy (fancy indexing): changed in place below
     bad = None
@@ -119,11 +133,17 @@ def apply_weights(
     return np.concatenate([mean, frac] if ext is None else [mean, frac, ext], axis=1)
 
 
-def _dims(data: xr.DataArray, time_dim: str) -> tuple[str, str]:
+def grid_dims(data: xr.DataArray, shape: tuple[int, int], *, time_dim: str = "time") -> tuple[str, str]:
+    """The (lat, lon) dim names of a (time, lat, lon) array whose grid must have ``shape`` (the weights' grid)."""
     if data.ndim != 3 or data.dims[0] != time_dim:
         raise ExtractError(
             f"variable {data.name!r}: expected dims ({time_dim}, lat, lon), got {data.dims}; "
             "open it with lakefeed.sources.grids.open_grid"
+        )
+    if tuple(data.shape[1:]) != tuple(shape):
+        raise ExtractError(
+            f"variable {data.name!r}: grid shape {data.shape[1:]} differs from the weights' grid {shape}; "
+            "rebuild the weights for this grid"
         )
     return str(data.dims[1]), str(data.dims[2])
 
@@ -148,42 +168,53 @@ def zonal_mean(
     xarray.Dataset with ``mean`` (data units) and ``valid_fraction`` (1), dims (time, zone).
     Lazy when ``data`` is dask-backed.
     """
-    ydim, xdim = _dims(data, time_dim)
-    if tuple(data.shape[1:]) != tuple(weights.shape):
-        raise ExtractError(
-            f"variable {data.name!r}: grid shape {data.shape[1:]} differs from the weights' grid {weights.shape}; "
-            "rebuild the weights for this grid"
-        )
+    ydim, xdim = grid_dims(data, weights.shape, time_dim=time_dim)
     window = weights.cell_window()
     sub = data.isel({ydim: window[0], xdim: window[1]})
-    wt = _prepare(weights.restrict(window).T.tocsr())
+    wt = prepare_weights(weights.restrict(window).T.tocsr())
     nz = len(weights.zones)
     ncol = 2 * nz + (2 if extremes else 0)
     packing = packing_of(data.attrs)
     attrs = {k: v for k, v in data.attrs.items() if k not in PACKING_ATTRS}
-    arr = sub.data
-    if isinstance(arr, da.Array):
-        arr = arr.rechunk({1: -1, 2: -1})
-        out = da.map_blocks(
-            apply_weights,
-            arr,
-            wt,
-            packing,
-            extremes,
-            drop_axis=[1, 2],
-            new_axis=[1],
-            chunks=(arr.chunks[0], (ncol,)),
-            dtype=np.float64,
-            meta=np.empty((0, 0), dtype=np.float64),
-        )
-    else:
-        out = apply_weights(np.asarray(arr), wt, packing, extremes)
-    coords = {time_dim: data[time_dim], "zone": list(weights.zones)}
+    out = weigh_blocks(apply_weights, sub.data, wt, packing, extremes, ncol=ncol)
+    return zonal_dataset(out, weights.zones, data[time_dim], attrs=attrs, extremes=extremes)
+
+
+def weigh_blocks(func: Callable[..., np.ndarray], arr: np.ndarray | da.Array, *args: Any, ncol: int) -> Any:
+    """``func(block, *args)`` on each time chunk of a (time, lat, lon) array: (time, ``ncol``), lazy for dask input.
+
+    ``func`` is :func:`apply_weights` or a function like it (one row of ``ncol`` columns per time step).
+    """
+    if not isinstance(arr, da.Array):
+        return func(np.asarray(arr), *args)
+    arr = arr.rechunk({1: -1, 2: -1})
+    return da.map_blocks(
+        func,
+        arr,
+        *args,
+        drop_axis=[1, 2],
+        new_axis=[1],
+        chunks=(arr.chunks[0], (ncol,)),
+        dtype=np.float64,
+        meta=np.empty((0, 0), dtype=np.float64),
+    )
+
+
+def zonal_dataset(
+    out: np.ndarray | da.Array, zones: Sequence[str], time: xr.DataArray, *, attrs: dict, extremes: bool = False
+) -> xr.Dataset:
+    """The Dataset of :func:`zonal_mean` from the columns :func:`apply_weights` gives (means, fractions[, extremes]).
+
+    ``attrs``: the data's attributes without packing (units of ``mean`` and the extremes).
+    """
+    nz = len(zones)
+    time_dim = str(time.dims[0])
+    coords = {time_dim: time, "zone": list(zones)}
     mean = xr.DataArray(out[:, :nz], dims=(time_dim, "zone"), coords=coords, attrs=attrs)
     frac = xr.DataArray(out[:, nz : 2 * nz], dims=(time_dim, "zone"), coords=coords, attrs={"units": "1"})
     res = xr.Dataset({"mean": mean, "valid_fraction": frac})
     if extremes:
-        tc = {time_dim: data[time_dim]}
+        tc = {time_dim: time}
         res["cell_min"] = xr.DataArray(out[:, 2 * nz], dims=(time_dim,), coords=tc, attrs=attrs)
         res["cell_max"] = xr.DataArray(out[:, 2 * nz + 1], dims=(time_dim,), coords=tc, attrs=attrs)
     return res

@@ -8,12 +8,15 @@ canonical unit (discharge m3 s-1, concentrations mg L-1). Units come from the fi
 ``units`` attribute (NetCDF) or the source config's ``units`` (CSV, long tables without a unit
 column); conversion goes through :mod:`lakefeed.units`. Molar concentrations (``mmol m-3``)
 of total nitrogen and phosphorus use the molar mass of N (14.007 g mol-1) and P
-(30.974 g mol-1). Must not compute loads.
+(30.974 g mol-1). Inside :func:`shared_reads` (the hydrology stage for many lakes) each model output
+is read from disk once for every lake that names it; each lake still selects, checks and converts its
+own sub-basins. Must not compute loads.
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+import contextlib
+from collections.abc import Iterable, Iterator
 from pathlib import Path
 
 import numpy as np
@@ -25,7 +28,25 @@ from lakefeed.exceptions import SourceError
 from lakefeed.sources.locations import readable_path
 from lakefeed.units import CANONICAL, convert, parse_unit
 
-__all__ = ["MOLAR_MASS_G_PER_MOL", "STANDARD_NAMES", "read_hydrology", "to_canonical_unit"]
+__all__ = ["MOLAR_MASS_G_PER_MOL", "STANDARD_NAMES", "read_hydrology", "shared_reads", "to_canonical_unit"]
+
+#: Raw reads kept by the innermost :func:`shared_reads` block: (source config, roles) -> what the file held.
+_SHARED: list[dict[tuple[str, tuple[str, ...]], dict[str, tuple[pd.DataFrame, str | None]]]] = []
+
+
+@contextlib.contextmanager
+def shared_reads() -> Iterator[None]:
+    """Within this block :func:`read_hydrology` reads each model output (same source config, same roles) once.
+
+    The raw values of the file are kept until the block ends (memory: one copy of each output read); every
+    call still selects, checks and converts the sub-basins it asks for, so it returns what it would alone.
+    """
+    _SHARED.append({})
+    try:
+        yield
+    finally:
+        _SHARED.pop()
+
 
 #: Molar mass (g mol-1) of the element a concentration role is expressed as (IUPAC standard atomic weights).
 MOLAR_MASS_G_PER_MOL: dict[str, float] = {"tn": 14.007, "tp": 30.974, "no3": 14.007, "nh4": 14.007, "po4": 30.974}
@@ -183,6 +204,26 @@ def _read_long(
     return out
 
 
+def _read_raw(source: HydrologySource, roles: list[str]) -> dict[str, tuple[pd.DataFrame, str | None]]:
+    """Each role's frame as the file holds it (dates, sub-basin columns) and its unit."""
+    if source.format == "dsg":
+        path = readable_path(source.path or "", what="hydrology output")
+        if not path.exists():
+            raise SourceError(f"hydrology output: file not found: {path}; check sources.yaml hydrology.path")
+        raw = _read_dsg(path, roles, source)
+    elif source.format == "long":
+        raw = _read_long(source.path or "", roles, source)
+    else:
+        raw = {}
+        for role in roles:
+            if role not in source.files:
+                raise SourceError(
+                    f"hydrology output: no wide CSV for {role!r}; add it under sources.yaml hydrology.files.{role}"
+                )
+            raw[role] = _read_wide(source.files[role], role, source)
+    return raw
+
+
 def read_hydrology(
     source: HydrologySource, *, roles: Iterable[str] | None = None, subbasin_ids: Iterable[str] | None = None
 ) -> dict[str, pd.DataFrame]:
@@ -209,21 +250,13 @@ def read_hydrology(
         duplicate dates, or a requested sub-basin id absent from the output.
     """
     roles = list(roles) if roles is not None else ["discharge", *source.nutrients]
-    if source.format == "dsg":
-        path = readable_path(source.path or "", what="hydrology output")
-        if not path.exists():
-            raise SourceError(f"hydrology output: file not found: {path}; check sources.yaml hydrology.path")
-        raw = _read_dsg(path, roles, source)
-    elif source.format == "long":
-        raw = _read_long(source.path or "", roles, source)
-    else:
-        raw = {}
-        for role in roles:
-            if role not in source.files:
-                raise SourceError(
-                    f"hydrology output: no wide CSV for {role!r}; add it under sources.yaml hydrology.files.{role}"
-                )
-            raw[role] = _read_wide(source.files[role], role, source)
+    cache = _SHARED[-1] if _SHARED else None
+    key = (source.model_dump_json(), tuple(roles))
+    raw = cache.get(key) if cache is not None else None
+    if raw is None:
+        raw = _read_raw(source, roles)
+        if cache is not None:
+            cache[key] = raw
     out: dict[str, pd.DataFrame] = {}
     for role, (frame, unit) in raw.items():
         where = str(source.files.get(role, source.path))

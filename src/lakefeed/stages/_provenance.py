@@ -5,7 +5,9 @@ Takes paths of the files a stage read and a :class:`~lakefeed.config.Project`; r
 the ``config_hash`` (SHA-256 of the lake and sources YAML bytes) that
 :meth:`lakefeed.store.Store.write_table` records in the manifest (docs/architecture.md, "Store tables": the
 manifest holds input content hashes and the config hash). A directory (a Zarr store) hashes as the sorted list of its
-files' relative paths and hashes. Must not: hash anything but file content (no size or mtime).
+files' relative paths and hashes. A file version already hashed in this process (same path, inode, size
+and modification time, as the store does for its parts) is not read again: lakes computed together in one
+process that name the same weather files hash them once. Must not: record anything but content hashes.
 """
 
 from __future__ import annotations
@@ -21,15 +23,30 @@ if TYPE_CHECKING:
 
 __all__ = ["config_hash", "input_hashes", "layer_paths"]
 
+#: (path, inode, size, mtime ns) -> SHA-256 of the files hashed in this process (bounded).
+_HASHED: dict[tuple[str, int, int, int], str] = {}
+_HASHED_MAX = 100_000
 
-def _digest(path: Path) -> str:
+
+def _file_hash(path: Path) -> str:
     from lakefeed.store import file_digest
 
+    st = path.stat()
+    key = (str(path), st.st_ino, st.st_size, st.st_mtime_ns)
+    found = _HASHED.get(key)
+    if found is None:
+        if len(_HASHED) >= _HASHED_MAX:
+            _HASHED.clear()
+        found = _HASHED[key] = file_digest(path)
+    return found
+
+
+def _digest(path: Path) -> str:
     if not path.is_dir():
-        return file_digest(path)
+        return _file_hash(path)
     h = hashlib.sha256()
     for f in sorted(p for p in path.rglob("*") if p.is_file()):
-        h.update(f"{f.relative_to(path).as_posix()}\0{file_digest(f)}\n".encode())
+        h.update(f"{f.relative_to(path).as_posix()}\0{_file_hash(f)}\n".encode())
     return h.hexdigest()
 
 

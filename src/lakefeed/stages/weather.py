@@ -22,10 +22,11 @@ from __future__ import annotations
 
 import hashlib
 import os
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
 from datetime import date
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import dask
 import numpy as np
@@ -38,7 +39,7 @@ from lakefeed.extract.meteo import wind_speed
 from lakefeed.extract.step_units import to_mm_per_step, to_watts
 from lakefeed.extract.zonal import zonal_mean
 from lakefeed.geometry.weights import ZoneWeights, zone_hash, zone_weights
-from lakefeed.progress import Progress, no_progress
+from lakefeed.progress import Progress
 from lakefeed.sources.grid_rules import time_gaps
 from lakefeed.sources.grids import Grid, decode, open_grid, select_roles
 from lakefeed.stages._pool import (
@@ -49,7 +50,6 @@ from lakefeed.stages._pool import (
 )
 from lakefeed.stages._result import StageResult
 from lakefeed.stages._values import check_values
-from lakefeed.stages.refresh_plan import RefreshPlan
 
 if TYPE_CHECKING:  # heavy imports (geopandas, pint, pydantic, pyarrow) are deferred to keep start-up short
     import geopandas as gpd
@@ -102,28 +102,38 @@ def get_weights(
     return w, False
 
 
-def hourly_drivers(
+@dataclass(frozen=True)
+class DriverFields:
+    """The lazy per-cell fields of :func:`hourly_drivers` before zonal averaging (from :func:`driver_fields`).
+
+    ``var``: the grid variable of each role (packed values left packed); ``fields``: output name -> lazy
+    (time, lat, lon) field in the file's units; ``deacc``: the de-accumulated amounts; ``to_canonical``:
+    output name -> conversion of zonal values to canonical units; ``step_s``: time step in s.
+    """
+
+    var: dict[str, xr.DataArray]
+    fields: dict[str, xr.DataArray]
+    deacc: dict[str, Deaccumulated]
+    to_canonical: dict[str, Callable[[Any], Any]]
+    step_s: float
+
+    def checks(self) -> dict[str, tuple[xr.DataArray, xr.DataArray]]:
+        """Lazy (bad steps, clipped count) of each de-accumulated amount, to compute with the zonal means."""
+        return {k: (d.bad_steps, d.n_clipped) for k, d in self.deacc.items()}
+
+    def clipped(self, checks: Mapping[str, tuple[Any, Any]]) -> dict[str, int]:
+        """Raise on a contradicted accumulation kind; else the clipped count per amount (computed ``checks``)."""
+        return {k: self.deacc[k].check(bad_steps=b, n_clipped=n) for k, (b, n) in checks.items()}
+
+
+def driver_fields(
     grid: Grid,
-    weights: ZoneWeights,
     *,
     source: WeatherSource | None = None,
     accumulation: Mapping[str, Accumulation] | None = None,
-    progress: Progress | None = None,
     section: str = "weather",
-    value_rules: bool = True,
-) -> tuple[xr.Dataset, dict[str, int]]:
-    """Per-step zonal drivers in canonical units, computed in one pass (returns (dataset, clipped counts)).
-
-    Dataset dims (time, zone): ``air_temperature``, ``dewpoint`` (degC), ``wind_speed`` (m s-1, mean
-    of cell speeds), ``precipitation`` (mm per step), ``shortwave_radiation`` (W m-2, step mean),
-    ``valid_fraction`` (lowest of the variables; fraction of the whole zone).
-
-    Every file's units are checked and its values converted from its own unit
-    (:func:`~lakefeed.sources.grids.select_roles`; ``section`` names the config section in messages).
-    With ``value_rules`` the converted values of the weighed cells must lie within physical bounds and
-    every variable must hold values in every file (:mod:`lakefeed.sources.grid_rules`): read in the
-    same pass, a :class:`~lakefeed.exceptions.SourceError` naming file, time and cell otherwise.
-    """
+) -> DriverFields:
+    """The lazy fields :func:`hourly_drivers` averages over zones (nothing is read)."""
     from lakefeed.config.sources import Accumulation, WeatherSource
     from lakefeed.units import convert
 
@@ -149,11 +159,6 @@ def hourly_drivers(
         "precipitation": deacc["precipitation"].increments,
         "shortwave_radiation": deacc["shortwave_radiation"].increments,
     }
-    zonal = {k: zonal_mean(v, weights, extremes=True) for k, v in fields.items()}
-    checks = {k: (d.bad_steps, d.n_clipped) for k, d in deacc.items()}
-    with local_compute(progress, "weather: reading grid"):
-        zonal, checks = dask.compute(zonal, checks, scheduler=local_scheduler())
-    clipped = {k: deacc[k].check(bad_steps=b, n_clipped=n) for k, (b, n) in checks.items()}
     to_canonical = {
         "air_temperature": lambda x: convert(x, var["air_temperature"].attrs["units"], "degC"),
         "dewpoint": lambda x: convert(x, var["dewpoint_temperature"].attrs["units"], "degC"),
@@ -161,22 +166,71 @@ def hourly_drivers(
         "precipitation": lambda x: to_mm_per_step(x, var["precipitation"].attrs["units"], step_s),
         "shortwave_radiation": lambda x: to_watts(x, var["shortwave_radiation"].attrs["units"], step_s),
     }
+    return DriverFields(var, fields, deacc, to_canonical, step_s)
+
+
+def lake_drivers(
+    grid: Grid,
+    weights: ZoneWeights,
+    fields: DriverFields,
+    zonal: Mapping[str, xr.Dataset],
+    *,
+    section: str = "weather",
+    value_rules: bool = True,
+) -> xr.Dataset:
+    """The drivers of :func:`hourly_drivers` from the computed zonal means (``zonal``: field -> Dataset)."""
     names = {"dewpoint": "dewpoint_temperature", "wind_speed": "eastward_wind"}
+    conv, var = fields.to_canonical, fields.var
     if value_rules:
         check_values(
             grid,
             weights,
-            {k: (fields[k], zonal[k], to_canonical[k], var[names.get(k, k)].attrs["source_name"]) for k in fields},
-            step_hours=step_s / 3600.0,
+            {k: (f, zonal[k], conv[k], var[names.get(k, k)].attrs["source_name"]) for k, f in fields.fields.items()},
+            step_hours=fields.step_s / 3600.0,
             section=section,
         )
-    out = xr.Dataset({k: to_canonical[k](zonal[k]["mean"]) for k in fields})
+    out = xr.Dataset({k: conv[k](zonal[k]["mean"]) for k in fields.fields})
     vf = xr.concat([z["valid_fraction"] for z in zonal.values()], dim="v").min("v")
     cov = xr.DataArray(weights.grid_coverage, dims="zone", coords={"zone": list(weights.zones)})
     out["valid_fraction"] = vf * cov
     for k in out.data_vars:
         out[k].attrs = {}
-    return out, clipped
+    return out
+
+
+def compute_zonal(objs: Any, *, progress: Progress | None = None, what: str = "weather: reading grid") -> Any:
+    """``dask.compute`` of lazy zonal results with the local scheduler, one BLAS thread, progress reported."""
+    with local_compute(progress, what):
+        return dask.compute(*objs, scheduler=local_scheduler())
+
+
+def hourly_drivers(
+    grid: Grid,
+    weights: ZoneWeights,
+    *,
+    source: WeatherSource | None = None,
+    accumulation: Mapping[str, Accumulation] | None = None,
+    progress: Progress | None = None,
+    section: str = "weather",
+    value_rules: bool = True,
+) -> tuple[xr.Dataset, dict[str, int]]:
+    """Per-step zonal drivers in canonical units, computed in one pass (returns (dataset, clipped counts)).
+
+    Dataset dims (time, zone): ``air_temperature``, ``dewpoint`` (degC), ``wind_speed`` (m s-1, mean
+    of cell speeds), ``precipitation`` (mm per step), ``shortwave_radiation`` (W m-2, step mean),
+    ``valid_fraction`` (lowest of the variables; fraction of the whole zone).
+
+    Every file's units are checked and its values converted from its own unit
+    (:func:`~lakefeed.sources.grids.select_roles`; ``section`` names the config section in messages).
+    With ``value_rules`` the converted values of the weighed cells must lie within physical bounds and
+    every variable must hold values in every file (:mod:`lakefeed.sources.grid_rules`): read in the
+    same pass, a :class:`~lakefeed.exceptions.SourceError` naming file, time and cell otherwise.
+    """
+    f = driver_fields(grid, source=source, accumulation=accumulation, section=section)
+    zonal = {k: zonal_mean(v, weights, extremes=True) for k, v in f.fields.items()}
+    zonal, checks = compute_zonal((zonal, f.checks()), progress=progress)
+    clipped = f.clipped(checks)
+    return lake_drivers(grid, weights, f, zonal, section=section, value_rules=value_rules), clipped
 
 
 def zonal_long(
@@ -286,15 +340,8 @@ def build_weather(
     >>> build_weather(load_project("config/lake-tallow.yaml"), Store("store"))  # doctest: +SKIP
     StageResult(stage='weather', lake='tallow', tables={'drivers_daily': 1098}, ...)
     """
-    from lakefeed.extract.daily import DAILY_COLUMNS, DAILY_UNITS, to_daily
-    from lakefeed.geometry.zones import build_zones, zone_latitudes
-    from lakefeed.sources.vectors import read_layer
-    from lakefeed.stages._guard import refuse_shrink
-    from lakefeed.stages._map import record_cells
-    from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
-    from lakefeed.stages._weather_refresh import KEYS, read_window, refresh_plan, tail_day, write_drivers
+    from lakefeed.stages.weather_lake import finish_weather, prepare_weather
 
-    p = progress or no_progress
     lake = project.lake
     src = project.sources.weather
     if src is None:
@@ -303,80 +350,6 @@ def build_weather(
     # replace its stored rows with missing ones
     grid = open_grid(src.paths, time_zone=src.time_zone, on_error="raise", format=src.format)
     warn = time_gaps(grid.dataset["time"].values, grid.parts)
-    p("weather: zones", 0, 3)
-    lake_g = read_layer(lake.lake, what="lake polygon")
-    aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
-    subs = None
-    if lake.zones.catchment or lake.zones.subbasins:
-        subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
-    layers = [lake.lake, lake.aois if aois is not None else None, lake.subbasins if subs is not None else None]
-    zones = build_zones(
-        lake_g,
-        aois=aois,
-        aoi_id_field=lake.aois.id_field,
-        subbasins=subs,
-        subbasin_layer=lake.subbasins,
-        options=lake.zones,
-        crs=grid.crs,
-    )
-    p("weather: weights", 1, 3)
-    weights, _ = get_weights(
-        zones,
-        grid,
-        cache_dir=Path(store.root) / "_cache" / "weights",
-        allow_partial_coverage=lake.zones.allow_partial_coverage,
-    )
-    record_cells(store, lake.id, weights, grid.lat, grid.lon)
-    p("weather: weights", 2, 3)
-    inputs = input_hashes([*grid.files, *layer_paths(*layers)])
-    cfg = config_hash(project)
-    plan = RefreshPlan.full()
-    if since is not None:
-        plan = refresh_plan(
-            store.entry("drivers_daily", lake.id),
-            since=since,
-            grid=grid,
-            inputs=inputs,
-            config_hash=cfg,
-            columns=list(DAILY_COLUMNS),
-            signature=weights.signature,
-            tz=lake.timezone,
-            source_tz=src.time_zone,
-        )
-    start, how = plan.day, plan.summary()
-    window = read_window(grid, start, lake.timezone) if start is not None else grid
-    hourly, clipped = hourly_drivers(window, weights, source=src, progress=progress)
-    warn += [f"{k}: {n} value(s) of packing noise clipped to zero" for k, n in clipped.items() if n]
-    flags = {z: weights.flags(z) for z in weights.zones}
-    # the lake surface's elevation for every zone (FAO-56 Eq. 37); a catchment zone may lie higher
-    elevation = 0.0 if lake.elevation_m is None else float(lake.elevation_m)
-    daily = to_daily(hourly, tz=lake.timezone, latitude=zone_latitudes(zones), elevation_m=elevation, zone_flags=flags)
-    daily["date"] = daily["date"].dt.date
-    if start is not None:
-        daily = daily[daily["date"] >= start].reset_index(drop=True)
-    warn += refuse_shrink(
-        store,
-        "drivers_daily",
-        lake.id,
-        daily,
-        keys=KEYS,
-        time_column="date",
-        since=start,
-        groups=["zone"],
-        complete=True,
-        allow_shrink=allow_shrink,
-        why=how,
-    )
-    write_drivers(
-        store,
-        lake.id,
-        daily,
-        start=start,
-        tail=tail_day(grid, lake.timezone),
-        units=DAILY_UNITS,
-        metadata={"grid_signature": weights.signature, "files": str(len(grid.files))},
-        inputs=inputs,
-        config_hash=cfg,
-    )
-    p("weather: done", 3, 3)
-    return StageResult("weather", lake.id, tables={"drivers_daily": len(daily)}, warnings=warn, reason=how)
+    job = prepare_weather(project, store, grid, since=since, progress=progress, warnings=warn)
+    hourly, clipped = hourly_drivers(job.window, job.weights, source=src, progress=progress)
+    return finish_weather(job, hourly, clipped, store, allow_shrink=allow_shrink, progress=progress)
