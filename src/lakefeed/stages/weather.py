@@ -20,12 +20,9 @@ Must not: hold science.
 
 from __future__ import annotations
 
-import hashlib
-import os
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import date
-from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import dask
@@ -38,7 +35,7 @@ from lakefeed.extract.accumulation import Deaccumulated, deaccumulate, step_of
 from lakefeed.extract.meteo import wind_speed
 from lakefeed.extract.step_units import to_mm_per_step, to_watts
 from lakefeed.extract.zonal import zonal_mean
-from lakefeed.geometry.weights import ZoneWeights, zone_hash, zone_weights
+from lakefeed.geometry.weights import ZoneWeights
 from lakefeed.progress import Progress
 from lakefeed.sources.grid_rules import time_gaps
 from lakefeed.sources.grids import Grid, decode, open_grid, select_roles
@@ -50,10 +47,9 @@ from lakefeed.stages._pool import (
 )
 from lakefeed.stages._result import StageResult
 from lakefeed.stages._values import check_values
+from lakefeed.stages.weights_cache import get_weights
 
 if TYPE_CHECKING:  # heavy imports (geopandas, pint, pydantic, pyarrow) are deferred to keep start-up short
-    import geopandas as gpd
-
     from lakefeed.config import Project
     from lakefeed.config.sources import Accumulation, WeatherSource
     from lakefeed.store import Store
@@ -74,32 +70,6 @@ _AMOUNT_NAMES = {
     "precipitation_amount",
 }
 #: Density of liquid water for precipitation mass -> depth, kg m-3 (common practice).
-
-
-def get_weights(
-    zones: gpd.GeoDataFrame, grid: Grid, *, cache_dir: str | Path | None = None, allow_partial_coverage: bool = False
-) -> tuple[ZoneWeights, bool]:
-    """Exact zone weights for ``grid``, from ``cache_dir`` when cached (returns (weights, was_cached)).
-
-    ``zones``: GeoDataFrame with ``zone`` and geometry in the grid's CRS.
-    """
-    geoms = {str(z): g for z, g in zip(zones["zone"], zones.geometry.values, strict=True)}
-    key = hashlib.sha256(
-        "|".join(
-            [grid.signature, str(allow_partial_coverage), *(f"{z}={zone_hash(g)}" for z, g in geoms.items())]
-        ).encode()
-    ).hexdigest()[:24]
-    path = Path(cache_dir) / f"{grid.signature}-{key}.npz" if cache_dir else None
-    if path is not None and path.exists():
-        with np.load(path, allow_pickle=False) as npz:
-            return ZoneWeights.from_arrays(dict(npz)), True
-    w = zone_weights(geoms, grid.lat, grid.lon, allow_partial_coverage=allow_partial_coverage, crs=grid.crs)
-    if path is not None:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_suffix(f".tmp{os.getpid()}.npz")
-        np.savez(tmp, **w.to_arrays())
-        tmp.replace(path)
-    return w, False
 
 
 @dataclass(frozen=True)

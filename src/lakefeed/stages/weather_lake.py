@@ -73,7 +73,7 @@ def prepare_weather(
     from lakefeed.stages._map import record_cells
     from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
     from lakefeed.stages._weather_refresh import read_window, refresh_plan
-    from lakefeed.stages.weather import get_weights
+    from lakefeed.stages.weights_cache import get_weights
 
     p = progress or no_progress
     lake = project.lake
