@@ -156,6 +156,12 @@ def test_station_column_keeps_this_stations_rows(tmp_path: Path) -> None:
         read_samples(p, SampleSheet(columns={"station": "site"}))
     with pytest.raises(SourceError, match=r"holds stations \['A1', 'B2'\], not 'C3'"):
         read_samples(p, SampleSheet(columns={"station": "site"}), station="C3")
+    # the same sheet with its station column not mapped: refused, never two stations mixed into one series
+    with pytest.raises(SourceError, match=r"column 'site' looks like a station column and holds \['A1', 'B2'\]"):
+        read_samples(p)
+    one = write(tmp_path / "one.csv", "date,Site ID,tp\n2023-01-02,A1,0.1\n2023-01-09,A1,0.3\n")
+    one_station = read_samples(one, SampleSheet(columns={"tp": "tp"}))  # one station: nothing to mix
+    assert one_station["concentration"].tolist() == [0.1, 0.3]
 
 
 @pytest.mark.parametrize(

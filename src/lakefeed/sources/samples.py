@@ -50,6 +50,26 @@ def _censored(values: pd.Series, where: str) -> pd.Series:
     return text.isin(_TRUE)
 
 
+#: headers (lower case, spaces as _) that name a sampling station when not mapped as ``station``
+_STATION_LIKE = frozenset(
+    {
+        "site",
+        "site_id",
+        "site_code",
+        "station_id",
+        "station_code",
+        "stn",
+        "location",
+        "location_id",
+        "sampling_point",
+        "sampling_site",
+        "sample_point",
+        "monitoring_site",
+        "point_id",
+    }
+)
+
+
 def _one_station(
     frame: pd.DataFrame, column: str | None, *, code: str | None, hint: str | None, where: str
 ) -> pd.DataFrame:
@@ -60,6 +80,15 @@ def _one_station(
                 f"{where}: station {code!r} asked for, but the sheet has no station column; "
                 "map it with columns: {station: ...} (sources.yaml) / --column station=NAME"
             )
+        for name in frame.columns:  # a column that looks like a station column, not mapped: never mix stations
+            key = str(name).strip().lower().replace(" ", "_").replace("-", "_")
+            if key in _STATION_LIKE and frame[name].nunique(dropna=True) > 1:
+                raise SourceError(
+                    f"{where}: column {name!r} looks like a station column and holds "
+                    f"{sorted(map(str, frame[name].dropna().unique()))[:10]}; the rows of several stations would be "
+                    "mixed into one series. Map it with columns: {station: "
+                    f"{name!r}}} and set station_code (sources.yaml) / --column station={name} --station CODE"
+                )
         return frame
     values = frame[column].map(lambda v: str(int(v)) if isinstance(v, float) and v.is_integer() else str(v).strip())
     found = sorted(set(values))
