@@ -71,7 +71,9 @@ finish_help(app)
 
 
 #: commands that may start other processes (servers, Dask workers, process pools)
-_STARTS_PROCESSES = frozenset({"build", "refresh", "demo", "schedule", "zonal", "scenes", "features", "forecast"})
+_STARTS_PROCESSES = frozenset(
+    {"build", "refresh", "demo", "schedule", "zonal", "scenes", "features", "forecast", "verify"}
+)
 
 
 class _Options:
