@@ -1,9 +1,9 @@
 """Report section: baseline skill by lead (figure) and the feature-screening summary (tables).
 
-Takes a :class:`~lakefeed.store.Store` and a lake id; reads ``baseline_skill`` and ``feature_screening``
-(written by :mod:`lakefeed.stages.skill`) and returns one HTML fragment: a heading, an inline base64 PNG of
-the RMSE of persistence and climatology by lead per AOI (pooled test rows of all folds, ``cv``), a table of
-the baselines' continuous scores, a table of kept and dropped features by reason, and the caution. A missing
+Takes the report context; reads ``baseline_skill`` and ``feature_screening`` (written by
+:mod:`lakefeed.stages.skill`) and returns a :class:`~lakefeed.report._page.Section`: an inline PNG of the RMSE
+of persistence and climatology by lead per AOI (pooled test rows of all folds, ``cv``), a table of the
+baselines' continuous scores, a table of kept and dropped features by reason, and the caution. A missing
 table gives a note instead. Must not compute science: it shows what the stage stored.
 """
 
