@@ -30,3 +30,15 @@ def test_step_clock_records_each_step_and_the_rest() -> None:
     console.print(clock.table(10.0, title="time per stage"))
     text = console.export_text()
     assert "weather" in text and "report" in text and "other (start-up" in text and "10.0" in text
+
+
+def test_step_clock_counts_a_step_from_the_previous_steps_last_report(monkeypatch) -> None:
+    """A stage computes before its first report: its time runs from the previous stage's last report."""
+    import time
+
+    ticks = iter([0.0, 1.0, 5.0, 6.0])  # weather reports at 0 s and 1 s; features first reports at 5 s, ends 6 s
+    monkeypatch.setattr(time, "perf_counter", lambda: next(ticks))
+    clock = StepClock(lambda *_: None)
+    for text in ("weather: a", "weather: b", "features: a", "features: b"):
+        clock(text, 0, 1)
+    assert {k: b - a for k, (a, b) in clock.spans.items()} == {"weather": 1.0, "features": 5.0}

@@ -27,17 +27,21 @@ __all__ = ["StepClock", "demo_command", "forecast_lead_notes", "print_store_summ
 
 
 class StepClock:
-    """Wraps a progress callback and records, per step (text before ':'), the first and last time it reported."""
+    """Wraps a progress callback and records, per step (text before ':'), when it ran: from the previous step's
+    last report (a step computes before its first report) to its own last report."""
 
     def __init__(self, progress: ProgressFn) -> None:
         self._progress = progress
         self.spans: dict[str, list[float]] = {}
+        self._last: float | None = None
 
     def __call__(self, description: str, done: int, total: int) -> None:
         import time
 
         now = time.perf_counter()
-        self.spans.setdefault(description.split(":", 1)[0], [now, now])[1] = now
+        start = self._last if self._last is not None else now
+        self.spans.setdefault(description.split(":", 1)[0], [start, now])[1] = now
+        self._last = now
         self._progress(description, done, total)
 
     def table(self, total_s: float, *, title: str) -> Table:
