@@ -75,3 +75,10 @@ def test_commands_listed_in_workflow_order() -> None:
     done = runner.invoke(app, ["--help"], env={"COLUMNS": "400", "TERMINAL_WIDTH": "400"})
     listed = [m.group(1) for m in re.finditer(r"^│ (\w+) +\S", done.output.split("Commands", 1)[1], re.M)]
     assert listed == names
+
+
+@pytest.mark.parametrize("command", _commands())
+def test_arguments_are_named_in_words_too(command: str) -> None:
+    """Arguments as well as options: no Python type names such as <list[Path]>, <path> or <str>."""
+    text = _help(*command.split())
+    assert not re.search(r"<(list\[|path|str|int|float)", text), text

@@ -5,9 +5,11 @@ from __future__ import annotations
 import os
 import sys
 from pathlib import Path
+from typing import Any
 
 import typer
 from rich.console import Console
+from typer.core import TyperArgument
 
 app = typer.Typer(
     name="lakefeed",
@@ -66,7 +68,7 @@ def _metavar(name: str, annotation: object) -> str | None:
     if len(args) == 1 and typing.get_origin(annotation) is not list:  # X | None
         return _metavar(name, args[0])
     if typing.get_origin(annotation) is list:
-        inner = _metavar(name, args[0]) if args else "VALUE"
+        inner = (_metavar(name, args[0]) if args else None) or "VALUE"
         return f"{'FILE' if args and args[0] is Path else inner}..."
     if annotation is bool:
         return ""  # a flag takes no value
@@ -76,6 +78,16 @@ def _metavar(name: str, annotation: object) -> str | None:
         if name.endswith(ending):
             return word
     return _METAVAR_BY_TYPE.get(annotation)  # type: ignore[call-overload]
+
+
+def _argument_type(self: TyperArgument, ctx: Any) -> str | None:
+    """The type column of an argument in a person's words (typer shows the annotation, e.g. ``<list[str]>``)."""
+    return _metavar(self.name or "", self.type_descriptor.annotation) or _TYPER_ARGUMENT_TYPE(self, ctx)
+
+
+# typer 0.29 takes an argument's type column from its annotation and ignores its metavar: name it ourselves
+_TYPER_ARGUMENT_TYPE = TyperArgument.display_type_rich
+TyperArgument.display_type_rich = _argument_type  # type: ignore[method-assign]
 
 
 def finish_help(application: typer.Typer) -> None:
