@@ -16,6 +16,8 @@ def test_lead_beyond_the_archive_is_named() -> None:
         "its bias is shown at lead 9"
     ]
     assert forecast_lead_notes([1, 3, 5], list(range(1, 10)), feats) == []  # every lead inside the archive
+    with_hours = forecast_lead_notes([10], list(range(1, 10)), feats, archive_hours=240)
+    assert with_hours[0].startswith("lead 10 uses forecast days 1-9: the 240 h archive ends inside day 10")
 
 
 def test_step_clock_records_each_step_and_the_rest() -> None:

@@ -118,6 +118,21 @@ def sample_run(small_sample, tmp_path_factory):
 
 
 @pytest.mark.slow
+def test_archive_length_recorded(sample_run):
+    """The longest forecast period of the archive (hours), for the screens' lead notes; recomputed with xarray."""
+    import xarray as xr
+
+    project, store, _, _ = sample_run
+    longest = 0
+    for path in project.sources.forecast.paths:
+        for f in sorted(Path(path).parent.glob(Path(path).name)):
+            with xr.open_dataset(f) as ds:
+                longest = max(longest, int(ds["forecast_period"].values.max() / np.timedelta64(1, "h")))
+    meta = store.entry("forecast_drivers_daily", project.id)["metadata"]
+    assert longest > 0 and meta["archive_hours"] == str(longest)
+
+
+@pytest.mark.slow
 def test_sample_tables_written(sample_run):
     project, store, result, _ = sample_run
     assert not result.skipped and set(result.tables) == {"forecast_drivers_daily", "bias_adjustment",

@@ -57,10 +57,13 @@ class StepClock:
         return table
 
 
-def forecast_lead_notes(configured: list[int], evaluated: list[int], features: object | None) -> list[str]:
+def forecast_lead_notes(
+    configured: list[int], evaluated: list[int], features: object | None, *, archive_hours: int | None = None
+) -> list[str]:
     """One line per configured forecast lead longer than the archive's longest full local day (evaluated leads).
 
-    ``features``: the lake's features frame with ``lead_days`` and ``forecast_days`` (or None).
+    ``features``: the lake's features frame with ``lead_days`` and ``forecast_days`` (or None);
+    ``archive_hours``: the archive's longest forecast period in hours (``forecast_drivers_daily`` metadata).
     """
     import pandas as pd
 
@@ -74,7 +77,9 @@ def forecast_lead_notes(configured: list[int], evaluated: list[int], features: o
             days = features.loc[features["lead_days"] == lead, "forecast_days"].dropna()
             used = int(days.max()) if len(days) else used
         notes.append(
-            f"lead {lead} uses forecast days 1-{used}: the archive's forecasts end inside day {longest + 1} "
+            f"lead {lead} uses forecast days 1-{used}: the "
+            + (f"{archive_hours} h archive ends" if archive_hours else "archive's forecasts end")
+            + f" inside day {longest + 1} "
             f"(longest full local day: {longest}); its bias is shown at lead {longest}"
         )
     return notes
@@ -207,7 +212,9 @@ def demo_command(
             if s.has_table("features", lake)
             else None
         )
-        for note in forecast_lead_notes(configured, evaluated, feats):
+        hours = ((s.entry("forecast_drivers_daily", lake) or {}).get("metadata") or {}).get("archive_hours")
+        notes = forecast_lead_notes(configured, evaluated, feats, archive_hours=int(hours) if hours else None)
+        for note in notes:
             console.print(f"[yellow]{escape(note)}[/]", highlight=False)
     status = summary["status"]
     colour = {"failed": "red", "ok": "green"}.get(status, "yellow")

@@ -292,7 +292,9 @@ def build_forecast(
     for c in ("issue_date", "date", "fitted_through"):
         both[c] = pd.to_datetime(both[c]).dt.date
     units = dict(DAILY_UNITS) | {"lead_days": "d"}
+    leads = np.asarray(archive.dataset[LEAD].values)
     meta = {
+        "archive_hours": str(int(leads.max() / np.timedelta64(1, "h"))) if leads.dtype.kind == "m" else "",
         "settings": str(table["settings"].iat[0]),
         "overlap_days": str(info["overlap_days"]),
         "bias_table_reused": str(info["reused"]),
