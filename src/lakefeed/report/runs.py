@@ -11,7 +11,7 @@ __all__ = ["runs_section"]
 
 def runs_section(ctx: ReportContext) -> Section:
     """The run history section (newest first)."""
-    title = "8. Run history"
+    title = "9. Run history"
     runs = ctx.table("run_summary")
     if runs is None or runs.empty:
         return Section("runs", title, missing("no run_summary table (no build or refresh recorded yet)"))

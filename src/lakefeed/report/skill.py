@@ -87,4 +87,4 @@ def skill_section(ctx: ReportContext) -> Section:
         leaks = screening[screening["suspect_leak"] & (screening["fold"] == "all")].drop_duplicates("feature")
         parts += [f'<p class="warn">{html.escape(m)}</p>' for m in leaks["message"]]
     parts.append(f'<p class="caution">{html.escape(CAUTION)}</p>')
-    return Section("skill", "Baseline skill by lead and feature screening", "\n".join(parts))
+    return Section("skill", "8. Baseline skill by lead and feature screening", "\n".join(parts))
