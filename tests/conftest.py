@@ -8,6 +8,10 @@ from pathlib import Path
 import pytest
 from hypothesis import settings
 
+# Console output is laid out for a known width, whether the tests run in a terminal, under CI or in
+# pytest-xdist workers (no terminal: rich would wrap at 80 columns and split the words tests look for).
+os.environ.setdefault("COLUMNS", "200")
+
 # the S3-compatible server on loopback (moto), shared by every test folder
 from s3server import s3_bucket, s3_env, s3_server  # noqa: F401
 

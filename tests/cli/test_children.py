@@ -19,7 +19,8 @@ pytestmark = pytest.mark.skipif(os.name != "posix", reason="the watcher relies o
 # grandchild below it (as Prefect's server and Dask's nanny -> worker do), then reports their ids.
 _COMMAND = textwrap.dedent(
     """
-    import subprocess, sys, time
+    import signal, subprocess, sys, time
+    signal.signal(signal.SIGINT, signal.default_int_handler)  # as in a terminal (a test runner may ignore it)
     from lakefeed.cli.children import guard_children
     guard_children()
     child = subprocess.Popen([sys.executable, "-c",
