@@ -6,7 +6,7 @@ import re
 
 __all__ = ["TABLES", "partition_path", "table_path"]
 
-#: Tables of the public store contract (DESIGN.md) plus auxiliary ones.
+#: Tables of the public store contract (docs/architecture.md, "Store tables") plus auxiliary ones.
 TABLES = (
     "drivers_daily",
     "hydrology_daily",
@@ -18,6 +18,8 @@ TABLES = (
     "forecast_drivers_daily",
     "forecast_evaluation",
     "load_estimates",
+    "feature_screening",
+    "baseline_skill",
     "weights",
     "run_summary",
 )
