@@ -26,6 +26,7 @@ __all__ = [
     "KEYS",
     "arrow_rows",
     "fold_diagnostics",
+    "fold_numbers",
     "fold_options",
     "folds",
     "sorted_by_keys",
@@ -74,10 +75,14 @@ def fold_options(opts: FeatureOptions) -> str:
 
 
 def folds(arrow: pa.Table, opts: FeatureOptions) -> np.ndarray:
-    """Fold per row, from its target date only (the same target date shares a fold across leads and AOIs):
+    """Fold per row of the feature table: :func:`fold_numbers` of its target dates."""
+    return fold_numbers(arrow["target_date"].to_numpy(), opts)
+
+
+def fold_numbers(dates: np.ndarray, opts: FeatureOptions) -> np.ndarray:
+    """Fold per target date (the same date shares a fold across leads and AOIs, hindcast and re-forecast):
     calendar blocks (blocked) or a hash of the date (random); never from the other rows, so a row's fold is
     the same in an incremental refresh and in a clean build."""
-    dates = arrow["target_date"].to_numpy()
     return assign_folds(
         dates,
         k=opts.folds,

@@ -39,11 +39,10 @@ from lakefeed.extract.forecast_daily import check_increments, deaccumulate_forec
 from lakefeed.extract.forecast_evaluation import bias_table, expanding_adjustment, leave_one_year_out, overlap_days
 from lakefeed.extract.quantile_mapping import DEFAULT_KINDS, fit_quantile_mapping
 from lakefeed.geometry.weights import ZoneWeights
-from lakefeed.geometry.zones import build_zones, zone_latitudes
+from lakefeed.geometry.zones import zone_latitudes
 from lakefeed.progress import Progress, no_progress
 from lakefeed.sources.forecasts import ISSUE, LEAD, ForecastArchive, open_forecasts
 from lakefeed.sources.grids import find_variable
-from lakefeed.sources.vectors import read_layer
 from lakefeed.stages._features_output import KEYS as _FEATURE_KEYS
 from lakefeed.stages._forecast_refresh import SIGNATURE, content_hash, raw_drivers, raw_signature
 from lakefeed.stages._guard import refuse_shrink
@@ -51,7 +50,8 @@ from lakefeed.stages._provenance import config_hash
 from lakefeed.stages._result import StageResult
 from lakefeed.stages._rewrite_tail import write_from_first_change
 from lakefeed.stages.forecast_features import reforecast_features
-from lakefeed.stages.weather import get_weights, hourly_drivers
+from lakefeed.stages.weather import hourly_drivers
+from lakefeed.stages.weights_cache import get_weights, lake_zones
 from lakefeed.store import Store
 from lakefeed.units import convert
 
@@ -125,20 +125,7 @@ def daily_forecasts(
     """Raw daily forecast drivers per zone, issue and lead (``drivers_daily`` columns and units) and warnings."""
     lake = project.lake
     grid = archive.as_grid()
-    lake_g = read_layer(lake.lake, what="lake polygon")
-    aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
-    subs = None
-    if lake.zones.catchment or lake.zones.subbasins:
-        subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
-    zones = build_zones(
-        lake_g,
-        aois=aois,
-        aoi_id_field=lake.aois.id_field,
-        subbasins=subs,
-        subbasin_layer=lake.subbasins,
-        options=lake.zones,
-        crs=grid.crs,
-    )
+    zones, _ = lake_zones(lake, grid.crs)
     weights, _ = get_weights(zones, grid, cache_dir=cache_dir, allow_partial_coverage=lake.zones.allow_partial_coverage)
     cube, warnings = forecast_steps(archive, weights, source=project.sources.forecast, progress=progress)
     flags = {z: weights.flags(z) for z in weights.zones}

@@ -15,8 +15,8 @@ import pandas as pd
 
 from lakefeed.config import Project
 from lakefeed.config.lake import FeatureOptions
-from lakefeed.features import assign_folds
 from lakefeed.features.reforecast import reforecast_rows
+from lakefeed.stages._features_output import fold_numbers
 from lakefeed.stages._result import StageResult
 from lakefeed.store import Store
 
@@ -101,11 +101,4 @@ def reforecast_folds(rows: pd.DataFrame, opts: FeatureOptions) -> np.ndarray:
     """Fold of each re-forecast row: the fold the features stage gives its target date (calendar blocks or a
     hash of the date, :func:`lakefeed.features.assign_folds`), so a target date carries one fold across all
     its leads, hindcast and re-forecast."""
-    dates = pd.to_datetime(rows["target_date"]).to_numpy()
-    return assign_folds(
-        dates,
-        k=opts.folds,
-        kind=opts.fold_kind,
-        block_months=opts.fold_block_months,
-        embargo_days=opts.effective_embargo_days,
-    )
+    return fold_numbers(pd.to_datetime(rows["target_date"]).to_numpy(), opts)

@@ -68,33 +68,17 @@ def prepare_weather(
     :func:`lakefeed.stages.weather.build_weather`; ``warnings``: the grid's warnings so far (time gaps).
     """
     from lakefeed.extract.daily import DAILY_COLUMNS
-    from lakefeed.geometry.zones import build_zones
-    from lakefeed.sources.vectors import read_layer
     from lakefeed.stages._map import record_cells
     from lakefeed.stages._provenance import config_hash, input_hashes, layer_paths
     from lakefeed.stages._weather_refresh import read_window, refresh_plan
-    from lakefeed.stages.weights_cache import get_weights
+    from lakefeed.stages.weights_cache import get_weights, lake_zones
 
     p = progress or no_progress
     lake = project.lake
     src = project.sources.weather
     assert src is not None  # the caller skips a lake without a weather source
     p("weather: zones", 0, 3)
-    lake_g = read_layer(lake.lake, what="lake polygon")
-    aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
-    subs = None
-    if lake.zones.catchment or lake.zones.subbasins:
-        subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
-    layers = [lake.lake, lake.aois if aois is not None else None, lake.subbasins if subs is not None else None]
-    zones = build_zones(
-        lake_g,
-        aois=aois,
-        aoi_id_field=lake.aois.id_field,
-        subbasins=subs,
-        subbasin_layer=lake.subbasins,
-        options=lake.zones,
-        crs=grid.crs,
-    )
+    zones, layers = lake_zones(lake, grid.crs)
     p("weather: weights", 1, 3)
     weights, _ = get_weights(
         zones,

@@ -21,7 +21,9 @@ from lakefeed.sources.grid_model import Grid
 if TYPE_CHECKING:
     import geopandas as gpd
 
-__all__ = ["get_weights"]
+    from lakefeed.config import LakeConfig, LayerRef
+
+__all__ = ["get_weights", "lake_zones"]
 
 
 def get_weights(
@@ -48,3 +50,27 @@ def get_weights(
         np.savez(tmp, **w.to_arrays())
         tmp.replace(path)
     return w, False
+
+
+def lake_zones(lake: LakeConfig, crs: str) -> tuple[gpd.GeoDataFrame, list[LayerRef | None]]:
+    """The lake's zones in ``crs`` as its ``zones`` options ask (lake surface, AOIs, catchment, sub-basins), read
+    from its layers, and the layers read (None for one the options leave out) for the stage's provenance."""
+    from lakefeed.geometry.zones import build_zones
+    from lakefeed.sources.vectors import read_layer
+
+    lake_g = read_layer(lake.lake, what="lake polygon")
+    aois = read_layer(lake.aois, what="areas of interest", id_field=lake.aois.id_field) if lake.zones.aois else None
+    subs = None
+    if lake.zones.catchment or lake.zones.subbasins:
+        subs = read_layer(lake.subbasins, what="sub-basins", id_field=lake.subbasins.id_field)
+    zones = build_zones(
+        lake_g,
+        aois=aois,
+        aoi_id_field=lake.aois.id_field,
+        subbasins=subs,
+        subbasin_layer=lake.subbasins,
+        options=lake.zones,
+        crs=crs,
+    )
+    layers = [lake.lake, lake.aois if aois is not None else None, lake.subbasins if subs is not None else None]
+    return zones, layers
