@@ -11,6 +11,7 @@ import html
 
 import matplotlib.pyplot as plt
 import pandas as pd
+from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
 from lakefeed.extract.trophic import CARLSON_CLASSES, carlson_tsi
@@ -147,16 +148,7 @@ def target_figure(
             )
             ax.plot(d["date"], d["chla"], color="black", lw=0.9, label="fused daily")
         for name, value in thresholds:
-            ax.axhline(value, color="crimson", ls="--", lw=0.9, alpha=0.8)
-            ax.annotate(
-                f"{name} {value:g}",
-                (1.0, value),
-                xycoords=("axes fraction", "data"),
-                ha="right",
-                va="bottom",
-                fontsize=6,
-                color="crimson",
-            )
+            _threshold_line(ax, value, f"{name} {value:g}", lw=0.9)
         ax.set_yscale("log")
         plain_log_axes(ax)
         ax.set_ylabel(f"{aoi}\nchl-a ({unit})", fontsize=8)
@@ -193,17 +185,7 @@ def tsi_figure(daily: pd.DataFrame, thresholds: list[tuple[str, float]]) -> Figu
                 zorder=4,
             )
         for name, value in thresholds:  # the thresholds on the TSI scale
-            tsi = float(carlson_tsi(value))
-            ax.axhline(tsi, color="crimson", ls="--", lw=0.8, alpha=0.8)
-            ax.annotate(
-                f"{name} ({value:g} mg m-3)",
-                (1.0, tsi),
-                xycoords=("axes fraction", "data"),
-                ha="right",
-                va="bottom",
-                fontsize=6,
-                color="crimson",
-            )
+            _threshold_line(ax, float(carlson_tsi(value)), f"{name} ({value:g} mg m-3)", lw=0.8)
         lines = [float(carlson_tsi(v)) for _, v in thresholds]
         lo, hi = ax.get_ylim()
         ax.set_ylim(min([lo, *lines]) - 2, max([hi, *lines]) + 6)  # every threshold line and its label inside
@@ -214,3 +196,11 @@ def tsi_figure(daily: pd.DataFrame, thresholds: list[tuple[str, float]]) -> Figu
     axes[0, 0].set_title("Carlson trophic state index per AOI, coloured by class (threshold lines dashed)")
     fig.tight_layout()
     return fig
+
+
+def _threshold_line(ax: Axes, y: float, label: str, *, lw: float) -> None:
+    """A configured threshold drawn as a dashed line at ``y`` with its label at the right end."""
+    ax.axhline(y, color="crimson", ls="--", lw=lw, alpha=0.8)
+    ax.annotate(
+        label, (1.0, y), xycoords=("axes fraction", "data"), ha="right", va="bottom", fontsize=6, color="crimson"
+    )
